@@ -1,0 +1,101 @@
+#include "detectors/profile.h"
+
+#include <algorithm>
+#include <cmath>
+
+namespace plumbline {
+
+std::string_view ToString(SeriesKind kind) {
+  switch (kind) {
+    case SeriesKind::kGauge: return "gauge";
+    case SeriesKind::kCount: return "count";
+    case SeriesKind::kMeter: return "meter";
+  }
+  return "gauge";
+}
+
+std::string_view ToString(GapPolicy gaps) {
+  switch (gaps) {
+    case GapPolicy::kSkip: return "skip";
+    case GapPolicy::kZero: return "zero";
+    case GapPolicy::kHold: return "hold";
+  }
+  return "skip";
+}
+
+std::string_view ToString(DetectorKind detector) {
+  switch (detector) {
+    case DetectorKind::kCusum: return "cusum";
+    case DetectorKind::kPageHinkley: return "page-hinkley";
+    case DetectorKind::kBocpd: return "bocpd";
+    case DetectorKind::kEwma: return "ewma";
+  }
+  return "cusum";
+}
+
+std::optional<SeriesKind> SeriesKindFromString(std::string_view text) {
+  for (SeriesKind k : {SeriesKind::kGauge, SeriesKind::kCount, SeriesKind::kMeter}) {
+    if (ToString(k) == text) return k;
+  }
+  return std::nullopt;
+}
+
+std::optional<GapPolicy> GapPolicyFromString(std::string_view text) {
+  for (GapPolicy g : {GapPolicy::kSkip, GapPolicy::kZero, GapPolicy::kHold}) {
+    if (ToString(g) == text) return g;
+  }
+  return std::nullopt;
+}
+
+std::optional<DetectorKind> DetectorKindFromString(std::string_view text) {
+  for (DetectorKind d : {DetectorKind::kCusum, DetectorKind::kPageHinkley,
+                         DetectorKind::kBocpd, DetectorKind::kEwma}) {
+    if (ToString(d) == text) return d;
+  }
+  return std::nullopt;
+}
+
+std::string_view SeriesKindChoices() { return "gauge | count | meter"; }
+std::string_view GapPolicyChoices() { return "skip | zero | hold"; }
+std::string_view DetectorKindChoices() { return "cusum | page-hinkley | bocpd | ewma"; }
+
+bool ProfileOptions::IsValid(std::string* why) const {
+  auto fail = [why](std::string message) {
+    if (why) *why = std::move(message);
+    return false;
+  };
+  if (match.empty()) return fail("match must be a non-empty glob");
+  for (EventTime period : seasons) {
+    if (period <= 0) return fail("seasons must be positive durations");
+  }
+  if (!harmonics.empty() && harmonics.size() != seasons.size()) {
+    return fail("harmonics must give one count per season (" +
+                std::to_string(seasons.size()) + " seasons)");
+  }
+  for (int h : harmonics) {
+    if (h < 1 || h > 24) return fail("harmonics must each be in [1, 24]");
+  }
+  if (warmup < 4 || warmup > 1000000) return fail("warmup must be in [4, 1000000] readings");
+  if (!(arl0 >= 10 && arl0 <= 1e7)) return fail("arl0 must be in [10, 10000000] readings");
+  if (!(shift > 0 && shift <= 10)) return fail("shift must be in (0, 10] standard deviations");
+  if (detectors.empty()) return fail("detectors must name at least one of " +
+                                     std::string(DetectorKindChoices()));
+  for (size_t i = 0; i < detectors.size(); ++i) {
+    if (std::count(detectors.begin(), detectors.end(), detectors[i]) > 1) {
+      return fail("detectors must not repeat '" + std::string(ToString(detectors[i])) + "'");
+    }
+  }
+  if (agree < 1 || agree > static_cast<int>(detectors.size())) {
+    return fail("agree must be in [1, " + std::to_string(detectors.size()) +
+                "] (the number of detectors)");
+  }
+  if (silence_after && *silence_after <= 0) return fail("silence_after must be positive");
+  if (every && *every <= 0) return fail("every must be a positive duration");
+  if (memory && *memory <= 0) return fail("memory must be a positive duration");
+  if (lateness < 0) return fail("lateness must be zero or a positive duration");
+  if (agree_within < 1 || agree_within > 1000) return fail("agree_within must be in [1, 1000] readings");
+  if (cooldown < 0 || cooldown > 1000000) return fail("cooldown must be in [0, 1000000] readings");
+  return true;
+}
+
+}  // namespace plumbline

@@ -1,0 +1,69 @@
+// A profile: how Plumbline models and watches every series whose name matches
+// its glob. Profiles come from the `series:` list of the config (config/ maps the
+// YAML onto this struct; the first profile whose glob matches a series wins).
+// Plain value type; thread-compatible.
+#pragma once
+
+#include <optional>
+#include <string>
+#include <string_view>
+#include <vector>
+
+#include "detectors/event_time.h"
+
+namespace plumbline {
+
+// What a reading's value means, which decides how readings are combined in time.
+enum class SeriesKind {
+  kGauge,  // a level at an instant (temperature, power); averaged over time
+  kCount,  // an amount that happened (pallets, door openings); summed
+  kMeter,  // a monotone running total (energy meter); differenced, spread over its interval
+};
+
+// What an interval with no readings means.
+enum class GapPolicy {
+  kSkip,  // unknown: nothing is inferred, the model just waits
+  kZero,  // nothing happened: empty buckets count as zero (counts)
+  kHold,  // the last value still holds (gauges that report on change)
+};
+
+enum class DetectorKind { kCusum, kPageHinkley, kBocpd, kEwma };
+
+std::string_view ToString(SeriesKind kind);
+std::string_view ToString(GapPolicy gaps);
+std::string_view ToString(DetectorKind detector);
+std::optional<SeriesKind> SeriesKindFromString(std::string_view text);
+std::optional<GapPolicy> GapPolicyFromString(std::string_view text);
+std::optional<DetectorKind> DetectorKindFromString(std::string_view text);
+// The valid spellings, for error messages: "gauge | count | meter".
+std::string_view SeriesKindChoices();
+std::string_view GapPolicyChoices();
+std::string_view DetectorKindChoices();
+
+struct ProfileOptions {
+  // --- keys guaranteed by DESIGN.md ---
+  std::string match = "*";  // glob over series names (see detectors/glob.h)
+  SeriesKind kind = SeriesKind::kGauge;
+  std::vector<EventTime> seasons = {kMicrosPerDay, 7 * kMicrosPerDay};  // periods; {} for none
+  GapPolicy gaps = GapPolicy::kSkip;
+  int warmup = 48;        // readings before the detectors arm, >= 4
+  double arl0 = 5000;     // target in-control average run length, in readings, [10, 1e7]
+  double shift = 1.0;     // smallest shift worth catching, in residual sd, (0, 10]
+  std::vector<DetectorKind> detectors = {DetectorKind::kCusum, DetectorKind::kPageHinkley};
+  int agree = 1;          // detectors that must fire within agree_within readings, [1, #detectors]
+  std::optional<EventTime> silence_after;  // unset: an adaptive multiple of the typical interval
+
+  // --- further keys, all optional ---
+  std::vector<int> harmonics;        // Fourier pairs per season; {} = defaults; else one per season, [1, 24]
+  std::optional<EventTime> every;    // bucket width; unset = each reading at its own time
+  std::optional<EventTime> memory;   // forgetting timescale; unset = derived from seasons and spacing
+  bool trend = true;                 // include a local linear trend term
+  EventTime lateness = 0;            // readings up to this much out of order are reordered
+  int agree_within = 5;              // readings within which `agree` detectors must fire, [1, 1000]
+  int cooldown = 0;                  // readings after an alert before the next; 0 = warmup
+
+  // One-line rules; on failure *why names the key and its valid range.
+  bool IsValid(std::string* why) const;
+};
+
+}  // namespace plumbline
