@@ -1,0 +1,193 @@
+#include "detectors/seasonal_forecaster.h"
+
+#include <cmath>
+#include <limits>
+#include <numbers>
+
+namespace plumbline {
+
+bool SeasonalForecasterOptions::IsValid(std::string* why) const {
+  auto fail = [why](const char* message) {
+    if (why) *why = message;
+    return false;
+  };
+  if (harmonics.size() != seasons.size()) {
+    return fail("harmonics must give one count per season");
+  }
+  for (EventTime period : seasons) {
+    if (period <= 0) return fail("seasons must be positive durations");
+  }
+  for (int h : harmonics) {
+    if (h < 1 || h > 24) return fail("harmonics must each be in [1, 24]");
+  }
+  if (memory <= 0) return fail("memory must be a positive duration");
+  if (!(prior_variance > 0 && std::isfinite(prior_variance))) {
+    return fail("prior_variance must be finite and > 0");
+  }
+  return true;
+}
+
+int SeasonalForecasterOptions::DefaultHarmonics(EventTime period) {
+  // Common practice, no source: enough harmonics for sharp intraday shapes,
+  // few for long smooth cycles where they would mostly fit noise.
+  if (period <= 12 * kMicrosPerHour) return 6;
+  if (period <= 2 * kMicrosPerDay) return 6;
+  if (period <= 31 * kMicrosPerDay) return 3;
+  return 4;
+}
+
+SeasonalForecaster::SeasonalForecaster(const SeasonalForecasterOptions& options)
+    : options_(options), periods_(options.seasons), harmonics_(options.harmonics) {
+  int n = 2;
+  for (int h : harmonics_) n += 2 * h;
+  theta_ = Vector::Zero(n);
+  p_ = Matrix::Identity(n, n) * options_.prior_variance;
+  x_ = Vector::Zero(n);
+  px_ = Vector::Zero(n);
+}
+
+void SeasonalForecaster::FillRegressors(EventTime t, Vector* x) const {
+  Vector& r = *x;
+  r[0] = 1.0;
+  r[1] = options_.trend ? static_cast<double>(t - t_ref_) / static_cast<double>(options_.memory)
+                        : 0.0;
+  int i = 2;
+  for (size_t s = 0; s < periods_.size(); ++s) {
+    EventTime within = t % periods_[s];
+    if (within < 0) within += periods_[s];
+    const double angle = 2.0 * std::numbers::pi * static_cast<double>(within) /
+                         static_cast<double>(periods_[s]);
+    const double c1 = std::cos(angle), s1 = std::sin(angle);
+    double c = c1, sn = s1;
+    for (int j = 0; j < harmonics_[s]; ++j) {
+      r[i++] = c;
+      r[i++] = sn;
+      const double next_c = c * c1 - sn * s1;  // angle addition: harmonic j+1
+      sn = sn * c1 + c * s1;
+      c = next_c;
+    }
+  }
+}
+
+void SeasonalForecaster::FillIntervalRegressors(EventTime from, EventTime to,
+                                                Vector* x) const {
+  if (to <= from) {
+    FillRegressors(to, x);
+    return;
+  }
+  Vector& r = *x;
+  r[0] = 1.0;
+  // The trend is linear, so its mean over the interval is its value at the midpoint.
+  r[1] = options_.trend ? (0.5 * static_cast<double>(from - t_ref_) +
+                           0.5 * static_cast<double>(to - t_ref_)) /
+                              static_cast<double>(options_.memory)
+                        : 0.0;
+  int i = 2;
+  for (size_t s = 0; s < periods_.size(); ++s) {
+    const EventTime period = periods_[s];
+    EventTime a = from % period;
+    if (a < 0) a += period;
+    const double length = static_cast<double>(to - from);  // may span many periods
+    const double angle_a = 2.0 * std::numbers::pi * static_cast<double>(a) /
+                           static_cast<double>(period);
+    const double span = 2.0 * std::numbers::pi * length / static_cast<double>(period);
+    for (int j = 1; j <= harmonics_[s]; ++j) {
+      const double w_length = j * span;  // omega_j (b - a)
+      const double start = j * angle_a, end = start + w_length;
+      r[i++] = (std::sin(end) - std::sin(start)) / w_length;
+      r[i++] = (std::cos(start) - std::cos(end)) / w_length;
+    }
+  }
+}
+
+Forecast SeasonalForecaster::PredictInterval(EventTime from, EventTime to) const {
+  if (updates_ == 0) return {0.0, std::numeric_limits<double>::infinity()};
+  FillIntervalRegressors(from, to, &x_);
+  const double lambda = std::exp(-static_cast<double>(std::max<EventTime>(to - t_ref_, 0)) /
+                                 static_cast<double>(options_.memory));
+  return {x_.dot(theta_), x_.dot(p_.selfadjointView<Eigen::Lower>() * x_) / lambda};
+}
+
+Forecast SeasonalForecaster::Predict(EventTime t) const {
+  if (updates_ == 0) return {0.0, std::numeric_limits<double>::infinity()};
+  FillRegressors(t, &x_);
+  const double lambda = std::exp(-static_cast<double>(std::max<EventTime>(t - t_ref_, 0)) /
+                                 static_cast<double>(options_.memory));
+  Forecast f;
+  f.value = x_.dot(theta_);
+  f.parameter_variance_factor = x_.dot(p_.selfadjointView<Eigen::Lower>() * x_) / lambda;
+  return f;
+}
+
+void SeasonalForecaster::Recentre(EventTime t) {
+  if (!options_.trend || t == t_ref_) {
+    t_ref_ = t;
+    return;
+  }
+  const double d = static_cast<double>(t - t_ref_) / static_cast<double>(options_.memory);
+  // theta' = A theta, P' = A P A' with A = I + d e_0 e_1'.
+  theta_[0] += d * theta_[1];
+  p_.row(0) += d * p_.row(1);
+  p_.col(0) += d * p_.col(1);
+  t_ref_ = t;
+}
+
+StatusOr<Forecast> SeasonalForecaster::Update(EventTime t, double y) {
+  return UpdateWith(t, y, false, t);
+}
+
+StatusOr<Forecast> SeasonalForecaster::UpdateInterval(EventTime from, EventTime to,
+                                                      double mean) {
+  if (from > to) return Status::InvalidArgument("interval ends before it starts");
+  return UpdateWith(to, mean, from < to, from);
+}
+
+StatusOr<Forecast> SeasonalForecaster::UpdateWith(EventTime t, double y, bool interval,
+                                                  EventTime from) {
+  if (!std::isfinite(y)) return Status::InvalidArgument("reading value is not finite");
+  if (updates_ > 0 && t < t_ref_) {
+    return Status::OutOfRange("reading is earlier than the forecaster's last update");
+  }
+  if (updates_ == 0) {
+    t_ref_ = t;
+    theta_.setZero();
+    theta_[0] = y;
+    p_ = Matrix::Identity(dimension(), dimension()) * options_.prior_variance;
+  }
+  const double lambda = std::exp(-static_cast<double>(t - t_ref_) /
+                                 static_cast<double>(options_.memory));
+  Recentre(t);
+  p_ /= lambda;
+  if (interval) {
+    FillIntervalRegressors(from, t, &x_);
+  } else {
+    FillRegressors(t, &x_);
+  }
+  px_.noalias() = p_ * x_;
+  const double xpx = x_.dot(px_);
+  Forecast before{x_.dot(theta_), xpx};
+  const double error = y - before.value;
+  const double denominator = 1.0 + xpx;
+  theta_.noalias() += px_ * (error / denominator);
+  p_.noalias() -= (px_ / denominator) * px_.transpose();
+  // Keep P exactly symmetric (mirror the lower triangle) and bounded by the
+  // prior variance on its diagonal.
+  p_.triangularView<Eigen::StrictlyUpper>() = p_.transpose();
+  for (int i = 0; i < dimension(); ++i) {
+    const double pii = p_(i, i);
+    if (pii > options_.prior_variance) {
+      const double scale = std::sqrt(options_.prior_variance / pii);
+      p_.row(i) *= scale;
+      p_.col(i) *= scale;
+    }
+  }
+  ++updates_;
+  return before;
+}
+
+void SeasonalForecaster::ShiftLevel(double delta, double level_variance) {
+  theta_[0] += delta;
+  p_(0, 0) = std::min(p_(0, 0) + level_variance, options_.prior_variance);
+}
+
+}  // namespace plumbline

@@ -1,0 +1,133 @@
+// SeasonalForecaster: a level + local linear trend + Fourier seasonal model in
+// continuous time, fitted online by recursive least squares with exponential
+// forgetting measured in time. Not thread-safe; owned by one shard.
+//
+// Model, at a reading's own timestamp t (no resampling):
+//
+//   y(t) = l + b * (t - t_ref) / U
+//          + sum over seasons s, harmonics j = 1..J_s of
+//              a_sj * cos(2 pi j phase_s(t)) + c_sj * sin(2 pi j phase_s(t))   + noise
+//
+//   phase_s(t) = ((t mod P_s) / P_s), computed in integer microseconds so the
+//   phase of a timestamp in 2026 is exact; t_ref is the time of the last update
+//   (the level l is "now"); U is the trend unit (the memory duration).
+//
+// Fit: theta = (l, b, a_11, c_11, ...) minimises the weighted least-squares cost
+//
+//   J_n(theta) = sum_i w_i (y_i - x_i' theta)^2 + w_0 (theta - theta_0)' R_0 (theta - theta_0)
+//   w_i = exp(-(t_n - t_i) / memory)        (forgetting measured in time)
+//   R_0 = I / prior_variance                 (ridge prior, centred on theta_0)
+//
+// computed recursively (Ljung & Soederstroem 1983, "Theory and Practice of
+// Recursive Identification", MIT Press, ch. 2; MEM) in covariance form, with
+// lambda_n = exp(-(t_n - t_{n-1}) / memory):
+//
+//   re-centre: l += b * (t_n - t_ref)/U;  P = A P A'  with A = I + e_l e_b' (t_n - t_ref)/U
+//   forget:    P = P / lambda_n
+//   gain:      k = P x / (1 + x' P x)
+//   residual:  e = y - x' theta        (one step ahead: taken BEFORE the update)
+//   update:    theta += k e;  P -= k (P x)';  P = (P + P')/2
+//
+// The re-centring is an exact reparametrisation, so the result equals the batch
+// weighted least-squares fit above (tests/reference/forecaster_reference.py checks
+// this with numpy to 1e-8). Numerical safeguards (common practice, no source):
+// P is kept symmetric, and each diagonal element is held at or below the prior
+// variance by a symmetric diagonal rescaling D P D (D <= 1) -- a bounded-covariance
+// guard against wind-up when a direction is not excited (e.g. a season whose
+// period equals the sampling interval), which keeps P positive definite. The
+// guard is inactive while the data excite every direction, so the WLS identity
+// holds then.
+//
+// Prediction variance: Var(y_new - yhat) = sigma^2 (1 + x' P x / lambda), with P
+// inflated for the time elapsed since the last update; ResidualScale supplies sigma.
+//
+// Choosing parameters: `memory` should span several of the longest season (the
+// default is 4 x the longest season, and at least 50 x the typical spacing); more
+// harmonics fit sharper seasonal shapes (a defrost spike needs 4-8, a smooth daily
+// load 2-4) at the cost of O(n^2) work per reading, n = 2 + 2 sum J_s.
+#pragma once
+
+#include <string>
+#include <vector>
+
+#include "detectors/eigen_types.h"
+#include "detectors/event_time.h"
+#include "detectors/status.h"
+
+namespace plumbline {
+
+struct SeasonalForecasterOptions {
+  std::vector<EventTime> seasons;   // periods, each > 0
+  std::vector<int> harmonics;       // per season, each in [1, 24]; same length as seasons
+  bool trend = true;                // include the local linear trend b
+  EventTime memory = 28 * kMicrosPerDay;  // forgetting timescale, > 0
+  double prior_variance = 1e8;      // variance of the ridge prior on each coefficient, > 0
+
+  bool IsValid(std::string* why) const;
+  // Default harmonics for a season period: sharper shapes for short periods.
+  static int DefaultHarmonics(EventTime period);
+};
+
+// A prediction at some time: the expected value and the variance factor
+// x' P x / lambda (multiply by sigma^2 and add sigma^2 for a predictive variance).
+struct Forecast {
+  double value = 0.0;
+  double parameter_variance_factor = 0.0;
+};
+
+class SeasonalForecaster {
+ public:
+  // Precondition: options.IsValid(). The model starts with no data; the first
+  // Update sets theta_0 = (y_1, 0, ..., 0) and the prior.
+  explicit SeasonalForecaster(const SeasonalForecasterOptions& options);
+
+  // Number of coefficients n.
+  int dimension() const { return static_cast<int>(theta_.size()); }
+  bool has_data() const { return updates_ > 0; }
+  long long updates() const { return updates_; }
+  EventTime last_time() const { return t_ref_; }
+
+  // Forecast at time t (t may be before the last update time; the trend then
+  // runs backwards). Before any data: value 0, infinite variance factor.
+  Forecast Predict(EventTime t) const;
+
+  // Folds in reading y at time t >= last_time(). Returns the one-step-ahead
+  // forecast made before the update. Fails, leaving the state untouched, when y
+  // is not finite or t is earlier than the last update.
+  StatusOr<Forecast> Update(EventTime t, double y);
+
+  // Folds in the mean of the series over [from, to] (a bucket, or a meter's
+  // consumption spread over the interval between two readings): the regressors
+  // are averaged over the interval in closed form (for a Fourier pair,
+  // mean cos(w t) over [a, b] = (sin(w b) - sin(w a)) / (w (b - a))), and the
+  // forgetting clock advances to `to`. from == to is Update(to, mean).
+  StatusOr<Forecast> UpdateInterval(EventTime from, EventTime to, double mean);
+  // The forecast of the mean over [from, to].
+  Forecast PredictInterval(EventTime from, EventTime to) const;
+
+  // Moves the level by delta (units of y) and adds level_variance to its
+  // variance, so the model re-baselines fast after a detected change.
+  void ShiftLevel(double delta, double level_variance);
+
+  const Vector& coefficients() const { return theta_; }
+  const Matrix& covariance() const { return p_; }
+  const SeasonalForecasterOptions& options() const { return options_; }
+
+ private:
+  void FillRegressors(EventTime t, Vector* x) const;
+  void FillIntervalRegressors(EventTime from, EventTime to, Vector* x) const;
+  StatusOr<Forecast> UpdateWith(EventTime t, double y, bool interval, EventTime from);
+  void Recentre(EventTime t);
+
+  SeasonalForecasterOptions options_;
+  std::vector<EventTime> periods_;   // one entry per season
+  std::vector<int> harmonics_;
+  Vector theta_;
+  Matrix p_;
+  mutable Vector x_;                 // scratch regressor, sized once
+  Vector px_;                        // scratch P x
+  EventTime t_ref_ = 0;
+  long long updates_ = 0;
+};
+
+}  // namespace plumbline

@@ -1,0 +1,87 @@
+#include "detectors/variance_cusum.h"
+
+#include <algorithm>
+#include <cmath>
+
+#include "detectors/run_length_chain.h"
+
+namespace plumbline {
+namespace {
+
+double Reference(double rho) { return rho * std::log(rho) / (rho - 1.0); }
+
+// P(min(Z^2, cap) <= x), Z ~ N(0, 1).
+double CappedChiSquareCdf(double x, double cap) {
+  if (x < 0) return 0.0;
+  if (x >= cap) return 1.0;
+  return std::erf(std::sqrt(0.5 * x));
+}
+
+}  // namespace
+
+bool VarianceCusumOptions::IsValid(std::string* why) const {
+  auto fail = [why](const char* message) {
+    if (why) *why = message;
+    return false;
+  };
+  if (!(rho_up > 1 && rho_up <= 100)) return fail("rho_up must be in (1, 100]");
+  if (!(rho_down >= 0.01 && rho_down < 1)) return fail("rho_down must be in [0.01, 1)");
+  if (!(cap > k_up())) return fail("cap must exceed the wider side's reference value");
+  if (!(up_h > 0) || !(down_h > 0)) return fail("variance decision intervals must be > 0");
+  return true;
+}
+
+double VarianceCusumOptions::k_up() const { return Reference(rho_up); }
+double VarianceCusumOptions::k_down() const { return Reference(rho_down); }
+
+StatusOr<VarianceCusumOptions> VarianceCusumOptions::Calibrated(double arl0) {
+  VarianceCusumOptions options;
+  const double k_up = options.k_up(), k_down = options.k_down(), cap = options.cap;
+  auto up = CalibrateOneSidedCusum(
+      [=](double y) { return CappedChiSquareCdf(y + k_up, cap); }, 2.0 * arl0);
+  if (!up.ok()) return up.status();
+  // Narrower side: increment k_down - q; P(k_down - q <= y) = 1 - P(q < k_down - y).
+  auto down = CalibrateOneSidedCusum(
+      [=](double y) { return 1.0 - CappedChiSquareCdf(k_down - y, cap); }, 2.0 * arl0);
+  if (!down.ok()) return down.status();
+  options.up_h = *up;
+  options.down_h = *down;
+  return options;
+}
+
+VarianceCusum::VarianceCusum(const VarianceCusumOptions& options)
+    : options_(options), k_up_(options.k_up()), k_down_(options.k_down()) {}
+
+Alarm VarianceCusum::Update(double z, EventTime time) {
+  Alarm alarm;
+  if (!std::isfinite(z)) return alarm;
+  const double q = std::min(z * z, options_.cap);
+  auto step = [&](Side& side, double increment) {
+    if (side.statistic == 0) side = Side{0.0, time, 0, 0, 0};
+    side.statistic = std::max(0.0, side.statistic + increment);
+    side.n += 1;
+    side.sum += z;
+    side.sum_sq += z * z;
+  };
+  step(up_, q - k_up_);
+  step(down_, k_down_ - q);
+  auto spread = [](const Side& s) {
+    const double m = s.sum / s.n;
+    return std::max(s.sum_sq / s.n - m * m, 0.0);
+  };
+  if (up_.statistic > options_.up_h) {
+    const double m = up_.sum / up_.n, v = spread(up_);
+    if (v - 1.0 > m * m) {
+      alarm = {true, Direction::kUp, up_.start, std::sqrt(v), up_.statistic};
+      Reset();
+    }
+  } else if (down_.statistic > options_.down_h) {
+    alarm = {true, Direction::kDown, down_.start, std::sqrt(spread(down_)), down_.statistic};
+    Reset();
+  }
+  return alarm;
+}
+
+void VarianceCusum::Reset() { up_ = down_ = Side{}; }
+
+}  // namespace plumbline
