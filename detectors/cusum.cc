@@ -1,0 +1,158 @@
+#include "detectors/cusum.h"
+
+#include <algorithm>
+#include <cassert>
+#include <cmath>
+#include <cstdio>
+
+namespace plumbline {
+namespace {
+
+std::string Format(double value) {
+  char buffer[32];
+  std::snprintf(buffer, sizeof buffer, "%g", value);
+  return buffer;
+}
+
+bool Fail(std::string* why, std::string message) {
+  if (why != nullptr) *why = std::move(message);
+  return false;
+}
+
+// Kept out of line so the error text is built only on the refused path.
+[[gnu::noinline, gnu::cold]] Status RefuseReading(double x) {
+  return Status::InvalidArgument("reading must be a finite number; got " + Format(x));
+}
+
+bool Arl0IsValid(double arl0, std::string* why) {
+  if (!(arl0 == 0.0 || (std::isfinite(arl0) && arl0 >= 1.0))) {
+    return Fail(
+        why, "arl0 must be 0 (not calibrated) or finite and >= 1; got " + Format(arl0));
+  }
+  return true;
+}
+
+}  // namespace
+
+bool CusumOptions::IsValid(std::string* why) const {
+  if (!(std::isfinite(k) && k > 0.0)) {
+    return Fail(why, "k must be finite and > 0; got " + Format(k));
+  }
+  if (!(std::isfinite(h) && h > 0.0)) {
+    return Fail(why, "h must be finite and > 0; got " + Format(h));
+  }
+  if (!(headstart >= 0.0 && headstart < h)) {
+    return Fail(why, "headstart must be in [0, h) with h = " + Format(h) + "; got " +
+                         Format(headstart));
+  }
+  return Arl0IsValid(arl0, why);
+}
+
+bool OneSidedCusumOptions::IsValid(std::string* why) const {
+  if (!std::isfinite(k)) {
+    return Fail(why, "k must be a finite number; got " + Format(k));
+  }
+  if (!(std::isfinite(h) && h > 0.0)) {
+    return Fail(why, "h must be finite and > 0; got " + Format(h));
+  }
+  if (!(headstart >= 0.0 && headstart < h)) {
+    return Fail(why, "headstart must be in [0, h) with h = " + Format(h) + "; got " +
+                         Format(headstart));
+  }
+  return Arl0IsValid(arl0, why);
+}
+
+// ---------------------------------------------------------------------------
+// Cusum
+
+StatusOr<Cusum> Cusum::Create(const CusumOptions& options) {
+  std::string why;
+  if (!options.IsValid(&why)) return Status::InvalidArgument("cusum: " + why);
+  return Cusum(options);
+}
+
+Cusum::Cusum(const CusumOptions& options) : options_(options) {
+  assert(options.IsValid(nullptr));
+  Reset();
+}
+
+void Cusum::Restart() {
+  upper_.Restart(options_.headstart);
+  lower_.Restart(options_.headstart);
+  readings_ = 0;
+}
+
+void Cusum::Reset() {
+  Restart();
+  alarms_ = 0;
+}
+
+StatusOr<Alarm> Cusum::Update(double x, EventTime time) {
+  if (!std::isfinite(x)) [[unlikely]] {
+    return RefuseReading(x);
+  }
+  ++readings_;
+  upper_.Step(x - options_.k, time);
+  lower_.Step(-x - options_.k, time);
+  Alarm alarm;
+  alarm.statistic = std::max(upper_.value, lower_.value);
+  if (alarm.statistic > options_.h) [[unlikely]] {
+    // Only one side can cross at a time (see the header).
+    const bool up = upper_.value > options_.h;
+    const cusum_internal::Side& side = up ? upper_ : lower_;
+    const double excursion_mean =
+        options_.k + (side.value - side.origin) / static_cast<double>(side.length);
+    alarm.fired = true;
+    alarm.direction = up ? Direction::kUp : Direction::kDown;
+    alarm.change_at = side.start;
+    alarm.shift = up ? excursion_mean : -excursion_mean;
+    ++alarms_;
+    Restart();
+  }
+  return alarm;
+}
+
+// ---------------------------------------------------------------------------
+// OneSidedCusum
+
+StatusOr<OneSidedCusum> OneSidedCusum::Create(const OneSidedCusumOptions& options) {
+  std::string why;
+  if (!options.IsValid(&why)) {
+    return Status::InvalidArgument("one-sided cusum: " + why);
+  }
+  return OneSidedCusum(options);
+}
+
+OneSidedCusum::OneSidedCusum(const OneSidedCusumOptions& options) : options_(options) {
+  assert(options.IsValid(nullptr));
+  Reset();
+}
+
+void OneSidedCusum::Reset() {
+  side_.Restart(options_.headstart);
+  readings_ = 0;
+  alarms_ = 0;
+}
+
+StatusOr<Alarm> OneSidedCusum::Update(double x, EventTime time) {
+  if (!std::isfinite(x)) [[unlikely]] {
+    return RefuseReading(x);
+  }
+  ++readings_;
+  side_.Step(x - options_.k, time);
+  Alarm alarm;
+  alarm.statistic = side_.value;
+  if (side_.value > options_.h) [[unlikely]] {
+    alarm.fired = true;
+    alarm.direction = Direction::kUp;
+    alarm.change_at = side_.start;
+    alarm.shift =
+        options_.k + (side_.value - side_.origin) / static_cast<double>(side_.length);
+    ++alarms_;
+    side_.Restart(options_.headstart);
+    readings_ = 0;
+  }
+  return alarm;
+}
+
+}  // namespace plumbline

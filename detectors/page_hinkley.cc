@@ -1,0 +1,113 @@
+#include "detectors/page_hinkley.h"
+
+#include <algorithm>
+#include <cassert>
+#include <cmath>
+#include <cstdio>
+
+namespace plumbline {
+namespace {
+
+std::string Format(double value) {
+  char buffer[32];
+  std::snprintf(buffer, sizeof buffer, "%g", value);
+  return buffer;
+}
+
+bool Fail(std::string* why, std::string message) {
+  if (why != nullptr) *why = std::move(message);
+  return false;
+}
+
+// Kept out of line so the error text is built only on the refused path.
+[[gnu::noinline, gnu::cold]] Status RefuseReading(double x) {
+  return Status::InvalidArgument("reading must be a finite number; got " + Format(x));
+}
+
+}  // namespace
+
+bool PageHinkleyOptions::IsValid(std::string* why) const {
+  if (!(std::isfinite(delta) && delta >= 0.0)) {
+    return Fail(why, "delta must be finite and >= 0; got " + Format(delta));
+  }
+  if (!(std::isfinite(lambda) && lambda > 0.0)) {
+    return Fail(why, "lambda must be finite and > 0; got " + Format(lambda));
+  }
+  if (!(alpha > 0.0 && alpha <= 1.0)) {
+    return Fail(why, "alpha must be in (0, 1]; got " + Format(alpha));
+  }
+  if (!std::isfinite(mean)) {
+    return Fail(why, "mean must be a finite number; got " + Format(mean));
+  }
+  if (!(arl0 == 0.0 || (std::isfinite(arl0) && arl0 >= 1.0))) {
+    return Fail(
+        why, "arl0 must be 0 (not calibrated) or finite and >= 1; got " + Format(arl0));
+  }
+  return true;
+}
+
+StatusOr<PageHinkley> PageHinkley::Create(const PageHinkleyOptions& options) {
+  std::string why;
+  if (!options.IsValid(&why)) return Status::InvalidArgument("page-hinkley: " + why);
+  return PageHinkley(options);
+}
+
+PageHinkley::PageHinkley(const PageHinkleyOptions& options)
+    : options_(options), alpha_minus_one_(options.alpha - 1.0) {
+  assert(options.IsValid(nullptr));
+  Reset();
+}
+
+void PageHinkley::Restart() {
+  up_ = Side();
+  down_ = Side();
+  sum_x_ = 0.0;
+  reference_mean_ = options_.mean;
+  readings_ = 0;
+}
+
+void PageHinkley::Reset() {
+  Restart();
+  alarms_ = 0;
+}
+
+double PageHinkley::ShiftEstimate(const Side& side) const {
+  const double after =
+      (sum_x_ - side.sum_x_before) / static_cast<double>(readings_ - side.count_before);
+  const double before = (options_.use_running_mean && side.count_before > 0)
+                            ? side.sum_x_before / static_cast<double>(side.count_before)
+                            : options_.mean;
+  return after - before;
+}
+
+StatusOr<Alarm> PageHinkley::Update(double x, EventTime time) {
+  if (!std::isfinite(x)) [[unlikely]] {
+    return RefuseReading(x);
+  }
+  const double sum_x_before = sum_x_;
+  const std::int64_t count_before = readings_;
+  ++readings_;
+  sum_x_ += x;
+  reference_mean_ =
+      options_.use_running_mean ? sum_x_ / static_cast<double>(readings_) : options_.mean;
+  const double deviation = x - reference_mean_;  // x_T - xbar_T
+  up_.Step(deviation - options_.delta, alpha_minus_one_, time, sum_x_before,
+           count_before);
+  down_.Step(-deviation - options_.delta, alpha_minus_one_, time, sum_x_before,
+             count_before);
+  Alarm alarm;
+  alarm.statistic = std::max(up_.statistic, down_.statistic);
+  if (alarm.statistic > options_.lambda) [[unlikely]] {
+    const bool up = up_.statistic >= down_.statistic;
+    const Side& side = up ? up_ : down_;
+    alarm.fired = true;
+    alarm.direction = up ? Direction::kUp : Direction::kDown;
+    alarm.change_at = side.start;
+    alarm.shift = ShiftEstimate(side);
+    ++alarms_;
+    Restart();
+  }
+  return alarm;
+}
+
+}  // namespace plumbline
