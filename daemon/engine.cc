@@ -1,0 +1,276 @@
+#include "daemon/engine.h"
+
+#include <cmath>
+#include <cstdio>
+
+#include "detectors/time_format.h"
+
+namespace plumbline {
+namespace {
+
+std::uint64_t Fnv1a(std::string_view text, std::uint64_t hash = 1469598103934665603ULL) {
+  for (unsigned char c : text) {
+    hash ^= c;
+    hash *= 1099511628211ULL;
+  }
+  return hash;
+}
+
+void AppendJsonString(std::string* out, std::string_view text) {
+  out->push_back('"');
+  for (unsigned char c : text) {
+    switch (c) {
+      case '"': *out += "\\\""; break;
+      case '\\': *out += "\\\\"; break;
+      case '\n': *out += "\\n"; break;
+      case '\r': *out += "\\r"; break;
+      case '\t': *out += "\\t"; break;
+      default:
+        if (c < 0x20) {
+          char buffer[8];
+          std::snprintf(buffer, sizeof buffer, "\\u%04x", c);
+          *out += buffer;
+        } else {
+          out->push_back(static_cast<char>(c));
+        }
+    }
+  }
+  out->push_back('"');
+}
+
+void AppendNumber(std::string* out, double value) {
+  if (!std::isfinite(value)) {
+    *out += "null";
+    return;
+  }
+  char buffer[32];
+  std::snprintf(buffer, sizeof buffer, "%.6g", value);
+  *out += buffer;
+}
+
+}  // namespace
+
+std::string_view ToString(IngestOutcome outcome) {
+  switch (outcome) {
+    case IngestOutcome::kAccepted: return "accepted";
+    case IngestOutcome::kLate: return "late";
+    case IngestOutcome::kNoProfile: return "no_profile";
+    case IngestOutcome::kNotFinite: return "non_finite_value";
+    case IngestOutcome::kTooManySeries: return "too_many_series";
+  }
+  return "accepted";
+}
+
+bool EngineOptions::IsValid(std::string* why) const {
+  if (max_series < 1) {
+    if (why) *why = "max_series must be >= 1";
+    return false;
+  }
+  return true;
+}
+
+std::string AlertToJson(const Alert& a) {
+  std::string out = "{\"id\":";
+  AppendJsonString(&out, a.id);
+  out += ",\"event\":";
+  AppendJsonString(&out, ToString(a.event));
+  out += ",\"series\":";
+  AppendJsonString(&out, a.series);
+  out += ",\"kind\":";
+  AppendJsonString(&out, ToString(a.kind));
+  out += ",\"direction\":";
+  AppendJsonString(&out, ToString(a.direction));
+  out += ",\"detected_at\":";
+  AppendJsonString(&out, FormatRfc3339(a.detected_at));
+  out += ",\"change_at\":";
+  AppendJsonString(&out, FormatRfc3339(a.change_at));
+  out += ",\"detectors\":[";
+  for (size_t i = 0; i < a.detectors.size(); ++i) {
+    if (i) out += ',';
+    AppendJsonString(&out, a.detectors[i]);
+  }
+  out += ']';
+  if (a.event == EventType::kRetrain) {
+    out += ",\"retrain_from\":";
+    AppendJsonString(&out, FormatRfc3339(a.change_at));
+    out += ",\"retrain_to\":";
+    AppendJsonString(&out, FormatRfc3339(a.window_to));
+  } else if (a.event == EventType::kAlert && a.kind == AlertKind::kLevel) {
+    out += ",\"magnitude\":";
+    AppendNumber(&out, a.magnitude);
+    out += ",\"magnitude_sd\":";
+    AppendNumber(&out, a.magnitude_sd);
+    out += ",\"before\":";
+    AppendNumber(&out, a.before);
+    out += ",\"after\":";
+    AppendNumber(&out, a.after);
+  } else if (a.event == EventType::kAlert && a.kind == AlertKind::kVariance) {
+    out += ",\"sd_ratio\":";
+    AppendNumber(&out, a.magnitude);
+    out += ",\"sd_before\":";
+    AppendNumber(&out, a.before);
+    out += ",\"sd_after\":";
+    AppendNumber(&out, a.after);
+  } else if (a.kind == AlertKind::kSilence) {
+    out += ",\"silent_seconds\":";
+    AppendNumber(&out, a.magnitude);
+  } else if (a.event == EventType::kAlert && a.kind == AlertKind::kRate) {
+    out += ",\"mean_gap_seconds_before\":";
+    AppendNumber(&out, a.before);
+  } else if (a.event == EventType::kMeterReset) {
+    out += ",\"total_before\":";
+    AppendNumber(&out, a.before);
+    out += ",\"total_after\":";
+    AppendNumber(&out, a.after);
+  }
+  out += ",\"advisory\":true}";
+  return out;
+}
+
+std::string AlertToText(const Alert& a) {
+  std::string out = FormatRfc3339(a.detected_at);
+  out += "  ";
+  if (a.event != EventType::kAlert) {
+    out += ToString(a.event);
+    out += "  ";
+    out += a.series;
+    if (a.event == EventType::kRetrain) {
+      out += "  retrain on " + FormatRfc3339(a.change_at) + " .. " + FormatRfc3339(a.window_to);
+    }
+    return out;
+  }
+  std::string kind(ToString(a.kind));
+  if (a.direction != Direction::kNone) kind += a.direction == Direction::kUp ? " up" : " down";
+  kind.resize(std::max<size_t>(kind.size(), 13), ' ');
+  out += kind + " " + a.series + "  from " + FormatRfc3339(a.change_at);
+  char buffer[96];
+  if (a.kind == AlertKind::kLevel) {
+    std::snprintf(buffer, sizeof buffer, "  %+.4g (%+.1f sd), %.4g -> %.4g", a.magnitude,
+                  a.magnitude_sd, a.before, a.after);
+    out += buffer;
+  } else if (a.kind == AlertKind::kVariance) {
+    std::snprintf(buffer, sizeof buffer, "  sd x%.2f", a.magnitude);
+    out += buffer;
+  } else if (a.kind == AlertKind::kSilence) {
+    out += "  no reading for " + FormatDuration(static_cast<EventTime>(a.magnitude * 1e6));
+  }
+  if (!a.detectors.empty()) {
+    out += "  [";
+    for (size_t i = 0; i < a.detectors.size(); ++i) out += (i ? "," : "") + a.detectors[i];
+    out += "]";
+  }
+  return out;
+}
+
+Engine::Engine(Config config, EngineOptions options)
+    : config_(std::move(config)), options_(options) {
+  designs_.resize(config_.series.size());
+}
+
+const ProfileDesign* Engine::DesignFor(const ProfileOptions* profile) {
+  const size_t index = static_cast<size_t>(profile - config_.series.data());
+  if (!designs_[index]) {
+    auto design = ProfileDesign::Make(*profile);
+    if (!design.ok()) {
+      if (design_status_.ok()) design_status_ = design.status();
+      return nullptr;
+    }
+    designs_[index] = std::make_unique<ProfileDesign>(std::move(design).value());
+  }
+  return designs_[index].get();
+}
+
+IngestOutcome Engine::Ingest(std::string_view name, EventTime time, double value,
+                             std::vector<Alert>* out) {
+  if (!std::isfinite(value)) return IngestOutcome::kNotFinite;
+  auto it = series_.find(std::string(name));
+  if (it == series_.end()) {
+    if (series_.size() >= options_.max_series) return IngestOutcome::kTooManySeries;
+    const ProfileOptions* profile = MatchProfile(config_, name);
+    if (!profile) return IngestOutcome::kNoProfile;
+    const ProfileDesign* design = DesignFor(profile);
+    if (!design) return IngestOutcome::kNoProfile;
+    auto series = std::make_unique<Series>();
+    series->name = std::string(name);
+    series->monitor = std::make_unique<SeriesMonitor>(design);
+    it = series_.emplace(series->name, std::move(series)).first;
+  }
+  Series* series = it->second.get();
+  scratch_.clear();
+  const ReadingVerdict verdict = series->monitor->Observe(time, value, &scratch_);
+  Emit(*series, scratch_, out);
+  if (verdict == ReadingVerdict::kLate) return IngestOutcome::kLate;
+  if (verdict == ReadingVerdict::kNotFinite) return IngestOutcome::kNotFinite;
+  Schedule(series);
+  return IngestOutcome::kAccepted;
+}
+
+void Engine::Schedule(Series* series) {
+  if (auto deadline = series->monitor->silence_deadline()) {
+    deadlines_.emplace(*deadline, series);
+  }
+}
+
+void Engine::AdvanceClock(EventTime now, std::vector<Alert>* out) {
+  while (!deadlines_.empty() && deadlines_.top().first <= now) {
+    auto [deadline, series] = deadlines_.top();
+    deadlines_.pop();
+    if (series->monitor->silence_deadline() != deadline) continue;  // stale entry
+    scratch_.clear();
+    series->monitor->AdvanceClock(now, &scratch_);
+    Emit(*series, scratch_, out);
+  }
+}
+
+void Engine::Finish(std::vector<Alert>* out) {
+  for (auto& [name, series] : series_) {
+    scratch_.clear();
+    series->monitor->Flush(&scratch_);
+    Emit(*series, scratch_, out);
+  }
+}
+
+void Engine::Emit(const Series& series, const std::vector<SeriesEvent>& events,
+                  std::vector<Alert>* out) {
+  for (const SeriesEvent& e : events) {
+    Alert a;
+    a.series = series.name;
+    a.event = e.type;
+    a.kind = e.kind;
+    a.direction = e.direction;
+    a.detected_at = e.detected_at;
+    a.change_at = e.change_at;
+    a.window_to = e.window_to;
+    for (DetectorKind d : {DetectorKind::kCusum, DetectorKind::kPageHinkley,
+                           DetectorKind::kBocpd, DetectorKind::kEwma}) {
+      if (e.detectors & (1u << static_cast<int>(d))) a.detectors.emplace_back(ToString(d));
+    }
+    if (e.kind == AlertKind::kVariance && e.type == EventType::kAlert) {
+      a.detectors.emplace_back("variance-cusum");
+    } else if (e.kind == AlertKind::kRate && e.type == EventType::kAlert) {
+      a.detectors.emplace_back("arrival-cusum");
+    } else if (e.kind == AlertKind::kSilence && e.type == EventType::kAlert) {
+      a.detectors.emplace_back("silence-timer");
+    }
+    a.magnitude = e.magnitude;
+    a.magnitude_sd = e.magnitude_sd;
+    a.before = e.before;
+    a.after = e.after;
+    std::uint64_t h = Fnv1a(a.series);
+    h = Fnv1a(ToString(a.event), h);
+    h = Fnv1a(ToString(a.kind), h);
+    h = Fnv1a(std::to_string(a.detected_at), h);
+    h = Fnv1a(std::to_string(a.change_at), h);
+    char id[17];
+    std::snprintf(id, sizeof id, "%016llx", static_cast<unsigned long long>(h));
+    a.id = id;
+    out->push_back(std::move(a));
+  }
+}
+
+const SeriesMonitor* Engine::Find(std::string_view name) const {
+  auto it = series_.find(std::string(name));
+  return it == series_.end() ? nullptr : it->second->monitor.get();
+}
+
+}  // namespace plumbline

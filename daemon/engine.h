@@ -1,0 +1,95 @@
+// Engine: routes readings to per-series monitors (one per series name, with the
+// profile of the first matching glob) and turns their events into alerts with
+// stable ids. It does no I/O and reads no clock: `replay` drives it on event
+// time, `serve` (one engine per shard) on event time plus the wall clock for
+// silence. Not thread-safe; owned by one shard.
+#pragma once
+
+#include <cstdint>
+#include <memory>
+#include <optional>
+#include <queue>
+#include <string>
+#include <string_view>
+#include <unordered_map>
+#include <vector>
+
+#include "config/config.h"
+#include "detectors/series_monitor.h"
+#include "detectors/status.h"
+
+namespace plumbline {
+
+// One line of the alert log (or of the event log, for non-alert events).
+struct Alert {
+  std::string id;  // stable: a hash of series, event, kind, detected_at and change_at
+  std::string series;
+  EventType event = EventType::kAlert;
+  AlertKind kind = AlertKind::kLevel;
+  Direction direction = Direction::kNone;
+  EventTime detected_at = 0;
+  EventTime change_at = 0;
+  EventTime window_to = 0;  // retrain events only
+  std::vector<std::string> detectors;
+  double magnitude = 0.0;
+  double magnitude_sd = 0.0;
+  double before = 0.0;
+  double after = 0.0;
+};
+
+// One JSON object, no trailing newline. Guaranteed fields (DESIGN.md): series,
+// detected_at, change_at, kind, direction, detectors; plus id, event, and the
+// magnitudes that apply to the kind.
+std::string AlertToJson(const Alert& alert);
+// One readable line: "2026-03-19T14:02:00Z  level ↑  coldstore/... change began ...".
+std::string AlertToText(const Alert& alert);
+
+enum class IngestOutcome { kAccepted, kLate, kNoProfile, kNotFinite, kTooManySeries };
+std::string_view ToString(IngestOutcome outcome);
+
+struct EngineOptions {
+  std::size_t max_series = 1'000'000;  // new series beyond this are refused
+  bool IsValid(std::string* why) const;
+};
+
+class Engine {
+ public:
+  // Calibrates nothing yet: each profile is designed on its first series.
+  Engine(Config config, EngineOptions options = {});
+
+  // Feeds one reading; any resulting events are appended to *out. Readings of a
+  // series must come in time order, up to its profile's `lateness`.
+  IngestOutcome Ingest(std::string_view series, EventTime time, double value,
+                       std::vector<Alert>* out);
+  // Reports silences due at `now`.
+  void AdvanceClock(EventTime now, std::vector<Alert>* out);
+  // End of input: releases readings held for reordering.
+  void Finish(std::vector<Alert>* out);
+
+  std::size_t series_count() const { return series_.size(); }
+  const SeriesMonitor* Find(std::string_view series) const;
+  // The first profile-design failure, if any (a profile that cannot be calibrated).
+  const Status& design_status() const { return design_status_; }
+
+ private:
+  struct Series {
+    std::string name;
+    std::unique_ptr<SeriesMonitor> monitor;
+  };
+  const ProfileDesign* DesignFor(const ProfileOptions* profile);
+  void Emit(const Series& series, const std::vector<SeriesEvent>& events,
+            std::vector<Alert>* out);
+  void Schedule(Series* series);
+
+  Config config_;
+  EngineOptions options_;
+  std::vector<std::unique_ptr<ProfileDesign>> designs_;  // index: profile index
+  std::unordered_map<std::string, std::unique_ptr<Series>> series_;
+  // Silence deadlines, earliest first; stale entries are skipped when popped.
+  using Deadline = std::pair<EventTime, Series*>;
+  std::priority_queue<Deadline, std::vector<Deadline>, std::greater<>> deadlines_;
+  std::vector<SeriesEvent> scratch_;
+  Status design_status_;
+};
+
+}  // namespace plumbline

@@ -1,0 +1,390 @@
+#include "detectors/series_monitor.h"
+
+#include <algorithm>
+#include <cmath>
+
+namespace plumbline {
+namespace {
+
+// Trust order for the change-time estimate when several detectors agree:
+// CUSUM's last-zero estimate is the maximum-likelihood change point for a
+// step of the designed size (Page 1954; Hinkley 1971); Page-Hinkley's is the
+// same argument with a running mean; BOCPD's and EWMA's are coarser.
+int Trust(DetectorKind kind) {
+  switch (kind) {
+    case DetectorKind::kCusum: return 0;
+    case DetectorKind::kPageHinkley: return 1;
+    case DetectorKind::kBocpd: return 2;
+    case DetectorKind::kEwma: return 3;
+  }
+  return 4;
+}
+
+std::uint32_t Bit(DetectorKind kind) { return 1u << static_cast<int>(kind); }
+
+}  // namespace
+
+std::string_view ToString(AlertKind kind) {
+  switch (kind) {
+    case AlertKind::kLevel: return "level";
+    case AlertKind::kVariance: return "variance";
+    case AlertKind::kRate: return "rate";
+    case AlertKind::kSilence: return "silence";
+  }
+  return "level";
+}
+
+std::optional<AlertKind> AlertKindFromString(std::string_view text) {
+  for (AlertKind k : {AlertKind::kLevel, AlertKind::kVariance, AlertKind::kRate,
+                      AlertKind::kSilence}) {
+    if (ToString(k) == text) return k;
+  }
+  return std::nullopt;
+}
+
+std::string_view ToString(EventType type) {
+  switch (type) {
+    case EventType::kAlert: return "alert";
+    case EventType::kResume: return "resume";
+    case EventType::kRetrain: return "retrain";
+    case EventType::kMeterReset: return "meter-reset";
+  }
+  return "alert";
+}
+
+StatusOr<ProfileDesign> ProfileDesign::Make(const ProfileOptions& profile) {
+  std::string why;
+  if (!profile.IsValid(&why)) return Status::InvalidArgument(why);
+  ProfileDesign design;
+  design.profile = profile;
+  auto level = DesignDetectors(2.0 * profile.arl0, profile.shift, profile.detectors,
+                               profile.agree);
+  if (!level.ok()) return level.status();
+  design.level = *level;
+  auto variance = VarianceCusumOptions::Calibrated(4.0 * profile.arl0);
+  if (!variance.ok()) return variance.status();
+  design.variance = *variance;
+  auto arrival = ArrivalModelOptions::Calibrated(4.0 * profile.arl0);
+  if (!arrival.ok()) return arrival.status();
+  design.arrival = *arrival;
+  design.arrival.warmup = std::max(3, std::min(profile.warmup, 50));
+
+  design.forecaster.seasons = profile.seasons;
+  design.forecaster.trend = profile.trend;
+  for (size_t i = 0; i < profile.seasons.size(); ++i) {
+    design.forecaster.harmonics.push_back(
+        profile.harmonics.empty()
+            ? SeasonalForecasterOptions::DefaultHarmonics(profile.seasons[i])
+            : profile.harmonics[i]);
+  }
+  if (profile.memory) design.forecaster.memory = *profile.memory;
+  if (!design.forecaster.IsValid(&why)) return Status::InvalidArgument(why);
+  return design;
+}
+
+SeriesMonitor::SeriesMonitor(const ProfileDesign* design)
+    : design_(design),
+      scale_(design->scale),
+      arrival_(design->arrival),
+      variance_(design->variance) {
+  const DetectorDesign& d = design->level;
+  for (DetectorKind kind : d.detectors) {
+    switch (kind) {
+      case DetectorKind::kCusum: level_.emplace_back(Cusum(d.cusum)); break;
+      case DetectorKind::kPageHinkley: level_.emplace_back(PageHinkley(d.page_hinkley)); break;
+      case DetectorKind::kBocpd: level_.emplace_back(Bocpd(d.bocpd)); break;
+      case DetectorKind::kEwma: level_.emplace_back(Ewma(d.ewma)); break;
+    }
+    level_kinds_.push_back(kind);
+  }
+  firings_.resize(level_.size());
+  if (design->profile.memory) StartForecaster();
+}
+
+EventTime SeriesMonitor::SilenceAfter() const {
+  if (design_->profile.silence_after) return *design_->profile.silence_after;
+  if (!arrival_.armed() || arrival_.mean_gap() <= 0) return 0;
+  const double multiple = std::max(5.0, std::log(4.0 * design_->profile.arl0));
+  return static_cast<EventTime>(multiple * arrival_.mean_gap());
+}
+
+std::optional<EventTime> SeriesMonitor::silence_deadline() const {
+  if (!has_reading_ || silent_) return std::nullopt;
+  const EventTime after = SilenceAfter();
+  if (after <= 0) return std::nullopt;
+  return last_reading_ + after;
+}
+
+void SeriesMonitor::AdvanceClock(EventTime now, std::vector<SeriesEvent>* events) {
+  const auto deadline = silence_deadline();
+  if (!deadline || now < *deadline) return;
+  silent_ = true;
+  SeriesEvent e;
+  e.type = EventType::kAlert;
+  e.kind = AlertKind::kSilence;
+  e.direction = Direction::kNone;
+  e.detected_at = *deadline;
+  e.change_at = last_reading_;
+  e.magnitude = ToSeconds(*deadline - last_reading_);
+  events->push_back(e);
+}
+
+ReadingVerdict SeriesMonitor::Observe(EventTime t, double value,
+                                      std::vector<SeriesEvent>* events) {
+  if (!std::isfinite(value)) return ReadingVerdict::kNotFinite;
+  const EventTime lateness = design_->profile.lateness;
+  if (t < released_ || (newest_ != INT64_MIN && t < newest_ - lateness)) {
+    return ReadingVerdict::kLate;
+  }
+  if (lateness == 0) {
+    newest_ = released_ = t;
+    Process(t, value, events);
+    return ReadingVerdict::kAccepted;
+  }
+  pending_.emplace_back(t, value);
+  std::push_heap(pending_.begin(), pending_.end(),
+                 [](const auto& a, const auto& b) { return a.first > b.first; });
+  newest_ = std::max(newest_, t);
+  while (!pending_.empty() && pending_.front().first <= newest_ - lateness) {
+    std::pop_heap(pending_.begin(), pending_.end(),
+                  [](const auto& a, const auto& b) { return a.first > b.first; });
+    const auto [time, v] = pending_.back();
+    pending_.pop_back();
+    released_ = time;
+    Process(time, v, events);
+  }
+  return ReadingVerdict::kAccepted;
+}
+
+void SeriesMonitor::Flush(std::vector<SeriesEvent>* events) {
+  std::sort(pending_.begin(), pending_.end());
+  for (const auto& [time, v] : pending_) {
+    released_ = time;
+    Process(time, v, events);
+  }
+  pending_.clear();
+}
+
+void SeriesMonitor::Process(EventTime t, double value, std::vector<SeriesEvent>* events) {
+  if (silent_) {
+    silent_ = false;
+    SeriesEvent e;
+    e.type = EventType::kResume;
+    e.kind = AlertKind::kSilence;
+    e.detected_at = t;
+    e.change_at = last_reading_;
+    e.magnitude = ToSeconds(t - last_reading_);
+    events->push_back(e);
+  }
+  const double gap_before = arrival_.mean_gap();
+  const Alarm rate = arrival_.Observe(t);
+  has_reading_ = true;
+  last_reading_ = t;
+  if (rate.fired) {
+    if (arrival_.arrivals() >= rate_hold_until_) {
+      SeriesEvent e;
+      e.kind = AlertKind::kRate;
+      e.direction = rate.direction;
+      e.detected_at = t;
+      e.change_at = rate.change_at;
+      e.before = ToSeconds(static_cast<EventTime>(gap_before));
+      events->push_back(e);
+      rate_hold_until_ = arrival_.arrivals() + design_->arrival.warmup;
+    }
+    arrival_.Rebaseline();
+  }
+
+  switch (design_->profile.kind) {
+    case SeriesKind::kGauge:
+    case SeriesKind::kCount:
+      Model(t, t, value, events);
+      break;
+    case SeriesKind::kMeter: {
+      if (has_total_ && value < total_) {
+        SeriesEvent e;
+        e.type = EventType::kMeterReset;
+        e.detected_at = e.change_at = t;
+        e.before = total_;
+        e.after = value;
+        events->push_back(e);
+      } else if (has_total_ && t > total_time_) {
+        const double hours = ToSeconds(t - total_time_) / 3600.0;
+        Model(total_time_, t, (value - total_) / hours, events);
+      }
+      has_total_ = true;
+      total_time_ = t;
+      total_ = value;
+      break;
+    }
+  }
+}
+
+void SeriesMonitor::StartForecaster() {
+  SeasonalForecasterOptions options = design_->forecaster;
+  if (!design_->profile.memory) {
+    EventTime longest = 0;
+    for (EventTime period : options.seasons) longest = std::max(longest, period);
+    double spacing = 0;
+    if (probe_.size() >= 2) {
+      spacing = static_cast<double>(probe_.back().to - probe_.front().to) /
+                static_cast<double>(probe_.size() - 1);
+    }
+    options.memory = std::max<EventTime>(
+        {4 * longest, static_cast<EventTime>(100.0 * spacing), kMicrosPerHour});
+  }
+  forecaster_.emplace(options);
+  std::vector<HeldObservation> held;
+  held.swap(probe_);
+  for (const HeldObservation& h : held) {
+    if (h.from < h.to) {
+      (void)forecaster_->UpdateInterval(h.from, h.to, h.y);
+    } else {
+      (void)forecaster_->Update(h.to, h.y);
+    }
+  }
+}
+
+void SeriesMonitor::Model(EventTime from, EventTime to, double y,
+                          std::vector<SeriesEvent>* events) {
+  ++observations_;
+  recent_times_[observations_ % recent_times_.size()] = to;
+  if (!forecaster_) {
+    probe_.push_back({from, to, y});
+    if (static_cast<int>(probe_.size()) >= kProbe) StartForecaster();
+    return;
+  }
+  if (forecaster_->has_data() && to < forecaster_->last_time()) return;  // not after reordering
+  const Forecast f = from < to ? forecaster_->PredictInterval(from, to)
+                               : forecaster_->Predict(to);
+  const double spread = std::sqrt(1.0 + f.parameter_variance_factor);
+  const double u = (y - f.value) / spread;
+  const double sigma = scale_.sigma();
+  // The first `dimension` innovations of a regression started from a diffuse
+  // prior carry no information about the noise (they only pin the coefficients
+  // down; Durbin & Koopman 2001, "Time Series Analysis by State Space Methods",
+  // ch. 5, diffuse initialisation), so they feed neither the scale nor the detectors.
+  const bool identified = forecaster_->updates() >= forecaster_->dimension();
+  const bool armed = identified && observations_ > design_->profile.warmup &&
+                     scale_.count() >= kMinScaleResiduals && sigma > 0;
+  const double z = armed ? u / sigma : 0.0;
+  last_z_ = z;
+
+  // Huber-type robust fit: an extreme residual moves the model as if it were at
+  // 4 sigma, so one spike cannot drag the forecast (common practice, no source).
+  double y_fit = y;
+  if (armed && std::abs(z) > 4.0) y_fit = f.value + std::copysign(4.0 * sigma * spread, u);
+  if (from < to) {
+    (void)forecaster_->UpdateInterval(from, to, y_fit);
+  } else {
+    (void)forecaster_->Update(to, y_fit);
+  }
+  if (identified) scale_.Update(u);
+
+  if (regime_start_) {
+    ++regime_observations_;
+    if (regime_observations_ >= design_->profile.warmup) {
+      SeriesEvent e;
+      e.type = EventType::kRetrain;
+      e.kind = AlertKind::kLevel;
+      e.detected_at = to;
+      e.change_at = *regime_start_;
+      e.window_to = to;
+      events->push_back(e);
+      regime_start_.reset();
+    }
+  }
+  if (!armed) return;
+
+  // Variance first: a variance alert changes what z means for the level detectors.
+  if (observations_ >= variance_hold_until_) {
+    const Alarm v = variance_.Update(z, to);
+    if (v.fired) {
+      SeriesEvent e;
+      e.kind = AlertKind::kVariance;
+      e.direction = v.direction;
+      e.detected_at = to;
+      e.change_at = v.change_at;
+      e.magnitude = v.shift;  // ratio of standard deviations
+      e.before = sigma;
+      e.after = sigma * v.shift;
+      events->push_back(e);
+      scale_.Restart(20);  // re-learn the spread quickly
+      ResetLevelDetectors();
+      const long long hold = design_->profile.cooldown > 0 ? design_->profile.cooldown
+                                                           : design_->profile.warmup;
+      variance_hold_until_ = observations_ + hold;
+      level_hold_until_ = std::max(level_hold_until_, observations_ + 20);
+      StartRegime(v.change_at, to);
+      return;
+    }
+  }
+  if (observations_ < level_hold_until_) return;
+  DecideLevel(to, f.value, sigma * spread, events);
+}
+
+void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma,
+                                std::vector<SeriesEvent>* events) {
+  const ProfileOptions& profile = design_->profile;
+  for (size_t i = 0; i < level_.size(); ++i) {
+    StatusOr<Alarm> result =
+        std::visit([&](auto& detector) { return detector.Update(last_z_, t); }, level_[i]);
+    if (result.ok() && result->fired) firings_[i] = {observations_, *result};
+  }
+  int agreeing = 0;
+  int best = -1;
+  std::uint32_t mask = 0;
+  for (size_t i = 0; i < level_.size(); ++i) {
+    if (firings_[i].observation < 0 ||
+        observations_ - firings_[i].observation >= profile.agree_within) {
+      continue;
+    }
+    ++agreeing;
+    mask |= Bit(level_kinds_[i]);
+    if (best < 0 || Trust(level_kinds_[i]) < Trust(level_kinds_[best])) {
+      best = static_cast<int>(i);
+    }
+  }
+  if (agreeing < profile.agree) return;
+
+  const Alarm& alarm = firings_[best].alarm;
+  SeriesEvent e;
+  e.kind = AlertKind::kLevel;
+  e.direction = alarm.direction;
+  e.detected_at = t;
+  e.change_at = alarm.change_at;
+  e.detectors = mask;
+  e.magnitude_sd = alarm.shift;
+  e.magnitude = alarm.shift * sigma;
+  e.before = forecast;
+  e.after = forecast + e.magnitude;
+  events->push_back(e);
+
+  // Re-baseline: move the level by the estimated shift and open its variance,
+  // so the forecaster settles on the new regime within a few readings.
+  if (forecaster_) forecaster_->ShiftLevel(e.magnitude, e.magnitude * e.magnitude);
+  ResetLevelDetectors();
+  variance_.Reset();
+  const long long hold = profile.cooldown > 0 ? profile.cooldown : profile.warmup;
+  level_hold_until_ = observations_ + hold;
+  variance_hold_until_ = std::max(variance_hold_until_, observations_ + hold);
+  StartRegime(alarm.change_at, t);
+}
+
+void SeriesMonitor::ResetLevelDetectors() {
+  for (auto& detector : level_) std::visit([](auto& d) { d.Reset(); }, detector);
+  for (auto& firing : firings_) firing = Firing{};
+}
+
+void SeriesMonitor::StartRegime(EventTime change_at, EventTime /*detected_at*/) {
+  // Observations already in the new regime: those at or after change_at among
+  // the recent ones (the ring holds the last 256).
+  long long inside = 0;
+  const long long available = std::min<long long>(observations_, recent_times_.size());
+  for (long long k = 0; k < available; ++k) {
+    if (recent_times_[(observations_ - k) % recent_times_.size()] >= change_at) ++inside;
+  }
+  regime_start_ = change_at;
+  regime_observations_ = inside;
+}
+
+}  // namespace plumbline

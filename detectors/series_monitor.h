@@ -1,0 +1,186 @@
+// SeriesMonitor: the per-series pipeline. Turns one series' raw readings into
+// alerts: reorder late readings, turn readings into observations by the series'
+// kind, forecast, standardise the residual, run the change detectors, decide,
+// re-baseline. Also watches arrivals (rate changes) and silence. Not
+// thread-safe; owned by one shard, which feeds it readings in arrival order.
+//
+//   reading (t, v) -> reorder within `lateness` -> arrival model (rate alerts)
+//     -> intake by kind: gauge  -> observation v at t
+//                        count  -> observation v at t
+//                        meter  -> consumption since the previous reading, as a
+//                                  mean rate per hour over [t_prev, t]; a decrease
+//                                  is a reset or replacement: new baseline, no alert
+//     -> forecaster: one-step-ahead forecast yhat and variance factor v
+//     -> u = (y - yhat) / sqrt(1 + v); sigma from ResidualScale; z = u / sigma
+//     -> after `warmup` observations: level detectors (profile's list, calibrated
+//        by DesignDetectors) and the variance CUSUM on z
+//     -> decision: `agree` level detectors within `agree_within` observations
+//        raise a level alert; change_at from the most trusted firing detector
+//        (CUSUM, then Page-Hinkley, BOCPD, EWMA); then re-baseline (the level
+//        moves by the estimated shift with its variance opened up so the model
+//        settles fast), detectors restart, and a cooldown of `cooldown`
+//        observations (default: warmup) holds further alerts of that kind
+//     -> `retrain` event once the new regime holds `warmup` observations.
+//
+// False-alarm budget: the profile's arl0 is shared so that all alert kinds
+// together keep it (union bound): level detectors get 1/2 of the rate
+// (ARL0 x 2), the variance CUSUM 1/4 (x 4), the arrival CUSUMs 1/4 (x 4, in gaps).
+// Silence is separate: `silence_after`, or else an adaptive
+// max(5, ln(4 arl0)) x the mean gap, which for Poisson arrivals is a false-silence
+// chance of about 1/(4 arl0) per gap.
+#pragma once
+
+#include <array>
+#include <cstdint>
+#include <memory>
+#include <optional>
+#include <string>
+#include <variant>
+#include <vector>
+
+#include "detectors/arrival_model.h"
+#include "detectors/bocpd.h"
+#include "detectors/calibration.h"
+#include "detectors/cusum.h"
+#include "detectors/detection.h"
+#include "detectors/ewma.h"
+#include "detectors/page_hinkley.h"
+#include "detectors/profile.h"
+#include "detectors/residual_scale.h"
+#include "detectors/seasonal_forecaster.h"
+#include "detectors/status.h"
+#include "detectors/variance_cusum.h"
+
+namespace plumbline {
+
+enum class AlertKind { kLevel, kVariance, kRate, kSilence };
+std::string_view ToString(AlertKind kind);
+std::optional<AlertKind> AlertKindFromString(std::string_view text);
+
+enum class EventType {
+  kAlert,       // the series left its regime (or went silent)
+  kResume,      // a silent series sent a reading again
+  kRetrain,     // the new regime has `warmup` observations: retrain on [from, to]
+  kMeterReset,  // a meter total went down: reset or replacement, re-based, no alert
+};
+std::string_view ToString(EventType type);
+
+struct SeriesEvent {
+  EventType type = EventType::kAlert;
+  AlertKind kind = AlertKind::kLevel;
+  Direction direction = Direction::kNone;
+  EventTime detected_at = 0;  // time of the reading at which it fired (silence: when it began)
+  EventTime change_at = 0;    // estimated start of the change (retrain: window start)
+  EventTime window_to = 0;    // retrain: window end
+  std::uint32_t detectors = 0;  // bit (1 << DetectorKind) per level detector that fired
+  double magnitude = 0.0;     // level: shift in units; variance: sd ratio; rate: gap ratio
+  double magnitude_sd = 0.0;  // level: shift in residual standard deviations
+  double before = 0.0;        // level: forecast at detection; rate: mean gap (s) before
+  double after = 0.0;         // level: before + magnitude; rate: mean gap (s) after
+};
+
+// Everything derived from a profile once and shared by all its series:
+// calibrated detector options and model settings.
+struct ProfileDesign {
+  ProfileOptions profile;
+  DetectorDesign level;
+  VarianceCusumOptions variance;
+  ArrivalModelOptions arrival;
+  SeasonalForecasterOptions forecaster;  // memory unset in the profile: see Make
+  ResidualScaleOptions scale;
+
+  // Calibrates everything for the profile (takes up to a fraction of a second).
+  static StatusOr<ProfileDesign> Make(const ProfileOptions& profile);
+};
+
+// Why a reading did not reach the model.
+enum class ReadingVerdict { kAccepted, kLate, kNotFinite };
+
+class SeriesMonitor {
+ public:
+  // `design` must outlive the monitor.
+  explicit SeriesMonitor(const ProfileDesign* design);
+
+  // Feeds one reading; events (if any) are appended to *events.
+  ReadingVerdict Observe(EventTime t, double value, std::vector<SeriesEvent>* events);
+  // Releases readings held for reordering (end of input).
+  void Flush(std::vector<SeriesEvent>* events);
+  // Silence check against a clock (event-time in replay, wall clock in serve).
+  void AdvanceClock(EventTime now, std::vector<SeriesEvent>* events);
+  // When AdvanceClock would next report silence; nullopt when it cannot yet.
+  std::optional<EventTime> silence_deadline() const;
+
+  // Read-only views for APIs and tests.
+  // Null until the first kProbe observations have set the forecaster's memory.
+  const SeasonalForecaster* forecaster() const {
+    return forecaster_ ? &*forecaster_ : nullptr;
+  }
+  const ResidualScale& scale() const { return scale_; }
+  const ArrivalModel& arrivals() const { return arrival_; }
+  long long observations() const { return observations_; }
+  bool armed() const { return observations_ > design_->profile.warmup; }
+  bool silent() const { return silent_; }
+  double last_z() const { return last_z_; }
+
+ private:
+  using LevelDetector = std::variant<Cusum, PageHinkley, Bocpd, Ewma>;
+  struct Firing {
+    long long observation = -1;  // index at which it fired; -1 none
+    Alarm alarm;
+  };
+
+  void Process(EventTime t, double value, std::vector<SeriesEvent>* events);
+  void Model(EventTime from, EventTime to, double y, std::vector<SeriesEvent>* events);
+  void DecideLevel(EventTime t, double forecast, double sigma,
+                   std::vector<SeriesEvent>* events);
+  void StartRegime(EventTime change_at, EventTime detected_at);
+  void ResetLevelDetectors();
+  EventTime SilenceAfter() const;
+  void StartForecaster();
+
+  const ProfileDesign* design_;
+  // Unless the profile sets `memory`, the first kProbe observations are held
+  // until their spacing is known: memory = max(4 x longest season, 100 x mean
+  // spacing), so annual data and minute data both get a sensible horizon.
+  static constexpr int kProbe = 8;
+  // Residuals the scale must have seen before the detectors arm.
+  static constexpr int kMinScaleResiduals = 10;
+  std::optional<SeasonalForecaster> forecaster_;
+  struct HeldObservation {
+    EventTime from, to;
+    double y;
+  };
+  std::vector<HeldObservation> probe_;
+  ResidualScale scale_;
+  ArrivalModel arrival_;
+  VarianceCusum variance_;
+  std::vector<LevelDetector> level_;
+  std::vector<DetectorKind> level_kinds_;
+  std::vector<Firing> firings_;
+
+  // Reordering: readings held until they are `lateness` behind the newest.
+  std::vector<std::pair<EventTime, double>> pending_;
+  EventTime newest_ = INT64_MIN;
+  EventTime released_ = INT64_MIN;
+
+  // Meter intake.
+  bool has_total_ = false;
+  EventTime total_time_ = 0;
+  double total_ = 0.0;
+
+  long long observations_ = 0;
+  long long level_hold_until_ = 0;     // observation index before which level alerts wait
+  long long variance_hold_until_ = 0;
+  long long rate_hold_until_ = 0;      // in arrivals
+  double last_z_ = 0.0;
+  bool silent_ = false;
+  bool has_reading_ = false;
+  EventTime last_reading_ = 0;
+
+  // Regime bookkeeping for retrain events.
+  std::optional<EventTime> regime_start_;
+  std::array<EventTime, 256> recent_times_{};  // ring of recent observation times
+  long long regime_observations_ = 0;
+};
+
+}  // namespace plumbline
