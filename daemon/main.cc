@@ -24,7 +24,6 @@ int NotInThisBuild(const char* name) {
 }
 int RunServe(const Args&) { return NotInThisBuild("serve"); }
 int RunReplay(const Args&) { return NotInThisBuild("replay"); }
-int RunCheck(const Args&) { return NotInThisBuild("check"); }
 
 constexpr Subcommand kSubcommands[] = {
     {"serve", "serve --config FILE", "run the daemon", RunServe},

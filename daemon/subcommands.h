@@ -11,5 +11,6 @@ namespace plumbline {
 using Args = std::vector<std::string>;
 
 int RunCalibrate(const Args& args);
+int RunCheck(const Args& args);
 
 }  // namespace plumbline

@@ -1,0 +1,771 @@
+#include "config/config.h"
+
+#include <yaml-cpp/eventhandler.h>
+#include <yaml-cpp/yaml.h>
+
+#include <algorithm>
+#include <cerrno>
+#include <charconv>
+#include <cmath>
+#include <cstdio>
+#include <cstring>
+#include <limits>
+#include <map>
+#include <optional>
+#include <sstream>
+#include <system_error>
+#include <utility>
+
+#include "detectors/glob.h"
+#include "detectors/time_format.h"
+
+namespace plumbline {
+namespace {
+
+// A config larger than this is refused unread: no real profile list comes near.
+constexpr std::size_t kMaxConfigBytes = 16u << 20;
+
+// The profile that stands for "every series", used for an absent `match` and
+// when the config has no profiles at all.
+constexpr std::string_view kEverySeries = "**";
+
+constexpr std::string_view kTopLevelKeys[] = {"series"};
+// Sections that later versions add; named so the error says "not yet" rather
+// than "unknown".
+constexpr std::string_view kPlannedTopLevelKeys[] = {"listeners", "storage", "sinks",
+                                                     "annotations", "covariates"};
+
+constexpr std::string_view kProfileKeys[] = {
+    "match",  "kind",      "seasons",  "gaps",          "warmup",    "arl0",
+    "shift",  "detectors", "agree",    "silence_after", "harmonics", "every",
+    "memory", "trend",     "lateness", "agree_within",  "cooldown"};
+
+// Documents looked at after the first: enough to see a second document and a
+// parser that no longer advances.
+constexpr int kDocumentsToScan = 4;
+
+constexpr std::string_view kDurationHint =
+    "a duration such as 15m (units ms, s, m, h, d, w)";
+
+char Lower(char c) {
+  return (c >= 'A' && c <= 'Z') ? static_cast<char>(c - 'A' + 'a') : c;
+}
+
+// Optimal string alignment distance (Levenshtein plus adjacent transpositions),
+// ignoring ASCII case: "gague" -> "gauge" is 1, "warmpu" -> "warmup" is 1.
+std::size_t EditDistance(std::string_view a, std::string_view b) {
+  const std::size_t n = a.size(), m = b.size();
+  std::vector<std::vector<std::size_t>> d(n + 1, std::vector<std::size_t>(m + 1));
+  for (std::size_t i = 0; i <= n; ++i) d[i][0] = i;
+  for (std::size_t j = 0; j <= m; ++j) d[0][j] = j;
+  for (std::size_t i = 1; i <= n; ++i) {
+    for (std::size_t j = 1; j <= m; ++j) {
+      const std::size_t cost = Lower(a[i - 1]) == Lower(b[j - 1]) ? 0 : 1;
+      d[i][j] = std::min({d[i - 1][j] + 1, d[i][j - 1] + 1, d[i - 1][j - 1] + cost});
+      if (i > 1 && j > 1 && Lower(a[i - 1]) == Lower(b[j - 2]) &&
+          Lower(a[i - 2]) == Lower(b[j - 1])) {
+        d[i][j] = std::min(d[i][j], d[i - 2][j - 2] + 1);
+      }
+    }
+  }
+  return d[n][m];
+}
+
+// The closest choice to `word`, if it is close enough to be a likely typo: at
+// most one edit for short names, two for names of five or more characters, and
+// always fewer edits than the word has characters.
+template <typename Choices>
+std::optional<std::string_view> Closest(std::string_view word, const Choices& choices) {
+  std::optional<std::string_view> best;
+  std::size_t best_distance = std::numeric_limits<std::size_t>::max();
+  for (std::string_view choice : choices) {
+    const std::size_t distance = EditDistance(word, choice);
+    const std::size_t allowed = choice.size() >= 5 ? 2 : 1;
+    if (distance <= allowed && distance < word.size() && distance < best_distance) {
+      best = choice;
+      best_distance = distance;
+    }
+  }
+  return best;
+}
+
+template <typename Choices>
+std::string Join(const Choices& choices, std::string_view separator) {
+  std::string out;
+  for (std::string_view choice : choices) {
+    if (!out.empty()) out += separator;
+    out += choice;
+  }
+  return out;
+}
+
+// "gauge | count | meter" -> {"gauge", "count", "meter"}.
+std::vector<std::string_view> SplitChoices(std::string_view choices) {
+  std::vector<std::string_view> out;
+  while (!choices.empty()) {
+    const std::size_t bar = choices.find(" | ");
+    out.push_back(choices.substr(0, bar));
+    if (bar == std::string_view::npos) break;
+    choices.remove_prefix(bar + 3);
+  }
+  return out;
+}
+
+// How a node that has the wrong type is named in a message.
+std::string Describe(const YAML::Node& node) {
+  switch (node.Type()) {
+    case YAML::NodeType::Null:
+      return "nothing";
+    case YAML::NodeType::Sequence:
+      return "a list";
+    case YAML::NodeType::Map:
+      return "a mapping";
+    case YAML::NodeType::Scalar:
+      return "'" + node.Scalar() + "'";
+    default:
+      return "an undefined value";
+  }
+}
+
+std::string FormatNumber(double value) {
+  char buffer[64];
+  const auto result = std::to_chars(buffer, buffer + sizeof(buffer), value);
+  return std::string(buffer, result.ptr);
+}
+
+std::optional<long long> ParseWholeNumber(std::string_view text) {
+  if (!text.empty() && text.front() == '+') text.remove_prefix(1);
+  long long value = 0;
+  const auto result = std::from_chars(text.data(), text.data() + text.size(), value);
+  if (text.empty() || result.ec != std::errc() ||
+      result.ptr != text.data() + text.size()) {
+    return std::nullopt;
+  }
+  return value;
+}
+
+std::optional<double> ParseFiniteNumber(std::string_view text) {
+  if (!text.empty() && text.front() == '+') text.remove_prefix(1);
+  double value = 0;
+  const auto result = std::from_chars(text.data(), text.data() + text.size(), value);
+  if (text.empty() || result.ec != std::errc() ||
+      result.ptr != text.data() + text.size() || !std::isfinite(value)) {
+    return std::nullopt;
+  }
+  return value;
+}
+
+// A key and its value inside a mapping, or one element of a list (then `key`
+// names the list and `where` is the element's position).
+struct Field {
+  std::string_view key;
+  YAML::Mark key_mark;
+  YAML::Node value;
+  bool list_element = false;
+
+  // Where a problem with the value is reported. yaml-cpp places an implicit
+  // null (`key:` with nothing after it) at the next token, so those go to the key.
+  YAML::Mark Where() const {
+    return value.IsNull() || value.Mark().is_null() ? key_mark : value.Mark();
+  }
+};
+
+// Records where each document starts and what its root is, from parser events.
+class DocumentRecorder : public YAML::EventHandler {
+ public:
+  struct Document {
+    YAML::Mark start;
+    YAML::Mark root = YAML::Mark::null_mark();
+    bool null_root = false;
+  };
+  std::vector<Document> documents;
+
+  void OnDocumentStart(const YAML::Mark& mark) override {
+    documents.push_back({mark});
+    depth_ = 0;
+  }
+  void OnDocumentEnd() override {}
+  void OnNull(const YAML::Mark& mark, YAML::anchor_t) override { Node(mark, true); }
+  void OnAlias(const YAML::Mark& mark, YAML::anchor_t) override { Node(mark, false); }
+  void OnScalar(const YAML::Mark& mark, const std::string&, YAML::anchor_t,
+                const std::string&) override {
+    Node(mark, false);
+  }
+  void OnSequenceStart(const YAML::Mark& mark, const std::string&, YAML::anchor_t,
+                       YAML::EmitterStyle::value) override {
+    Node(mark, false);
+    ++depth_;
+  }
+  void OnSequenceEnd() override { --depth_; }
+  void OnMapStart(const YAML::Mark& mark, const std::string&, YAML::anchor_t,
+                  YAML::EmitterStyle::value) override {
+    Node(mark, false);
+    ++depth_;
+  }
+  void OnMapEnd() override { --depth_; }
+
+ private:
+  void Node(const YAML::Mark& mark, bool is_null) {
+    if (depth_ == 0 && !documents.empty() && documents.back().root.is_null()) {
+      documents.back().root = mark;
+      documents.back().null_root = is_null;
+    }
+  }
+  int depth_ = 0;
+};
+
+class Loader {
+ public:
+  explicit Loader(std::string_view source) : source_(source) {}
+
+  void Load(std::string_view text, Config* config) {
+    const std::string input(text);
+    YAML::Node root;
+    try {
+      root = YAML::Load(input);  // the first document only
+    } catch (const YAML::Exception& e) {
+      SyntaxError(e);
+      return;
+    } catch (const std::exception& e) {
+      Error(YAML::Mark::null_mark(), std::string("cannot parse: ") + e.what());
+      return;
+    }
+    CheckDocuments(input);
+    try {
+      LoadRoot(root, config);
+    } catch (const YAML::Exception& e) {
+      // Not expected: every access below checks the node type first.
+      Error(e.mark, "cannot read the YAML structure: " + e.msg);
+    }
+  }
+
+  std::vector<ConfigError> TakeErrors() {
+    std::stable_sort(errors_.begin(), errors_.end(),
+                     [](const ConfigError& a, const ConfigError& b) {
+                       return std::pair(a.line, a.column) < std::pair(b.line, b.column);
+                     });
+    return std::move(errors_);
+  }
+
+ private:
+  void Error(const YAML::Mark& mark, std::string message) {
+    ConfigError error;
+    error.source = source_;
+    if (!mark.is_null()) {
+      error.line = mark.line + 1;
+      error.column = mark.column + 1;
+    }
+    error.message = std::move(message);
+    errors_.push_back(std::move(error));
+  }
+
+  void SyntaxError(const YAML::Exception& e) {
+    std::string message = "YAML syntax error: " + e.msg;
+    if (e.msg.find("alias") != std::string::npos ||
+        e.msg.find("anchor") != std::string::npos) {
+      // `match: *` and `match: */temp_c` read as YAML aliases.
+      message +=
+          " (a glob that starts with '*' must be quoted, e.g. match: \"*/temp_c\")";
+    }
+    Error(e.mark, std::move(message));
+  }
+
+  // Looks past the first document: a second one is an error, and so is a
+  // stray flow character (',' at the start of a block) that yaml-cpp 0.7
+  // turns into an endless run of empty documents (upstream issue #1040, fixed
+  // in 2024 by pull request #1319); hence a bounded walk, never LoadAll.
+  void CheckDocuments(const std::string& input) {
+    std::istringstream stream(input);
+    YAML::Parser parser(stream);
+    DocumentRecorder recorder;
+    try {
+      for (int i = 0; i < kDocumentsToScan && parser.HandleNextDocument(recorder); ++i) {
+      }
+    } catch (const YAML::Exception& e) {
+      SyntaxError(e);
+      return;
+    }
+    const std::vector<DocumentRecorder::Document>& documents = recorder.documents;
+    for (std::size_t i = 1; i < documents.size(); ++i) {
+      const DocumentRecorder::Document& a = documents[i - 1];
+      const DocumentRecorder::Document& b = documents[i];
+      if (a.null_root && b.null_root && a.root.pos == b.root.pos) {
+        const auto pos = static_cast<std::size_t>(b.root.pos);
+        std::string what = "unexpected input";
+        if (pos < input.size()) what = "unexpected '" + std::string(1, input[pos]) + "'";
+        Error(b.root, "YAML syntax error: " + what);
+        return;
+      }
+    }
+    if (documents.size() > 1) {
+      Error(documents[1].start,
+            "only one YAML document is allowed; a second one starts here (remove the "
+            "'---')");
+    }
+  }
+
+  // Walks the keys of a mapping: reports non-scalar and duplicate keys, and
+  // calls visit(field) once for each first occurrence of a key.
+  template <typename Visit>
+  void ForEachKey(const YAML::Node& map, Visit visit) {
+    std::map<std::string, int> first_line;
+    for (auto it = map.begin(); it != map.end(); ++it) {
+      const YAML::Node& key = it->first;
+      if (!key.IsScalar()) {
+        Error(key.Mark(), "keys must be plain names, got " + Describe(key));
+        continue;
+      }
+      const int line = key.Mark().line + 1;
+      auto [previous, inserted] = first_line.emplace(key.Scalar(), line);
+      if (!inserted) {
+        Error(key.Mark(), "duplicate key '" + key.Scalar() + "' (first given at line " +
+                              std::to_string(previous->second) + ")");
+        continue;
+      }
+      visit(Field{key.Scalar(), key.Mark(), it->second});
+    }
+  }
+
+  template <typename Choices>
+  void UnknownKey(const Field& field, std::string_view where, const Choices& valid) {
+    std::string message =
+        "unknown key '" + std::string(field.key) + "'" + std::string(where);
+    if (auto suggestion = Closest(field.key, valid)) {
+      message += "; did you mean '" + std::string(*suggestion) + "'?";
+    }
+    message += " (valid keys: " + Join(valid, ", ") + ")";
+    Error(field.key_mark, std::move(message));
+  }
+
+  void LoadRoot(const YAML::Node& root, Config* config) {
+    bool have_series = false;
+    if (root.IsMap()) {
+      ForEachKey(root, [&](const Field& field) {
+        if (field.key == "series") {
+          have_series = true;
+          LoadSeries(field, config);
+          return;
+        }
+        const auto* planned = std::find(std::begin(kPlannedTopLevelKeys),
+                                        std::end(kPlannedTopLevelKeys), field.key);
+        if (planned != std::end(kPlannedTopLevelKeys)) {
+          Error(field.key_mark,
+                "top-level section '" + std::string(field.key) +
+                    "' is not supported by this version yet (valid keys: " +
+                    Join(kTopLevelKeys, ", ") + ")");
+          return;
+        }
+        UnknownKey(field, " at the top level", kTopLevelKeys);
+      });
+    } else if (!root.IsNull()) {
+      Error(root.Mark(),
+            "the config must be a mapping with a 'series' key, got " + Describe(root));
+    }
+    if (!have_series || config->series.empty()) {
+      // No profiles: one catch-all with every default.
+      config->series.clear();
+      config->series.emplace_back();
+      config->series.back().match = std::string(kEverySeries);
+    }
+  }
+
+  void LoadSeries(const Field& field, Config* config) {
+    if (field.value.IsNull()) return;  // `series:` with no entries
+    if (!field.value.IsSequence()) {
+      Error(field.Where(),
+            "series: expected a list of profiles (each starting with "
+            "'- match: ...'), got " +
+                Describe(field.value));
+      return;
+    }
+    std::vector<YAML::Mark> marks;  // of each loaded profile, for the reachability check
+    for (const YAML::Node& item : field.value) {
+      if (!item.IsMap()) {
+        Error(item.Mark().is_null() ? field.key_mark : item.Mark(),
+              "series: each profile must be a mapping of keys (match: ..., kind: ...), "
+              "got " +
+                  Describe(item));
+        continue;
+      }
+      ProfileOptions profile;
+      if (LoadProfile(item, &profile)) {
+        config->series.push_back(std::move(profile));
+        marks.push_back(item.Mark());
+      }
+    }
+    CheckReachable(config->series, marks);
+  }
+
+  // A profile is dead when an earlier one takes every series it could match:
+  // an earlier "**", or an earlier profile with the very same glob.
+  void CheckReachable(const std::vector<ProfileOptions>& series,
+                      const std::vector<YAML::Mark>& marks) {
+    for (std::size_t i = 0; i < series.size(); ++i) {
+      for (std::size_t j = 0; j < i; ++j) {
+        const bool every = series[j].match == kEverySeries;
+        if (every || series[j].match == series[i].match) {
+          Error(marks[i], "this profile can never match: the profile at line " +
+                              std::to_string(marks[j].line + 1) + " (match \"" +
+                              series[j].match + "\") takes " +
+                              (every ? "every series" : "all its series") +
+                              " first; put the narrower profile first");
+          break;
+        }
+      }
+    }
+  }
+
+  // Maps one profile; returns false if it had any error.
+  bool LoadProfile(const YAML::Node& map, ProfileOptions* profile) {
+    const std::size_t errors_before = errors_.size();
+    profile->match = std::string(kEverySeries);
+    std::map<std::string_view, YAML::Mark> value_marks;
+    ForEachKey(map, [&](const Field& field) {
+      if (!LoadProfileKey(field, profile)) {
+        UnknownKey(field, " in a series profile", kProfileKeys);
+        return;
+      }
+      value_marks[field.key] = field.Where();
+    });
+    if (errors_.size() != errors_before) return false;
+    std::string why;
+    if (!profile->IsValid(&why)) {
+      // IsValid's rules start with the key they are about; point at that key
+      // when the profile gives it, else at the profile itself.
+      const std::string_view key = std::string_view(why).substr(0, why.find(' '));
+      auto it = value_marks.find(key);
+      Error(it != value_marks.end() ? it->second : map.Mark(), why);
+      return false;
+    }
+    return true;
+  }
+
+  // Returns false only for an unknown key (other problems are reported here).
+  bool LoadProfileKey(const Field& f, ProfileOptions* p) {
+    const std::string_view k = f.key;
+    if (k == "match") {
+      std::string text;
+      if (!ScalarText(f, "a glob such as \"coldstore/*/temp_c\"", &text)) return true;
+      if (Status status = ValidateGlob(text); !status.ok()) {
+        std::string why = status.message();
+        if (why.rfind("glob: ", 0) == 0) why.erase(0, 6);
+        Error(f.Where(), "match: invalid glob \"" + text + "\": " + why);
+        return true;
+      }
+      p->match = std::move(text);
+    } else if (k == "kind") {
+      Enum(f, SeriesKindFromString, SeriesKindChoices(), &p->kind);
+    } else if (k == "seasons") {
+      List(f, "a list of durations such as [1d, 7d] ([] for none)", &p->seasons,
+           [this](const Field& e, EventTime* out) { return Duration(e, false, out); });
+    } else if (k == "gaps") {
+      Enum(f, GapPolicyFromString, GapPolicyChoices(), &p->gaps);
+    } else if (k == "warmup") {
+      WholeNumber(f, "a whole number of readings", &p->warmup);
+    } else if (k == "arl0") {
+      Number(f, "a number of readings", &p->arl0);
+    } else if (k == "shift") {
+      Number(f, "a number of standard deviations", &p->shift);
+    } else if (k == "detectors") {
+      List(f, "a list of detectors such as [cusum, page-hinkley]", &p->detectors,
+           [this](const Field& e, DetectorKind* out) {
+             return Enum(e, DetectorKindFromString, DetectorKindChoices(), out);
+           });
+    } else if (k == "agree") {
+      WholeNumber(f, "a whole number of detectors", &p->agree);
+    } else if (k == "silence_after") {
+      EventTime value = 0;
+      if (Duration(f, false, &value)) p->silence_after = value;
+    } else if (k == "harmonics") {
+      List(f, "a list of whole numbers, one per season, such as [3, 2]", &p->harmonics,
+           [this](const Field& e, int* out) {
+             return WholeNumber(e, "a whole number of Fourier pairs", out);
+           });
+    } else if (k == "every") {
+      EventTime value = 0;
+      if (Duration(f, false, &value)) p->every = value;
+    } else if (k == "memory") {
+      EventTime value = 0;
+      if (Duration(f, false, &value)) p->memory = value;
+    } else if (k == "trend") {
+      Bool(f, &p->trend);
+    } else if (k == "lateness") {
+      Duration(f, true, &p->lateness);
+    } else if (k == "agree_within") {
+      WholeNumber(f, "a whole number of readings", &p->agree_within);
+    } else if (k == "cooldown") {
+      WholeNumber(f, "a whole number of readings", &p->cooldown);
+    } else {
+      return false;
+    }
+    return true;
+  }
+
+  // ---- Typed readers: each reports its own error and returns false on one ----
+
+  bool ScalarText(const Field& f, std::string_view expected, std::string* out) {
+    if (f.value.IsNull()) {
+      Error(f.Where(),
+            std::string(f.key) +
+                (f.list_element ? ": empty list element; expected "
+                                : ": no value; expected ") +
+                std::string(expected) +
+                (f.list_element ? "" : " (remove the key to use the default)"));
+      return false;
+    }
+    if (!f.value.IsScalar()) {
+      Error(f.Where(), std::string(f.key) + ": expected " + std::string(expected) +
+                           ", got " + Describe(f.value));
+      return false;
+    }
+    *out = f.value.Scalar();
+    return true;
+  }
+
+  bool WholeNumber(const Field& f, std::string_view expected, int* out) {
+    std::string text;
+    if (!ScalarText(f, expected, &text)) return false;
+    const std::optional<long long> value = ParseWholeNumber(text);
+    if (!value || *value < std::numeric_limits<int>::min() ||
+        *value > std::numeric_limits<int>::max()) {
+      Error(f.Where(), std::string(f.key) + ": expected " + std::string(expected) +
+                           ", got '" + text + "'");
+      return false;
+    }
+    *out = static_cast<int>(*value);
+    return true;
+  }
+
+  bool Number(const Field& f, std::string_view expected, double* out) {
+    std::string text;
+    if (!ScalarText(f, expected, &text)) return false;
+    const std::optional<double> value = ParseFiniteNumber(text);
+    if (!value) {
+      Error(f.Where(), std::string(f.key) + ": expected " + std::string(expected) +
+                           ", got '" + text + "'");
+      return false;
+    }
+    *out = *value;
+    return true;
+  }
+
+  bool Duration(const Field& f, bool allow_zero, EventTime* out) {
+    std::string text;
+    if (!ScalarText(f, kDurationHint, &text)) return false;
+    if (allow_zero && IsZeroDuration(text)) {
+      *out = 0;
+      return true;
+    }
+    if (ParseFiniteNumber(text)) {
+      Error(f.Where(), std::string(f.key) + ": '" + text + "' has no unit; expected " +
+                           std::string(kDurationHint));
+      return false;
+    }
+    StatusOr<EventTime> value = ParseDuration(text);
+    if (!value.ok()) {
+      Error(f.Where(), std::string(f.key) + ": " + value.status().message() +
+                           "; expected " + std::string(kDurationHint));
+      return false;
+    }
+    *out = *value;
+    return true;
+  }
+
+  // "0", "0s", "0.0m", ...: zero in any unit (only `lateness` may be zero).
+  static bool IsZeroDuration(std::string_view text) {
+    for (std::string_view unit : {"ms", "s", "m", "h", "d", "w"}) {
+      if (text.size() > unit.size() && text.substr(text.size() - unit.size()) == unit) {
+        text.remove_suffix(unit.size());
+        break;
+      }
+    }
+    const std::optional<double> value = ParseFiniteNumber(text);
+    return value && *value == 0 && text.find_first_not_of("0.") == std::string_view::npos;
+  }
+
+  bool Bool(const Field& f, bool* out) {
+    std::string text;
+    if (!ScalarText(f, "true | false", &text)) return false;
+    std::string lower;
+    for (char c : text) lower += Lower(c);
+    if (lower == "true" || lower == "yes" || lower == "on") {
+      *out = true;
+    } else if (lower == "false" || lower == "no" || lower == "off") {
+      *out = false;
+    } else {
+      Error(f.Where(),
+            std::string(f.key) + ": expected true | false, got '" + text + "'");
+      return false;
+    }
+    return true;
+  }
+
+  template <typename T, typename FromString>
+  bool Enum(const Field& f, FromString from_string, std::string_view choices, T* out) {
+    const std::string expected = "one of " + std::string(choices);
+    std::string text;
+    if (!ScalarText(f, expected, &text)) return false;
+    std::optional<T> value = from_string(text);
+    if (!value) {
+      std::string message =
+          std::string(f.key) + ": unknown value '" + text + "'; expected " + expected;
+      if (auto suggestion = Closest(text, SplitChoices(choices))) {
+        message += "; did you mean '" + std::string(*suggestion) + "'?";
+      }
+      Error(f.Where(), std::move(message));
+      return false;
+    }
+    *out = *value;
+    return true;
+  }
+
+  // A list whose elements are each read by read_element; the list is replaced
+  // only if every element was good.
+  template <typename T, typename ReadElement>
+  bool List(const Field& f, std::string_view expected, std::vector<T>* out,
+            ReadElement read_element) {
+    if (f.value.IsNull()) {
+      Error(f.Where(),
+            std::string(f.key) + ": no value; expected " + std::string(expected));
+      return false;
+    }
+    if (!f.value.IsSequence()) {
+      Error(f.Where(), std::string(f.key) + ": expected " + std::string(expected) +
+                           ", got " + Describe(f.value));
+      return false;
+    }
+    std::vector<T> values;
+    bool ok = true;
+    for (const YAML::Node& element : f.value) {
+      T value{};
+      Field element_field{f.key, element.Mark().is_null() ? f.Where() : element.Mark(),
+                          element, true};
+      if (read_element(element_field, &value)) {
+        values.push_back(value);
+      } else {
+        ok = false;
+      }
+    }
+    if (ok) *out = std::move(values);
+    return ok;
+  }
+
+  std::string source_;
+  std::vector<ConfigError> errors_;
+};
+
+std::string JoinErrors(const std::vector<ConfigError>& errors) {
+  std::string out;
+  for (const ConfigError& error : errors) {
+    if (!out.empty()) out += '\n';
+    out += error.ToString();
+  }
+  return out;
+}
+
+// Reads a whole file; on failure returns the reason.
+std::optional<std::string> ReadFile(const std::string& path, std::string* contents) {
+  std::FILE* file = std::fopen(path.c_str(), "rb");
+  if (file == nullptr) return std::string("cannot open: ") + std::strerror(errno);
+  char buffer[65536];
+  std::optional<std::string> failure;
+  while (true) {
+    const std::size_t n = std::fread(buffer, 1, sizeof(buffer), file);
+    contents->append(buffer, n);
+    if (contents->size() > kMaxConfigBytes) {
+      failure =
+          "larger than " + std::to_string(kMaxConfigBytes >> 20) + " MiB; not a config";
+      break;
+    }
+    if (n < sizeof(buffer)) {
+      if (std::ferror(file))
+        failure = std::string("cannot read: ") + std::strerror(errno);
+      break;
+    }
+  }
+  std::fclose(file);
+  return failure;
+}
+
+}  // namespace
+
+std::string ConfigError::ToString() const {
+  if (line <= 0) return source + ": " + message;
+  return source + ":" + std::to_string(line) + ":" + std::to_string(column) + ": " +
+         message;
+}
+
+std::vector<ConfigError> ParseConfigText(std::string_view text,
+                                         std::string_view source_name, Config* config) {
+  *config = Config();
+  Loader loader(source_name);
+  loader.Load(text, config);
+  return loader.TakeErrors();
+}
+
+std::vector<ConfigError> ParseConfigFile(const std::string& path, Config* config) {
+  std::string contents;
+  if (std::optional<std::string> failure = ReadFile(path, &contents)) {
+    return {ConfigError{path, 0, 0, *failure}};
+  }
+  return ParseConfigText(contents, path, config);
+}
+
+StatusOr<Config> LoadConfigText(std::string_view text, std::string_view source_name) {
+  Config config;
+  std::vector<ConfigError> errors = ParseConfigText(text, source_name, &config);
+  if (!errors.empty()) return Status::InvalidArgument(JoinErrors(errors));
+  return config;
+}
+
+StatusOr<Config> LoadConfigFile(const std::string& path) {
+  Config config;
+  std::vector<ConfigError> errors = ParseConfigFile(path, &config);
+  if (!errors.empty()) {
+    const bool unreadable = errors.size() == 1 && errors[0].line == 0;
+    return unreadable ? Status::IoError(JoinErrors(errors))
+                      : Status::InvalidArgument(JoinErrors(errors));
+  }
+  return config;
+}
+
+const ProfileOptions* MatchProfile(const Config& config, std::string_view series) {
+  for (const ProfileOptions& profile : config.series) {
+    if (GlobMatch(profile.match, series)) return &profile;
+  }
+  return nullptr;
+}
+
+std::string DescribeProfile(const ProfileOptions& p) {
+  auto list = [](const auto& items, auto format) {
+    std::string out = "[";
+    for (std::size_t i = 0; i < items.size(); ++i) {
+      if (i > 0) out += ", ";
+      out += format(items[i]);
+    }
+    return out + "]";
+  };
+  std::string out = p.match + ": " + std::string(ToString(p.kind));
+  out += ", seasons " + list(p.seasons, [](EventTime t) { return FormatDuration(t); });
+  out += ", gaps " + std::string(ToString(p.gaps));
+  out += ", warmup " + std::to_string(p.warmup);
+  out += ", arl0 " + FormatNumber(p.arl0);
+  out += ", shift " + FormatNumber(p.shift);
+  out += ", detectors " +
+         list(p.detectors, [](DetectorKind d) { return std::string(ToString(d)); });
+  out += ", agree " + std::to_string(p.agree);
+  if (p.agree > 1) out += " within " + std::to_string(p.agree_within) + " readings";
+  out += ", silence_after " +
+         (p.silence_after ? FormatDuration(*p.silence_after) : std::string("adaptive"));
+  if (!p.harmonics.empty()) {
+    out += ", harmonics " + list(p.harmonics, [](int h) { return std::to_string(h); });
+  }
+  if (p.every) out += ", every " + FormatDuration(*p.every);
+  if (p.memory) out += ", memory " + FormatDuration(*p.memory);
+  if (!p.trend) out += ", no trend";
+  if (p.lateness > 0) out += ", lateness " + FormatDuration(p.lateness);
+  if (p.cooldown > 0) out += ", cooldown " + std::to_string(p.cooldown);
+  return out;
+}
+
+}  // namespace plumbline
