@@ -127,7 +127,12 @@ std::string Describe(const YAML::Node& node) {
   }
 }
 
+// Shortest text that reads back to the same double; whole numbers without an
+// exponent (500000, not 5e+05).
 std::string FormatNumber(double value) {
+  if (value == std::floor(value) && std::fabs(value) < 1e15) {
+    return std::to_string(static_cast<long long>(value));
+  }
   char buffer[64];
   const auto result = std::to_chars(buffer, buffer + sizeof(buffer), value);
   return std::string(buffer, result.ptr);

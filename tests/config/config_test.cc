@@ -400,11 +400,13 @@ TEST(ConfigTest, DescribeProfileIsOneLineWithEveryGuaranteedKey) {
     detectors: [cusum, page-hinkley, bocpd]
     agree: 2
     silence_after: 30m
+    arl0: 500000
+    shift: 0.25
 )");
   EXPECT_EQ(
       DescribeProfile(config.series[0]),
-      "coldstore/*/temp_c: gauge, seasons [8h, 1d], gaps skip, warmup 48, arl0 5000, "
-      "shift 1, detectors [cusum, page-hinkley, bocpd], agree 2 within 5 readings, "
+      "coldstore/*/temp_c: gauge, seasons [8h, 1d], gaps skip, warmup 48, arl0 500000, "
+      "shift 0.25, detectors [cusum, page-hinkley, bocpd], agree 2 within 5 readings, "
       "silence_after 30m");
 }
 
