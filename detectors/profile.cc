@@ -69,8 +69,8 @@ bool ProfileOptions::IsValid(std::string* why) const {
     if (period <= 0) return fail("seasons must be positive durations");
   }
   if (!harmonics.empty() && harmonics.size() != seasons.size()) {
-    return fail("harmonics must give one count per season (" +
-                std::to_string(seasons.size()) + " seasons)");
+    return fail("harmonics must give one count per season (seasons lists " +
+                std::to_string(seasons.size()) + ")");
   }
   for (int h : harmonics) {
     if (h < 1 || h > 24) return fail("harmonics must each be in [1, 24]");

@@ -42,7 +42,7 @@ std::string_view DetectorKindChoices();
 
 struct ProfileOptions {
   // --- keys guaranteed by DESIGN.md ---
-  std::string match = "*";  // glob over series names (see detectors/glob.h)
+  std::string match = "**";  // glob over series names (see detectors/glob.h); ** = all
   SeriesKind kind = SeriesKind::kGauge;
   std::vector<EventTime> seasons = {kMicrosPerDay, 7 * kMicrosPerDay};  // periods; {} for none
   GapPolicy gaps = GapPolicy::kSkip;

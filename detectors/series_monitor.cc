@@ -22,6 +22,19 @@ int Trust(DetectorKind kind) {
 
 std::uint32_t Bit(DetectorKind kind) { return 1u << static_cast<int>(kind); }
 
+// How far each detector's statistic is toward its threshold, in [0, 1+).
+double ThresholdFraction(const Cusum& d) {
+  return std::max(d.upper(), d.lower()) / d.options().h;
+}
+double ThresholdFraction(const PageHinkley& d) {
+  return std::max(d.up_statistic(), d.down_statistic()) / d.options().lambda;
+}
+double ThresholdFraction(const Ewma& d) {
+  const double limit = d.limit();
+  return limit > 0 ? std::abs(d.value()) / limit : 0.0;
+}
+double ThresholdFraction(const Bocpd&) { return 0.0; }  // a probability, not a drift
+
 }  // namespace
 
 std::string_view ToString(AlertKind kind) {
@@ -78,6 +91,9 @@ StatusOr<ProfileDesign> ProfileDesign::Make(const ProfileOptions& profile) {
             : profile.harmonics[i]);
   }
   if (profile.memory) design.forecaster.memory = *profile.memory;
+  // Counts move in whole units: a residual spread below the spread of a
+  // uniform rounding error (1/sqrt(12)) is not resolvable, so it is the floor.
+  if (profile.kind == SeriesKind::kCount) design.scale.floor = 1.0 / std::sqrt(12.0);
   if (!design.forecaster.IsValid(&why)) return Status::InvalidArgument(why);
   return design;
 }
@@ -86,7 +102,8 @@ SeriesMonitor::SeriesMonitor(const ProfileDesign* design)
     : design_(design),
       scale_(design->scale),
       arrival_(design->arrival),
-      variance_(design->variance) {
+      variance_(design->variance),
+      intake_(design->profile.kind, design->profile.gaps, design->profile.every) {
   const DetectorDesign& d = design->level;
   for (DetectorKind kind : d.detectors) {
     switch (kind) {
@@ -98,7 +115,7 @@ SeriesMonitor::SeriesMonitor(const ProfileDesign* design)
     level_kinds_.push_back(kind);
   }
   firings_.resize(level_.size());
-  if (design->profile.memory) StartForecaster();
+  threshold_fraction_.assign(level_.size(), 0.0);
 }
 
 EventTime SeriesMonitor::SilenceAfter() const {
@@ -136,6 +153,20 @@ ReadingVerdict SeriesMonitor::Observe(EventTime t, double value,
   if (t < released_ || (newest_ != INT64_MIN && t < newest_ - lateness)) {
     return ReadingVerdict::kLate;
   }
+  // Silence is about the stream, so it is timed from the newest reading
+  // received, not from the last one the reorder buffer has released.
+  if (silent_) {
+    silent_ = false;
+    SeriesEvent e;
+    e.type = EventType::kResume;
+    e.kind = AlertKind::kSilence;
+    e.detected_at = t;
+    e.change_at = last_reading_;
+    e.magnitude = ToSeconds(t - last_reading_);
+    events->push_back(e);
+  }
+  last_reading_ = has_reading_ ? std::max(last_reading_, t) : t;
+  has_reading_ = true;
   if (lateness == 0) {
     newest_ = released_ = t;
     Process(t, value, events);
@@ -166,20 +197,8 @@ void SeriesMonitor::Flush(std::vector<SeriesEvent>* events) {
 }
 
 void SeriesMonitor::Process(EventTime t, double value, std::vector<SeriesEvent>* events) {
-  if (silent_) {
-    silent_ = false;
-    SeriesEvent e;
-    e.type = EventType::kResume;
-    e.kind = AlertKind::kSilence;
-    e.detected_at = t;
-    e.change_at = last_reading_;
-    e.magnitude = ToSeconds(t - last_reading_);
-    events->push_back(e);
-  }
   const double gap_before = arrival_.mean_gap();
   const Alarm rate = arrival_.Observe(t);
-  has_reading_ = true;
-  last_reading_ = t;
   if (rate.fired) {
     if (arrival_.arrivals() >= rate_hold_until_) {
       SeriesEvent e;
@@ -194,45 +213,45 @@ void SeriesMonitor::Process(EventTime t, double value, std::vector<SeriesEvent>*
     arrival_.Rebaseline();
   }
 
-  switch (design_->profile.kind) {
-    case SeriesKind::kGauge:
-    case SeriesKind::kCount:
-      Model(t, t, value, events);
-      break;
-    case SeriesKind::kMeter: {
-      if (has_total_ && value < total_) {
-        SeriesEvent e;
-        e.type = EventType::kMeterReset;
-        e.detected_at = e.change_at = t;
-        e.before = total_;
-        e.after = value;
-        events->push_back(e);
-      } else if (has_total_ && t > total_time_) {
-        const double hours = ToSeconds(t - total_time_) / 3600.0;
-        Model(total_time_, t, (value - total_) / hours, events);
-      }
-      has_total_ = true;
-      total_time_ = t;
-      total_ = value;
-      break;
-    }
+  observations_scratch_.clear();
+  resets_scratch_.clear();
+  intake_.Add(t, value, &observations_scratch_, &resets_scratch_);
+  for (const MeterReset& reset : resets_scratch_) {
+    SeriesEvent e;
+    e.type = EventType::kMeterReset;
+    e.detected_at = e.change_at = reset.time;
+    e.before = reset.total_before;
+    e.after = reset.total_after;
+    events->push_back(e);
   }
+  for (const Observation& o : observations_scratch_) Model(o.from, o.to, o.value, events);
 }
 
 void SeriesMonitor::StartForecaster() {
   SeasonalForecasterOptions options = design_->forecaster;
+  double spacing = 0;  // mean spacing of the held observations
+  if (probe_.size() >= 2) {
+    spacing = static_cast<double>(probe_.back().to - probe_.front().to) /
+              static_cast<double>(probe_.size() - 1);
+  }
   if (!design_->profile.memory) {
     EventTime longest = 0;
     for (EventTime period : options.seasons) longest = std::max(longest, period);
-    double spacing = 0;
-    if (probe_.size() >= 2) {
-      spacing = static_cast<double>(probe_.back().to - probe_.front().to) /
-                static_cast<double>(probe_.size() - 1);
-    }
     options.memory = std::max<EventTime>(
         {4 * longest, static_cast<EventTime>(100.0 * spacing), kMicrosPerHour});
   }
   forecaster_.emplace(options);
+  // Phase bins over the shortest season, about four readings wide, at most 48.
+  EventTime shortest = 0;
+  for (EventTime period : options.seasons) {
+    if (shortest == 0 || period < shortest) shortest = period;
+  }
+  int bins = 1;
+  if (shortest > 0 && spacing > 0) {
+    bins = static_cast<int>(std::clamp(static_cast<double>(shortest) / (4.0 * spacing), 1.0,
+                                       static_cast<double>(kMaxPhaseBins)));
+  }
+  profile_.emplace(shortest > 0 ? shortest : kMicrosPerDay, bins, design_->scale.clip);
   std::vector<HeldObservation> held;
   held.swap(probe_);
   for (const HeldObservation& h : held) {
@@ -266,19 +285,34 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   const bool identified = forecaster_->updates() >= forecaster_->dimension();
   const bool armed = identified && observations_ > design_->profile.warmup &&
                      scale_.count() >= kMinScaleResiduals && sigma > 0;
-  const double z = armed ? u / sigma : 0.0;
+  const bool suspicious = Suspicious(kBaselineFraction);
+  const int bin = profile_->Bin(from + (to - from) / 2);
+  const double v = u - profile_->Mean(bin);
+  const double a = identified ? Whiten(to, v, !suspicious) : v;
+  const double phase_sigma = profile_->Sigma(bin, sigma);
+  const double z = armed && phase_sigma > 0 ? a / phase_sigma : 0.0;
   last_z_ = z;
 
-  // Huber-type robust fit: an extreme residual moves the model as if it were at
-  // 4 sigma, so one spike cannot drag the forecast (common practice, no source).
+  // Huber-type robust fit (common practice, no source): an extreme residual
+  // moves the model as if it were at 4 sigma, so one spike cannot drag the
+  // forecast; while a detector is well on its way to a threshold, at most 1 sigma,
+  // so the model does not quietly learn the change being tested for. If the
+  // suspicion fades, ordinary learning resumes; if it fires, re-baselining
+  // moves the model anyway.
   double y_fit = y;
-  if (armed && std::abs(z) > 4.0) y_fit = f.value + std::copysign(4.0 * sigma * spread, u);
+  const double clip = Suspicious(kLearnFraction) ? 1.0 : 4.0;
+  if (armed && std::abs(z) > clip) {
+    y_fit = f.value + (profile_->Mean(bin) + std::copysign(clip * phase_sigma, a)) * spread;
+  }
   if (from < to) {
     (void)forecaster_->UpdateInterval(from, to, y_fit);
   } else {
     (void)forecaster_->Update(to, y_fit);
   }
-  if (identified) scale_.Update(u);
+  if (identified && !suspicious) {
+    scale_.Update(a);
+    profile_->Update(bin, u, a, scale_.sigma());
+  }
 
   if (regime_start_) {
     ++regime_observations_;
@@ -295,8 +329,11 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   }
   if (!armed) return;
 
-  // Variance first: a variance alert changes what z means for the level detectors.
-  if (observations_ >= variance_hold_until_) {
+  // Variance first: a variance alert changes what z means for the level
+  // detectors. Not while the spread sits at its floor (values that never vary,
+  // such as one event per reading): a narrower spread cannot be seen there.
+  const bool resolvable = sigma > 1.5 * design_->scale.floor;
+  if (resolvable && observations_ >= variance_hold_until_) {
     const Alarm v = variance_.Update(z, to);
     if (v.fired) {
       SeriesEvent e;
@@ -325,10 +362,14 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
 void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma,
                                 std::vector<SeriesEvent>* events) {
   const ProfileOptions& profile = design_->profile;
+  const double clipped_z = std::clamp(last_z_, -kLevelClip, kLevelClip);
   for (size_t i = 0; i < level_.size(); ++i) {
     StatusOr<Alarm> result =
-        std::visit([&](auto& detector) { return detector.Update(last_z_, t); }, level_[i]);
-    if (result.ok() && result->fired) firings_[i] = {observations_, *result};
+        std::visit([&](auto& detector) { return detector.Update(clipped_z, t); }, level_[i]);
+    if (!result.ok()) continue;
+    if (result->fired) firings_[i] = {observations_, *result};
+    threshold_fraction_[i] = result->fired ? 0.0 : std::visit(
+        [](const auto& d) { return ThresholdFraction(d); }, level_[i]);
   }
   int agreeing = 0;
   int best = -1;
@@ -373,6 +414,48 @@ void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma,
 void SeriesMonitor::ResetLevelDetectors() {
   for (auto& detector : level_) std::visit([](auto& d) { d.Reset(); }, detector);
   for (auto& firing : firings_) firing = Firing{};
+  std::fill(threshold_fraction_.begin(), threshold_fraction_.end(), 0.0);
+}
+
+bool SeriesMonitor::Suspicious(double fraction_of_threshold) const {
+  for (double fraction : threshold_fraction_) {
+    if (fraction > fraction_of_threshold) return true;
+  }
+  return false;
+}
+
+double SeriesMonitor::Whiten(EventTime t, double u, bool learn) {
+  double a = u;
+  const double mean_gap = arrival_.mean_gap();
+  if (has_previous_u_ && mean_gap > 0) {
+    const double lags = static_cast<double>(t - previous_time_) / mean_gap;
+    if (lags <= 3.0) {  // only near neighbours inform (and are explained by) the AR term
+      a = u - std::pow(rho_, std::max(lags, 0.0)) * previous_u_;
+      const double sigma = scale_.sigma();
+      if (learn && sigma > 0) {
+        // Huber-clipped so one spike cannot fake a correlation.
+        const double limit = 3.0 * sigma;
+        const double x = std::clamp(previous_u_, -limit, limit);
+        const double y = std::clamp(u, -limit, limit);
+        ++pairs_;
+        const double weight = 1.0 / static_cast<double>(std::min<long long>(
+                                        pairs_, kAutocorrelationWindow));
+        cross_ += (x * y - cross_) * weight;
+        square_ += (x * x - square_) * weight;
+        // Shrunk toward zero while few pairs are in (n / (n + 20)), and kept in
+        // [0, 0.95]: an Ornstein-Uhlenbeck correlation rho^lags is positive, and
+        // a cap below 1 keeps the whitening from blinding the detectors.
+        if (square_ > 0) {
+          const double n = static_cast<double>(pairs_);
+          rho_ = std::clamp(cross_ / square_ * n / (n + 20.0), 0.0, 0.95);
+        }
+      }
+    }
+  }
+  has_previous_u_ = true;
+  previous_u_ = u;
+  previous_time_ = t;
+  return a;
 }
 
 void SeriesMonitor::StartRegime(EventTime change_at, EventTime /*detected_at*/) {

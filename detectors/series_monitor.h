@@ -5,15 +5,24 @@
 // thread-safe; owned by one shard, which feeds it readings in arrival order.
 //
 //   reading (t, v) -> reorder within `lateness` -> arrival model (rate alerts)
-//     -> intake by kind: gauge  -> observation v at t
-//                        count  -> observation v at t
-//                        meter  -> consumption since the previous reading, as a
-//                                  mean rate per hour over [t_prev, t]; a decrease
-//                                  is a reset or replacement: new baseline, no alert
+//     -> intake (detectors/intake.h): by kind, `every` bucketing and gap policy,
+//        readings become observations, each a mean over an interval or an instant
 //     -> forecaster: one-step-ahead forecast yhat and variance factor v
-//     -> u = (y - yhat) / sqrt(1 + v); sigma from ResidualScale; z = u / sigma
+//     -> u = (y - yhat) / sqrt(1 + v)
+//     -> phase profile (detectors/residual_profile.h): v = u - m(phase), the
+//        residual mean the smooth seasonal terms miss at this phase of the
+//        shortest season
+//     -> whitening: a = v - phi(gap) v_prev, an AR(1) in continuous time
+//        (Ornstein-Uhlenbeck: phi(gap) = rho ^ (gap / mean gap)), rho estimated
+//        online by weighted least squares on in-control pairs (Box, Jenkins &
+//        Reinsel, "Time Series Analysis", ch. 7, conditional least squares; the
+//        continuous-time form is Brockwell & Davis, "Introduction to Time Series
+//        and Forecasting", 2nd ed., section 11.5; MEM); sigma = the phase's
+//        spread (ResidualProfile, shrunk toward ResidualScale on a); z = a / sigma
 //     -> after `warmup` observations: level detectors (profile's list, calibrated
-//        by DesignDetectors) and the variance CUSUM on z
+//        by DesignDetectors) on z winsorised at +/- kLevelClip, so one spike can
+//        add at most that much (Huber-type, common practice, no source), and the
+//        variance CUSUM on z (it caps z^2 itself)
 //     -> decision: `agree` level detectors within `agree_within` observations
 //        raise a level alert; change_at from the most trusted firing detector
 //        (CUSUM, then Page-Hinkley, BOCPD, EWMA); then re-baseline (the level
@@ -44,8 +53,10 @@
 #include "detectors/cusum.h"
 #include "detectors/detection.h"
 #include "detectors/ewma.h"
+#include "detectors/intake.h"
 #include "detectors/page_hinkley.h"
 #include "detectors/profile.h"
+#include "detectors/residual_profile.h"
 #include "detectors/residual_scale.h"
 #include "detectors/seasonal_forecaster.h"
 #include "detectors/status.h"
@@ -121,6 +132,8 @@ class SeriesMonitor {
   bool armed() const { return observations_ > design_->profile.warmup; }
   bool silent() const { return silent_; }
   double last_z() const { return last_z_; }
+  // Estimated lag-one autocorrelation of the residuals at the mean spacing.
+  double residual_autocorrelation() const { return rho_; }
 
  private:
   using LevelDetector = std::variant<Cusum, PageHinkley, Bocpd, Ewma>;
@@ -135,16 +148,27 @@ class SeriesMonitor {
                    std::vector<SeriesEvent>* events);
   void StartRegime(EventTime change_at, EventTime detected_at);
   void ResetLevelDetectors();
+  // True while any level detector is past the given fraction of its threshold:
+  // baselines then hold still rather than learn the change being tested for.
+  bool Suspicious(double fraction_of_threshold) const;
+  // The residual scale and autocorrelation stop learning past a quarter of the
+  // way; the forecaster's steps are limited to 1 sigma past half way.
+  static constexpr double kBaselineFraction = 0.25;
+  static constexpr double kLearnFraction = 0.5;
+  static constexpr double kLevelClip = 4.0;
+  double Whiten(EventTime t, double u, bool learn);
   EventTime SilenceAfter() const;
   void StartForecaster();
 
   const ProfileDesign* design_;
-  // Unless the profile sets `memory`, the first kProbe observations are held
-  // until their spacing is known: memory = max(4 x longest season, 100 x mean
-  // spacing), so annual data and minute data both get a sensible horizon.
+  // The first kProbe observations are held until their spacing is known: it
+  // sets the phase bins and, unless the profile sets `memory`, memory = max(4 x
+  // longest season, 100 x mean spacing), so annual data and minute data both
+  // get a sensible horizon.
   static constexpr int kProbe = 8;
   // Residuals the scale must have seen before the detectors arm.
   static constexpr int kMinScaleResiduals = 10;
+  static constexpr int kMaxPhaseBins = 48;
   std::optional<SeasonalForecaster> forecaster_;
   struct HeldObservation {
     EventTime from, to;
@@ -152,6 +176,7 @@ class SeriesMonitor {
   };
   std::vector<HeldObservation> probe_;
   ResidualScale scale_;
+  std::optional<ResidualProfile> profile_;  // made with the forecaster
   ArrivalModel arrival_;
   VarianceCusum variance_;
   std::vector<LevelDetector> level_;
@@ -163,16 +188,24 @@ class SeriesMonitor {
   EventTime newest_ = INT64_MIN;
   EventTime released_ = INT64_MIN;
 
-  // Meter intake.
-  bool has_total_ = false;
-  EventTime total_time_ = 0;
-  double total_ = 0.0;
+  Intake intake_;
+  std::vector<Observation> observations_scratch_;
+  std::vector<MeterReset> resets_scratch_;
 
   long long observations_ = 0;
   long long level_hold_until_ = 0;     // observation index before which level alerts wait
   long long variance_hold_until_ = 0;
   long long rate_hold_until_ = 0;      // in arrivals
   double last_z_ = 0.0;
+  // AR(1) whitening state.
+  static constexpr int kAutocorrelationWindow = 300;  // pairs in the running estimate
+  bool has_previous_u_ = false;
+  double previous_u_ = 0.0;
+  EventTime previous_time_ = 0;
+  double cross_ = 0.0, square_ = 0.0;  // running means of u_t u_{t-1}, u_{t-1}^2
+  long long pairs_ = 0;
+  double rho_ = 0.0;
+  std::vector<double> threshold_fraction_;  // per level detector, at its last update
   bool silent_ = false;
   bool has_reading_ = false;
   EventTime last_reading_ = 0;

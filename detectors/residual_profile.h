@@ -1,0 +1,56 @@
+// ResidualProfile: what the forecaster's smooth seasonal terms miss, by phase
+// of a season. Sharp, regular shapes (a defrost spike 20 minutes wide in an
+// 8-hour cycle) and noise that depends on the time of day (orders vary more in
+// the afternoon than at night) leave residuals whose mean and spread follow the
+// phase. This keeps, per phase bin b, a running mean m_b and a robust running
+// second moment s2_b of the residual, shrunk toward the whole series' values:
+//
+//   m_b   <- m_b  + (r - m_b) / min(n_b, window)            (r clipped at 4 sigma_b)
+//   s2_b  <- s2_b + (min(a^2, c^2 sigma_b^2) / m(c) - s2_b) / min(n_b, window)
+//
+// where r is the residual and a the standardisation's input at that reading
+// (the residual after this mean is removed and after whitening).
+//   mean_b  = n_b / (n_b + n0) * m_b
+//   sigma_b = sqrt((n_b s2_b + n0 s2_all) / (n_b + n0))
+//
+// with n0 = kPrior readings of shrinkage (empirical-Bayes style partial pooling,
+// common practice, no source) and m(c) the clipped second moment of N(0,1)
+// (ResidualScale::ClippedSecondMoment). Bins are equal slices of the period, in
+// event time. Not thread-safe; owned by one shard.
+#pragma once
+
+#include <vector>
+
+#include "detectors/event_time.h"
+
+namespace plumbline {
+
+class ResidualProfile {
+ public:
+  static constexpr double kPrior = 10.0;  // readings of shrinkage toward the whole series
+  static constexpr int kWindow = 200;     // readings per bin in the running means
+
+  // period > 0, bins >= 1. One bin is a plain (phase-free) robust scale.
+  ResidualProfile(EventTime period, int bins, double clip);
+
+  int Bin(EventTime t) const;
+  // The expected residual and its spread at the phase of t. `sigma_all` is the
+  // whole-series scale the bins are shrunk toward.
+  double Mean(int bin) const;
+  double Sigma(int bin, double sigma_all) const;
+  // Folds in residual r and innovation a observed in `bin`, given the current
+  // whole-series scale.
+  void Update(int bin, double r, double a, double sigma_all);
+  int bins() const { return static_cast<int>(bins_.size()); }
+
+ private:
+  struct Bin_ {
+    double n = 0, mean = 0, s2 = 0;
+  };
+  EventTime period_;
+  double clip_;
+  double correction_;
+  std::vector<Bin_> bins_;
+};
+
+}  // namespace plumbline
