@@ -20,19 +20,23 @@ bool ArrivalModelOptions::IsValid(std::string* why) const {
   if (warmup < 3 || warmup > 1000000) return fail("arrival warmup must be in [3, 1000000] gaps");
   if (window < 10 || window > 10000000) return fail("arrival window must be in [10, 10000000] gaps");
   if (!(slower_h > 0) || !(faster_h > 0)) return fail("arrival decision intervals must be > 0");
+  if (!(gap_cap > 2.0 * std::numbers::ln2)) return fail("arrival gap_cap must be > 2 ln 2");
   return true;
 }
 
 StatusOr<ArrivalModelOptions> ArrivalModelOptions::Calibrated(double arl0) {
   ArrivalModelOptions options;
   // Increment of the slower side: X - 2 ln 2, X ~ Exp(1).
-  auto slower_cdf = [](double y) {
+  const double cap = options.gap_cap;
+  auto slower_cdf = [cap](double y) {
     const double x = y + kSlowerReference;
+    if (x >= cap) return 1.0;
     return x <= 0 ? 0.0 : 1.0 - std::exp(-x);
   };
   // Increment of the faster side: ln 2 - X.
-  auto faster_cdf = [](double y) {
+  auto faster_cdf = [cap](double y) {
     const double x = kFasterReference - y;  // P(ln2 - X <= y) = P(X >= ln2 - y)
+    if (x > cap) return 0.0;
     return x <= 0 ? 1.0 : std::exp(-x);
   };
   auto slower = CalibrateOneSidedCusum(slower_cdf, 2.0 * arl0);
@@ -58,13 +62,19 @@ Alarm ArrivalModel::Observe(EventTime t) {
   ++gaps_;
   if (gaps_ <= options_.warmup) {
     theta_ += (gap - theta_) / static_cast<double>(gaps_);
+    used_ = gaps_;
     return alarm;
   }
   if (theta_ <= 0) {  // all gaps so far were zero: nothing to scale by yet
     theta_ = gap;
+    used_ = 1;
     return alarm;
   }
-  const double x = gap / theta_;
+  // Self-starting transform: theta is the mean of n earlier gaps, so for a
+  // Poisson stream P(gap / theta > r) = (1 + r/n)^-n exactly, and
+  // x = n ln(1 + r/n) is Exp(1) whatever n is.
+  const double n = static_cast<double>(std::min<long long>(used_, options_.window));
+  const double x = std::min(n * std::log1p(gap / theta_ / n), options_.gap_cap);
   if (slower_ == 0) slower_start_ = t;
   if (faster_ == 0) faster_start_ = t;
   slower_ = std::max(0.0, slower_ + x - kSlowerReference);
@@ -74,11 +84,11 @@ Alarm ArrivalModel::Observe(EventTime t) {
   } else if (faster_ > options_.faster_h) {
     alarm = {true, Direction::kUp, faster_start_, 0.0, faster_};
   }
-  if (alarm.fired) return alarm;
-  if (slower_ == 0 && faster_ == 0) {
-    const double n = static_cast<double>(std::min<long long>(gaps_, options_.window));
-    theta_ += (gap - theta_) / n;
-  }
+  // Every gap joins the baseline (capped, so a silence cannot drag it), which
+  // keeps the successive x independent; see the header.
+  ++used_;
+  theta_ += (std::min(gap, options_.gap_cap * theta_) - theta_) /
+            static_cast<double>(std::min<long long>(used_, options_.window));
   return alarm;
 }
 
@@ -89,7 +99,7 @@ EventTime ArrivalModel::NextArrivalQuantile(double q) const {
 
 void ArrivalModel::Rebaseline() {
   slower_ = faster_ = 0.0;
-  gaps_ = 0;
+  gaps_ = used_ = 0;
   theta_ = 0.0;
 }
 

@@ -11,14 +11,17 @@
 //
 //   s2_t = (1 - a_t) s2_{t-1} + a_t * min(u_t^2, c^2 sigma_{t-1}^2) / m(c)
 //   m(c) = E[min(Z^2, c^2)], Z ~ N(0,1)
-//        = (2 Phi(c) - 1) - 2 c phi(c) + 2 c^2 (1 - Phi(c))      (0.99495 at c = 3)
+//        = (2 Phi(c) - 1) - 2 c phi(c) + 2 c^2 (1 - Phi(c))      (0.99501 at c = 3)
 //   a_t = 1 / min(t, window)            (a plain mean until `window` readings)
 //   sigma_t = max(sqrt(s2_t), floor)
 //
-// Dividing by m(c) makes s2 unbiased for sigma^2 under normal residuals. A single
-// spike moves s2 by at most a c^2 sigma^2 / m(c), i.e. by at most 9/window of itself
-// at c = 3. The first `start` residuals are combined by their median absolute value
-// (MAD / 0.6745) before clipping begins, so early misfit does not lock in.
+// Dividing by m(c) makes s2 unbiased for sigma^2 under normal residuals, up to a
+// small second-order effect of clipping at the estimate's own fluctuating value
+// (s2 averages 0.5% low at window 500; tests/detectors/residual_scale_test.cc).
+// A single spike moves s2 by at most a c^2 sigma^2 / m(c), i.e. by at most
+// 9/window of itself at c = 3. The first `start` residuals are combined by their
+// median absolute value (MAD / 0.6745) before clipping begins, so early misfit
+// does not lock in.
 //
 // Parameters: window 100-1000 readings (longer = steadier, slower to follow a
 // genuine variance change, which the variance detector reports anyway); clip 2.5-4.

@@ -1,5 +1,7 @@
 #include "detectors/seasonal_forecaster.h"
 
+#include <Eigen/Eigenvalues>
+#include <algorithm>
 #include <cmath>
 #include <limits>
 #include <numbers>
@@ -92,10 +94,14 @@ void SeasonalForecaster::FillIntervalRegressors(EventTime from, EventTime to,
                            static_cast<double>(period);
     const double span = 2.0 * std::numbers::pi * length / static_cast<double>(period);
     for (int j = 1; j <= harmonics_[s]; ++j) {
-      const double w_length = j * span;  // omega_j (b - a)
-      const double start = j * angle_a, end = start + w_length;
-      r[i++] = (std::sin(end) - std::sin(start)) / w_length;
-      r[i++] = (std::cos(start) - std::cos(end)) / w_length;
+      // (sin(w b) - sin(w a)) / (w (b - a)) = cos(w m) sin(h) / h and
+      // (cos(w a) - cos(w b)) / (w (b - a)) = sin(w m) sin(h) / h, with m the
+      // midpoint and h = w (b - a) / 2: no cancellation for short intervals.
+      const double half = 0.5 * j * span;
+      const double middle = j * angle_a + half;
+      const double sinc = std::sin(half) / half;
+      r[i++] = std::cos(middle) * sinc;
+      r[i++] = std::sin(middle) * sinc;
     }
   }
 }
@@ -150,14 +156,21 @@ StatusOr<Forecast> SeasonalForecaster::UpdateWith(EventTime t, double y, bool in
   }
   if (updates_ == 0) {
     t_ref_ = t;
+    t_first_ = t;
     theta_.setZero();
     theta_[0] = y;
     p_ = Matrix::Identity(dimension(), dimension()) * options_.prior_variance;
   }
-  const double lambda = std::exp(-static_cast<double>(t - t_ref_) /
-                                 static_cast<double>(options_.memory));
+  // Past kMaxForgettingExponent memories the old information is gone to double
+  // precision anyway; the clamp keeps P / lambda finite after a very long gap.
+  const double lambda = std::exp(
+      -std::min(static_cast<double>(t - t_ref_) / static_cast<double>(options_.memory),
+                kMaxForgettingExponent));
   Recentre(t);
   p_ /= lambda;
+  // Bounding before the update as well keeps a long gap's huge P / lambda out
+  // of the rank-one downdate (it would leave P with a condition number ~1e16).
+  BoundCovariance(t);
   if (interval) {
     FillIntervalRegressors(from, t, &x_);
   } else {
@@ -170,24 +183,43 @@ StatusOr<Forecast> SeasonalForecaster::UpdateWith(EventTime t, double y, bool in
   const double denominator = 1.0 + xpx;
   theta_.noalias() += px_ * (error / denominator);
   p_.noalias() -= (px_ / denominator) * px_.transpose();
-  // Keep P exactly symmetric (mirror the lower triangle) and bounded by the
-  // prior variance on its diagonal.
+  // Keep P exactly symmetric (mirror the lower triangle) and bounded.
   p_.triangularView<Eigen::StrictlyUpper>() = p_.transpose();
-  for (int i = 0; i < dimension(); ++i) {
-    const double pii = p_(i, i);
-    if (pii > options_.prior_variance) {
-      const double scale = std::sqrt(options_.prior_variance / pii);
-      p_.row(i) *= scale;
-      p_.col(i) *= scale;
-    }
-  }
+  BoundCovariance(t);
   ++updates_;
   return before;
 }
 
+double SeasonalForecaster::CovarianceBound(EventTime t) const {
+  // prior_variance / max(w_0(t), kPriorWeightFloor), w_0(t) = exp(-(t - t_1) / memory).
+  const double age =
+      static_cast<double>(t - t_first_) / static_cast<double>(options_.memory);
+  return options_.prior_variance *
+         std::exp(std::clamp(age, 0.0, -std::log(kPriorWeightFloor)));
+}
+
+void SeasonalForecaster::BoundCovariance(EventTime t) {
+  const double bound = CovarianceBound(t);
+  // The margin keeps rounding (P_ii a few ulps above an exactly-met bound) from
+  // triggering the guard while the fit is still the exact one.
+  if (!(p_.diagonal().maxCoeff() > bound * (1.0 + kBoundMargin))) return;
+  // Clamp the eigenvalues rather than rescale rows and columns: a diagonal
+  // rescaling D P D of directions that are correlated with well-determined ones
+  // (a season aliased with the level) leaks their huge variance into the
+  // well-determined combinations, and the fit turns noisy.
+  Eigen::SelfAdjointEigenSolver<Matrix> eigen(p_);
+  const Vector clamped = eigen.eigenvalues().cwiseMin(kBoundReset * bound);
+  p_.noalias() =
+      eigen.eigenvectors() * clamped.asDiagonal() * eigen.eigenvectors().transpose();
+  p_.triangularView<Eigen::StrictlyUpper>() = p_.transpose();
+}
+
 void SeasonalForecaster::ShiftLevel(double delta, double level_variance) {
   theta_[0] += delta;
-  p_(0, 0) = std::min(p_(0, 0) + level_variance, options_.prior_variance);
+  // Adding to a diagonal element keeps P positive definite. The addition stops
+  // at half the covariance bound, so the guard has nothing to do.
+  const double room = kBoundReset * CovarianceBound(t_ref_) - p_(0, 0);
+  p_(0, 0) += std::clamp(level_variance, 0.0, std::max(room, 0.0));
 }
 
 }  // namespace plumbline

@@ -29,14 +29,33 @@
 //   update:    theta += k e;  P -= k (P x)';  P = (P + P')/2
 //
 // The re-centring is an exact reparametrisation, so the result equals the batch
-// weighted least-squares fit above (tests/reference/forecaster_reference.py checks
-// this with numpy to 1e-8). Numerical safeguards (common practice, no source):
-// P is kept symmetric, and each diagonal element is held at or below the prior
-// variance by a symmetric diagonal rescaling D P D (D <= 1) -- a bounded-covariance
-// guard against wind-up when a direction is not excited (e.g. a season whose
-// period equals the sampling interval), which keeps P positive definite. The
-// guard is inactive while the data excite every direction, so the WLS identity
-// holds then.
+// weighted least-squares fit above, with the prior term taken in the coordinates
+// of the first reading's time (theta_1 = A^-1 theta_n, A = I + e_l e_b' (t_n - t_1)/U)
+// and w_0 = exp(-(t_n - t_1) / memory) (tests/reference/forecaster_reference.py
+// checks this with numpy to 1e-8). Numerical safeguards (common practice, no
+// source): P is kept symmetric, lambda is floored at exp(-30) so a very long gap
+// cannot overflow P, and P is kept bounded by
+//
+//   bound(t) = prior_variance / max(w_0(t), 0.01)
+//
+// -- a bounded-covariance guard against wind-up when a direction is not excited
+// (e.g. a season whose period equals the sampling interval, or harmonics that
+// alias at a regular spacing): when a diagonal element of P exceeds bound(t),
+// P's eigenvalues are clamped at bound(t) / 2 (P = V min(L, bound/2) V'), which
+// leaves the well-determined directions alone and keeps P positive definite;
+// the half-way reset means the O(n^3) eigensolver runs about once per
+// memory * ln 2 of wind-up, not at every reading. The exact fit has
+// P_n <= (w_0 R_0)^-1 = I prior_variance / w_0, so the guard cannot act while
+// w_0 >= 0.01 (the first 4.6 memories) and the WLS identity holds then
+// exactly; later it acts only on directions the data have stopped exciting.
+// (A bound of prior_variance itself would fire during start-up, before the data
+// excite every direction, and bias the fit; a diagonal rescaling D P D would leak
+// the unexcited variance into correlated, well-determined directions.) The
+// bound is applied after the forgetting step as well as after the update, so a
+// gap of many memories cannot feed a huge P / lambda into the update. In
+// covariance form the first updates subtract numbers of size prior_variance,
+// so a very large prior_variance costs digits: with y ~ 20 the difference from
+// the exact fit is ~1e-12 at prior_variance 1e4 and ~1e-8 at 1e8.
 //
 // Prediction variance: Var(y_new - yhat) = sigma^2 (1 + x' P x / lambda), with P
 // inflated for the time elapsed since the last update; ResidualScale supplies sigma.
@@ -106,7 +125,8 @@ class SeasonalForecaster {
   Forecast PredictInterval(EventTime from, EventTime to) const;
 
   // Moves the level by delta (units of y) and adds level_variance to its
-  // variance, so the model re-baselines fast after a detected change.
+  // variance (at most up to half the covariance bound below), so the model
+  // re-baselines fast after a detected change.
   void ShiftLevel(double delta, double level_variance);
 
   const Vector& coefficients() const { return theta_; }
@@ -118,6 +138,18 @@ class SeasonalForecaster {
   void FillIntervalRegressors(EventTime from, EventTime to, Vector* x) const;
   StatusOr<Forecast> UpdateWith(EventTime t, double y, bool interval, EventTime from);
   void Recentre(EventTime t);
+  // The bounded-covariance guard (see the header comment).
+  double CovarianceBound(EventTime t) const;
+  void BoundCovariance(EventTime t);
+
+  // The guard lets the prior's weight decay to this fraction, no further.
+  static constexpr double kPriorWeightFloor = 0.01;
+  // It acts when a diagonal element exceeds the bound by more than this
+  // (relative) margin, and then clamps P's eigenvalues at kBoundReset * bound.
+  static constexpr double kBoundMargin = 1e-9;
+  static constexpr double kBoundReset = 0.5;
+  // lambda is never smaller than exp(-kMaxForgettingExponent).
+  static constexpr double kMaxForgettingExponent = 30.0;
 
   SeasonalForecasterOptions options_;
   std::vector<EventTime> periods_;   // one entry per season
@@ -127,6 +159,7 @@ class SeasonalForecaster {
   mutable Vector x_;                 // scratch regressor, sized once
   Vector px_;                        // scratch P x
   EventTime t_ref_ = 0;
+  EventTime t_first_ = 0;            // time of the first update (the prior's time)
   long long updates_ = 0;
 };
 

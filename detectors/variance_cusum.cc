@@ -53,8 +53,26 @@ VarianceCusum::VarianceCusum(const VarianceCusumOptions& options)
     : options_(options), k_up_(options.k_up()), k_down_(options.k_down()) {}
 
 Alarm VarianceCusum::Update(double z, EventTime time) {
+  if (!std::isfinite(z)) return Alarm{};
+  if (has_spike_) {
+    has_spike_ = false;
+    if (z * z >= options_.cap) {  // not isolated: both readings count
+      const Alarm first = Step(spike_z_, spike_time_);
+      const Alarm second = Step(z, time);
+      return first.fired ? first : second;
+    }
+    // Otherwise the held reading was an isolated spike: it is dropped.
+  } else if (std::abs(z) >= kSpike) {
+    has_spike_ = true;
+    spike_z_ = z;
+    spike_time_ = time;
+    return Alarm{};
+  }
+  return Step(z, time);
+}
+
+Alarm VarianceCusum::Step(double z, EventTime time) {
   Alarm alarm;
-  if (!std::isfinite(z)) return alarm;
   const double q = std::min(z * z, options_.cap);
   auto step = [&](Side& side, double increment) {
     if (side.statistic == 0) side = Side{0.0, time, 0, 0, 0};
@@ -63,6 +81,12 @@ Alarm VarianceCusum::Update(double z, EventTime time) {
     side.sum += z;
     side.sum_sq += z * z;
   };
+  if (up_.statistic == 0) {
+    excursion_.clear();
+  } else if (excursion_.size() >= 2 * kExcursionValues) {
+    excursion_.erase(excursion_.begin(), excursion_.begin() + kExcursionValues);
+  }
+  excursion_.push_back(z);
   step(up_, q - k_up_);
   step(down_, k_down_ - q);
   auto spread = [](const Side& s) {
@@ -70,9 +94,8 @@ Alarm VarianceCusum::Update(double z, EventTime time) {
     return std::max(s.sum_sq / s.n - m * m, 0.0);
   };
   if (up_.statistic > options_.up_h) {
-    const double m = up_.sum / up_.n, v = spread(up_);
-    if (v - 1.0 > m * m) {
-      alarm = {true, Direction::kUp, up_.start, std::sqrt(v), up_.statistic};
+    if (SpreadExplainsExcursion()) {
+      alarm = {true, Direction::kUp, up_.start, std::sqrt(spread(up_)), up_.statistic};
       Reset();
     }
   } else if (down_.statistic > options_.down_h) {
@@ -82,6 +105,27 @@ Alarm VarianceCusum::Update(double z, EventTime time) {
   return alarm;
 }
 
-void VarianceCusum::Reset() { up_ = down_ = Side{}; }
+bool VarianceCusum::SpreadExplainsExcursion() const {
+  // Log-likelihood ratios against N(0, 1), each maximised over the start tau of
+  // the final segment z_tau..z_n (length L, sum S, sum of squares Q):
+  //   level shift, N(delta, 1):  S^2 / (2 L)
+  //   wider spread, N(0, rho):   L/2 (s2 - 1 - ln s2),  s2 = Q / L > 1
+  double sum = 0.0, sum_sq = 0.0, level = 0.0, spread = 0.0;
+  for (size_t i = excursion_.size(); i-- > 0;) {
+    sum += excursion_[i];
+    sum_sq += excursion_[i] * excursion_[i];
+    const double length = static_cast<double>(excursion_.size() - i);
+    level = std::max(level, sum * sum / (2.0 * length));
+    const double s2 = sum_sq / length;
+    if (s2 > 1.0) spread = std::max(spread, 0.5 * length * (s2 - 1.0 - std::log(s2)));
+  }
+  return spread > level;
+}
+
+void VarianceCusum::Reset() {
+  up_ = down_ = Side{};
+  excursion_.clear();
+  has_spike_ = false;
+}
 
 }  // namespace plumbline
