@@ -21,6 +21,10 @@ bool ArrivalModelOptions::IsValid(std::string* why) const {
   if (window < 10 || window > 10000000) return fail("arrival window must be in [10, 10000000] gaps");
   if (!(slower_h > 0) || !(faster_h > 0)) return fail("arrival decision intervals must be > 0");
   if (!(gap_cap > 2.0 * std::numbers::ln2)) return fail("arrival gap_cap must be > 2 ln 2");
+  if (season < 0) return fail("arrival season must be zero or a positive duration");
+  if (season_bins < 1 || season_bins > 1000) return fail("arrival season_bins must be in [1, 1000]");
+  if (season > 0 && season / season_bins < 1) return fail("arrival season_bins too many for the season");
+  if (shape_memory < 0) return fail("arrival shape_memory must be zero or positive");
   return true;
 }
 
@@ -48,7 +52,124 @@ StatusOr<ArrivalModelOptions> ArrivalModelOptions::Calibrated(double arl0) {
   return options;
 }
 
-ArrivalModel::ArrivalModel(const ArrivalModelOptions& options) : options_(options) {}
+ArrivalShape::ArrivalShape(EventTime period, int bins, EventTime memory)
+    : period_(period),
+      width_(period / bins),
+      memory_(static_cast<double>(memory > 0 ? memory : 4 * period)),
+      events_(static_cast<size_t>(bins), 0.0),
+      exposure_(static_cast<size_t>(bins), 0.0),
+      p_(static_cast<size_t>(bins), 1.0) {}
+
+int ArrivalShape::Bin(EventTime t) const {
+  EventTime within = t % period_;
+  if (within < 0) within += period_;
+  return std::min(static_cast<int>(within / width_), static_cast<int>(p_.size()) - 1);
+}
+
+void ArrivalShape::AddExposure(EventTime from, EventTime to, double weight) {
+  const int bins = static_cast<int>(p_.size());
+  const EventTime length = to - from;
+  // Whole seasons add to every bin alike.
+  const EventTime whole = std::min<EventTime>(length / period_, kMaxPeriods);
+  if (whole > 0) {
+    for (double& x : exposure_) x += weight * static_cast<double>(whole * width_);
+    from = to - (length % period_);
+  }
+  for (EventTime cursor = from; cursor < to;) {
+    const int b = Bin(cursor);
+    EventTime within = cursor % period_;
+    if (within < 0) within += period_;
+    const EventTime bin_end = cursor - within + (b + 1 == bins ? period_ : (b + 1) * width_);
+    const EventTime end = std::min(to, bin_end);
+    exposure_[static_cast<size_t>(b)] += weight * static_cast<double>(end - cursor);
+    cursor = end;
+  }
+}
+
+void ArrivalShape::Record(EventTime from, EventTime to) {
+  if (to < from) return;
+  if (!anchored_) {
+    anchor_ = from;
+    anchored_ = true;
+  }
+  // Forgetting by growing weights: a contribution at t weighs exp((t - anchor)/memory);
+  // only ratios are used, so the common factor never needs applying.
+  double weight = std::exp(static_cast<double>(to - anchor_) / memory_);
+  if (weight > 1e100) {
+    for (double& e : events_) e /= weight;
+    for (double& x : exposure_) x /= weight;
+    anchor_ = to;
+    weight = 1.0;
+  }
+  weight_ = weight;
+  AddExposure(from, to, weight);
+  events_[static_cast<size_t>(Bin(to))] += weight;
+  exposure_total_ += static_cast<double>(to - from);
+  Refresh();
+}
+
+void ArrivalShape::Refresh() {
+  double events = 0, exposure = 0;
+  for (size_t b = 0; b < p_.size(); ++b) {
+    events += events_[b];
+    exposure += exposure_[b];
+  }
+  if (events <= 0 || exposure <= 0) return;
+  const double rate = events / exposure;
+  // kShapePrior pseudo-events at the mean rate, weighted like a new event.
+  const double prior_events = kShapePrior * weight_;
+  const double prior_exposure = prior_events / rate;
+  double sum = 0;
+  for (size_t b = 0; b < p_.size(); ++b) {
+    p_[b] = (events_[b] + prior_events) / (exposure_[b] + prior_exposure);
+    sum += p_[b];
+  }
+  const double mean = sum / static_cast<double>(p_.size());
+  for (double& v : p_) v /= mean;
+}
+
+double ArrivalShape::Operational(EventTime from, EventTime to) const {
+  if (!learned() || to <= from) return static_cast<double>(std::max<EventTime>(to - from, 0));
+  const EventTime length = to - from;
+  double total = static_cast<double>((length / period_) * period_);  // p averages 1
+  from = to - (length % period_);
+  const int bins = static_cast<int>(p_.size());
+  for (EventTime cursor = from; cursor < to;) {
+    const int b = Bin(cursor);
+    EventTime within = cursor % period_;
+    if (within < 0) within += period_;
+    const EventTime bin_end = cursor - within + (b + 1 == bins ? period_ : (b + 1) * width_);
+    const EventTime end = std::min(to, bin_end);
+    total += p_[static_cast<size_t>(b)] * static_cast<double>(end - cursor);
+    cursor = end;
+  }
+  return total;
+}
+
+EventTime ArrivalShape::WallTimeAfter(EventTime from, double operational) const {
+  if (!learned()) return from + static_cast<EventTime>(operational);
+  const int bins = static_cast<int>(p_.size());
+  EventTime cursor = from;
+  const EventTime limit = from + kMaxPeriods * period_;
+  while (cursor < limit) {
+    const int b = Bin(cursor);
+    EventTime within = cursor % period_;
+    if (within < 0) within += period_;
+    const EventTime bin_end = cursor - within + (b + 1 == bins ? period_ : (b + 1) * width_);
+    const double rate = p_[static_cast<size_t>(b)];
+    const double available = rate * static_cast<double>(bin_end - cursor);
+    if (available >= operational && rate > 0) {
+      return cursor + static_cast<EventTime>(operational / rate);
+    }
+    operational -= available;
+    cursor = bin_end;
+  }
+  return limit;
+}
+
+ArrivalModel::ArrivalModel(const ArrivalModelOptions& options) : options_(options) {
+  if (options.season > 0) shape_.emplace(options.season, options.season_bins, options.shape_memory);
+}
 
 Alarm ArrivalModel::Observe(EventTime t) {
   Alarm alarm;
@@ -57,7 +178,10 @@ Alarm ArrivalModel::Observe(EventTime t) {
     last_ = t;
     return alarm;
   }
-  const double gap = static_cast<double>(std::max<EventTime>(t - last_, 0));
+  const EventTime previous = last_;
+  const double gap = shape_ ? shape_->Operational(previous, std::max(t, previous))
+                            : static_cast<double>(std::max<EventTime>(t - previous, 0));
+  if (shape_) shape_->Record(previous, std::max(t, previous));
   last_ = t;
   ++gaps_;
   if (gaps_ <= options_.warmup) {
@@ -94,7 +218,9 @@ Alarm ArrivalModel::Observe(EventTime t) {
 
 EventTime ArrivalModel::NextArrivalQuantile(double q) const {
   q = std::clamp(q, 1e-9, 1.0 - 1e-9);
-  return last_ + static_cast<EventTime>(theta_ * -std::log1p(-q));
+  const double operational = theta_ * -std::log1p(-q);
+  if (shape_) return shape_->WallTimeAfter(last_, operational);
+  return last_ + static_cast<EventTime>(operational);
 }
 
 void ArrivalModel::Rebaseline() {

@@ -44,12 +44,33 @@
 // moves theta by (new - old) / window per gap, 1-2% over 20 gaps at window 1000
 // (measured in tests/detectors/arrival_model_test.cc).
 //
+// Seasonal arrivals (time rescaling): many streams arrive faster by day than
+// by night, or on weekdays. With a `season`, gaps are measured in operational
+// time, tau(t) = integral of p(phase(s)) ds, where p is the arrival intensity at
+// each phase of the season relative to its mean (so p averages 1 and an
+// operational gap is a gap "as if the stream were even"). By the time-rescaling
+// theorem a Poisson stream with intensity lambda p(phase) becomes a homogeneous
+// one in operational time (Brown, Barbieri, Ventura, Kass & Frank 2002, "The
+// time-rescaling theorem and its application to neural spike train data
+// analysis", Neural Computation 14:325-346; MEM), so everything above applies
+// to operational gaps unchanged. p is estimated per phase bin from events and
+// exposure, forgotten over `shape_memory`, and shrunk toward the mean rate by
+// kShapePrior events per bin (partial pooling, common practice, no source):
+//
+//   p_b = (e_b + k) / (x_b + k / rbar), then divided by its mean over the bins
+//
+// (e_b events and x_b exposure in bin b, rbar the mean rate, k = kShapePrior).
+//
+// It is used once it has seen one whole season (before that p = 1).
+//
 // Change time: the arrival that started the fired side's excursion (the reading
 // after its last zero). Also gives quantiles of the next arrival time under the
 // exponential model: t_last + theta * (-ln(1 - q)).
 #pragma once
 
+#include <optional>
 #include <string>
+#include <vector>
 
 #include "detectors/detection.h"
 #include "detectors/event_time.h"
@@ -64,10 +85,47 @@ struct ArrivalModelOptions {
   double faster_h = 10.0;  // decision interval of the faster-arrivals side, > 0
   double gap_cap = 6.0;    // X is capped here, so one long gap (a silence) alone
                            // cannot fire the slower side; > 2 ln 2
+  EventTime season = 0;    // period of the arrival intensity's shape; 0 = even
+  int season_bins = 1;     // phase bins of the shape, [1, 1000]
+  EventTime shape_memory = 0;  // forgetting time of the shape; 0 = 4 seasons
 
   bool IsValid(std::string* why) const;
   // Decision intervals for a target ARL0 (in gaps) for the pair of sides.
   static StatusOr<ArrivalModelOptions> Calibrated(double arl0);
+};
+
+// The relative arrival intensity p(phase) of one season, and operational time.
+// Not thread-safe; owned by its ArrivalModel.
+class ArrivalShape {
+ public:
+  static constexpr double kShapePrior = 2.0;  // pseudo-events per bin at the mean rate
+
+  ArrivalShape(EventTime period, int bins, EventTime memory);
+  // Records the stretch [from, to] in which the stream was watched, ending with
+  // an arrival at `to`.
+  void Record(EventTime from, EventTime to);
+  // Operational time between from and to (equal to to - from while unlearned).
+  double Operational(EventTime from, EventTime to) const;
+  // The wall time at which `operational` microseconds of operational time have
+  // passed since `from` (searches at most kMaxPeriods seasons ahead).
+  EventTime WallTimeAfter(EventTime from, double operational) const;
+  bool learned() const { return exposure_total_ >= static_cast<double>(period_); }
+  double relative_intensity(int bin) const { return learned() ? p_[bin] : 1.0; }
+
+ private:
+  static constexpr int kMaxPeriods = 8;
+  int Bin(EventTime t) const;
+  void AddExposure(EventTime from, EventTime to, double weight);
+  void Refresh();
+
+  EventTime period_;
+  EventTime width_;               // bin width
+  double memory_;                 // microseconds
+  std::vector<double> events_, exposure_, p_;
+  double exposure_total_ = 0.0;   // unforgotten, for `learned`
+  EventTime anchor_ = 0;          // weights grow as exp((t - anchor) / memory)
+  double weight_ = 1.0;           // weight of the latest contribution
+  bool anchored_ = false;
 };
 
 class ArrivalModel {
@@ -79,11 +137,13 @@ class ArrivalModel {
   Alarm Observe(EventTime t);
 
   bool armed() const { return gaps_ > options_.warmup; }
-  // Mean gap in microseconds; 0 before two readings.
+  // Mean gap in microseconds (in operational time with a season); 0 before
+  // two readings.
   double mean_gap() const { return theta_; }
   EventTime last_arrival() const { return last_; }
   long long arrivals() const { return arrivals_; }
-  // Time by which the next reading comes with probability q in (0, 1).
+  // Time by which the next reading comes with probability q in (0, 1), under
+  // the (seasonal) exponential model.
   EventTime NextArrivalQuantile(double q) const;
   double slower_statistic() const { return slower_; }
   double faster_statistic() const { return faster_; }
@@ -99,6 +159,7 @@ class ArrivalModel {
   EventTime last_ = 0;
   double slower_ = 0.0, faster_ = 0.0;
   EventTime slower_start_ = 0, faster_start_ = 0;
+  std::optional<ArrivalShape> shape_;
 };
 
 }  // namespace plumbline

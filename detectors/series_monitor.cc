@@ -81,6 +81,20 @@ StatusOr<ProfileDesign> ProfileDesign::Make(const ProfileOptions& profile) {
   if (!arrival.ok()) return arrival.status();
   design.arrival = *arrival;
   design.arrival.warmup = std::max(3, std::min(profile.warmup, 50));
+  // Arrivals follow the longest season up to a month (a yearly season tells
+  // nothing about when today's readings come), in bins of at least an hour
+  // for weekly seasons and 15 minutes for shorter ones, at most 168.
+  for (EventTime period : profile.seasons) {
+    if (period <= 31 * kMicrosPerDay && period > design.arrival.season) {
+      design.arrival.season = period;
+    }
+  }
+  if (design.arrival.season > 0) {
+    const EventTime slice = design.arrival.season > kMicrosPerDay ? kMicrosPerHour
+                                                                  : 15 * kMicrosPerMinute;
+    design.arrival.season_bins = static_cast<int>(
+        std::clamp<EventTime>(design.arrival.season / slice, 1, 168));
+  }
 
   design.forecaster.seasons = profile.seasons;
   design.forecaster.trend = profile.trend;
