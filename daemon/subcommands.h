@@ -12,5 +12,6 @@ using Args = std::vector<std::string>;
 
 int RunCalibrate(const Args& args);
 int RunCheck(const Args& args);
+int RunReplay(const Args& args);
 
 }  // namespace plumbline

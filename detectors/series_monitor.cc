@@ -370,14 +370,18 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
     }
   }
   if (observations_ < level_hold_until_) return;
-  DecideLevel(to, f.value, sigma * spread, events);
+  DecideLevel(to, f.value, sigma * spread, resolvable, events);
 }
 
-void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma,
+void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma, bool resolvable,
                                 std::vector<SeriesEvent>* events) {
   const ProfileOptions& profile = design_->profile;
   const double clipped_z = std::clamp(last_z_, -kLevelClip, kLevelClip);
   for (size_t i = 0; i < level_.size(); ++i) {
+    // BOCPD models the spread as well as the mean, so residuals pinned at the
+    // resolution floor (all zero) would look to it like a change; the mean
+    // detectors still watch them.
+    if (!resolvable && level_kinds_[i] == DetectorKind::kBocpd) continue;
     StatusOr<Alarm> result =
         std::visit([&](auto& detector) { return detector.Update(clipped_z, t); }, level_[i]);
     if (!result.ok()) continue;

@@ -144,7 +144,7 @@ class SeriesMonitor {
 
   void Process(EventTime t, double value, std::vector<SeriesEvent>* events);
   void Model(EventTime from, EventTime to, double y, std::vector<SeriesEvent>* events);
-  void DecideLevel(EventTime t, double forecast, double sigma,
+  void DecideLevel(EventTime t, double forecast, double sigma, bool resolvable,
                    std::vector<SeriesEvent>* events);
   void StartRegime(EventTime change_at, EventTime detected_at);
   void ResetLevelDetectors();
