@@ -7,7 +7,7 @@ For each directory under FIXTURES_DIR (default: the replay-fixtures folder this
 script lives in) that holds an expect.json, it checks:
   - readings files: the Readings format of DESIGN.md (header `time,series,value`,
     RFC 3339 UTC times, finite values, valid series names), times non-decreasing;
-  - plumbline.yaml: only the guaranteed keys of DESIGN.md, valid values (the
+  - plumbline.yaml: the guaranteed keys of DESIGN.md (plus documented optional ones), valid values (the
     ranges of detectors/profile.h), every series matched by a profile;
   - expect.json: the schema of replay-fixtures/README.md; series, reading
     counts, span, warmup and armed_at agree with the readings and the config;
@@ -31,6 +31,9 @@ import yaml
 GUARANTEED_KEYS = {"match", "kind", "seasons", "gaps", "warmup", "arl0", "shift",
                    "detectors", "agree", "silence_after"}
 REQUIRED_KEYS = GUARANTEED_KEYS - {"silence_after"}
+# Further profile keys Plumbline documents (README "Using it"); allowed, not required.
+OPTIONAL_KEYS = {"harmonics", "every", "memory", "trend", "lateness", "agree_within",
+                 "cooldown"}
 KINDS = {"gauge", "count", "meter"}
 GAPS = {"skip", "zero", "hold"}
 DETECTORS = {"cusum", "page-hinkley", "bocpd", "ewma"}
@@ -162,9 +165,9 @@ def check_config(path, where):
         if not isinstance(p, dict):
             problem(w, "must be a mapping")
             continue
-        extra = set(p) - GUARANTEED_KEYS
+        extra = set(p) - GUARANTEED_KEYS - OPTIONAL_KEYS
         if extra:
-            problem(w, f"keys outside the guaranteed set: {sorted(extra)}")
+            problem(w, f"unknown keys: {sorted(extra)}")
         missing = REQUIRED_KEYS - set(p)
         if missing:
             problem(w, f"missing keys (give them explicitly in fixtures): {sorted(missing)}")

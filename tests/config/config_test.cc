@@ -301,7 +301,7 @@ TEST(ConfigTest, OutOfRangeValueUsesTheProfileRuleAtTheOffendingKey) {
                  {"detectors must not repeat 'cusum'"});
   // The rule ties two keys together; it names harmonics, so it points there.
   ExpectOneError("series:\n  - match: x\n    seasons: [1d]\n    harmonics: [3, 2]\n", 4,
-                 16, {"harmonics must give one count per season (1 seasons)"});
+                 16, {"harmonics must give one count per season (seasons lists 1)"});
 }
 
 TEST(ConfigTest, InvalidGlobNamesTheProblem) {
