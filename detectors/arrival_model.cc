@@ -203,7 +203,9 @@ Alarm ArrivalModel::Observe(EventTime t) {
   if (faster_ == 0) faster_start_ = t;
   slower_ = std::max(0.0, slower_ + x - kSlowerReference);
   faster_ = std::max(0.0, faster_ + kFasterReference - x);
-  if (slower_ > options_.slower_h) {
+  if (!armed()) {  // the shape is still being learned: keep the score at rest
+    slower_ = faster_ = 0.0;
+  } else if (slower_ > options_.slower_h) {
     alarm = {true, Direction::kDown, slower_start_, 0.0, slower_};
   } else if (faster_ > options_.faster_h) {
     alarm = {true, Direction::kUp, faster_start_, 0.0, faster_};
@@ -221,6 +223,12 @@ EventTime ArrivalModel::NextArrivalQuantile(double q) const {
   const double operational = theta_ * -std::log1p(-q);
   if (shape_) return shape_->WallTimeAfter(last_, operational);
   return last_ + static_cast<EventTime>(operational);
+}
+
+EventTime ArrivalModel::TimeAfterMeanGaps(EventTime from, double mean_gaps) const {
+  const double operational = theta_ * mean_gaps;
+  if (shape_) return shape_->WallTimeAfter(from, operational);
+  return from + static_cast<EventTime>(operational);
 }
 
 void ArrivalModel::Rebaseline() {

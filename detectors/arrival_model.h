@@ -136,7 +136,8 @@ class ArrivalModel {
   // direction kDown when readings became rarer, kUp when they came faster.
   Alarm Observe(EventTime t);
 
-  bool armed() const { return gaps_ > options_.warmup; }
+  // Armed once warm and, with a season, once its shape has been seen whole.
+  bool armed() const { return gaps_ > options_.warmup && (!shape_ || shape_->learned()); }
   // Mean gap in microseconds (in operational time with a season); 0 before
   // two readings.
   double mean_gap() const { return theta_; }
@@ -145,6 +146,9 @@ class ArrivalModel {
   // Time by which the next reading comes with probability q in (0, 1), under
   // the (seasonal) exponential model.
   EventTime NextArrivalQuantile(double q) const;
+  // The time at which `mean_gaps` mean gaps of operational time have passed
+  // since `from` (with a season, slow hours count for less).
+  EventTime TimeAfterMeanGaps(EventTime from, double mean_gaps) const;
   double slower_statistic() const { return slower_; }
   double faster_statistic() const { return faster_; }
   // Restarts the CUSUMs and re-learns the baseline from the next gaps.

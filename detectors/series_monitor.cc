@@ -132,18 +132,13 @@ SeriesMonitor::SeriesMonitor(const ProfileDesign* design)
   threshold_fraction_.assign(level_.size(), 0.0);
 }
 
-EventTime SeriesMonitor::SilenceAfter() const {
-  if (design_->profile.silence_after) return *design_->profile.silence_after;
-  if (!arrival_.armed() || arrival_.mean_gap() <= 0) return 0;
-  const double multiple = std::max(5.0, std::log(4.0 * design_->profile.arl0));
-  return static_cast<EventTime>(multiple * arrival_.mean_gap());
-}
-
 std::optional<EventTime> SeriesMonitor::silence_deadline() const {
   if (!has_reading_ || silent_) return std::nullopt;
-  const EventTime after = SilenceAfter();
-  if (after <= 0) return std::nullopt;
-  return last_reading_ + after;
+  if (design_->profile.silence_after) return last_reading_ + *design_->profile.silence_after;
+  if (!arrival_.armed() || arrival_.mean_gap() <= 0) return std::nullopt;
+  // Adaptive: max(5, ln(4 arl0)) mean gaps of operational time (see the header).
+  const double multiple = std::max(5.0, std::log(4.0 * design_->profile.arl0));
+  return std::max(arrival_.TimeAfterMeanGaps(last_reading_, multiple), last_reading_ + 1);
 }
 
 void SeriesMonitor::AdvanceClock(EventTime now, std::vector<SeriesEvent>* events) {

@@ -157,7 +157,6 @@ class SeriesMonitor {
   static constexpr double kLearnFraction = 0.5;
   static constexpr double kLevelClip = 4.0;
   double Whiten(EventTime t, double u, bool learn);
-  EventTime SilenceAfter() const;
   void StartForecaster();
 
   const ProfileDesign* design_;
