@@ -4,29 +4,21 @@
 #include <cmath>
 #include <cstdio>
 
+#include "detectors/option_checks.h"
+
 namespace plumbline {
+
+using option_checks::Fail;
+using option_checks::Format;
+using option_checks::RefuseReading;
+using option_checks::Arl0IsValid;
+
 namespace {
 
 // Below this (1 - lambda)^(2t) no longer changes 1 - (1 - lambda)^(2t) in
 // double precision; flushing it to zero also keeps the recursion out of the
 // slow subnormal range.
 constexpr double kNegligibleDecay = 1e-20;
-
-std::string Format(double value) {
-  char buffer[32];
-  std::snprintf(buffer, sizeof buffer, "%g", value);
-  return buffer;
-}
-
-bool Fail(std::string* why, std::string message) {
-  if (why != nullptr) *why = std::move(message);
-  return false;
-}
-
-// Kept out of line so the error text is built only on the refused path.
-[[gnu::noinline, gnu::cold]] Status RefuseReading(double x) {
-  return Status::InvalidArgument("reading must be a finite number; got " + Format(x));
-}
 
 }  // namespace
 
@@ -37,11 +29,7 @@ bool EwmaOptions::IsValid(std::string* why) const {
   if (!(std::isfinite(width) && width > 0.0)) {
     return Fail(why, "width (L) must be finite and > 0; got " + Format(width));
   }
-  if (!(arl0 == 0.0 || (std::isfinite(arl0) && arl0 >= 1.0))) {
-    return Fail(
-        why, "arl0 must be 0 (not calibrated) or finite and >= 1; got " + Format(arl0));
-  }
-  return true;
+  return Arl0IsValid(arl0, why);
 }
 
 StatusOr<Ewma> Ewma::Create(const EwmaOptions& options) {

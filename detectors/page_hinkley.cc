@@ -5,26 +5,14 @@
 #include <cmath>
 #include <cstdio>
 
+#include "detectors/option_checks.h"
+
 namespace plumbline {
-namespace {
 
-std::string Format(double value) {
-  char buffer[32];
-  std::snprintf(buffer, sizeof buffer, "%g", value);
-  return buffer;
-}
-
-bool Fail(std::string* why, std::string message) {
-  if (why != nullptr) *why = std::move(message);
-  return false;
-}
-
-// Kept out of line so the error text is built only on the refused path.
-[[gnu::noinline, gnu::cold]] Status RefuseReading(double x) {
-  return Status::InvalidArgument("reading must be a finite number; got " + Format(x));
-}
-
-}  // namespace
+using option_checks::Fail;
+using option_checks::Format;
+using option_checks::RefuseReading;
+using option_checks::Arl0IsValid;
 
 bool PageHinkleyOptions::IsValid(std::string* why) const {
   if (!(std::isfinite(delta) && delta >= 0.0)) {
@@ -39,11 +27,7 @@ bool PageHinkleyOptions::IsValid(std::string* why) const {
   if (!std::isfinite(mean)) {
     return Fail(why, "mean must be a finite number; got " + Format(mean));
   }
-  if (!(arl0 == 0.0 || (std::isfinite(arl0) && arl0 >= 1.0))) {
-    return Fail(
-        why, "arl0 must be 0 (not calibrated) or finite and >= 1; got " + Format(arl0));
-  }
-  return true;
+  return Arl0IsValid(arl0, why);
 }
 
 StatusOr<PageHinkley> PageHinkley::Create(const PageHinkleyOptions& options) {
