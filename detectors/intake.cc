@@ -19,15 +19,17 @@ void Intake::Add(EventTime t, double value, std::vector<Observation>* out,
   if (kind_ == SeriesKind::kMeter) {
     if (has_reading_ && value < last_value_) {
       resets->push_back({t, last_value_, value});
-      // The interval across a reset has unknown consumption: close what is
-      // complete and start again from the new total.
+      // The interval across a reset has unknown consumption: start again
+      // from the new total.
       if (every_) {
-        partial_ = true;  // the open bucket lost the consumption across the reset
-        CloseBucketsBefore(BucketStart(t), out);
+        // The open bucket lost the consumption across the reset, and the
+        // buckets between it and the reset have none known: drop them all,
+        // fill none (zero or hold would invent values). The reset's bucket is
+        // complete only if the new total was read at its start.
         bucket_open_ = true;
         bucket_ = BucketStart(t);
         sum_ = 0.0;
-        partial_ = true;
+        partial_ = t > bucket_;
       }
     } else if (has_reading_ && t > last_time_) {
       const double consumption = value - last_value_;
@@ -70,7 +72,11 @@ void Intake::FillEmpty(EventTime from_bucket, EventTime to_bucket,
   const std::int64_t filled = std::min<std::int64_t>(count, kMaxFilledBuckets);
   unfilled_ += count - filled;
   const EventTime first = to_bucket - filled * width;  // fill the most recent ones
-  const double value = gaps_ == GapPolicy::kZero ? 0.0 : last_emitted_value_;
+  // Hold: a gauge's last reading still holds, so it is each empty bucket's
+  // time-weighted mean; a count repeats its last bucket's sum.
+  const double value = gaps_ == GapPolicy::kZero   ? 0.0
+                       : kind_ == SeriesKind::kGauge ? last_value_
+                                                     : last_emitted_value_;
   for (EventTime b = first; b < to_bucket; b += width) Emit(b, value, out);
 }
 
@@ -139,11 +145,19 @@ void Intake::AddMeterBucketed(EventTime from, EventTime to, double consumption,
     // One long interval: the open bucket and every whole bucket up to the one
     // holding `to` become a single observation (a mean per bucket width over
     // its length), and bucketing resumes in the bucket holding `to`.
-    const EventTime long_from = bucket_open_ ? bucket_ : first;
-    const bool partial = !bucket_open_ || partial_;
-    const double long_sum = (bucket_open_ ? sum_ : 0.0) +
-                            rate * static_cast<double>(last - std::max(from, long_from));
-    if (!partial && last > long_from) {
+    // It starts at the open bucket if that is complete, at `from` if `from` is
+    // a boundary (the bucket before was closed there), else one bucket later:
+    // an incomplete first bucket is dropped alone, not the whole interval.
+    EventTime long_from = first + width;
+    double long_sum = rate * static_cast<double>(last - long_from);
+    if (bucket_open_ && !partial_) {
+      long_from = bucket_;
+      long_sum = sum_ + rate * static_cast<double>(last - from);
+    } else if (!bucket_open_ && from == first) {
+      long_from = first;
+      long_sum = rate * static_cast<double>(last - from);
+    }
+    if (last > long_from) {
       const double buckets = static_cast<double>(last - long_from) / static_cast<double>(width);
       out->push_back({long_from, last, long_sum / buckets});
       has_emitted_ = true;

@@ -24,9 +24,11 @@
 //           gaps = skip is one observation over its whole length instead, so a
 //           fortnight unread is not turned into flat, made-up buckets)
 // A count or meter bucket that the data do not cover from its start (the first
-// one, or the one after a meter reset) is incomplete and is dropped, never
-// reported as a low value. Empty buckets: skip emits nothing; zero emits 0; hold repeats the last
-// bucket's value. At most kMaxFilledBuckets are filled per gap.
+// one, or the ones a meter reset interrupts) is incomplete and is dropped, never
+// reported as a low value; buckets across a meter reset are never filled.
+// Empty buckets: skip emits nothing; zero emits 0; hold repeats the last
+// bucket's value (a gauge's: its last reading, which still holds). At most
+// kMaxFilledBuckets are filled per gap.
 #pragma once
 
 #include <cstdint>
