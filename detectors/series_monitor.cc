@@ -400,7 +400,7 @@ void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma, bool
   }
   if (agreeing < profile.agree) return;
 
-  const Alarm& alarm = firings_[best].alarm;
+  const Alarm alarm = firings_[best].alarm;  // a copy: ResetLevelDetectors clears firings_
   SeriesEvent e;
   e.kind = AlertKind::kLevel;
   e.direction = alarm.direction;
