@@ -158,14 +158,30 @@ class JsonParser {
       if (pos_ >= text_.size()) return false;
       const char e = text_[pos_++];
       switch (e) {
-        case '"': out->push_back('"'); break;
-        case '\\': out->push_back('\\'); break;
-        case '/': out->push_back('/'); break;
-        case 'b': out->push_back('\b'); break;
-        case 'f': out->push_back('\f'); break;
-        case 'n': out->push_back('\n'); break;
-        case 'r': out->push_back('\r'); break;
-        case 't': out->push_back('\t'); break;
+        case '"':
+          out->push_back('"');
+          break;
+        case '\\':
+          out->push_back('\\');
+          break;
+        case '/':
+          out->push_back('/');
+          break;
+        case 'b':
+          out->push_back('\b');
+          break;
+        case 'f':
+          out->push_back('\f');
+          break;
+        case 'n':
+          out->push_back('\n');
+          break;
+        case 'r':
+          out->push_back('\r');
+          break;
+        case 't':
+          out->push_back('\t');
+          break;
         case 'u': {
           if (pos_ + 4 > text_.size()) return false;
           int code = 0;
@@ -178,7 +194,8 @@ class JsonParser {
           out->push_back(static_cast<char>(code));
           break;
         }
-        default: return false;
+        default:
+          return false;
       }
     }
     return false;  // unterminated
@@ -212,9 +229,8 @@ class JsonParser {
   }
   bool Peek(char c) const { return pos_ < text_.size() && text_[pos_] == c; }
   void SkipSpace() {
-    while (pos_ < text_.size() &&
-           (text_[pos_] == ' ' || text_[pos_] == '\t' || text_[pos_] == '\n' ||
-            text_[pos_] == '\r')) {
+    while (pos_ < text_.size() && (text_[pos_] == ' ' || text_[pos_] == '\t' ||
+                                   text_[pos_] == '\n' || text_[pos_] == '\r')) {
       ++pos_;
     }
   }
@@ -225,8 +241,10 @@ class JsonParser {
 
 TEST(JsonParserSelfTest, AcceptsValidAndRefusesInvalidText) {
   Json v;
-  EXPECT_TRUE(JsonParser(R"({"a":[1,-2.5e+3,true,null],"b":"x\u0001\n"})").ParseDocument(&v));
-  EXPECT_FALSE(JsonParser("{\"a\":\"x\ny\"}").ParseDocument(&v));  // raw control character
+  EXPECT_TRUE(
+      JsonParser(R"({"a":[1,-2.5e+3,true,null],"b":"x\u0001\n"})").ParseDocument(&v));
+  EXPECT_FALSE(
+      JsonParser("{\"a\":\"x\ny\"}").ParseDocument(&v));  // raw control character
   EXPECT_FALSE(JsonParser(R"({"a":1,})").ParseDocument(&v));
   EXPECT_FALSE(JsonParser(R"({"a":01})").ParseDocument(&v));
   EXPECT_FALSE(JsonParser(R"({"a":nan})").ParseDocument(&v));
@@ -255,10 +273,12 @@ JsonObject ParseAlertLine(const std::string& line, const Alert& alert) {
   EXPECT_EQ(string_field("id"), alert.id);
   EXPECT_EQ(string_field("event"), ToString(alert.event));
   const std::string kind = string_field("kind");
-  EXPECT_TRUE(kind == "level" || kind == "variance" || kind == "rate" || kind == "silence")
+  EXPECT_TRUE(kind == "level" || kind == "variance" || kind == "rate" ||
+              kind == "silence")
       << kind;
   const std::string direction = string_field("direction");
-  EXPECT_TRUE(direction == "up" || direction == "down" || direction == "none") << direction;
+  EXPECT_TRUE(direction == "up" || direction == "down" || direction == "none")
+      << direction;
   for (const char* name : {"detected_at", "change_at"}) {
     const std::string text = string_field(name);
     EXPECT_FALSE(text.empty());
@@ -314,7 +334,8 @@ TEST(EngineRoutingTest, SeriesGoesToTheFirstMatchingProfile) {
   std::vector<Alert> out;
   for (int i = 0; i < 5; ++i) {
     const EventTime t = kStart + i * 10 * kMinute;
-    ASSERT_EQ(engine.Ingest("plant/a/energy", t, 100.0 + i, &out), IngestOutcome::kAccepted);
+    ASSERT_EQ(engine.Ingest("plant/a/energy", t, 100.0 + i, &out),
+              IngestOutcome::kAccepted);
     ASSERT_EQ(engine.Ingest("plant/b/doors", t, 3.0, &out), IngestOutcome::kAccepted);
   }
   ASSERT_NE(engine.Find("plant/a/energy"), nullptr);
@@ -337,7 +358,8 @@ TEST(EngineRoutingTest, SeriesGoesToTheFirstMatchingProfile) {
 TEST(EngineRoutingTest, SeriesMatchingNoProfileIsRefused) {
   Engine engine(MakeConfig({Profile("plant/**")}));
   std::vector<Alert> out;
-  EXPECT_EQ(engine.Ingest("office/printer/pages", kStart, 1.0, &out), IngestOutcome::kNoProfile);
+  EXPECT_EQ(engine.Ingest("office/printer/pages", kStart, 1.0, &out),
+            IngestOutcome::kNoProfile);
   EXPECT_EQ(engine.Ingest("plant", kStart, 1.0, &out), IngestOutcome::kNoProfile);
   EXPECT_EQ(engine.series_count(), 0u);
   EXPECT_EQ(engine.Find("office/printer/pages"), nullptr);
@@ -381,9 +403,11 @@ TEST(EngineRoutingTest, LateAndNonFiniteReadingsAreRefusedWithTheirReason) {
             IngestOutcome::kNotFinite);
   EXPECT_EQ(engine.series_count(), 0u);
   EXPECT_EQ(engine.Ingest("s", kStart, 1.0, &out), IngestOutcome::kAccepted);
-  EXPECT_EQ(engine.Ingest("s", kStart + kMinute, std::numeric_limits<double>::infinity(), &out),
-            IngestOutcome::kNotFinite);
-  EXPECT_EQ(engine.Ingest("s", kStart + 2 * kMinute, 1.0, &out), IngestOutcome::kAccepted);
+  EXPECT_EQ(
+      engine.Ingest("s", kStart + kMinute, std::numeric_limits<double>::infinity(), &out),
+      IngestOutcome::kNotFinite);
+  EXPECT_EQ(engine.Ingest("s", kStart + 2 * kMinute, 1.0, &out),
+            IngestOutcome::kAccepted);
   EXPECT_EQ(engine.Ingest("s", kStart + kMinute, 1.0, &out), IngestOutcome::kLate);
   EXPECT_EQ(engine.Find("s")->observations(), 2);
   EXPECT_EQ(ToString(IngestOutcome::kLate), "late");
@@ -433,12 +457,14 @@ std::vector<Reading> ReplayInput(std::uint64_t seed) {
         quiet[i].time < kStart + 15 * kMicrosPerDay) {
       continue;
     }
-    all.push_back({"coldstore/compressor-2/power_kw", quiet[i].time, quiet[i].value + 50});
+    all.push_back(
+        {"coldstore/compressor-2/power_kw", quiet[i].time, quiet[i].value + 50});
   }
   double total = 1000;
   for (int i = 0; i < 600; ++i) {
     total = i == 400 ? 3.0 : total + 5.0 + 0.1 * (i % 7);
-    all.push_back({"coldstore/main/energy_kwh", kStart + (i + 1) * kMicrosPerHour, total});
+    all.push_back(
+        {"coldstore/main/energy_kwh", kStart + (i + 1) * kMicrosPerHour, total});
   }
   std::stable_sort(all.begin(), all.end(),
                    [](const Reading& a, const Reading& b) { return a.time < b.time; });
@@ -478,7 +504,8 @@ TEST(EngineAlertTest, AlertIdsAreStableAcrossRunsAndDistinct) {
     EXPECT_EQ(first[i].id.size(), 16u);
     EXPECT_EQ(first[i].id.find_first_not_of("0123456789abcdef"), std::string::npos);
     ids.insert(first[i].id);
-    ++by_type[std::string(ToString(first[i].event)) + "/" + std::string(ToString(first[i].kind))];
+    ++by_type[std::string(ToString(first[i].event)) + "/" +
+              std::string(ToString(first[i].kind))];
   }
   std::printf("[figures] replay events:");
   for (const auto& [type, n] : by_type) std::printf(" %s %d", type.c_str(), n);
@@ -589,7 +616,8 @@ TEST(EngineSilenceTest, AdvanceClockReportsSilenceForTheStoppedSeriesOnly) {
     engine.AdvanceClock(t, &out);
     engine.Ingest("site/timed/busy", t, 1.0, &out);
     if (t <= stop) engine.Ingest("site/timed/quiet", t, 1.0, &out);
-    if (t <= stop) engine.Ingest("site/other", t, 1.0, &out);  // stops too, no silence_after
+    if (t <= stop)
+      engine.Ingest("site/other", t, 1.0, &out);  // stops too, no silence_after
   }
   std::vector<Alert> silences;
   for (const Alert& a : out) {

@@ -38,7 +38,8 @@ void ExpectObservations(const std::vector<Observation>& got,
     SCOPED_TRACE(i);
     EXPECT_EQ(got[i].from, want[i].from);
     EXPECT_EQ(got[i].to, want[i].to);
-    EXPECT_NEAR(got[i].value, want[i].value, 1e-9 * std::max(1.0, std::abs(want[i].value)));
+    EXPECT_NEAR(got[i].value, want[i].value,
+                1e-9 * std::max(1.0, std::abs(want[i].value)));
   }
 }
 
@@ -75,10 +76,11 @@ TEST(IntakeUnbucketedTest, MeterDifferencesBecomeMeanRatesPerHourOverTheirInterv
   Feeder f(SeriesKind::kMeter, GapPolicy::kSkip, std::nullopt);
   f.Add(0, 100.0);  // the first total only sets the baseline
   EXPECT_TRUE(f.out.empty());
-  f.Add(H(0.5), 103.0);  // 3 in half an hour: 6 per hour
-  f.Add(H(3), 113.0);    // 10 in 2.5 hours: 4 per hour
-  f.Add(H(3.25), 113.0); // nothing used: 0 per hour (not a reset)
-  ExpectObservations(f.out, {{0, H(0.5), 6.0}, {H(0.5), H(3), 4.0}, {H(3), H(3.25), 0.0}});
+  f.Add(H(0.5), 103.0);   // 3 in half an hour: 6 per hour
+  f.Add(H(3), 113.0);     // 10 in 2.5 hours: 4 per hour
+  f.Add(H(3.25), 113.0);  // nothing used: 0 per hour (not a reset)
+  ExpectObservations(f.out,
+                     {{0, H(0.5), 6.0}, {H(0.5), H(3), 4.0}, {H(3), H(3.25), 0.0}});
   EXPECT_TRUE(f.resets.empty());
 }
 
@@ -104,7 +106,7 @@ TEST(IntakeBucketedTest, CountSumsEachBucketAndDropsTheFirstPartialBucket) {
   f.Add(H(1.25), 2);
   f.Add(H(1.75), 4);
   EXPECT_TRUE(f.out.empty());  // [1h, 2h) is complete only when a later reading comes
-  f.Add(H(2), 1);  // a reading on a boundary belongs to the bucket it starts
+  f.Add(H(2), 1);              // a reading on a boundary belongs to the bucket it starts
   f.Add(H(2.75), 5);
   f.Add(H(3.5), 1);
   ExpectObservations(f.out, {{H(1), H(2), 6}, {H(2), H(3), 6}});
@@ -127,13 +129,15 @@ TEST(IntakeBucketedTest, EmptyBucketsUnderSkipEmitNothing) {
 }
 
 TEST(IntakeBucketedTest, EmptyBucketsUnderZeroEmitZeroEach) {
-  ExpectObservations(CountAcrossTwoEmptyBuckets(GapPolicy::kZero),
-                     {{H(1), H(2), 5}, {H(2), H(3), 0}, {H(3), H(4), 0}, {H(4), H(5), 7}});
+  ExpectObservations(
+      CountAcrossTwoEmptyBuckets(GapPolicy::kZero),
+      {{H(1), H(2), 5}, {H(2), H(3), 0}, {H(3), H(4), 0}, {H(4), H(5), 7}});
 }
 
 TEST(IntakeBucketedTest, EmptyBucketsUnderHoldRepeatTheLastBucketsValue) {
-  ExpectObservations(CountAcrossTwoEmptyBuckets(GapPolicy::kHold),
-                     {{H(1), H(2), 5}, {H(2), H(3), 5}, {H(3), H(4), 5}, {H(4), H(5), 7}});
+  ExpectObservations(
+      CountAcrossTwoEmptyBuckets(GapPolicy::kHold),
+      {{H(1), H(2), 5}, {H(2), H(3), 5}, {H(3), H(4), 5}, {H(4), H(5), 7}});
 }
 
 TEST(IntakeBucketedTest, HoldHasNothingToRepeatBeforeTheFirstCompleteBucket) {
@@ -147,8 +151,8 @@ TEST(IntakeBucketedTest, HoldHasNothingToRepeatBeforeTheFirstCompleteBucket) {
 TEST(IntakeBucketedTest, AtMostMaxFilledBucketsAreFilledPerGapTheMostRecentOnes) {
   const EventTime second = kMicrosPerSecond;
   Feeder f(SeriesKind::kCount, GapPolicy::kZero, second);
-  f.Add(second / 2, 1);          // partial, dropped
-  f.Add(second + second / 2, 3); // bucket 1
+  f.Add(second / 2, 1);                                      // partial, dropped
+  f.Add(second + second / 2, 3);                             // bucket 1
   const std::int64_t empty = Intake::kMaxFilledBuckets + 5;  // buckets 2 .. empty + 1
   f.Add((empty + 2) * second + 1, 4);
   ASSERT_EQ(f.out.size(), 1u + Intake::kMaxFilledBuckets);
@@ -175,13 +179,13 @@ TEST(IntakeBucketedTest, GaugeIsTimeWeightedWithTheLastValueCarriedIntoTheNextBu
   f.Add(H(2 + 1.0 / 6), 5);  // 2:10
   f.Add(H(3), 1);
   ExpectObservations(f.out, {
-      // 10 for 15 min, 20 for 30 min, 40 for 15 min.
-      {H(0), H(1), (10 * 15 + 20 * 30 + 40 * 15) / 60.0},
-      // 40 carried over [1h, 1.5h), then 0.
-      {H(1), H(2), (40 * 30 + 0 * 30) / 60.0},
-      // 0 carried over [2h, 2:10), then 5.
-      {H(2), H(3), (0 * 10 + 5 * 50) / 60.0},
-  });
+                                // 10 for 15 min, 20 for 30 min, 40 for 15 min.
+                                {H(0), H(1), (10 * 15 + 20 * 30 + 40 * 15) / 60.0},
+                                // 40 carried over [1h, 1.5h), then 0.
+                                {H(1), H(2), (40 * 30 + 0 * 30) / 60.0},
+                                // 0 carried over [2h, 2:10), then 5.
+                                {H(2), H(3), (0 * 10 + 5 * 50) / 60.0},
+                            });
 }
 
 TEST(IntakeBucketedTest, GaugeFirstBucketIsAveragedOverTheTimeItCoversAndKept) {
@@ -207,8 +211,8 @@ TEST(IntakeBucketedTest, GaugeEmptyBucketsUnderZeroAreZeroAndNothingIsCarried) {
   f.Add(H(0.5), 30);
   f.Add(H(3.25), 50);
   f.Add(H(4), 0);
-  ExpectObservations(f.out,
-                     {{H(0), H(1), 20}, {H(1), H(2), 0}, {H(2), H(3), 0}, {H(3), H(4), 50}});
+  ExpectObservations(
+      f.out, {{H(0), H(1), 20}, {H(1), H(2), 0}, {H(2), H(3), 0}, {H(3), H(4), 50}});
 }
 
 // Under hold a gauge's last reading still holds: an empty bucket's time-weighted
@@ -305,9 +309,9 @@ TEST(IntakeBucketedTest, MeterLongFirstIntervalDropsOnlyItsPartialFirstBucket) {
 TEST(IntakeBucketedTest, MeterResetDropsTheBucketsItCrossesAndStartsAgain) {
   Feeder f(SeriesKind::kMeter, GapPolicy::kSkip, kHour);
   f.Add(H(0), 0);
-  f.Add(H(1.5), 3);   // [0, 1h) = 2; [1h, 2h) open with 1
-  f.Add(H(2.5), 0.5); // reset: [1.5h, 2.5h) unknown, so [1h, 2h) and [2h, 3h) incomplete
-  f.Add(H(4), 3.5);   // 2 per hour from 2.5h: [3h, 4h) = 2
+  f.Add(H(1.5), 3);    // [0, 1h) = 2; [1h, 2h) open with 1
+  f.Add(H(2.5), 0.5);  // reset: [1.5h, 2.5h) unknown, so [1h, 2h) and [2h, 3h) incomplete
+  f.Add(H(4), 3.5);    // 2 per hour from 2.5h: [3h, 4h) = 2
   ASSERT_EQ(f.resets.size(), 1u);
   EXPECT_EQ(f.resets[0].time, H(2.5));
   ExpectObservations(f.out, {{H(0), H(1), 2}, {H(3), H(4), 2}});
@@ -334,7 +338,8 @@ TEST(IntakeBucketedTest, MeterResetReadOnABoundaryKeepsTheBucketItStarts) {
     Feeder f(SeriesKind::kMeter, gaps, kHour);
     f.Add(H(0), 0);
     f.Add(H(1), 2);  // [0, 1h) = 2, closed
-    f.Add(H(3), 1);  // reset on a boundary: [1h, 3h) unknown, [3h, 4h) covered from its start
+    f.Add(H(3),
+          1);  // reset on a boundary: [1h, 3h) unknown, [3h, 4h) covered from its start
     f.Add(H(4), 4);
     ExpectObservations(f.out, {{H(0), H(1), 2}, {H(3), H(4), 3}});
   }
@@ -361,7 +366,7 @@ TEST(IntakeBucketedTest, GaugeBucketsStraddlingTheEpochAreTimeWeighted) {
   const EventTime minute = kMicrosPerMinute;
   f.Add(-7 * minute, 1);  // bucket [-7m, 0)
   f.Add(-2 * minute, 8);
-  f.Add(3 * minute, 0);   // bucket [0, 7m): 8 carried over [0, 3m)
+  f.Add(3 * minute, 0);  // bucket [0, 7m): 8 carried over [0, 3m)
   f.Add(7 * minute, 0);
   ExpectObservations(f.out, {{-7 * minute, 0, (1 * 5 + 8 * 2) / 7.0},
                              {0, 7 * minute, (8 * 3 + 0 * 4) / 7.0}});

@@ -53,7 +53,8 @@ Fed Feed(SeriesMonitor& monitor, const std::vector<SyntheticReading>& readings,
   std::vector<SeriesEvent> events;
   for (size_t i = 0; i < readings.size(); ++i) {
     events.clear();
-    const ReadingVerdict verdict = monitor.Observe(readings[i].time, readings[i].value, &events);
+    const ReadingVerdict verdict =
+        monitor.Observe(readings[i].time, readings[i].value, &events);
     if (verdict == ReadingVerdict::kLate) ++fed.late;
     if (verdict == ReadingVerdict::kNotFinite) ++fed.not_finite;
     for (const SeriesEvent& e : events) {
@@ -82,7 +83,8 @@ std::vector<SeriesEvent> Select(const std::vector<SeriesEvent>& events, EventTyp
 }
 
 // Field-by-field equality (bitwise for the doubles: determinism means identical).
-void ExpectSameEvents(const std::vector<SeriesEvent>& a, const std::vector<SeriesEvent>& b) {
+void ExpectSameEvents(const std::vector<SeriesEvent>& a,
+                      const std::vector<SeriesEvent>& b) {
   ASSERT_EQ(a.size(), b.size());
   for (size_t i = 0; i < a.size(); ++i) {
     SCOPED_TRACE(i);
@@ -112,13 +114,15 @@ struct GapWindow {
 // A seasonal stream (daily + weekly, trend, noise; no change) of 6000 readings
 // every 10 minutes, with six gaps of about 3 h, 8 h, 20 h, 2 d, 3 d and 5 d
 // (each length x U(0.75, 1.25)) placed 500-700 readings apart after the first 700.
-std::vector<SyntheticReading> GappedStream(std::uint64_t seed, std::vector<GapWindow>* gaps,
+std::vector<SyntheticReading> GappedStream(std::uint64_t seed,
+                                           std::vector<GapWindow>* gaps,
                                            std::vector<SyntheticReading>* whole) {
   SyntheticStreamOptions options;
   *whole = Stream(6000, seed, options);
   Random rng(seed + 7919);
-  const EventTime lengths[] = {3 * kMicrosPerHour,  8 * kMicrosPerHour, 20 * kMicrosPerHour,
-                               2 * kMicrosPerDay, 3 * kMicrosPerDay, 5 * kMicrosPerDay};
+  const EventTime lengths[] = {3 * kMicrosPerHour,  8 * kMicrosPerHour,
+                               20 * kMicrosPerHour, 2 * kMicrosPerDay,
+                               3 * kMicrosPerDay,   5 * kMicrosPerDay};
   gaps->clear();
   long long index = 700;
   for (EventTime length : lengths) {
@@ -141,7 +145,7 @@ struct GapFigures {
   int gaps = 0;
   int level_at_first_observation_after = 0;
   int level_within_20_readings_after = 0;
-  int alerts_gapped = 0, alerts_whole = 0;          // all kinds
+  int alerts_gapped = 0, alerts_whole = 0;  // all kinds
   int rate_alerts_gapped = 0, rate_alerts_whole = 0;
   int unarmed_at_gap = 0;
 };
@@ -152,7 +156,8 @@ GapFigures MeasureGaps(const ProfileOptions& profile, int trials) {
   for (int trial = 0; trial < trials; ++trial) {
     std::vector<GapWindow> gaps;
     std::vector<SyntheticReading> whole;
-    const auto kept = GappedStream(3000 + static_cast<std::uint64_t>(trial), &gaps, &whole);
+    const auto kept =
+        GappedStream(3000 + static_cast<std::uint64_t>(trial), &gaps, &whole);
     SeriesMonitor gapped(&design);
     const Fed fed = Feed(gapped, kept);
     SeriesMonitor control(&design);
@@ -192,8 +197,9 @@ GapFigures MeasureGaps(const ProfileOptions& profile, int trials) {
         if (e.type != EventType::kAlert || e.kind != AlertKind::kLevel) continue;
         if (e.detected_at >= first->time && e.detected_at <= first_observation_end) {
           ++f.level_at_first_observation_after;
-          std::printf("  level alert at the first observation after a gap: trial %d, %s\n",
-                      trial, std::string(ToString(e.direction)).c_str());
+          std::printf(
+              "  level alert at the first observation after a gap: trial %d, %s\n", trial,
+              std::string(ToString(e.direction)).c_str());
         }
         if (fed.reading[k] >= first_index && fed.reading[k] < first_index + 20) {
           ++f.level_within_20_readings_after;
@@ -201,11 +207,12 @@ GapFigures MeasureGaps(const ProfileOptions& profile, int trials) {
       }
     }
   }
-  std::printf("[figures] gaps: %d gaps (3h..5d); level alerts at the first observation after "
-              "a gap: %d; within 20 readings after: %d; alerts of all kinds: %d gapped vs %d "
-              "without the gaps; rate alerts %d vs %d\n",
-              f.gaps, f.level_at_first_observation_after, f.level_within_20_readings_after,
-              f.alerts_gapped, f.alerts_whole, f.rate_alerts_gapped, f.rate_alerts_whole);
+  std::printf(
+      "[figures] gaps: %d gaps (3h..5d); level alerts at the first observation after "
+      "a gap: %d; within 20 readings after: %d; alerts of all kinds: %d gapped vs %d "
+      "without the gaps; rate alerts %d vs %d\n",
+      f.gaps, f.level_at_first_observation_after, f.level_within_20_readings_after,
+      f.alerts_gapped, f.alerts_whole, f.rate_alerts_gapped, f.rate_alerts_whole);
   return f;
 }
 
@@ -275,7 +282,8 @@ void ExpectMeterResetRaisesNoAlert(const ProfileOptions& profile) {
   int alerts_near = 0, alerts_total = 0;
   constexpr long long kReset = 1200;
   for (int trial = 0; trial < 20; ++trial) {
-    const auto readings = MeterStream(2000, kReset, 400 + static_cast<std::uint64_t>(trial));
+    const auto readings =
+        MeterStream(2000, kReset, 400 + static_cast<std::uint64_t>(trial));
     SeriesMonitor monitor(&design);
     const Fed fed = Feed(monitor, readings);
     const auto resets = Select(fed.events, EventType::kMeterReset);
@@ -295,9 +303,10 @@ void ExpectMeterResetRaisesNoAlert(const ProfileOptions& profile) {
     }
     EXPECT_TRUE(monitor.armed());
   }
-  std::printf("[figures] meter reset: alerts within 100 readings after it: %d in 20 streams; "
-              "alerts anywhere: %d\n",
-              alerts_near, alerts_total);
+  std::printf(
+      "[figures] meter reset: alerts within 100 readings after it: %d in 20 streams; "
+      "alerts anywhere: %d\n",
+      alerts_near, alerts_total);
   EXPECT_EQ(alerts_near, 0);
 }
 
@@ -341,7 +350,8 @@ TEST(SeriesMonitorLatenessTest, WithoutLatenessAnOutOfOrderReadingIsRefusedAndCo
   ExpectSameEvents(late_fed.events, clean_fed.events);
 }
 
-TEST(SeriesMonitorLatenessTest, WithinLatenessReadingsAreReorderedAndProcessedInTimeOrder) {
+TEST(SeriesMonitorLatenessTest,
+     WithinLatenessReadingsAreReorderedAndProcessedInTimeOrder) {
   ProfileOptions profile;
   profile.lateness = 30 * kMicrosPerMinute;
   const ProfileDesign design = MakeDesign(profile);
@@ -363,7 +373,8 @@ TEST(SeriesMonitorLatenessTest, WithinLatenessReadingsAreReorderedAndProcessedIn
   SeriesMonitor in_order(&design), reordered(&design);
   const Fed a = Feed(in_order, readings);
   const Fed b = Feed(reordered, shuffled);
-  std::printf("[figures] lateness: %d swapped pairs, %zu events\n", swapped, a.events.size());
+  std::printf("[figures] lateness: %d swapped pairs, %zu events\n", swapped,
+              a.events.size());
   EXPECT_GT(swapped, 500);
   EXPECT_EQ(b.late, 0);
   EXPECT_EQ(reordered.observations(), in_order.observations());
@@ -398,7 +409,8 @@ TEST(SeriesMonitorLatenessTest, ReadingsLaterThanTheWindowAreRefused) {
 // ---------------------------------------------------------------------------
 // (d) Retrain after a level alert
 
-TEST(SeriesMonitorRetrainTest, RetrainEventComesOnceWarmupObservationsOfTheNewRegimeExist) {
+TEST(SeriesMonitorRetrainTest,
+     RetrainEventComesOnceWarmupObservationsOfTheNewRegimeExist) {
   int checked = 0;
   for (int warmup : {20, 48}) {
     ProfileOptions profile;
@@ -433,9 +445,9 @@ TEST(SeriesMonitorRetrainTest, RetrainEventComesOnceWarmupObservationsOfTheNewRe
       EXPECT_EQ(retrain->window_to, retrain->detected_at);
       EXPECT_GT(retrain->detected_at, alert->detected_at);
       auto count_in = [&](EventTime from, EventTime to) {
-        return std::count_if(readings.begin(), readings.end(), [&](const SyntheticReading& r) {
-          return r.time >= from && r.time <= to;
-        });
+        return std::count_if(
+            readings.begin(), readings.end(),
+            [&](const SyntheticReading& r) { return r.time >= from && r.time <= to; });
       };
       const long long at_alert = count_in(alert->change_at, alert->detected_at);
       const long long in_window = count_in(retrain->change_at, retrain->window_to);
@@ -457,9 +469,9 @@ TEST(SeriesMonitorRetrainTest, RetrainEventComesOnceWarmupObservationsOfTheNewRe
 // level alert must come at the first reading where both have fired within the
 // last agree_within readings.
 struct AgreeOutcome {
-  bool compared = false;          // false: a variance alert came first
-  long long predicted = -1;       // reading index of the first agreement
-  long long actual = -1;          // reading index of the first level alert
+  bool compared = false;     // false: a variance alert came first
+  long long predicted = -1;  // reading index of the first agreement
+  long long actual = -1;     // reading index of the first level alert
   long long first_cusum = -1, first_page_hinkley = -1;
 };
 
@@ -502,9 +514,10 @@ AgreeOutcome RunAgreement(const ProfileDesign& design,
       if (e.kind == AlertKind::kLevel) {
         out.compared = true;
         out.actual = static_cast<long long>(i);
-        *mask_ok = e.detectors == (Bit(DetectorKind::kCusum) | Bit(DetectorKind::kPageHinkley));
-        *change_ok = e.change_at == cusum_alarm.change_at &&
-                     e.direction == cusum_alarm.direction;
+        *mask_ok =
+            e.detectors == (Bit(DetectorKind::kCusum) | Bit(DetectorKind::kPageHinkley));
+        *change_ok =
+            e.change_at == cusum_alarm.change_at && e.direction == cusum_alarm.direction;
         return out;
       }
     }
@@ -513,7 +526,8 @@ AgreeOutcome RunAgreement(const ProfileDesign& design,
   return out;
 }
 
-TEST(SeriesMonitorAgreeTest, AgreeTwoAlertsExactlyWhenCusumAndPageHinkleyFireWithinTheWindow) {
+TEST(SeriesMonitorAgreeTest,
+     AgreeTwoAlertsExactlyWhenCusumAndPageHinkleyFireWithinTheWindow) {
   int compared = 0, alerted = 0, apart = 0, window_mattered = 0;
   for (int within : {1, 3, 10}) {
     ProfileOptions profile;
@@ -525,7 +539,8 @@ TEST(SeriesMonitorAgreeTest, AgreeTwoAlertsExactlyWhenCusumAndPageHinkleyFireWit
       SyntheticStreamOptions options;
       options.change_index = 3200;
       options.level_shift = trial % 2 ? 1.0 : -1.0;
-      const auto readings = Stream(3500, 700 + static_cast<std::uint64_t>(trial), options);
+      const auto readings =
+          Stream(3500, 700 + static_cast<std::uint64_t>(trial), options);
       bool mask_ok = true, change_ok = true;
       const AgreeOutcome o = RunAgreement(design, readings, &mask_ok, &change_ok);
       if (!o.compared) continue;
@@ -544,10 +559,11 @@ TEST(SeriesMonitorAgreeTest, AgreeTwoAlertsExactlyWhenCusumAndPageHinkleyFireWit
       if (o.predicted != std::max(o.first_cusum, o.first_page_hinkley)) ++window_mattered;
     }
   }
-  std::printf("[figures] agree 2 of [cusum, page-hinkley]: %d runs compared, %d alerted, "
-              "%d with the detectors first firing at different readings, %d where the "
-              "window delayed or prevented the alert\n",
-              compared, alerted, apart, window_mattered);
+  std::printf(
+      "[figures] agree 2 of [cusum, page-hinkley]: %d runs compared, %d alerted, "
+      "%d with the detectors first firing at different readings, %d where the "
+      "window delayed or prevented the alert\n",
+      compared, alerted, apart, window_mattered);
   // The comparison must not be empty: most runs reach a level alert, and in
   // some the two detectors first fire apart, so agreement and the window decide.
   EXPECT_GE(compared, 60);
@@ -575,7 +591,8 @@ TEST(SeriesMonitorAgreeTest, AgreeTwoRaisesNoAlertWhenOnlyOneDetectorCanFire) {
       EXPECT_TRUE(levels.empty());
     } else {
       ASSERT_FALSE(levels.empty());
-      for (const SeriesEvent& e : levels) EXPECT_EQ(e.detectors, Bit(DetectorKind::kCusum));
+      for (const SeriesEvent& e : levels)
+        EXPECT_EQ(e.detectors, Bit(DetectorKind::kCusum));
     }
   }
 }
@@ -620,11 +637,13 @@ TEST(SeriesMonitorAgreeTest, CooldownHoldsTheNextLevelAlertForCooldownObservatio
     }
     if (long_cooldown.size() < 2 || long_cooldown[1] - long_cooldown[0] >= 150) ++held;
     // Without the long cooldown the second step is caught soon after the first.
-    if (short_cooldown.size() >= 2 && short_cooldown[1] - short_cooldown[0] < 150) ++quick;
+    if (short_cooldown.size() >= 2 && short_cooldown[1] - short_cooldown[0] < 150)
+      ++quick;
   }
-  std::printf("[figures] cooldown: second alert held 150 readings in %d/10 streams; with "
-              "cooldown 5 it came within 150 readings in %d/10\n",
-              held, quick);
+  std::printf(
+      "[figures] cooldown: second alert held 150 readings in %d/10 streams; with "
+      "cooldown 5 it came within 150 readings in %d/10\n",
+      held, quick);
   EXPECT_EQ(held, 10);
   EXPECT_GE(quick, 8);  // so the long cooldown is what held it
 }
@@ -684,7 +703,8 @@ TEST(SeriesMonitorSilenceTest, WithLatenessOneDropoutGivesExactlyOneSilenceAlert
     SeriesMonitor monitor(&design);
     auto readings = Stream(1500, 32);  // > 1 week: the adaptive arrival shape is learned
     // Deliver them slightly out of order, within the lateness.
-    for (size_t i = 0; i + 1 < readings.size(); i += 7) std::swap(readings[i], readings[i + 1]);
+    for (size_t i = 0; i + 1 < readings.size(); i += 7)
+      std::swap(readings[i], readings[i + 1]);
     std::vector<SeriesEvent> events;
     EventTime newest = 0;
     for (const auto& r : readings) {
@@ -747,8 +767,8 @@ std::vector<SeriesEvent> EventfulRun(SeriesMonitor& monitor, std::uint64_t seed)
 
 TEST(SeriesMonitorDeterminismTest, SameReadingsGiveIdenticalEventsTwice) {
   ProfileOptions profile;
-  profile.detectors = {DetectorKind::kCusum, DetectorKind::kPageHinkley, DetectorKind::kBocpd,
-                       DetectorKind::kEwma};
+  profile.detectors = {DetectorKind::kCusum, DetectorKind::kPageHinkley,
+                       DetectorKind::kBocpd, DetectorKind::kEwma};
   profile.silence_after = 3 * kMicrosPerHour;
   const ProfileDesign design = MakeDesign(profile);
   for (std::uint64_t seed : {41u, 42u, 43u}) {
@@ -779,7 +799,8 @@ TEST(SeriesMonitorFiniteTest, NonFiniteValuesAreRefusedAndNeverReachTheModel) {
   for (size_t i = 0; i < readings.size(); ++i) {
     if (i % 97 == 3) {
       // Between this reading and the one before, so time order is kept.
-      const EventTime t = i ? (readings[i - 1].time + readings[i].time) / 2 : readings[i].time;
+      const EventTime t =
+          i ? (readings[i - 1].time + readings[i].time) / 2 : readings[i].time;
       with_bad.push_back({t, bad[injected % 3]});
       ++injected;
     }
@@ -796,7 +817,8 @@ TEST(SeriesMonitorFiniteTest, NonFiniteValuesAreRefusedAndNeverReachTheModel) {
   ASSERT_FALSE(Select(clean_fed.events, EventType::kAlert, AlertKind::kLevel).empty());
 }
 
-TEST(SeriesMonitorFiniteTest, NonFiniteReadingNeitherResumesASilentSeriesNorDelaysSilence) {
+TEST(SeriesMonitorFiniteTest,
+     NonFiniteReadingNeitherResumesASilentSeriesNorDelaysSilence) {
   ProfileOptions profile;
   profile.silence_after = kMicrosPerHour;
   const ProfileDesign design = MakeDesign(profile);
