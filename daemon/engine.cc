@@ -256,11 +256,13 @@ void Engine::Emit(const Series& series, const std::vector<SeriesEvent>& events,
     a.magnitude_sd = e.magnitude_sd;
     a.before = e.before;
     a.after = e.after;
-    std::uint64_t h = Fnv1a(a.series);
-    h = Fnv1a(ToString(a.event), h);
-    h = Fnv1a(ToString(a.kind), h);
-    h = Fnv1a(std::to_string(a.detected_at), h);
-    h = Fnv1a(std::to_string(a.change_at), h);
+    // Fields joined by a NUL byte (which no field contains), so no two
+    // different field lists hash the same text.
+    const std::string fields = a.series + '\0' + std::string(ToString(a.event)) + '\0' +
+                               std::string(ToString(a.kind)) + '\0' +
+                               std::to_string(a.detected_at) + '\0' +
+                               std::to_string(a.change_at);
+    const std::uint64_t h = Fnv1a(fields);
     char id[17];
     std::snprintf(id, sizeof id, "%016llx", static_cast<unsigned long long>(h));
     a.id = id;

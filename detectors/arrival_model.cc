@@ -181,7 +181,11 @@ Alarm ArrivalModel::Observe(EventTime t) {
   const EventTime previous = last_;
   const double gap = shape_ ? shape_->Operational(previous, std::max(t, previous))
                             : static_cast<double>(std::max<EventTime>(t - previous, 0));
-  if (shape_) shape_->Record(previous, std::max(t, previous));
+  // A gap of more than gap_cap mean gaps is a silence: it says nothing about
+  // when readings usually come, so it does not teach the shape.
+  if (shape_ && !(theta_ > 0 && gap > options_.gap_cap * theta_)) {
+    shape_->Record(previous, std::max(t, previous));
+  }
   last_ = t;
   ++gaps_;
   if (gaps_ <= options_.warmup) {

@@ -141,7 +141,8 @@ void Intake::AddMeterBucketed(EventTime from, EventTime to, double consumption,
   const EventTime last = BucketStart(to);
   const std::int64_t spanned = (last - first) / width + 1;
   const double rate = consumption / static_cast<double>(to - from);  // per microsecond
-  if (gaps_ == GapPolicy::kSkip && spanned > kMaxSpreadBuckets) {
+  if ((gaps_ == GapPolicy::kSkip && spanned > kMaxSpreadBuckets) ||
+      spanned > kMaxFilledBuckets) {
     // One long interval: the open bucket and every whole bucket up to the one
     // holding `to` become a single observation (a mean per bucket width over
     // its length), and bucketing resumes in the bucket holding `to`.

@@ -21,8 +21,9 @@
 //   count   the sum of the readings' amounts
 //   meter   each interval's consumption is spread evenly over it and summed per
 //           bucket (an interval longer than kMaxSpreadBuckets buckets under
-//           gaps = skip is one observation over its whole length instead, so a
-//           fortnight unread is not turned into flat, made-up buckets)
+//           gaps = skip, or than kMaxFilledBuckets buckets under any policy, is
+//           one observation over its whole length instead, so a fortnight unread
+//           is not turned into flat, made-up buckets)
 // A count or meter bucket that the data do not cover from its start (the first
 // one, or the ones a meter reset interrupts) is incomplete and is dropped, never
 // reported as a low value; buckets across a meter reset are never filled.
