@@ -207,6 +207,7 @@ Alarm ArrivalModel::Observe(EventTime t) {
   if (faster_ == 0) faster_start_ = t;
   slower_ = std::max(0.0, slower_ + x - kSlowerReference);
   faster_ = std::max(0.0, faster_ + kFasterReference - x);
+  last_score_ = armed() ? x : std::numeric_limits<double>::quiet_NaN();
   if (!armed()) {  // the shape is still being learned: keep the score at rest
     slower_ = faster_ = 0.0;
   } else if (slower_ > options_.slower_h) {
@@ -233,6 +234,11 @@ EventTime ArrivalModel::TimeAfterMeanGaps(EventTime from, double mean_gaps) cons
   const double operational = theta_ * mean_gaps;
   if (shape_) return shape_->WallTimeAfter(from, operational);
   return from + static_cast<EventTime>(operational);
+}
+
+void ArrivalModel::SetDecisionIntervals(double slower_h, double faster_h) {
+  if (slower_h > 0) options_.slower_h = slower_h;
+  if (faster_h > 0) options_.faster_h = faster_h;
 }
 
 void ArrivalModel::Rebaseline() {

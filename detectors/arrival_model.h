@@ -68,6 +68,7 @@
 // exponential model: t_last + theta * (-ln(1 - q)).
 #pragma once
 
+#include <limits>
 #include <optional>
 #include <string>
 #include <vector>
@@ -149,6 +150,11 @@ class ArrivalModel {
   // The time at which `mean_gaps` mean gaps of operational time have passed
   // since `from` (with a season, slow hours count for less).
   EventTime TimeAfterMeanGaps(EventTime from, double mean_gaps) const;
+  // Replaces the decision intervals (after an empirical re-fit); both > 0.
+  void SetDecisionIntervals(double slower_h, double faster_h);
+  const ArrivalModelOptions& options() const { return options_; }
+  // The score X of the latest gap while armed (NaN otherwise).
+  double last_score() const { return last_score_; }
   double slower_statistic() const { return slower_; }
   double faster_statistic() const { return faster_; }
   // Restarts the CUSUMs and re-learns the baseline from the next gaps.
@@ -164,6 +170,7 @@ class ArrivalModel {
   double slower_ = 0.0, faster_ = 0.0;
   EventTime slower_start_ = 0, faster_start_ = 0;
   std::optional<ArrivalShape> shape_;
+  double last_score_ = std::numeric_limits<double>::quiet_NaN();
 };
 
 }  // namespace plumbline

@@ -1,6 +1,7 @@
 #include "detectors/run_length_chain.h"
 
 #include <Eigen/Dense>
+#include <algorithm>
 #include <cmath>
 #include <string>
 
@@ -55,6 +56,31 @@ StatusOr<double> CalibrateOneSidedCusum(const IncrementCdf& cdf, double arl0,
     }
   }
   while (high - low > 1e-4 * high) {  // ARL grows monotonically with h
+    const double mid = 0.5 * (low + high);
+    (OneSidedCusumArl(cdf, mid) < arl0 ? low : high) = mid;
+  }
+  return high;
+}
+
+StatusOr<double> CalibrateOneSidedCusumFromSample(std::vector<double> increments,
+                                                  double arl0, double h_floor,
+                                                  double h_ceiling) {
+  if (increments.size() < 100) {
+    return Status::InvalidArgument("need at least 100 increments to calibrate from a sample");
+  }
+  if (!(h_floor > 0 && h_ceiling >= h_floor)) {
+    return Status::InvalidArgument("need 0 < h_floor <= h_ceiling");
+  }
+  std::sort(increments.begin(), increments.end());
+  const double n = static_cast<double>(increments.size());
+  const IncrementCdf cdf = [&increments, n](double y) {
+    return static_cast<double>(std::upper_bound(increments.begin(), increments.end(), y) -
+                               increments.begin()) / n;
+  };
+  if (OneSidedCusumArl(cdf, h_floor) >= arl0) return h_floor;
+  if (OneSidedCusumArl(cdf, h_ceiling) < arl0) return h_ceiling;
+  double low = h_floor, high = h_ceiling;
+  while (high - low > 1e-3 * high) {
     const double mid = 0.5 * (low + high);
     (OneSidedCusumArl(cdf, mid) < arl0 ? low : high) = mid;
   }

@@ -19,6 +19,7 @@
 #pragma once
 
 #include <functional>
+#include <vector>
 
 #include "detectors/status.h"
 
@@ -35,5 +36,13 @@ double OneSidedCusumArl(const IncrementCdf& cdf, double h, double start = 0.0,
 // Fails when arl0 cannot be reached below h_max.
 StatusOr<double> CalibrateOneSidedCusum(const IncrementCdf& cdf, double arl0,
                                         double h_max = 1000.0);
+
+// The same calibration for increments whose distribution is known only by a
+// sample (the empirical CDF of `increments`, at least 100 values), with h held
+// in [h_floor, h_ceiling]. Used after warmup to re-fit a detector's threshold
+// to the residuals a series really produces (heavy tails, bursty arrivals).
+StatusOr<double> CalibrateOneSidedCusumFromSample(std::vector<double> increments,
+                                                  double arl0, double h_floor,
+                                                  double h_ceiling);
 
 }  // namespace plumbline

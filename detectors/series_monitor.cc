@@ -2,6 +2,10 @@
 
 #include <algorithm>
 #include <cmath>
+#include <limits>
+#include <numbers>
+
+#include "detectors/run_length_chain.h"
 
 namespace plumbline {
 namespace {
@@ -208,6 +212,7 @@ void SeriesMonitor::Flush(std::vector<SeriesEvent>* events) {
 void SeriesMonitor::Process(EventTime t, double value, std::vector<SeriesEvent>* events) {
   const double gap_before = arrival_.mean_gap();
   const Alarm rate = arrival_.Observe(t);
+  CollectForRefit(std::numeric_limits<double>::quiet_NaN(), arrival_.last_score());
   if (rate.fired) {
     if (arrival_.arrivals() >= rate_hold_until_) {
       SeriesEvent e;
@@ -343,6 +348,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // such as one event per reading): a narrower spread cannot be seen there.
   const bool resolvable = sigma > 1.5 * design_->scale.floor;
   if (resolvable && observations_ >= variance_hold_until_) {
+    CollectForRefit(std::min(z * z, design_->variance.cap),
+                    std::numeric_limits<double>::quiet_NaN());
     const Alarm v = variance_.Update(z, to);
     if (v.fired) {
       SeriesEvent e;
@@ -422,6 +429,44 @@ void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma, bool
   level_hold_until_ = observations_ + hold;
   variance_hold_until_ = std::max(variance_hold_until_, observations_ + hold);
   StartRegime(alarm.change_at, t);
+}
+
+void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
+  if (!variance_refitted_ && std::isfinite(variance_q)) {
+    variance_sample_.push_back(variance_q);
+    if (variance_sample_.size() == kRefitSample) {
+      const VarianceCusumOptions& o = design_->variance;
+      const double k_up = o.k_up(), k_down = o.k_down();
+      std::vector<double> up(variance_sample_), down(variance_sample_);
+      for (double& q : up) q -= k_up;
+      for (double& q : down) q = k_down - q;
+      auto up_h = CalibrateOneSidedCusumFromSample(up, 2.0 * 4.0 * design_->profile.arl0,
+                                                   o.up_h, kRefitCeiling * o.up_h);
+      auto down_h = CalibrateOneSidedCusumFromSample(down, 2.0 * 4.0 * design_->profile.arl0,
+                                                     o.down_h, kRefitCeiling * o.down_h);
+      variance_.SetDecisionIntervals(up_h.ok() ? *up_h : o.up_h,
+                                     down_h.ok() ? *down_h : o.down_h);
+      variance_refitted_ = true;
+      std::vector<double>().swap(variance_sample_);
+    }
+  }
+  if (!arrival_refitted_ && std::isfinite(arrival_score)) {
+    arrival_sample_.push_back(arrival_score);
+    if (arrival_sample_.size() == kRefitSample) {
+      const ArrivalModelOptions& o = design_->arrival;
+      std::vector<double> slower(arrival_sample_), faster(arrival_sample_);
+      for (double& x : slower) x -= 2.0 * std::numbers::ln2;
+      for (double& x : faster) x = std::numbers::ln2 - x;
+      auto slower_h = CalibrateOneSidedCusumFromSample(
+          slower, 2.0 * 4.0 * design_->profile.arl0, o.slower_h, kRefitCeiling * o.slower_h);
+      auto faster_h = CalibrateOneSidedCusumFromSample(
+          faster, 2.0 * 4.0 * design_->profile.arl0, o.faster_h, kRefitCeiling * o.faster_h);
+      arrival_.SetDecisionIntervals(slower_h.ok() ? *slower_h : o.slower_h,
+                                    faster_h.ok() ? *faster_h : o.faster_h);
+      arrival_refitted_ = true;
+      std::vector<double>().swap(arrival_sample_);
+    }
+  }
 }
 
 void SeriesMonitor::ResetLevelDetectors() {

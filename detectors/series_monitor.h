@@ -31,6 +31,16 @@
 //        observations (default: warmup) holds further alerts of that kind
 //     -> `retrain` event once the new regime holds `warmup` observations.
 //
+// Empirical re-fit (a bounded threshold adjustment after warmup): the variance
+// and arrival CUSUMs are designed for normal residuals and Poisson arrivals.
+// Real series have heavier tails and burstier arrivals, which would make them
+// fire far more often than designed. So once armed, each collects its first
+// kRefitSample increments, and its decision intervals are re-calibrated on their
+// empirical distribution by the same Markov chain (run_length_chain.h), never
+// lowered and at most kRefitCeiling times the design (common practice, no
+// source). The level detectors keep their designed thresholds; they see
+// winsorised z.
+//
 // False-alarm budget: the profile's arl0 is shared so that all alert kinds
 // together keep it (union bound): level detectors get 1/2 of the rate
 // (ARL0 x 2), the variance CUSUM 1/4 (x 4), the arrival CUSUMs 1/4 (x 4, in gaps).
@@ -156,8 +166,11 @@ class SeriesMonitor {
   static constexpr double kBaselineFraction = 0.25;
   static constexpr double kLearnFraction = 0.5;
   static constexpr double kLevelClip = 4.0;
+  static constexpr size_t kRefitSample = 1000;
+  static constexpr double kRefitCeiling = 3.0;
   double Whiten(EventTime t, double u, bool learn);
   void StartForecaster();
+  void CollectForRefit(double variance_q, double arrival_score);
 
   const ProfileDesign* design_;
   // The first kProbe observations are held until their spacing is known: it
@@ -205,6 +218,9 @@ class SeriesMonitor {
   long long pairs_ = 0;
   double rho_ = 0.0;
   std::vector<double> threshold_fraction_;  // per level detector, at its last update
+  std::vector<double> variance_sample_;      // capped z^2, until re-fitted
+  std::vector<double> arrival_sample_;       // arrival scores X, until re-fitted
+  bool variance_refitted_ = false, arrival_refitted_ = false;
   bool silent_ = false;
   bool has_reading_ = false;
   EventTime last_reading_ = 0;

@@ -122,6 +122,11 @@ bool VarianceCusum::SpreadExplainsExcursion() const {
   return spread > level;
 }
 
+void VarianceCusum::SetDecisionIntervals(double up_h, double down_h) {
+  if (up_h > 0) options_.up_h = up_h;
+  if (down_h > 0) options_.down_h = down_h;
+}
+
 void VarianceCusum::Reset() {
   up_ = down_ = Side{};
   excursion_.clear();

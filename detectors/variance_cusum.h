@@ -80,6 +80,9 @@ class VarianceCusum {
   // standard deviations (new / old) over the excursion. Non-finite z is ignored.
   Alarm Update(double z, EventTime time);
   void Reset();
+  // Replaces the decision intervals (after an empirical re-fit); both > 0.
+  void SetDecisionIntervals(double up_h, double down_h);
+  const VarianceCusumOptions& options() const { return options_; }
   double wider_statistic() const { return up_.statistic; }
   double narrower_statistic() const { return down_.statistic; }
 
