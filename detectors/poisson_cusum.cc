@@ -52,8 +52,8 @@ struct PoissonTable {
 
   PoissonTable(double mu, std::int64_t n) {
     // Sum tails from where the pmf is negligible (below 1e-300 of the mass).
-    const std::int64_t far =
-        std::max<std::int64_t>(n, static_cast<std::int64_t>(mu + 40.0 * std::sqrt(mu) + 60.0));
+    const std::int64_t far = std::max<std::int64_t>(
+        n, static_cast<std::int64_t>(mu + 40.0 * std::sqrt(mu) + 60.0));
     std::vector<double> all(static_cast<std::size_t>(far + 1));
     const double log_mu = std::log(mu);
     double log_p = -mu;
@@ -76,13 +76,18 @@ struct PoissonTable {
     }
   }
   double Pmf(std::int64_t x) const {
-    return (x < 0 || x >= static_cast<std::int64_t>(pmf.size())) ? 0.0
-                                                                  : pmf[static_cast<std::size_t>(x)];
+    return (x < 0 || x >= static_cast<std::int64_t>(pmf.size()))
+               ? 0.0
+               : pmf[static_cast<std::size_t>(x)];
   }
   // P(X <= x); x < n.
-  double Cdf(std::int64_t x) const { return x < 0 ? 0.0 : cdf[static_cast<std::size_t>(x)]; }
+  double Cdf(std::int64_t x) const {
+    return x < 0 ? 0.0 : cdf[static_cast<std::size_t>(x)];
+  }
   // P(X >= x); x < n.
-  double Tail(std::int64_t x) const { return x <= 0 ? 1.0 : tail[static_cast<std::size_t>(x)]; }
+  double Tail(std::int64_t x) const {
+    return x <= 0 ? 1.0 : tail[static_cast<std::size_t>(x)];
+  }
 };
 
 // Floor and ceiling of a / d for d > 0.
@@ -121,8 +126,9 @@ StatusOr<double> ScaledChainArl(double mu, std::int64_t a, std::int64_t b, std::
   const Vector arl = system.partialPivLu().solve(Vector::Ones(m));
   const double result = arl(c);
   if (!(std::isfinite(result) && result >= 1.0)) {
-    return Status::OutOfRange("poisson cusum arl: the chain is numerically singular (ARL " +
-                              Format(result) + ")");
+    return Status::OutOfRange(
+        "poisson cusum arl: the chain is numerically singular (ARL " + Format(result) +
+        ")");
   }
   return result;
 }
@@ -134,8 +140,10 @@ StatusOr<double> ScaledChainArl(double mu, std::int64_t a, std::int64_t b, std::
 
 std::string_view ToString(PoissonSignalRule rule) {
   switch (rule) {
-    case PoissonSignalRule::kAtLeast: return "at_least";
-    case PoissonSignalRule::kAbove: return "above";
+    case PoissonSignalRule::kAtLeast:
+      return "at_least";
+    case PoissonSignalRule::kAbove:
+      return "above";
   }
   return "at_least";
 }
@@ -148,8 +156,10 @@ std::optional<PoissonSignalRule> PoissonSignalRuleFromString(std::string_view te
 
 std::string_view ToString(PoissonCusumSide side) {
   switch (side) {
-    case PoissonCusumSide::kUpper: return "upper";
-    case PoissonCusumSide::kLower: return "lower";
+    case PoissonCusumSide::kUpper:
+      return "upper";
+    case PoissonCusumSide::kLower:
+      return "lower";
   }
   return "upper";
 }
@@ -167,8 +177,10 @@ bool PoissonCusumOptions::IsValid(std::string* why) const {
   if (!IsFinitePositive(mu0)) {
     return Fail(why, "mu0 must be finite and > 0; got " + Format(mu0));
   }
-  if (!IsFinitePositive(k)) return Fail(why, "k must be finite and > 0; got " + Format(k));
-  if (!IsFinitePositive(h)) return Fail(why, "h must be finite and > 0; got " + Format(h));
+  if (!IsFinitePositive(k))
+    return Fail(why, "k must be finite and > 0; got " + Format(k));
+  if (!IsFinitePositive(h))
+    return Fail(why, "h must be finite and > 0; got " + Format(h));
   if (!(headstart >= 0.0 && headstart < h)) {
     return Fail(why, "headstart must be in [0, h) with h = " + Format(h) + "; got " +
                          Format(headstart));
@@ -242,7 +254,8 @@ bool PoissonCusum::Signals(double value, double h) const {
 }
 
 StatusOr<Alarm> PoissonCusum::Update(double count, EventTime time) {
-  if (!(std::isfinite(count) && count >= 0.0 && count == std::floor(count))) [[unlikely]] {
+  if (!(std::isfinite(count) && count >= 0.0 && count == std::floor(count)))
+      [[unlikely]] {
     return RefuseCount(count);
   }
   ++readings_;
@@ -286,7 +299,8 @@ StatusOr<double> PoissonCusumReferenceValue(double mu0, double mu1) {
                                    Format(mu1));
   }
   if (mu0 == mu1) {
-    return Status::InvalidArgument("poisson cusum: mu1 must differ from mu0 = " + Format(mu0));
+    return Status::InvalidArgument("poisson cusum: mu1 must differ from mu0 = " +
+                                   Format(mu0));
   }
   return (mu1 - mu0) / (std::log(mu1) - std::log(mu0));
 }
@@ -306,8 +320,9 @@ StatusOr<double> PoissonCusumArl(double mu, double k, double h, double start,
                                    Format(h));
   }
   if (!(start >= 0.0 && start < h)) {
-    return Status::InvalidArgument("poisson cusum arl: start must be in [0, h) with h = " +
-                                   Format(h) + "; got " + Format(start));
+    return Status::InvalidArgument(
+        "poisson cusum arl: start must be in [0, h) with h = " + Format(h) + "; got " +
+        Format(start));
   }
   for (int d = 1; d <= kMaxDenominator; ++d) {
     const auto a = ScaledInteger(k, d);
@@ -319,10 +334,10 @@ StatusOr<double> PoissonCusumArl(double mu, double k, double h, double start,
     return ScaledChainArl(mu, *a, *b, *c, d, rule, side);
   }
   return Status::InvalidArgument(
-      "poisson cusum arl: k = " + Format(k) + ", h = " + Format(h) + " and start = " +
-      Format(start) + " must be multiples of a common 1/d with d <= " +
-      Format(kMaxDenominator) + " and h d <= " + Format(kMaxChainStates) +
-      " (round k to a simple fraction)");
+      "poisson cusum arl: k = " + Format(k) + ", h = " + Format(h) +
+      " and start = " + Format(start) +
+      " must be multiples of a common 1/d with d <= " + Format(kMaxDenominator) +
+      " and h d <= " + Format(kMaxChainStates) + " (round k to a simple fraction)");
 }
 
 StatusOr<PoissonCusumDesign> CalibratePoissonCusum(double mu0, double mu1, double arl0,
@@ -331,12 +346,13 @@ StatusOr<PoissonCusumDesign> CalibratePoissonCusum(double mu0, double mu1, doubl
   const StatusOr<double> reference = PoissonCusumReferenceValue(mu0, mu1);
   if (!reference.ok()) return reference.status();
   if (!(std::isfinite(arl0) && arl0 >= 1.0)) {
-    return Status::InvalidArgument("poisson cusum calibration: arl0 must be finite and >= 1; got " +
-                                   Format(arl0));
+    return Status::InvalidArgument(
+        "poisson cusum calibration: arl0 must be finite and >= 1; got " + Format(arl0));
   }
   if (k_denominator < 0 || k_denominator > kMaxDenominator) {
     return Status::InvalidArgument(
-        "poisson cusum calibration: k_denominator must be in [0, 1000] (0 = automatic); got " +
+        "poisson cusum calibration: k_denominator must be in [0, 1000] (0 = automatic); "
+        "got " +
         Format(k_denominator));
   }
   PoissonCusumDesign design;
@@ -344,9 +360,7 @@ StatusOr<PoissonCusumDesign> CalibratePoissonCusum(double mu0, double mu1, doubl
   design.reference_value = *reference;
   const double k_exact = *reference;
   // The rounded k for denominator d (at least 1/d, so k stays > 0).
-  auto rounded = [k_exact](int d) {
-    return std::max(1.0, std::round(k_exact * d)) / d;
-  };
+  auto rounded = [k_exact](int d) { return std::max(1.0, std::round(k_exact * d)) / d; };
   int d = k_denominator;
   if (d == 0) {
     double best_move = HUGE_VAL;
@@ -384,8 +398,8 @@ StatusOr<PoissonCusumDesign> CalibratePoissonCusum(double mu0, double mu1, doubl
     if (*arl >= arl0) break;
     if (high == h_max) {
       return Status::OutOfRange("poisson cusum calibration: arl0 = " + Format(arl0) +
-                                " needs h above " + Format(h_max) + " for k = " +
-                                Format(design.k));
+                                " needs h above " + Format(h_max) +
+                                " for k = " + Format(design.k));
     }
     low = high;
     high = std::min(2 * high, h_max);

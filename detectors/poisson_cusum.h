@@ -100,9 +100,11 @@ struct PoissonCusumOptions {
   double h = 6.0;          // upper decision interval: finite, > 0
   double headstart = 0.0;  // upper start and restart value: 0 <= headstart < h
   bool two_sided = false;  // also run the lower side, for a decrease
-  double k_down = 1.0;     // lower reference value: finite, > 0 (Lucas: mu0 -> 0.5 gives 1.08)
-  double h_down = 6.0;     // lower decision interval: finite, > 0
-  double headstart_down = 0.0;  // lower start and restart value: 0 <= headstart_down < h_down
+  double k_down =
+      1.0;  // lower reference value: finite, > 0 (Lucas: mu0 -> 0.5 gives 1.08)
+  double h_down = 6.0;  // lower decision interval: finite, > 0
+  double headstart_down =
+      0.0;  // lower start and restart value: 0 <= headstart_down < h_down
   PoissonSignalRule rule = PoissonSignalRule::kAtLeast;  // both sides
   double arl0 = 0.0;  // in-control ARL h was calibrated for; 0 = not calibrated
 
@@ -134,7 +136,9 @@ class PoissonCusum {
   void Reset();
 
   double upper() const { return upper_.value; }  // S_t
-  double lower() const { return lower_.value; }  // T_t (stays at headstart_down if one-sided)
+  double lower() const {
+    return lower_.value;
+  }  // T_t (stays at headstart_down if one-sided)
   // Readings in each side's current excursion (0 when at zero or just restarted).
   std::int64_t upper_length() const { return upper_.length; }
   std::int64_t lower_length() const { return lower_.length; }
@@ -191,12 +195,12 @@ StatusOr<double> PoissonCusumArl(double mu, double k, double h, double start,
 // A calibrated one-sided design.
 struct PoissonCusumDesign {
   PoissonCusumSide side = PoissonCusumSide::kUpper;  // upper if mu1 > mu0
-  double reference_value = 0.0;  // Lucas's k before rounding
-  double k = 0.0;                // rounded k = numerator / k_denominator
+  double reference_value = 0.0;                      // Lucas's k before rounding
+  double k = 0.0;  // rounded k = numerator / k_denominator
   int k_denominator = 1;
-  double h = 0.0;                // smallest whole h with ARL(mu0) >= target
-  double arl0 = 0.0;             // exact ARL at mu0 for (k, h)
-  double arl1 = 0.0;             // exact ARL at mu1 for (k, h)
+  double h = 0.0;     // smallest whole h with ARL(mu0) >= target
+  double arl0 = 0.0;  // exact ARL at mu0 for (k, h)
+  double arl1 = 0.0;  // exact ARL at mu1 for (k, h)
 };
 
 // Designs one side for detecting mu0 -> mu1 (upper when mu1 > mu0, lower when
@@ -209,7 +213,7 @@ struct PoissonCusumDesign {
 // k_denominator outside 0..1000, and OutOfRange when arl0 needs more than
 // kMaxChainStates scaled states.
 StatusOr<PoissonCusumDesign> CalibratePoissonCusum(
-    double mu0, double mu1, double arl0, PoissonSignalRule rule = PoissonSignalRule::kAtLeast,
-    int k_denominator = 0);
+    double mu0, double mu1, double arl0,
+    PoissonSignalRule rule = PoissonSignalRule::kAtLeast, int k_denominator = 0);
 
 }  // namespace plumbline

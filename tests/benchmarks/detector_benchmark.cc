@@ -13,6 +13,7 @@
 #include "detectors/cusum.h"
 #include "detectors/ewma.h"
 #include "detectors/page_hinkley.h"
+#include "detectors/poisson_cusum.h"
 #include "detectors/random.h"
 
 namespace plumbline {
@@ -84,6 +85,32 @@ void BM_EwmaFixedLimitsUpdate(benchmark::State& state) {
   RunUpdates(state, ewma);
 }
 BENCHMARK(BM_EwmaFixedLimitsUpdate)->Arg(0)->Arg(1);
+
+// PoissonCusum (two-sided, mu0 = 2, k = 3, h = 6, k_down = 1) on pre-drawn
+// Poisson counts. The argument is the mean of the counts: 2 is in control, 4 is
+// the shift the upper side is tuned to (alarms every ~6 readings).
+void BM_PoissonCusumUpdate(benchmark::State& state) {
+  Random random(20240602);
+  std::vector<double> counts(kReadings);
+  for (double& count : counts) {
+    count = static_cast<double>(random.Poisson(static_cast<double>(state.range(0))));
+  }
+  PoissonCusumOptions options;
+  options.two_sided = true;
+  PoissonCusum cusum(options);
+  std::size_t i = 0;
+  EventTime time = 0;
+  for (auto _ : state) {
+    auto result = cusum.Update(counts[i], time);
+    benchmark::DoNotOptimize(result);
+    i = (i + 1) & (kReadings - 1);
+    time += kMicrosPerMinute;
+  }
+  state.SetItemsProcessed(state.iterations());
+  state.counters["alarms_per_update"] = benchmark::Counter(
+      static_cast<double>(cusum.alarms()), benchmark::Counter::kAvgIterations);
+}
+BENCHMARK(BM_PoissonCusumUpdate)->Arg(2)->Arg(4);
 
 }  // namespace
 }  // namespace plumbline
