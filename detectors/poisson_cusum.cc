@@ -270,8 +270,10 @@ StatusOr<Alarm> PoissonCusum::Update(double count, EventTime time) {
     down = Signals(lower_.value, options_.h_down);
   }
   if (up || down) [[unlikely]] {
-    // Both sides at once needs S + T to grow by k_down - k >= h + h_down in one
-    // reading from below the limits; if it happens, report the upper side.
+    // Both sides signal together only if S + T reaches h + h_down, with both
+    // sides positive, in one reading from below the limits; S + T then changes
+    // by k_down - k, so that needs k_down - k > 0. If it happens, report the
+    // upper side.
     const Side& side = up ? upper_ : lower_;
     const double n = static_cast<double>(side.length);
     const double excursion_mean = up ? options_.k + (side.value - side.origin) / n

@@ -95,16 +95,19 @@ std::string_view ToString(PoissonCusumSide side);  // "upper", "lower"
 std::optional<PoissonCusumSide> PoissonCusumSideFromString(std::string_view text);
 
 struct PoissonCusumOptions {
+  // Defaults: the REFERENCES.md 7.1 design mu0 = 2, k = 3 (Lucas's k for
+  // mu0 -> 4, rounded), h = 6, S >= h: upper ARL0 412.5, ARL 6.2 at mu = 4. The
+  // lower side, k_down = 1 (mu0 -> 0.5 gives 1.08), h_down = 4: ARL0 1234,
+  // ARL 7.5 at mu = 0.5 (exact chain).
   double mu0 = 2.0;        // in-control mean count per reading: finite, > 0
-  double k = 3.0;          // upper reference value: finite, > 0 (Lucas: mu0 -> 4)
+  double k = 3.0;          // upper reference value: finite, > 0
   double h = 6.0;          // upper decision interval: finite, > 0
   double headstart = 0.0;  // upper start and restart value: 0 <= headstart < h
   bool two_sided = false;  // also run the lower side, for a decrease
-  double k_down =
-      1.0;  // lower reference value: finite, > 0 (Lucas: mu0 -> 0.5 gives 1.08)
-  double h_down = 6.0;  // lower decision interval: finite, > 0
-  double headstart_down =
-      0.0;  // lower start and restart value: 0 <= headstart_down < h_down
+  double k_down = 1.0;     // lower reference value: finite, > 0
+  double h_down = 4.0;     // lower decision interval: finite, > 0
+  // Lower start and restart value: 0 <= headstart_down < h_down.
+  double headstart_down = 0.0;
   PoissonSignalRule rule = PoissonSignalRule::kAtLeast;  // both sides
   double arl0 = 0.0;  // in-control ARL h was calibrated for; 0 = not calibrated
 

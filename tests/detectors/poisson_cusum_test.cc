@@ -391,6 +391,17 @@ TEST(PoissonCusumOptionsTest, IsValidNamesTheOptionAndItsRange) {
   EXPECT_TRUE(one_sided.IsValid(nullptr));
 }
 
+TEST(PoissonCusumOptionsTest, DefaultsAreTheReferencesSevenOneDesign) {
+  // REFERENCES.md 7.1 (COMP; Lucas 1985 design mu0 = 2, k = 3, h = 6, S >= h):
+  // ARL 412.471 in control and 6.190 at mu = 4.
+  const PoissonCusumOptions options;
+  EXPECT_EQ(options.rule, kAtLeast);
+  EXPECT_LT(
+      RelativeError(Arl(options.mu0, options.k, options.h, 0, options.rule), 412.471),
+      1e-3);
+  EXPECT_LT(RelativeError(Arl(4.0, options.k, options.h, 0, options.rule), 6.190), 1e-3);
+}
+
 TEST(PoissonCusumTest, RefusesNonCountsWithoutChangingState) {
   // Common practice, no source: a count is a finite non-negative whole number.
   PoissonCusumOptions options;
