@@ -431,6 +431,47 @@ void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma, bool
   StartRegime(alarm.change_at, t);
 }
 
+namespace {
+
+// Long-run variance inflation of a sample taken in order: the variance of sums
+// of blocks of kBlock consecutive values over kBlock times the variance of one
+// value (1 for independent values, larger when neighbours move together).
+// A CUSUM's drift over many steps is what reaches its threshold, so positively
+// correlated increments act like independent ones with this much more variance,
+// and by the Brownian approximation (Siegmund 1985, ch. 2; MEM) the threshold
+// for the same ARL0 grows about in proportion.
+double VarianceInflation(const std::vector<double>& sample) {
+  constexpr size_t kBlock = 20;
+  const size_t blocks = sample.size() / kBlock;
+  if (blocks < 10) return 1.0;
+  double mean = 0, var = 0;
+  for (double x : sample) mean += x;
+  mean /= static_cast<double>(sample.size());
+  for (double x : sample) var += (x - mean) * (x - mean);
+  var /= static_cast<double>(sample.size() - 1);
+  if (!(var > 0)) return 1.0;
+  double block_var = 0;
+  for (size_t b = 0; b < blocks; ++b) {
+    double sum = 0;
+    for (size_t i = 0; i < kBlock; ++i) sum += sample[b * kBlock + i] - mean;
+    block_var += sum * sum;
+  }
+  block_var /= static_cast<double>(blocks);
+  return std::max(1.0, block_var / (static_cast<double>(kBlock) * var));
+}
+
+// The re-fitted decision interval: the empirical chain's h, grown by the
+// sample's long-run variance inflation, within [design, ceiling x design].
+double Refit(std::vector<double> increments, double arl0, double design, double ceiling) {
+  const double inflation = VarianceInflation(increments);
+  auto h = CalibrateOneSidedCusumFromSample(std::move(increments), arl0, design,
+                                            ceiling * design);
+  if (!h.ok()) return design;
+  return std::clamp(*h * inflation, design, ceiling * design);
+}
+
+}  // namespace
+
 void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
   if (!variance_refitted_ && std::isfinite(variance_q)) {
     variance_sample_.push_back(variance_q);
@@ -440,12 +481,9 @@ void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
       std::vector<double> up(variance_sample_), down(variance_sample_);
       for (double& q : up) q -= k_up;
       for (double& q : down) q = k_down - q;
-      auto up_h = CalibrateOneSidedCusumFromSample(up, 2.0 * 4.0 * design_->profile.arl0,
-                                                   o.up_h, kRefitCeiling * o.up_h);
-      auto down_h = CalibrateOneSidedCusumFromSample(down, 2.0 * 4.0 * design_->profile.arl0,
-                                                     o.down_h, kRefitCeiling * o.down_h);
-      variance_.SetDecisionIntervals(up_h.ok() ? *up_h : o.up_h,
-                                     down_h.ok() ? *down_h : o.down_h);
+      const double target = 2.0 * 4.0 * design_->profile.arl0;
+      variance_.SetDecisionIntervals(Refit(std::move(up), target, o.up_h, kRefitCeiling),
+                                     Refit(std::move(down), target, o.down_h, kRefitCeiling));
       variance_refitted_ = true;
       std::vector<double>().swap(variance_sample_);
     }
@@ -457,12 +495,9 @@ void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
       std::vector<double> slower(arrival_sample_), faster(arrival_sample_);
       for (double& x : slower) x -= 2.0 * std::numbers::ln2;
       for (double& x : faster) x = std::numbers::ln2 - x;
-      auto slower_h = CalibrateOneSidedCusumFromSample(
-          slower, 2.0 * 4.0 * design_->profile.arl0, o.slower_h, kRefitCeiling * o.slower_h);
-      auto faster_h = CalibrateOneSidedCusumFromSample(
-          faster, 2.0 * 4.0 * design_->profile.arl0, o.faster_h, kRefitCeiling * o.faster_h);
-      arrival_.SetDecisionIntervals(slower_h.ok() ? *slower_h : o.slower_h,
-                                    faster_h.ok() ? *faster_h : o.faster_h);
+      const double target = 2.0 * 4.0 * design_->profile.arl0;
+      arrival_.SetDecisionIntervals(Refit(std::move(slower), target, o.slower_h, kRefitCeiling),
+                                    Refit(std::move(faster), target, o.faster_h, kRefitCeiling));
       arrival_refitted_ = true;
       std::vector<double>().swap(arrival_sample_);
     }

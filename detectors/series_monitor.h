@@ -36,9 +36,10 @@
 // Real series have heavier tails and burstier arrivals, which would make them
 // fire far more often than designed. So once armed, each collects its first
 // kRefitSample increments, and its decision intervals are re-calibrated on their
-// empirical distribution by the same Markov chain (run_length_chain.h), never
-// lowered and at most kRefitCeiling times the design (common practice, no
-// source). The level detectors keep their designed thresholds; they see
+// empirical distribution by the same Markov chain (run_length_chain.h), then
+// grown by the sample's long-run variance inflation (neighbouring increments that
+// move together, such as arrivals in bursts), never lowered and at most
+// kRefitCeiling times the design (common practice, no source). The level detectors keep their designed thresholds; they see
 // winsorised z.
 //
 // False-alarm budget: the profile's arl0 is shared so that all alert kinds
