@@ -59,14 +59,13 @@ which writes into a temporary directory and compares number by number.
 Needs Debian's python3-numpy.
 """
 
-import argparse
 import math
 import os
-import re
 import sys
-import tempfile
 
 import numpy as np
+
+import regenerate  # tests/reference/regenerate.py
 
 HERE = os.path.dirname(os.path.abspath(__file__))
 OUTPUT = os.path.join(HERE, "forecaster_reference.inc")
@@ -338,50 +337,8 @@ def render():
     return "\n".join(lines)
 
 
-NUMBER = re.compile(r"[-+]?(?:\d+\.?\d*(?:[eE][-+]?\d+)?|\.\d+(?:[eE][-+]?\d+)?)")
-
-
-def compare(fresh_path, committed_path):
-    with open(fresh_path) as f:
-        fresh = f.read()
-    try:
-        with open(committed_path) as f:
-            committed = f.read()
-    except OSError as e:
-        print("forecaster_reference: cannot read %s: %s" % (committed_path, e))
-        return False
-    if fresh == committed:
-        print("forecaster_reference: committed file is identical to a fresh run")
-        return True
-    # Allow only differences in the last printed digits (another libm or BLAS).
-    a, b = NUMBER.findall(fresh), NUMBER.findall(committed)
-    if NUMBER.sub("#", fresh) != NUMBER.sub("#", committed) or len(a) != len(b):
-        print("forecaster_reference: committed file differs in structure from a fresh run")
-        return False
-    worst = max(abs(float(u) - float(v)) / max(1.0, abs(float(v))) for u, v in zip(a, b))
-    ok = worst <= 1e-10
-    print("forecaster_reference: committed file differs from a fresh run by at most %.3g "
-          "(relative); tolerance 1e-10: %s" % (worst, "ok" if ok else "FAILED"))
-    return ok
-
-
 def main():
-    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    parser.add_argument("--check", action="store_true",
-                        help="regenerate into a temporary directory and compare "
-                             "with the committed file; exit 1 if they differ")
-    args = parser.parse_args()
-    text = render()
-    if not args.check:
-        with open(OUTPUT, "w") as f:
-            f.write(text)
-        print("forecaster_reference: wrote %s" % OUTPUT)
-        return 0
-    with tempfile.TemporaryDirectory() as tmp:
-        fresh = os.path.join(tmp, "forecaster_reference.inc")
-        with open(fresh, "w") as f:
-            f.write(text)
-        return 0 if compare(fresh, OUTPUT) else 1
+    return regenerate.main("forecaster_reference", __doc__.split("\n")[0], OUTPUT, render, 1e-10)
 
 
 if __name__ == "__main__":
