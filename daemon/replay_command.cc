@@ -185,7 +185,9 @@ int RunReplay(const Args& args) {
     out.clear();
   };
 
-  if (!quiet) std::printf("%-20s  %-13s %s\n", "detected_at", "kind", "series, change and size");
+  if (!quiet) {
+    std::printf("%-20s  %-13s %s\n", "detected_at", "kind", "series, change and size");
+  }
   while (true) {
     InputStream* next = nullptr;
     const OwnedReading* head = nullptr;
@@ -224,6 +226,7 @@ int RunReplay(const Args& args) {
 
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
+  std::fflush(stdout);  // the alert table first, then the summary, even through pipes
   std::uint64_t alerts_total = 0;
   for (const auto& [kind, n] : alerts_by_kind) alerts_total += n;
   std::fprintf(stderr, "\nreplay summary\n  readings   %llu accepted from %zu file(s), %zu series\n",
