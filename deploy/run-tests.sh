@@ -7,4 +7,8 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 deploy/install-deps.sh
 deploy/build.sh -DPLUMBLINE_LONG_TESTS="${PLUMBLINE_LONG_TESTS:-0}"
-ctest --test-dir "${PLUMBLINE_BUILD_DIR:-build}" --output-on-failure -j "$(nproc)" -LE pending
+build_dir=${PLUMBLINE_BUILD_DIR:-build}
+pending=$(ctest --test-dir "$build_dir" -N -L pending | sed -n 's/^Total Tests: //p')
+echo "run-tests: leaving out ${pending:-0} test(s) labelled pending (fixture expectations not met yet;"
+echo "run-tests: see DEVELOPERS.md); run them with: ctest --test-dir $build_dir -L pending"
+ctest --test-dir "$build_dir" --output-on-failure -j "$(nproc)" -LE pending
