@@ -1,0 +1,67 @@
+// Detection delay on the non-textbook streams of false_alarm_test.cc: a 2-sd
+// level step must be found within 1.5 x the median delay on independent
+// Gaussian noise (the product's target; common practice, no source).
+// Labelled `pending`: on AR(1) residuals with phi = 0.5 the whitened
+// detectors take about twice the Gaussian delay, and the work that should close
+// the gap is still open. Invented data.
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+#include <vector>
+
+#include <gtest/gtest.h>
+
+#include "detectors/series_monitor.h"
+#include "tests/support/noise_streams.h"
+
+namespace plumbline {
+namespace {
+
+using namespace noise_streams;
+
+// Median delay (readings from the first shifted reading to the alert, inclusive)
+// of a 2-sd upward level step after three weeks, over 100 seeded trials.
+double MedianDelayOfTwoSigmaStep(Noise noise) {
+  auto design = ProfileDesign::Make(ProfileFor(noise));
+  EXPECT_TRUE(design.ok());
+  const double sd = noise == Noise::kPoisson ? std::sqrt(2.0) : 1.0;
+  std::vector<double> delays;
+  int missed = 0;
+  for (int trial = 0; trial < 100; ++trial) {
+    SeriesMonitor monitor(&*design);
+    NoiseSource source(noise, 1000 + static_cast<std::uint64_t>(trial));
+    const int change = 3000 + 7 * trial;
+    EventTime t = kStart;
+    std::vector<SeriesEvent> events;
+    bool found = false;
+    for (int i = 0; i < change + 400 && !found; ++i) {
+      t = NextTime(source, t);
+      const double mean = Mean(noise, t) + (i >= change ? 2.0 * sd : 0.0);
+      events.clear();
+      monitor.Observe(t, source.Next(mean), &events);
+      for (const SeriesEvent& e : events) {
+        if (i >= change && e.type == EventType::kAlert && e.kind == AlertKind::kLevel &&
+            e.direction == Direction::kUp) {
+          delays.push_back(i - change + 1);
+          found = true;
+        }
+      }
+    }
+    missed += !found;
+  }
+  std::sort(delays.begin(), delays.end());
+  const double median = delays.empty() ? 1e9 : delays[delays.size() / 2];
+  std::printf("[figures] %s: 2-sd step found in %zu of 100 trials, median delay %.0f readings\n",
+              Name(noise), delays.size(), median);
+  return median;
+}
+
+TEST(FalseAlarmTest, TwoSigmaStepsAreFoundWithinOneAndAHalfTimesTheGaussianDelay) {
+  const double gaussian = MedianDelayOfTwoSigmaStep(Noise::kGaussian);
+  for (Noise noise : {Noise::kAutoregressive, Noise::kStudentT, Noise::kPoisson}) {
+    EXPECT_LE(MedianDelayOfTwoSigmaStep(noise), 1.5 * gaussian) << Name(noise);
+  }
+}
+
+}  // namespace
+}  // namespace plumbline
