@@ -151,43 +151,74 @@ StatusOr<Forecast> SeasonalForecaster::UpdateInterval(EventTime from, EventTime 
 StatusOr<Forecast> SeasonalForecaster::UpdateWith(EventTime t, double y, bool interval,
                                                   EventTime from) {
   if (!std::isfinite(y)) return Status::InvalidArgument("reading value is not finite");
-  if (updates_ > 0 && t < t_ref_) {
+  StatusOr<Forecast> begun = BeginUpdate(interval ? from : t, t);
+  if (!begun.ok()) return begun;
+  const bool first = updates_ == 0;
+  Status committed = CommitUpdate(y);
+  if (!committed.ok()) return committed;
+  // The first update's forecast is the prior's, centred on the reading itself.
+  if (first) return Forecast{y, pending_.xpx};
+  return begun;
+}
+
+StatusOr<Forecast> SeasonalForecaster::BeginUpdate(EventTime from, EventTime to) {
+  if (from > to) return Status::InvalidArgument("interval ends before it starts");
+  if (updates_ > 0 && to < t_ref_) {
     return Status::OutOfRange("reading is earlier than the forecaster's last update");
   }
+  pending_ = Pending{true, from, to, 0.0, std::numeric_limits<double>::infinity()};
+  if (updates_ == 0) return Forecast{0.0, std::numeric_limits<double>::infinity()};
+  // Past kMaxForgettingExponent memories the old information is gone to double
+  // precision anyway; the clamp keeps P / lambda finite after a very long gap.
+  const double lambda = std::exp(
+      -std::min(static_cast<double>(to - t_ref_) / static_cast<double>(options_.memory),
+                kMaxForgettingExponent));
+  Recentre(to);
+  p_ /= lambda;
+  // Bounding before the update as well keeps a long gap's huge P / lambda out
+  // of the rank-one downdate (it would leave P with a condition number ~1e16).
+  BoundCovariance(to);
+  if (from < to) {
+    FillIntervalRegressors(from, to, &x_);
+  } else {
+    FillRegressors(to, &x_);
+  }
+  px_.noalias() = p_ * x_;
+  pending_.xpx = x_.dot(px_);
+  pending_.forecast = x_.dot(theta_);
+  return Forecast{pending_.forecast, pending_.xpx};
+}
+
+Status SeasonalForecaster::CommitUpdate(double y) {
+  if (!std::isfinite(y)) return Status::InvalidArgument("reading value is not finite");
+  if (!pending_.active) return Status::FailedPrecondition("no update has been begun");
+  const EventTime t = pending_.to;
   if (updates_ == 0) {
     t_ref_ = t;
     t_first_ = t;
     theta_.setZero();
     theta_[0] = y;
     p_ = Matrix::Identity(dimension(), dimension()) * options_.prior_variance;
+    BoundCovariance(t);
+    if (pending_.from < t) {
+      FillIntervalRegressors(pending_.from, t, &x_);
+    } else {
+      FillRegressors(t, &x_);
+    }
+    px_.noalias() = p_ * x_;
+    pending_.xpx = x_.dot(px_);
+    pending_.forecast = x_.dot(theta_);
   }
-  // Past kMaxForgettingExponent memories the old information is gone to double
-  // precision anyway; the clamp keeps P / lambda finite after a very long gap.
-  const double lambda = std::exp(
-      -std::min(static_cast<double>(t - t_ref_) / static_cast<double>(options_.memory),
-                kMaxForgettingExponent));
-  Recentre(t);
-  p_ /= lambda;
-  // Bounding before the update as well keeps a long gap's huge P / lambda out
-  // of the rank-one downdate (it would leave P with a condition number ~1e16).
-  BoundCovariance(t);
-  if (interval) {
-    FillIntervalRegressors(from, t, &x_);
-  } else {
-    FillRegressors(t, &x_);
-  }
-  px_.noalias() = p_ * x_;
-  const double xpx = x_.dot(px_);
-  Forecast before{x_.dot(theta_), xpx};
-  const double error = y - before.value;
-  const double denominator = 1.0 + xpx;
+  const double error = y - pending_.forecast;
+  const double denominator = 1.0 + pending_.xpx;
   theta_.noalias() += px_ * (error / denominator);
   p_.noalias() -= (px_ / denominator) * px_.transpose();
   // Keep P exactly symmetric (mirror the lower triangle) and bounded.
   p_.triangularView<Eigen::StrictlyUpper>() = p_.transpose();
   BoundCovariance(t);
   ++updates_;
-  return before;
+  pending_.active = false;
+  return Status::Ok();
 }
 
 double SeasonalForecaster::CovarianceBound(EventTime t) const {

@@ -124,6 +124,18 @@ class SeasonalForecaster {
   // The forecast of the mean over [from, to].
   Forecast PredictInterval(EventTime from, EventTime to) const;
 
+  // Two-phase update, for callers that need the one-step forecast before they
+  // decide what to fold in (the monitor clips outliers): BeginUpdate advances
+  // the model's clock to `to` (re-centre, forget) and returns the forecast of
+  // the observation at `to` (the mean over [from, to] when from < to); before any
+  // data it returns value 0 with an infinite variance factor. CommitUpdate then
+  // folds in the observed value. Update(t, y) is BeginUpdate(t, t) followed by
+  // CommitUpdate(y). BeginUpdate fails, changing nothing, when to is earlier
+  // than the last update or from > to; CommitUpdate fails, changing nothing,
+  // when y is not finite or no update is pending.
+  StatusOr<Forecast> BeginUpdate(EventTime from, EventTime to);
+  Status CommitUpdate(double y);
+
   // Moves the level by delta (units of y) and adds level_variance to its
   // variance (at most up to half the covariance bound below), so the model
   // re-baselines fast after a detected change.
@@ -137,6 +149,15 @@ class SeasonalForecaster {
   void FillRegressors(EventTime t, Vector* x) const;
   void FillIntervalRegressors(EventTime from, EventTime to, Vector* x) const;
   StatusOr<Forecast> UpdateWith(EventTime t, double y, bool interval, EventTime from);
+
+  // The update begun by BeginUpdate and not yet committed.
+  struct Pending {
+    bool active = false;
+    EventTime from = 0, to = 0;
+    double forecast = 0.0;   // x' theta at `to`
+    double xpx = 0.0;        // x' P x after forgetting
+  };
+  Pending pending_;
   void Recentre(EventTime t);
   // The bounded-covariance guard (see the header comment).
   double CovarianceBound(EventTime t) const;

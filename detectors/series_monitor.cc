@@ -286,9 +286,11 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
     if (static_cast<int>(probe_.size()) >= kProbe) StartForecaster();
     return;
   }
-  if (forecaster_->has_data() && to < forecaster_->last_time()) return;  // not after reordering
-  const Forecast f = from < to ? forecaster_->PredictInterval(from, to)
-                               : forecaster_->Predict(to);
+  // The forecast comes from the first half of a two-phase update, so the
+  // regressors and P x are computed once per observation.
+  const StatusOr<Forecast> begun = forecaster_->BeginUpdate(from, to);
+  if (!begun.ok()) return;  // earlier than the model's clock: cannot happen after reordering
+  const Forecast& f = *begun;
   const double spread = std::sqrt(1.0 + f.parameter_variance_factor);
   const double u = (y - f.value) / spread;
   const double sigma = scale_.sigma();
@@ -318,11 +320,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   if (armed && std::abs(z) > clip) {
     y_fit = f.value + (profile_->Mean(bin) + std::copysign(clip * phase_sigma, a)) * spread;
   }
-  if (from < to) {
-    (void)forecaster_->UpdateInterval(from, to, y_fit);
-  } else {
-    (void)forecaster_->Update(to, y_fit);
-  }
+  (void)forecaster_->CommitUpdate(y_fit);
   if (identified && !suspicious) {
     scale_.Update(a);
     profile_->Update(bin, u, a, scale_.sigma());
