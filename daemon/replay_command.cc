@@ -35,6 +35,7 @@ struct OwnedReading {
   EventTime time;
   std::string series;
   double value;
+  std::uint64_t line;  // in its file, for reports
 };
 
 struct RejectedLine {
@@ -54,7 +55,8 @@ class InputStream {
         parser_(
             ReadingParserOptions{},
             [this](const Reading& r) {
-              queue_.push_back({r.time, std::string(r.series), r.value});
+              queue_.push_back({r.time, std::string(r.series), r.value,
+                                parser_.line_number()});
             },
             [this, first_errors, rejected](std::uint64_t line, ReadingError reason,
                                            std::string_view detail) {
@@ -66,6 +68,7 @@ class InputStream {
             }) {}
 
   bool is_open() const { return file_.is_open(); }
+  const std::string& path() const { return path_; }
   std::uint64_t bytes_read() const { return bytes_; }
 
   // The next reading, or null at the end of the file.
@@ -205,6 +208,11 @@ int RunReplay(const Args& args) {
       ++readings;
     } else {
       ++rejected[std::string(ToString(outcome))];
+      if (first_errors.size() < 10) {
+        first_errors.push_back({next->path(), head->line, std::string(ToString(outcome)),
+                                "series \"" + head->series + "\" at " +
+                                    FormatRfc3339(head->time)});
+      }
     }
     next->Pop();
     publish();
