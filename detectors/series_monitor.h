@@ -39,15 +39,24 @@
 // empirical distribution by the same Markov chain (run_length_chain.h), then
 // grown by the sample's long-run variance inflation (neighbouring increments that
 // move together, such as arrivals in bursts), never lowered and at most
-// kRefitCeiling times the design (common practice, no source). The level detectors keep their designed thresholds; they see
-// winsorised z.
+// kRefitCeiling times the design (common practice, no source). The level
+// detectors keep their designed thresholds; they see winsorised z.
+//
+// Learning while testing: while any level detector is past kBaselineFraction of
+// its threshold, the residual scale, the phase profile and the autocorrelation
+// stop learning; past kLearnFraction the forecaster's steps are limited to one
+// sigma. So a change being tested for is not quietly absorbed before it fires.
+// Counts have a resolution floor on sigma (1/sqrt(12)); at the floor the
+// narrower-spread side and BOCPD are not fed, since all-zero residuals would
+// look to them like a change.
 //
 // False-alarm budget: the profile's arl0 is shared so that all alert kinds
 // together keep it (union bound): level detectors get 1/2 of the rate
 // (ARL0 x 2), the variance CUSUM 1/4 (x 4), the arrival CUSUMs 1/4 (x 4, in gaps).
 // Silence is separate: `silence_after`, or else an adaptive
-// max(5, ln(4 arl0)) x the mean gap, which for Poisson arrivals is a false-silence
-// chance of about 1/(4 arl0) per gap.
+// max(5, ln(4 arl0)) mean gaps of operational time (slow hours of a seasonal
+// stream count for less), which for Poisson arrivals is a false-silence chance of
+// about 1/(4 arl0) per gap.
 #pragma once
 
 #include <array>
