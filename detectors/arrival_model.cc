@@ -105,7 +105,16 @@ void ArrivalShape::Record(EventTime from, EventTime to) {
   AddExposure(from, to, weight);
   events_[static_cast<size_t>(Bin(to))] += weight;
   exposure_total_ += static_cast<double>(to - from);
-  Refresh();
+  // The shape moves slowly (it forgets over several seasons), so it is
+  // re-derived every kRefreshEvery arrivals rather than at each one: the
+  // derivation walks every bin.
+  // Until a whole season is seen the shape is not used (p = 1), so nothing is
+  // derived before that.
+  if (learned() && (++records_since_refresh_ >= kRefreshEvery || !refreshed_once_)) {
+    Refresh();
+    records_since_refresh_ = 0;
+    refreshed_once_ = true;
+  }
 }
 
 void ArrivalShape::Refresh() {

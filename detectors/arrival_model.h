@@ -126,6 +126,9 @@ class ArrivalShape {
   double exposure_total_ = 0.0;   // unforgotten, for `learned`
   EventTime anchor_ = 0;          // weights grow as exp((t - anchor) / memory)
   double weight_ = 1.0;           // weight of the latest contribution
+  static constexpr int kRefreshEvery = 32;  // arrivals between re-derivations of p
+  int records_since_refresh_ = 0;
+  bool refreshed_once_ = false;   // derived at least once since being learned
   bool anchored_ = false;
 };
 

@@ -212,8 +212,10 @@ Status SeasonalForecaster::CommitUpdate(double y) {
   const double error = y - pending_.forecast;
   const double denominator = 1.0 + pending_.xpx;
   theta_.noalias() += px_ * (error / denominator);
-  p_.noalias() -= (px_ / denominator) * px_.transpose();
-  // Keep P exactly symmetric (mirror the lower triangle) and bounded.
+  // Rank-one downdate of the lower triangle only (a full outer product would
+  // go through Eigen's general matrix product), then mirrored: P stays exactly
+  // symmetric. Bounded as well.
+  p_.selfadjointView<Eigen::Lower>().rankUpdate(px_, -1.0 / denominator);
   p_.triangularView<Eigen::StrictlyUpper>() = p_.transpose();
   BoundCovariance(t);
   ++updates_;
