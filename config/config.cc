@@ -315,7 +315,10 @@ class Loader {
   void ForEachKey(const YAML::Node& map, Visit visit) {
     std::map<std::string, int> first_line;
     for (auto it = map.begin(); it != map.end(); ++it) {
-      const YAML::Node& key = it->first;
+      // By value: yaml-cpp's iterator hands out a temporary pair, so a
+      // reference into it would dangle (found by AddressSanitizer).
+      const YAML::Node key = it->first;
+      const YAML::Node value = it->second;
       if (!key.IsScalar()) {
         Error(key.Mark(), "keys must be plain names, got " + Describe(key));
         continue;
@@ -327,7 +330,7 @@ class Loader {
                               std::to_string(previous->second) + ")");
         continue;
       }
-      visit(Field{key.Scalar(), key.Mark(), it->second});
+      visit(Field{key.Scalar(), key.Mark(), value});
     }
   }
 
