@@ -458,6 +458,38 @@ double VarianceInflation(const std::vector<double>& sample) {
   return std::max(1.0, block_var / (static_cast<double>(kBlock) * var));
 }
 
+// Variance of min(Z^2, cap) for Z ~ N(0,1): E[min(Z^4, cap^2)] - E[min(Z^2, cap)]^2,
+// with E[Z^4; |Z| < a] = 3 (2 Phi(a) - 1) - 2 phi(a) (a^3 + 3a), a = sqrt(cap)
+// (1.97701 at cap 12.25, agreeing with scipy.stats.norm.expect; COMP).
+double CappedChiSquareVariance(double cap) {
+  const double a = std::sqrt(cap);
+  const double phi = std::exp(-0.5 * cap) / std::sqrt(2.0 * std::numbers::pi);
+  const double tail = std::erfc(a / std::numbers::sqrt2);  // P(|Z| > a)
+  const double fourth = 3.0 * (1.0 - tail) - 2.0 * phi * (a * a * a + 3.0 * a) + cap * cap * tail;
+  const double mean = ResidualScale::ClippedSecondMoment(a);
+  return fourth - mean * mean;
+}
+
+// Variance of min(X, cap) for X ~ Exp(1): E[min(X, c)^2] = 2 - e^-c (2c + 2),
+// E[min(X, c)] = 1 - e^-c (0.970249 at c = 6, agreeing with scipy.stats.expon.expect; COMP).
+double CappedExponentialVariance(double cap) {
+  const double tail = std::exp(-cap);
+  const double mean = 1.0 - tail;
+  return 2.0 - tail * (2.0 * cap + 2.0) - mean * mean;
+}
+
+// Whether a sample's spread, with its long-run variance inflation, departs
+// from the model's enough to re-fit: within 15% the design stands, and the
+// (costly) chain is not run.
+bool NeedsRefit(const std::vector<double>& sample, double model_variance) {
+  double mean = 0, var = 0;
+  for (double x : sample) mean += x;
+  mean /= static_cast<double>(sample.size());
+  for (double x : sample) var += (x - mean) * (x - mean);
+  var /= static_cast<double>(sample.size() - 1);
+  return var * VarianceInflation(sample) > 1.15 * model_variance;
+}
+
 // The re-fitted decision interval: the empirical chain's h, grown by the
 // sample's long-run variance inflation, within [design, ceiling x design].
 double Refit(std::vector<double> increments, double arl0, double design, double ceiling) {
@@ -473,7 +505,11 @@ double Refit(std::vector<double> increments, double arl0, double design, double 
 void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
   if (!variance_refitted_ && std::isfinite(variance_q)) {
     variance_sample_.push_back(variance_q);
-    if (variance_sample_.size() == kRefitSample) {
+    if (variance_sample_.size() == kRefitSample &&
+        !NeedsRefit(variance_sample_, CappedChiSquareVariance(design_->variance.cap))) {
+      variance_refitted_ = true;  // behaves as designed: keep the design
+      std::vector<double>().swap(variance_sample_);
+    } else if (variance_sample_.size() == kRefitSample) {
       const VarianceCusumOptions& o = design_->variance;
       const double k_up = o.k_up(), k_down = o.k_down();
       std::vector<double> up(variance_sample_), down(variance_sample_);
@@ -488,7 +524,11 @@ void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
   }
   if (!arrival_refitted_ && std::isfinite(arrival_score)) {
     arrival_sample_.push_back(arrival_score);
-    if (arrival_sample_.size() == kRefitSample) {
+    if (arrival_sample_.size() == kRefitSample &&
+        !NeedsRefit(arrival_sample_, CappedExponentialVariance(design_->arrival.gap_cap))) {
+      arrival_refitted_ = true;  // behaves as designed: keep the design
+      std::vector<double>().swap(arrival_sample_);
+    } else if (arrival_sample_.size() == kRefitSample) {
       const ArrivalModelOptions& o = design_->arrival;
       std::vector<double> slower(arrival_sample_), faster(arrival_sample_);
       for (double& x : slower) x -= 2.0 * std::numbers::ln2;

@@ -35,7 +35,9 @@
 // and arrival CUSUMs are designed for normal residuals and Poisson arrivals.
 // Real series have heavier tails and burstier arrivals, which would make them
 // fire far more often than designed. So once armed, each collects its first
-// kRefitSample increments, and its decision intervals are re-calibrated on their
+// kRefitSample increments; if their variance (times its long-run inflation)
+// is within 15% of the model's, the design stands; otherwise the decision
+// intervals are re-calibrated on their
 // empirical distribution by the same Markov chain (run_length_chain.h), then
 // grown by the sample's long-run variance inflation (neighbouring increments that
 // move together, such as arrivals in bursts), never lowered and at most
