@@ -8,8 +8,8 @@
 
 namespace plumbline {
 namespace {
-constexpr double kSlowerReference = 2.0 * std::numbers::ln2;  // theta -> 2 theta
-constexpr double kFasterReference = std::numbers::ln2;         // theta -> theta / 2
+constexpr double kSlowerReference = ArrivalModelOptions::kSlowerReference;
+constexpr double kFasterReference = ArrivalModelOptions::kFasterReference;
 }  // namespace
 
 bool ArrivalModelOptions::IsValid(std::string* why) const {
@@ -66,8 +66,14 @@ int ArrivalShape::Bin(EventTime t) const {
   return std::min(static_cast<int>(within / width_), static_cast<int>(p_.size()) - 1);
 }
 
+EventTime ArrivalShape::BinEnd(EventTime t, int bin) const {
+  EventTime within = t % period_;
+  if (within < 0) within += period_;
+  const bool last = bin + 1 == static_cast<int>(p_.size());  // takes the period's remainder
+  return t - within + (last ? period_ : (bin + 1) * width_);
+}
+
 void ArrivalShape::AddExposure(EventTime from, EventTime to, double weight) {
-  const int bins = static_cast<int>(p_.size());
   const EventTime length = to - from;
   // Whole seasons add to every bin alike.
   const EventTime whole = std::min<EventTime>(length / period_, kMaxPeriods);
@@ -77,9 +83,7 @@ void ArrivalShape::AddExposure(EventTime from, EventTime to, double weight) {
   }
   for (EventTime cursor = from; cursor < to;) {
     const int b = Bin(cursor);
-    EventTime within = cursor % period_;
-    if (within < 0) within += period_;
-    const EventTime bin_end = cursor - within + (b + 1 == bins ? period_ : (b + 1) * width_);
+    const EventTime bin_end = BinEnd(cursor, b);
     const EventTime end = std::min(to, bin_end);
     exposure_[static_cast<size_t>(b)] += weight * static_cast<double>(end - cursor);
     cursor = end;
@@ -142,12 +146,9 @@ double ArrivalShape::Operational(EventTime from, EventTime to) const {
   const EventTime length = to - from;
   double total = static_cast<double>((length / period_) * period_);  // p averages 1
   from = to - (length % period_);
-  const int bins = static_cast<int>(p_.size());
   for (EventTime cursor = from; cursor < to;) {
     const int b = Bin(cursor);
-    EventTime within = cursor % period_;
-    if (within < 0) within += period_;
-    const EventTime bin_end = cursor - within + (b + 1 == bins ? period_ : (b + 1) * width_);
+    const EventTime bin_end = BinEnd(cursor, b);
     const EventTime end = std::min(to, bin_end);
     total += p_[static_cast<size_t>(b)] * static_cast<double>(end - cursor);
     cursor = end;
@@ -157,14 +158,11 @@ double ArrivalShape::Operational(EventTime from, EventTime to) const {
 
 EventTime ArrivalShape::WallTimeAfter(EventTime from, double operational) const {
   if (!learned()) return from + static_cast<EventTime>(operational);
-  const int bins = static_cast<int>(p_.size());
   EventTime cursor = from;
   const EventTime limit = from + kMaxPeriods * period_;
   while (cursor < limit) {
     const int b = Bin(cursor);
-    EventTime within = cursor % period_;
-    if (within < 0) within += period_;
-    const EventTime bin_end = cursor - within + (b + 1 == bins ? period_ : (b + 1) * width_);
+    const EventTime bin_end = BinEnd(cursor, b);
     const double rate = p_[static_cast<size_t>(b)];
     const double available = rate * static_cast<double>(bin_end - cursor);
     if (available >= operational && rate > 0) {

@@ -69,6 +69,7 @@
 #pragma once
 
 #include <limits>
+#include <numbers>
 #include <optional>
 #include <string>
 #include <vector>
@@ -89,6 +90,10 @@ struct ArrivalModelOptions {
   EventTime season = 0;    // period of the arrival intensity's shape; 0 = even
   int season_bins = 1;     // phase bins of the shape, [1, 1000]
   EventTime shape_memory = 0;  // forgetting time of the shape; 0 = 4 seasons
+
+  // Reference values of the two sides (see above): theta -> 2 theta, theta -> theta / 2.
+  static constexpr double kSlowerReference = 2.0 * std::numbers::ln2;
+  static constexpr double kFasterReference = std::numbers::ln2;
 
   bool IsValid(std::string* why) const;
   // Decision intervals for a target ARL0 (in gaps) for the pair of sides.
@@ -116,6 +121,8 @@ class ArrivalShape {
  private:
   static constexpr int kMaxPeriods = 8;
   int Bin(EventTime t) const;
+  // The end of phase bin `bin`, which holds t.
+  EventTime BinEnd(EventTime t, int bin) const;
   void AddExposure(EventTime from, EventTime to, double weight);
   void Refresh();
 

@@ -365,7 +365,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
                                                            : design_->profile.warmup;
       variance_hold_until_ = observations_ + hold;
       level_hold_until_ = std::max(level_hold_until_, observations_ + 20);
-      StartRegime(v.change_at, to);
+      StartRegime(v.change_at);
       return;
     }
   }
@@ -426,7 +426,7 @@ void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma, bool
   const long long hold = profile.cooldown > 0 ? profile.cooldown : profile.warmup;
   level_hold_until_ = observations_ + hold;
   variance_hold_until_ = std::max(variance_hold_until_, observations_ + hold);
-  StartRegime(alarm.change_at, t);
+  StartRegime(alarm.change_at);
 }
 
 namespace {
@@ -500,42 +500,46 @@ double Refit(std::vector<double> increments, double arl0, double design, double 
   return std::clamp(*h * inflation, design, ceiling * design);
 }
 
+// Re-fits both sides of a CUSUM pair on a score s (upper side: increments
+// s - k_upper; lower side: k_lower - s) from a sample of s. A sample that
+// behaves like the model keeps the design.
+std::pair<double, double> RefitSides(const std::vector<double>& scores, double model_variance,
+                                     double k_upper, double k_lower, double upper_h,
+                                     double lower_h, double side_arl0, double ceiling) {
+  if (!NeedsRefit(scores, model_variance)) return {upper_h, lower_h};
+  std::vector<double> upper(scores), lower(scores);
+  for (double& x : upper) x -= k_upper;
+  for (double& x : lower) x = k_lower - x;
+  return {Refit(std::move(upper), side_arl0, upper_h, ceiling),
+          Refit(std::move(lower), side_arl0, lower_h, ceiling)};
+}
+
 }  // namespace
 
 void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
+  // Each side of the variance and arrival pairs holds 1/8 of the false-alarm
+  // budget (1/4 per family, see the header), so it is fitted to 8 x arl0.
+  const double side_arl0 = 8.0 * design_->profile.arl0;
   if (!variance_refitted_ && std::isfinite(variance_q)) {
     variance_sample_.push_back(variance_q);
-    if (variance_sample_.size() == kRefitSample &&
-        !NeedsRefit(variance_sample_, CappedChiSquareVariance(design_->variance.cap))) {
-      variance_refitted_ = true;  // behaves as designed: keep the design
-      std::vector<double>().swap(variance_sample_);
-    } else if (variance_sample_.size() == kRefitSample) {
+    if (variance_sample_.size() == kRefitSample) {
       const VarianceCusumOptions& o = design_->variance;
-      const double k_up = o.k_up(), k_down = o.k_down();
-      std::vector<double> up(variance_sample_), down(variance_sample_);
-      for (double& q : up) q -= k_up;
-      for (double& q : down) q = k_down - q;
-      const double target = 2.0 * 4.0 * design_->profile.arl0;
-      variance_.SetDecisionIntervals(Refit(std::move(up), target, o.up_h, kRefitCeiling),
-                                     Refit(std::move(down), target, o.down_h, kRefitCeiling));
+      const auto [up_h, down_h] =
+          RefitSides(variance_sample_, CappedChiSquareVariance(o.cap), o.k_up(), o.k_down(),
+                     o.up_h, o.down_h, side_arl0, kRefitCeiling);
+      variance_.SetDecisionIntervals(up_h, down_h);
       variance_refitted_ = true;
       std::vector<double>().swap(variance_sample_);
     }
   }
   if (!arrival_refitted_ && std::isfinite(arrival_score)) {
     arrival_sample_.push_back(arrival_score);
-    if (arrival_sample_.size() == kRefitSample &&
-        !NeedsRefit(arrival_sample_, CappedExponentialVariance(design_->arrival.gap_cap))) {
-      arrival_refitted_ = true;  // behaves as designed: keep the design
-      std::vector<double>().swap(arrival_sample_);
-    } else if (arrival_sample_.size() == kRefitSample) {
+    if (arrival_sample_.size() == kRefitSample) {
       const ArrivalModelOptions& o = design_->arrival;
-      std::vector<double> slower(arrival_sample_), faster(arrival_sample_);
-      for (double& x : slower) x -= 2.0 * std::numbers::ln2;
-      for (double& x : faster) x = std::numbers::ln2 - x;
-      const double target = 2.0 * 4.0 * design_->profile.arl0;
-      arrival_.SetDecisionIntervals(Refit(std::move(slower), target, o.slower_h, kRefitCeiling),
-                                    Refit(std::move(faster), target, o.faster_h, kRefitCeiling));
+      const auto [slower_h, faster_h] = RefitSides(
+          arrival_sample_, CappedExponentialVariance(o.gap_cap), ArrivalModelOptions::kSlowerReference,
+          ArrivalModelOptions::kFasterReference, o.slower_h, o.faster_h, side_arl0, kRefitCeiling);
+      arrival_.SetDecisionIntervals(slower_h, faster_h);
       arrival_refitted_ = true;
       std::vector<double>().swap(arrival_sample_);
     }
@@ -589,7 +593,7 @@ double SeriesMonitor::Whiten(EventTime t, double u, bool learn) {
   return a;
 }
 
-void SeriesMonitor::StartRegime(EventTime change_at, EventTime /*detected_at*/) {
+void SeriesMonitor::StartRegime(EventTime change_at) {
   // Observations already in the new regime: those at or after change_at among
   // the recent ones (the ring holds the last 256).
   long long inside = 0;

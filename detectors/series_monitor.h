@@ -168,7 +168,7 @@ class SeriesMonitor {
   void Model(EventTime from, EventTime to, double y, std::vector<SeriesEvent>* events);
   void DecideLevel(EventTime t, double forecast, double sigma, bool resolvable,
                    std::vector<SeriesEvent>* events);
-  void StartRegime(EventTime change_at, EventTime detected_at);
+  void StartRegime(EventTime change_at);
   void ResetLevelDetectors();
   // True while any level detector is past the given fraction of its threshold:
   // baselines then hold still rather than learn the change being tested for.
