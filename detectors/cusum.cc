@@ -13,33 +13,20 @@ using option_checks::Fail;
 using option_checks::Format;
 using option_checks::RefuseReading;
 using option_checks::Arl0IsValid;
+using option_checks::DecisionIntervalIsValid;
 
 bool CusumOptions::IsValid(std::string* why) const {
   if (!(std::isfinite(k) && k > 0.0)) {
     return Fail(why, "k must be finite and > 0; got " + Format(k));
   }
-  if (!(std::isfinite(h) && h > 0.0)) {
-    return Fail(why, "h must be finite and > 0; got " + Format(h));
-  }
-  if (!(headstart >= 0.0 && headstart < h)) {
-    return Fail(why, "headstart must be in [0, h) with h = " + Format(h) + "; got " +
-                         Format(headstart));
-  }
-  return Arl0IsValid(arl0, why);
+  return DecisionIntervalIsValid(h, headstart, why) && Arl0IsValid(arl0, why);
 }
 
 bool OneSidedCusumOptions::IsValid(std::string* why) const {
   if (!std::isfinite(k)) {
     return Fail(why, "k must be a finite number; got " + Format(k));
   }
-  if (!(std::isfinite(h) && h > 0.0)) {
-    return Fail(why, "h must be finite and > 0; got " + Format(h));
-  }
-  if (!(headstart >= 0.0 && headstart < h)) {
-    return Fail(why, "headstart must be in [0, h) with h = " + Format(h) + "; got " +
-                         Format(headstart));
-  }
-  return Arl0IsValid(arl0, why);
+  return DecisionIntervalIsValid(h, headstart, why) && Arl0IsValid(arl0, why);
 }
 
 // ---------------------------------------------------------------------------

@@ -39,4 +39,17 @@ inline bool Arl0IsValid(double arl0, std::string* why) {
   return true;
 }
 
+// The rules of a CUSUM side's decision interval: h finite and > 0, headstart
+// in [0, h).
+inline bool DecisionIntervalIsValid(double h, double headstart, std::string* why) {
+  if (!(std::isfinite(h) && h > 0.0)) {
+    return Fail(why, "h must be finite and > 0; got " + Format(h));
+  }
+  if (!(headstart >= 0.0 && headstart < h)) {
+    return Fail(why, "headstart must be in [0, h) with h = " + Format(h) + "; got " +
+                         Format(headstart));
+  }
+  return true;
+}
+
 }  // namespace plumbline::option_checks
