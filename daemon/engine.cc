@@ -183,7 +183,7 @@ const ProfileDesign* Engine::DesignFor(const ProfileOptions* profile) {
 IngestOutcome Engine::Ingest(std::string_view name, EventTime time, double value,
                              std::vector<Alert>* out) {
   if (!std::isfinite(value)) return IngestOutcome::kNotFinite;
-  auto it = series_.find(std::string(name));
+  auto it = series_.find(name);
   if (it == series_.end()) {
     if (series_.size() >= options_.max_series) return IngestOutcome::kTooManySeries;
     const ProfileOptions* profile = MatchProfile(config_, name);
@@ -271,7 +271,7 @@ void Engine::Emit(const Series& series, const std::vector<SeriesEvent>& events,
 }
 
 const SeriesMonitor* Engine::Find(std::string_view name) const {
-  auto it = series_.find(std::string(name));
+  auto it = series_.find(name);
   return it == series_.end() ? nullptr : it->second->monitor.get();
 }
 

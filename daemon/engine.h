@@ -84,7 +84,14 @@ class Engine {
   Config config_;
   EngineOptions options_;
   std::vector<std::unique_ptr<ProfileDesign>> designs_;  // index: profile index
-  std::unordered_map<std::string, std::unique_ptr<Series>> series_;
+  // Transparent hashing: a lookup by string_view needs no string per reading.
+  struct NameHash {
+    using is_transparent = void;
+    std::size_t operator()(std::string_view name) const {
+      return std::hash<std::string_view>{}(name);
+    }
+  };
+  std::unordered_map<std::string, std::unique_ptr<Series>, NameHash, std::equal_to<>> series_;
   // Silence deadlines, earliest first; stale entries are skipped when popped.
   using Deadline = std::pair<EventTime, Series*>;
   std::priority_queue<Deadline, std::vector<Deadline>, std::greater<>> deadlines_;
