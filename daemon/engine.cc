@@ -206,16 +206,29 @@ IngestOutcome Engine::Ingest(std::string_view name, EventTime time, double value
 }
 
 void Engine::Schedule(Series* series) {
-  if (auto deadline = series->monitor->silence_deadline()) {
+  const auto deadline = series->monitor->silence_deadline();
+  if (!deadline) return;
+  // A later deadline waits for the queued entry; an earlier one (rare: the
+  // adaptive timeout can shrink) needs an entry of its own.
+  if (!series->scheduled || *deadline < *series->scheduled) {
     deadlines_.emplace(*deadline, series);
+    series->scheduled = deadline;
   }
 }
 
 void Engine::AdvanceClock(EventTime now, std::vector<Alert>* out) {
   while (!deadlines_.empty() && deadlines_.top().first <= now) {
-    auto [deadline, series] = deadlines_.top();
+    auto [queued, series] = deadlines_.top();
     deadlines_.pop();
-    if (series->monitor->silence_deadline() != deadline) continue;  // stale entry
+    if (series->scheduled != queued) continue;  // superseded by an earlier entry
+    series->scheduled.reset();
+    const auto deadline = series->monitor->silence_deadline();
+    if (!deadline) continue;
+    if (*deadline > now) {  // readings came since: wait for the current deadline
+      deadlines_.emplace(*deadline, series);
+      series->scheduled = deadline;
+      continue;
+    }
     scratch_.clear();
     series->monitor->AdvanceClock(now, &scratch_);
     Emit(*series, scratch_, out);

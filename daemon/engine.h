@@ -75,6 +75,7 @@ class Engine {
   struct Series {
     std::string name;
     std::unique_ptr<SeriesMonitor> monitor;
+    std::optional<EventTime> scheduled;  // its entry in deadlines_, if any
   };
   const ProfileDesign* DesignFor(const ProfileOptions* profile);
   void Emit(const Series& series, const std::vector<SeriesEvent>& events,
@@ -92,7 +93,9 @@ class Engine {
     }
   };
   std::unordered_map<std::string, std::unique_ptr<Series>, NameHash, std::equal_to<>> series_;
-  // Silence deadlines, earliest first; stale entries are skipped when popped.
+  // Silence deadlines, earliest first, about one entry per series: a reading
+  // moves a series' deadline later without a new entry; when the old entry
+  // comes due it is re-queued at the current deadline (or the silence fires).
   using Deadline = std::pair<EventTime, Series*>;
   std::priority_queue<Deadline, std::vector<Deadline>, std::greater<>> deadlines_;
   std::vector<SeriesEvent> scratch_;
