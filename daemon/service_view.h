@@ -1,0 +1,89 @@
+// ServiceView: what the HTTP API and the metrics page may ask of a running
+// `serve` daemon, without knowing about shards, queues or threads. The service
+// (serve_command.cc) implements it; the HTTP server (http_server.h) calls it.
+// Thread-safe: every method may be called from any I/O thread; an
+// implementation answers questions about a series by posting to the shard that
+// owns it and waiting (bounded) for the answer, never by reading shard state
+// from another thread.
+#pragma once
+
+#include <cstddef>
+#include <optional>
+#include <string>
+#include <string_view>
+#include <vector>
+
+#include "daemon/engine.h"
+#include "detectors/event_time.h"
+
+namespace plumbline {
+
+// The answer to `POST /v1/readings`: how many lines were taken and why others
+// were not (the first few, with their 1-based line numbers in the body).
+struct IngestReceipt {
+  struct Rejection {
+    std::size_t line = 0;
+    std::string reason;
+  };
+  std::size_t accepted = 0;
+  std::size_t rejected = 0;
+  std::vector<Rejection> first_rejections;  // at most kMaxReportedRejections
+  static constexpr std::size_t kMaxReportedRejections = 10;
+};
+
+// One row of `GET /v1/series`.
+struct SeriesSummary {
+  std::string name;
+  std::string kind;                 // gauge | count | meter
+  EventTime last_time = 0;          // event time of the last reading
+  double last_value = 0.0;
+  long long readings = 0;
+  bool armed = false;               // past warmup
+  bool silent = false;
+};
+
+// `GET /v1/series/{name}`: the summary plus what the model and detectors think.
+struct SeriesDetail {
+  SeriesSummary summary;
+  double forecast = 0.0;            // at the last reading's time
+  double band_low = 0.0;            // forecast -/+ band (about 95%)
+  double band_high = 0.0;
+  double sigma = 0.0;               // residual scale, in the series' units
+  double last_z = 0.0;
+  struct DetectorState {
+    std::string name;               // cusum | page-hinkley | bocpd | ewma | variance | rate
+    double statistic = 0.0;         // current value of its statistic
+    double threshold = 0.0;         // its decision interval
+  };
+  std::vector<DetectorState> detectors;
+  struct RunLength {                // BOCPD's view, when it runs on this series
+    double most_likely = 0.0;       // MAP run length, in observations
+    double change_probability = 0.0;
+  };
+  std::optional<RunLength> run_length;
+  struct Point {
+    EventTime time = 0;
+    double value = 0.0;
+    double forecast = 0.0;
+  };
+  std::vector<Point> recent_points;  // oldest first, bounded
+  std::vector<Alert> recent_alerts;  // oldest first, bounded
+};
+
+class ServiceView {
+ public:
+  virtual ~ServiceView() = default;
+  // Parses `body` (CSV and/or JSON lines, DESIGN.md) and hands the readings to
+  // the shards; blocks while their queues are full (backpressure).
+  virtual IngestReceipt IngestLines(std::string_view body) = 0;
+  // Series whose names match `glob` ("" or "**" for all), sorted by name.
+  virtual std::vector<SeriesSummary> ListSeries(std::string_view glob) = 0;
+  virtual std::optional<SeriesDetail> GetSeries(std::string_view name) = 0;
+  // Alerts and events with detected_at >= since, oldest first, bounded.
+  virtual std::vector<Alert> AlertsSince(EventTime since) = 0;
+  // Ready once config is loaded and state restored, and while every durable
+  // sink works; otherwise false with the reason in *why.
+  virtual bool Ready(std::string* why) = 0;
+};
+
+}  // namespace plumbline
