@@ -29,11 +29,26 @@ constexpr std::size_t kMaxConfigBytes = 16u << 20;
 // when the config has no profiles at all.
 constexpr std::string_view kEverySeries = "**";
 
-constexpr std::string_view kTopLevelKeys[] = {"series"};
+constexpr std::string_view kTopLevelKeys[] = {
+    "series", "listeners",  "shards",  "queue_batches", "max_series",
+    "storage", "inputs",    "sinks",   "metrics",       "shutdown_timeout"};
 // Sections that later versions add; named so the error says "not yet" rather
 // than "unknown".
-constexpr std::string_view kPlannedTopLevelKeys[] = {"listeners", "storage", "sinks",
-                                                     "annotations", "covariates"};
+constexpr std::string_view kPlannedTopLevelKeys[] = {"annotations", "covariates"};
+
+// The keys of the service sections (config/service_options.h).
+constexpr std::string_view kListenerKeys[] = {"tcp", "http"};
+constexpr std::string_view kTcpKeys[] = {"enabled",         "address",        "port",
+                                         "idle_timeout",    "max_connections", "max_line_bytes"};
+constexpr std::string_view kHttpKeys[] = {"enabled", "address", "port", "max_body_bytes"};
+constexpr std::string_view kStorageKeys[] = {"directory"};
+constexpr std::string_view kInputKeys[] = {"files"};
+constexpr std::string_view kFileKeys[] = {"path", "start_at", "poll_interval"};
+constexpr std::string_view kSinkKeys[] = {"alert_log", "webhook", "stdout", "events"};
+constexpr std::string_view kAlertLogKeys[] = {"enabled", "path"};
+constexpr std::string_view kWebhookKeys[] = {"url",     "attempts", "backoff",    "backoff_max",
+                                             "timeout", "queue",    "dead_letter"};
+constexpr std::string_view kMetricsKeys[] = {"series_limit"};
 
 constexpr std::string_view kProfileKeys[] = {
     "match",  "kind",      "seasons",  "gaps",          "warmup",    "arl0",
@@ -354,6 +369,10 @@ class Loader {
           LoadSeries(field, config);
           return;
         }
+        if (LoadServiceKey(field, &config->service)) {
+          service_marks_[std::string(field.key)] = field.Where();
+          return;
+        }
         const auto* planned = std::find(std::begin(kPlannedTopLevelKeys),
                                         std::end(kPlannedTopLevelKeys), field.key);
         if (planned != std::end(kPlannedTopLevelKeys)) {
@@ -369,6 +388,7 @@ class Loader {
       Error(root.Mark(),
             "the config must be a mapping with a 'series' key, got " + Describe(root));
     }
+    CheckService(root, config->service);
     if (!have_series || config->series.empty()) {
       // No profiles: one catch-all with every default.
       config->series.clear();
@@ -508,6 +528,253 @@ class Loader {
     }
     return true;
   }
+
+
+  // ---- The service sections (config/service_options.h) ----
+
+  // Returns false only for a key that is not a service key.
+  bool LoadServiceKey(const Field& f, ServiceOptions* o) {
+    const std::string_view k = f.key;
+    if (k == "listeners") {
+      Section(f, "listeners", kListenerKeys, [&](const Field& e) {
+        if (e.key == "tcp") {
+          Section(
+              e, "listeners.tcp", kTcpKeys,
+              [&](const Field& t) { return LoadTcpKey(t, &o->tcp); },
+              [&](std::string* why) { return o->tcp.IsValid(why); });
+        } else if (e.key == "http") {
+          Section(
+              e, "listeners.http", kHttpKeys,
+              [&](const Field& h) { return LoadHttpKey(h, &o->http); },
+              [&](std::string* why) { return o->http.IsValid(why); });
+        } else {
+          return false;
+        }
+        return true;
+      });
+    } else if (k == "shards") {
+      WholeNumber(f, "a whole number of shards (0: one per core)", &o->shards);
+    } else if (k == "queue_batches") {
+      WholeNumber(f, "a whole number of batches", &o->queue_batches);
+    } else if (k == "max_series") {
+      Size(f, "a whole number of series", &o->max_series);
+    } else if (k == "storage") {
+      Section(f, "storage", kStorageKeys, [&](const Field& e) {
+        if (e.key != "directory") return false;
+        ScalarText(e, "a directory path", &o->state_directory);
+        return true;
+      });
+    } else if (k == "inputs") {
+      Section(f, "inputs", kInputKeys, [&](const Field& e) {
+        if (e.key != "files") return false;
+        LoadFiles(e, &o->files);
+        return true;
+      });
+    } else if (k == "sinks") {
+      Section(
+          f, "sinks", kSinkKeys,
+          [&](const Field& e) { return LoadSinkKey(e, &o->sinks); },
+          [&](std::string* why) { return o->sinks.IsValid(why); });
+    } else if (k == "metrics") {
+      Section(f, "metrics", kMetricsKeys, [&](const Field& e) {
+        if (e.key != "series_limit") return false;
+        WholeNumber(e, "a whole number of series", &o->metrics_series_limit);
+        service_marks_["series_limit"] = e.Where();
+        return true;
+      });
+    } else if (k == "shutdown_timeout") {
+      Duration(f, false, &o->shutdown_timeout);
+    } else {
+      return false;
+    }
+    return true;
+  }
+
+  bool LoadTcpKey(const Field& f, TcpListenerOptions* o) {
+    const std::string_view k = f.key;
+    if (k == "enabled") {
+      Bool(f, &o->enabled);
+    } else if (k == "address") {
+      ScalarText(f, "a host address such as 127.0.0.1", &o->address);
+    } else if (k == "port") {
+      WholeNumber(f, "a port number", &o->port);
+    } else if (k == "idle_timeout") {
+      Duration(f, false, &o->idle_timeout);
+    } else if (k == "max_connections") {
+      WholeNumber(f, "a whole number of connections", &o->max_connections);
+    } else if (k == "max_line_bytes") {
+      Size(f, "a whole number of bytes", &o->max_line_bytes);
+    } else {
+      return false;
+    }
+    return true;
+  }
+
+  bool LoadHttpKey(const Field& f, HttpListenerOptions* o) {
+    const std::string_view k = f.key;
+    if (k == "enabled") {
+      Bool(f, &o->enabled);
+    } else if (k == "address") {
+      ScalarText(f, "a host address such as 127.0.0.1", &o->address);
+    } else if (k == "port") {
+      WholeNumber(f, "a port number", &o->port);
+    } else if (k == "max_body_bytes") {
+      Size(f, "a whole number of bytes", &o->max_body_bytes);
+    } else {
+      return false;
+    }
+    return true;
+  }
+
+  bool LoadSinkKey(const Field& f, SinkOptions* o) {
+    const std::string_view k = f.key;
+    if (k == "alert_log") {
+      Section(
+          f, "sinks.alert_log", kAlertLogKeys,
+          [&](const Field& e) {
+            if (e.key == "enabled") {
+              Bool(e, &o->alert_log.enabled);
+            } else if (e.key == "path") {
+              ScalarText(e, "a file path", &o->alert_log.path);
+            } else {
+              return false;
+            }
+            return true;
+          },
+          [&](std::string* why) { return o->alert_log.IsValid(why); });
+    } else if (k == "webhook") {
+      WebhookOptions& w = o->webhook;
+      Section(
+          f, "sinks.webhook", kWebhookKeys,
+          [&](const Field& e) {
+            const std::string_view key = e.key;
+            if (key == "url") {
+              ScalarText(e, "an http:// URL", &w.url);
+            } else if (key == "attempts") {
+              WholeNumber(e, "a whole number of tries", &w.attempts);
+            } else if (key == "backoff") {
+              Duration(e, false, &w.backoff);
+            } else if (key == "backoff_max") {
+              Duration(e, false, &w.backoff_max);
+            } else if (key == "timeout") {
+              Duration(e, false, &w.timeout);
+            } else if (key == "queue") {
+              WholeNumber(e, "a whole number of alerts", &w.queue);
+            } else if (key == "dead_letter") {
+              ScalarText(e, "a file path", &w.dead_letter);
+            } else {
+              return false;
+            }
+            return true;
+          },
+          [&](std::string* why) { return w.IsValid(why); });
+    } else if (k == "stdout") {
+      Bool(f, &o->to_stdout);
+    } else if (k == "events") {
+      Bool(f, &o->events);
+    } else {
+      return false;
+    }
+    return true;
+  }
+
+  // `files:` is a list whose elements are a path or a mapping with `path`.
+  void LoadFiles(const Field& f, std::vector<FileInputOptions>* files) {
+    if (f.value.IsNull()) return;
+    if (!f.value.IsSequence()) {
+      Error(f.Where(), "files: expected a list of files to follow (each a path or "
+                       "'- path: ...'), got " + Describe(f.value));
+      return;
+    }
+    for (const YAML::Node& element : f.value) {
+      FileInputOptions file;
+      Field element_field{f.key, element.Mark().is_null() ? f.Where() : element.Mark(),
+                          element, true};
+      if (element.IsScalar()) {
+        ScalarText(element_field, "a file path", &file.path);
+      } else {
+        Section(
+            element_field, "inputs.files", kFileKeys,
+            [&](const Field& e) {
+              if (e.key == "path") {
+                ScalarText(e, "a file path", &file.path);
+              } else if (e.key == "start_at") {
+                Enum(e, StartAtFromString, StartAtChoices(), &file.start_at);
+              } else if (e.key == "poll_interval") {
+                Duration(e, false, &file.poll_interval);
+              } else {
+                return false;
+              }
+              return true;
+            },
+            [&](std::string* why) { return file.IsValid(why); });
+      }
+      files->push_back(std::move(file));
+    }
+  }
+
+  // A nested mapping: load_key maps one key (false: unknown); when every key
+  // loaded cleanly, is_valid's rule (if given) is reported at the key its
+  // first word names, else at the section.
+  template <typename Keys, typename LoadKey>
+  void Section(const Field& f, std::string_view name, const Keys& keys, LoadKey load_key) {
+    Section(f, name, keys, load_key, [](std::string*) { return true; });
+  }
+  template <typename Keys, typename LoadKey, typename IsValid>
+  void Section(const Field& f, std::string_view name, const Keys& keys, LoadKey load_key,
+               IsValid is_valid) {
+    if (f.value.IsNull() && !f.list_element) return;  // `key:` alone: all defaults
+    if (!f.value.IsMap()) {
+      Error(f.Where(), std::string(name) + ": expected a mapping of keys (" +
+                           Join(keys, ", ") + "), got " + Describe(f.value));
+      return;
+    }
+    const std::size_t errors_before = errors_.size();
+    std::map<std::string, YAML::Mark> marks;
+    const std::string where = " in " + std::string(name);
+    ForEachKey(f.value, [&](const Field& field) {
+      if (!load_key(field)) {
+        UnknownKey(field, where, keys);
+        return;
+      }
+      marks[std::string(field.key)] = field.Where();
+    });
+    if (errors_.size() != errors_before) return;
+    std::string why;
+    if (!is_valid(&why)) {
+      auto it = marks.find(why.substr(0, why.find(' ')));
+      Error(it != marks.end() ? it->second : f.value.Mark(), std::string(name) + ": " + why);
+    }
+  }
+
+  // The rules that span sections (shards, queue sizes, duplicate inputs), once
+  // every section has loaded cleanly.
+  void CheckService(const YAML::Node& root, const ServiceOptions& o) {
+    if (!errors_.empty()) return;
+    std::string why;
+    if (o.IsValid(&why)) return;
+    const std::string key = why.substr(0, why.find(' '));
+    auto it = service_marks_.find(key == "directory" ? "storage"
+                                  : key == "path"    ? "inputs"
+                                                     : key);
+    Error(it != service_marks_.end() ? it->second : root.Mark(), why);
+  }
+
+  template <typename Integer>
+  bool Size(const Field& f, std::string_view expected, Integer* out) {
+    std::string text;
+    if (!ScalarText(f, expected, &text)) return false;
+    const std::optional<long long> value = ParseWholeNumber(text);
+    if (!value || *value < 0) {
+      Error(f.Where(), std::string(f.key) + ": expected " + std::string(expected) +
+                           ", got '" + text + "'");
+      return false;
+    }
+    *out = static_cast<Integer>(*value);
+    return true;
+  }
+
+  std::map<std::string, YAML::Mark> service_marks_;  // top-level service keys
 
   // ---- Typed readers: each reports its own error and returns false on one ----
 

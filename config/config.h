@@ -3,7 +3,10 @@
 // Loading is a pure function of its input (plus one file read); the result is a
 // plain value. Thread-compatible: load once at start-up, then share read-only.
 //
-// Accepted form (top level is a mapping; only `series` is known so far):
+// Accepted form (top level is a mapping): `series` below, plus the daemon's own
+// sections (listeners, shards, queue_batches, max_series, storage, inputs,
+// sinks, metrics, shutdown_timeout), described with their defaults in
+// config/service_options.h. Every section is optional.
 //
 //   series:                        # profiles; the first whose glob matches wins
 //     - match: "coldstore/*/temp_c"   # glob (detectors/glob.h); absent = "**"
@@ -44,6 +47,7 @@
 #include <string_view>
 #include <vector>
 
+#include "config/service_options.h"
 #include "detectors/profile.h"
 #include "detectors/status.h"
 
@@ -53,8 +57,10 @@ struct Config {
   // Never empty after a successful load. Order matters: MatchProfile takes the
   // first profile whose `match` glob matches.
   std::vector<ProfileOptions> series;
-  // Later sections (listeners, storage, sinks, annotations) are added here,
-  // each with defaults so that a config with only `series` keeps working.
+  // What `serve` runs: listeners, shards, state, inputs, sinks. Defaults give a
+  // loopback daemon, so a config with only `series` keeps working. Later
+  // sections (annotations, covariates) are added the same way.
+  ServiceOptions service;
 };
 
 // One problem found in a config file.

@@ -1,6 +1,7 @@
 // `plumbline check --config FILE`: validates a config file without starting
 // anything. Prints "FILE: ok (N profiles)" and one line per profile on success;
-// otherwise every error as FILE:LINE:COLUMN: message on stderr.
+// then the service settings `serve` would run with (listeners, shards, state,
+// inputs, sinks); otherwise every error as FILE:LINE:COLUMN: message on stderr.
 #include <cstdio>
 #include <string>
 #include <vector>
@@ -23,7 +24,8 @@ int RunCheck(const Args& args) {
   if (parsed->Has("help")) {
     std::printf(
         "usage: plumbline check --config FILE\n\n"
-        "Validates a config file: prints FILE: ok and one line per profile, or every\n"
+        "Validates a config file: prints FILE: ok, one line per profile and the\n"
+        "service settings (listeners, shards, state, inputs, sinks), or every\n"
         "problem as FILE:LINE:COLUMN: message. Exit status 0 when valid, 1 when not,\n"
         "2 for a usage error.\n\noptions:\n%s",
         FormatOptions(specs).c_str());
@@ -46,6 +48,9 @@ int RunCheck(const Args& args) {
               config.series.size() == 1 ? "" : "s");
   for (std::size_t i = 0; i < config.series.size(); ++i) {
     std::printf("  %zu. %s\n", i + 1, DescribeProfile(config.series[i]).c_str());
+  }
+  for (const std::string& line : DescribeService(config.service)) {
+    std::printf("  %s\n", line.c_str());
   }
   return 0;
 }

@@ -223,13 +223,13 @@ TEST(ConfigTest, UnknownKeyFarFromAnyGetsNoSuggestion) {
 TEST(ConfigTest, UnknownTopLevelKeyListsTheKnownOnes) {
   ExpectOneError("sereis:\n  - match: x\n", 1, 1,
                  {"unknown key 'sereis' at the top level", "did you mean 'series'?",
-                  "(valid keys: series)"});
+                  "(valid keys: series, listeners, shards"});
 }
 
 TEST(ConfigTest, PlannedTopLevelSectionIsReportedAsNotYetSupported) {
-  ExpectOneError("series: []\nlisteners:\n  tcp: 9100\n", 2, 1,
-                 {"top-level section 'listeners' is not supported by this version yet",
-                  "valid keys: series"});
+  ExpectOneError("series: []\nannotations:\n  - at: 2026-03-01\n", 2, 1,
+                 {"top-level section 'annotations' is not supported by this version yet",
+                  "valid keys: series, listeners"});
 }
 
 TEST(ConfigTest, WrongTypeNamesTheKeyTheExpectedTypeAndTheText) {
