@@ -1,0 +1,438 @@
+#include "daemon/http_api.h"
+
+#include <charconv>
+#include <cmath>
+#include <limits>
+
+#include "detectors/glob.h"
+#include "detectors/time_format.h"
+
+namespace plumbline {
+namespace {
+
+constexpr std::string_view kSeriesPrefix = "/v1/series/";
+
+int HexDigit(char c) {
+  if (c >= '0' && c <= '9') return c - '0';
+  if (c >= 'a' && c <= 'f') return c - 'a' + 10;
+  if (c >= 'A' && c <= 'F') return c - 'A' + 10;
+  return -1;
+}
+
+// Length of the well-formed UTF-8 sequence at text[i] (RFC 3629: no overlongs,
+// no surrogates, at most U+10FFFF), or 0 when the bytes there are not one.
+std::size_t Utf8SequenceLength(std::string_view text, std::size_t i) {
+  const auto byte = [&](std::size_t k) { return static_cast<unsigned char>(text[k]); };
+  const unsigned char b0 = byte(i);
+  if (b0 < 0x80) return 1;
+  std::size_t length = 0;
+  unsigned char low = 0x80, high = 0xBF;  // range of the second byte
+  if (b0 >= 0xC2 && b0 <= 0xDF) {
+    length = 2;
+  } else if (b0 >= 0xE0 && b0 <= 0xEF) {
+    length = 3;
+    if (b0 == 0xE0) low = 0xA0;
+    if (b0 == 0xED) high = 0x9F;
+  } else if (b0 >= 0xF0 && b0 <= 0xF4) {
+    length = 4;
+    if (b0 == 0xF0) low = 0x90;
+    if (b0 == 0xF4) high = 0x8F;
+  } else {
+    return 0;
+  }
+  if (i + length > text.size()) return 0;
+  if (byte(i + 1) < low || byte(i + 1) > high) return 0;
+  for (std::size_t k = 2; k < length; ++k) {
+    if (byte(i + k) < 0x80 || byte(i + k) > 0xBF) return 0;
+  }
+  return length;
+}
+
+void AppendKey(std::string_view key, std::string* out) {
+  AppendJsonString(key, out);
+  out->push_back(':');
+}
+
+void AppendTime(EventTime time, std::string* out) {
+  out->push_back('"');
+  AppendRfc3339(time, out);
+  out->push_back('"');
+}
+
+void AppendSummaryFields(const SeriesSummary& s, std::string* out) {
+  AppendKey("name", out);
+  AppendJsonString(s.name, out);
+  *out += ',';
+  AppendKey("kind", out);
+  AppendJsonString(s.kind, out);
+  *out += ',';
+  AppendKey("readings", out);
+  *out += std::to_string(s.readings);
+  *out += ',';
+  AppendKey("last_time", out);
+  if (s.readings > 0) {
+    AppendTime(s.last_time, out);
+  } else {
+    *out += "null";
+  }
+  *out += ',';
+  AppendKey("last_value", out);
+  if (s.readings > 0) {
+    AppendJsonNumber(s.last_value, out);
+  } else {
+    *out += "null";
+  }
+  *out += ',';
+  AppendKey("armed", out);
+  *out += s.armed ? "true" : "false";
+  *out += ',';
+  AppendKey("silent", out);
+  *out += s.silent ? "true" : "false";
+}
+
+ApiResponse JsonError(unsigned status, std::string_view route, std::string_view message) {
+  ApiResponse response;
+  response.status = status;
+  response.route = route;
+  response.body = "{\"error\":";
+  AppendJsonString(message, &response.body);
+  response.body += "}\n";
+  return response;
+}
+
+ApiResponse MethodNotAllowed(std::string_view route, std::string_view allow) {
+  ApiResponse response = JsonError(405, route, "method not allowed");
+  response.allow = std::string(allow);
+  return response;
+}
+
+ApiResponse PlainText(unsigned status, std::string_view route, std::string body) {
+  ApiResponse response;
+  response.status = status;
+  response.route = route;
+  response.content_type = "text/plain; charset=utf-8";
+  response.body = std::move(body);
+  return response;
+}
+
+}  // namespace
+
+// ---- helpers ----
+
+std::optional<std::string> PercentDecode(std::string_view text, bool plus_is_space) {
+  std::string out;
+  out.reserve(text.size());
+  for (std::size_t i = 0; i < text.size(); ++i) {
+    const char c = text[i];
+    if (c == '%') {
+      const int high = i + 1 < text.size() ? HexDigit(text[i + 1]) : -1;
+      const int low = i + 2 < text.size() ? HexDigit(text[i + 2]) : -1;
+      if (high < 0 || low < 0) return std::nullopt;
+      out.push_back(static_cast<char>(high * 16 + low));
+      i += 2;
+    } else if (c == '+' && plus_is_space) {
+      out.push_back(' ');
+    } else {
+      out.push_back(c);
+    }
+  }
+  return out;
+}
+
+std::optional<std::string> QueryParameter(std::string_view query, std::string_view key,
+                                          bool* malformed) {
+  if (malformed) *malformed = false;
+  while (!query.empty()) {
+    const std::size_t amp = query.find('&');
+    const std::string_view pair = query.substr(0, amp);
+    query = amp == std::string_view::npos ? std::string_view() : query.substr(amp + 1);
+    const std::size_t eq = pair.find('=');
+    const std::optional<std::string> name = PercentDecode(pair.substr(0, eq), true);
+    if (!name || *name != key) continue;
+    if (eq == std::string_view::npos) return std::string();
+    std::optional<std::string> value = PercentDecode(pair.substr(eq + 1), true);
+    if (!value && malformed) *malformed = true;
+    return value;
+  }
+  return std::nullopt;
+}
+
+void AppendJsonString(std::string_view text, std::string* out) {
+  out->push_back('"');
+  for (std::size_t i = 0; i < text.size();) {
+    const auto c = static_cast<unsigned char>(text[i]);
+    if (c >= 0x80) {
+      const std::size_t length = Utf8SequenceLength(text, i);
+      if (length == 0) {
+        *out += "\xEF\xBF\xBD";  // U+FFFD REPLACEMENT CHARACTER
+        ++i;
+      } else {
+        out->append(text.substr(i, length));
+        i += length;
+      }
+      continue;
+    }
+    switch (c) {
+      case '"': *out += "\\\""; break;
+      case '\\': *out += "\\\\"; break;
+      case '\n': *out += "\\n"; break;
+      case '\r': *out += "\\r"; break;
+      case '\t': *out += "\\t"; break;
+      default:
+        if (c < 0x20 || c == 0x7F) {
+          static constexpr char kHex[] = "0123456789abcdef";
+          *out += "\\u00";
+          out->push_back(kHex[c >> 4]);
+          out->push_back(kHex[c & 0xF]);
+        } else {
+          out->push_back(static_cast<char>(c));
+        }
+    }
+    ++i;
+  }
+  out->push_back('"');
+}
+
+void AppendJsonNumber(double value, std::string* out) {
+  if (!std::isfinite(value)) {
+    *out += "null";
+    return;
+  }
+  char buffer[32];
+  const auto result = std::to_chars(buffer, buffer + sizeof buffer, value);
+  out->append(buffer, result.ptr);
+}
+
+std::string SeriesSummaryToJson(const SeriesSummary& summary) {
+  std::string out = "{";
+  AppendSummaryFields(summary, &out);
+  out += '}';
+  return out;
+}
+
+std::string SeriesDetailToJson(const SeriesDetail& d) {
+  std::string out = "{";
+  AppendSummaryFields(d.summary, &out);
+  const auto number = [&out](std::string_view key, double value) {
+    out += ',';
+    AppendKey(key, &out);
+    AppendJsonNumber(value, &out);
+  };
+  number("forecast", d.forecast);
+  number("band_low", d.band_low);
+  number("band_high", d.band_high);
+  number("sigma", d.sigma);
+  number("last_z", d.last_z);
+  out += ",\"detectors\":[";
+  for (std::size_t i = 0; i < d.detectors.size(); ++i) {
+    if (i) out += ',';
+    out += "{\"name\":";
+    AppendJsonString(d.detectors[i].name, &out);
+    out += ",\"statistic\":";
+    AppendJsonNumber(d.detectors[i].statistic, &out);
+    out += ",\"threshold\":";
+    AppendJsonNumber(d.detectors[i].threshold, &out);
+    out += '}';
+  }
+  out += "],\"run_length\":";
+  if (d.run_length) {
+    out += "{\"most_likely\":";
+    AppendJsonNumber(d.run_length->most_likely, &out);
+    out += ",\"change_probability\":";
+    AppendJsonNumber(d.run_length->change_probability, &out);
+    out += '}';
+  } else {
+    out += "null";
+  }
+  out += ",\"recent_points\":[";
+  for (std::size_t i = 0; i < d.recent_points.size(); ++i) {
+    if (i) out += ',';
+    out += "{\"time\":";
+    AppendTime(d.recent_points[i].time, &out);
+    out += ",\"value\":";
+    AppendJsonNumber(d.recent_points[i].value, &out);
+    out += ",\"forecast\":";
+    AppendJsonNumber(d.recent_points[i].forecast, &out);
+    out += '}';
+  }
+  out += "],\"recent_alerts\":[";
+  for (std::size_t i = 0; i < d.recent_alerts.size(); ++i) {
+    if (i) out += ',';
+    out += AlertToJson(d.recent_alerts[i]);
+  }
+  out += "]}";
+  return out;
+}
+
+std::string IngestReceiptToJson(const IngestReceipt& receipt) {
+  std::string out = "{\"accepted\":" + std::to_string(receipt.accepted) +
+                    ",\"rejected\":" + std::to_string(receipt.rejected) + ",\"errors\":[";
+  for (std::size_t i = 0; i < receipt.first_rejections.size(); ++i) {
+    if (i) out += ',';
+    out += "{\"line\":" + std::to_string(receipt.first_rejections[i].line) + ",\"reason\":";
+    AppendJsonString(receipt.first_rejections[i].reason, &out);
+    out += '}';
+  }
+  out += "]}";
+  return out;
+}
+
+// ---- routes ----
+
+bool HttpApiOptions::IsValid(std::string* why) const {
+  if (default_series_limit < 1 || default_series_limit > max_series_limit ||
+      max_series_limit > 10'000'000) {
+    if (why) *why = "need 1 <= default_series_limit <= max_series_limit <= 10000000";
+    return false;
+  }
+  return true;
+}
+
+HttpApi::HttpApi(ServiceView& view, ServiceMetrics* metrics, HttpApiOptions options)
+    : view_(view), metrics_(metrics), options_(options) {}
+
+ApiResponse HttpApi::Handle(std::string_view method, std::string_view target,
+                            std::string_view body) const {
+  const std::size_t question = target.find('?');
+  const std::string_view path = target.substr(0, question);
+  const std::string_view query =
+      question == std::string_view::npos ? std::string_view() : target.substr(question + 1);
+  const bool get = method == "GET" || method == "HEAD";
+  constexpr std::string_view kGetHead = "GET, HEAD";
+
+  if (path == "/v1/readings") {
+    if (method != "POST") return MethodNotAllowed("readings", "POST");
+    return PostReadings(body);
+  }
+  if (path == "/v1/series") {
+    if (!get) return MethodNotAllowed("series", kGetHead);
+    return ListSeries(query);
+  }
+  if (path.starts_with(kSeriesPrefix)) {
+    if (!get) return MethodNotAllowed("series_detail", kGetHead);
+    return GetSeries(path.substr(kSeriesPrefix.size()));
+  }
+  if (path == "/v1/alerts") {
+    if (!get) return MethodNotAllowed("alerts", kGetHead);
+    return ListAlerts(query);
+  }
+  if (path == "/healthz") {
+    if (!get) return MethodNotAllowed("healthz", kGetHead);
+    return PlainText(200, "healthz", "ok\n");
+  }
+  if (path == "/readyz") {
+    if (!get) return MethodNotAllowed("readyz", kGetHead);
+    return Ready();
+  }
+  if (path == "/metrics" && metrics_ != nullptr) {
+    if (!get) return MethodNotAllowed("metrics", kGetHead);
+    return Metrics();
+  }
+  return JsonError(404, "other", "no such path");
+}
+
+ApiResponse HttpApi::PostReadings(std::string_view body) const {
+  const IngestReceipt receipt = view_.IngestLines(body);
+  ApiResponse response;
+  response.route = "readings";
+  response.body = IngestReceiptToJson(receipt) + "\n";
+  return response;
+}
+
+ApiResponse HttpApi::ListSeries(std::string_view query) const {
+  bool malformed = false;
+  std::string glob = QueryParameter(query, "match", &malformed).value_or("");
+  if (malformed) return JsonError(400, "series", "bad percent-encoding in match");
+  if (!glob.empty()) {
+    if (Status status = ValidateGlob(glob); !status.ok()) {
+      return JsonError(400, "series", "bad match pattern: " + status.message());
+    }
+  }
+  std::size_t limit = options_.default_series_limit;
+  if (auto text = QueryParameter(query, "limit", &malformed)) {
+    std::size_t parsed = 0;
+    const auto [end, error] = std::from_chars(text->data(), text->data() + text->size(), parsed);
+    if (error != std::errc() || end != text->data() + text->size() || parsed < 1 ||
+        parsed > options_.max_series_limit) {
+      return JsonError(400, "series",
+                       "limit must be an integer in [1, " +
+                           std::to_string(options_.max_series_limit) + "]");
+    }
+    limit = parsed;
+  } else if (malformed) {
+    return JsonError(400, "series", "bad percent-encoding in limit");
+  }
+  const std::vector<SeriesSummary> rows = view_.ListSeries(glob);
+  const std::size_t shown = std::min(limit, rows.size());
+  ApiResponse response;
+  response.route = "series";
+  std::string& out = response.body;
+  out = "{\"matched\":" + std::to_string(rows.size()) + ",\"truncated\":" +
+        (shown < rows.size() ? "true" : "false") + ",\"series\":[";
+  for (std::size_t i = 0; i < shown; ++i) {
+    if (i) out += ',';
+    out += '{';
+    AppendSummaryFields(rows[i], &out);
+    out += '}';
+  }
+  out += "]}\n";
+  return response;
+}
+
+ApiResponse HttpApi::GetSeries(std::string_view encoded_name) const {
+  const std::optional<std::string> name = PercentDecode(encoded_name, false);
+  if (!name) return JsonError(400, "series_detail", "bad percent-encoding in the series name");
+  if (name->empty()) return JsonError(404, "series_detail", "no series name in the path");
+  const std::optional<SeriesDetail> detail = view_.GetSeries(*name);
+  if (!detail) return JsonError(404, "series_detail", "no series named " + *name);
+  ApiResponse response;
+  response.route = "series_detail";
+  response.body = SeriesDetailToJson(*detail) + "\n";
+  return response;
+}
+
+ApiResponse HttpApi::ListAlerts(std::string_view query) const {
+  EventTime since = std::numeric_limits<EventTime>::min();
+  bool malformed = false;
+  const std::optional<std::string> text = QueryParameter(query, "since", &malformed);
+  if (malformed) return JsonError(400, "alerts", "bad percent-encoding in since");
+  if (text) {
+    StatusOr<EventTime> parsed = ParseTime(*text);
+    if (!parsed.ok()) {
+      return JsonError(400, "alerts",
+                       "since must be RFC 3339 or epoch seconds: " + parsed.status().message());
+    }
+    since = *parsed;
+  }
+  const std::vector<Alert> alerts = view_.AlertsSince(since);
+  ApiResponse response;
+  response.route = "alerts";
+  std::string& out = response.body;
+  out = "{\"count\":" + std::to_string(alerts.size()) + ",\"alerts\":[";
+  for (std::size_t i = 0; i < alerts.size(); ++i) {
+    if (i) out += ',';
+    out += AlertToJson(alerts[i]);
+  }
+  out += "]}\n";
+  return response;
+}
+
+ApiResponse HttpApi::Ready() const {
+  std::string why;
+  const bool ready = view_.Ready(&why);
+  if (metrics_ != nullptr) metrics_->SetReady(ready);
+  if (ready) return PlainText(200, "readyz", "ready\n");
+  return PlainText(503, "readyz", "not ready: " + (why.empty() ? "no reason given" : why) + "\n");
+}
+
+ApiResponse HttpApi::Metrics() const {
+  std::string why;
+  metrics_->SetReady(view_.Ready(&why));
+  ApiResponse response;
+  response.route = "metrics";
+  response.content_type = std::string(kPrometheusTextContentType);
+  response.body = metrics_->Serialize();
+  return response;
+}
+
+}  // namespace plumbline

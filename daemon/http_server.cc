@@ -1,0 +1,602 @@
+#include "daemon/http_server.h"
+
+#include <utility>  // before any Asio header (Boost 1.74 under C++20)
+
+#include <boost/asio/bind_executor.hpp>
+#include <boost/asio/post.hpp>
+#include <boost/asio/steady_timer.hpp>
+#include <boost/asio/strand.hpp>
+#include <boost/asio/thread_pool.hpp>
+#include <boost/beast/core.hpp>
+#include <boost/beast/http.hpp>
+#include <array>
+#include <atomic>
+#include <condition_variable>
+#include <exception>
+#include <mutex>
+#include <optional>
+#include <sstream>
+#include <unordered_map>
+#include <vector>
+
+#include "plumbline_version.h"
+
+namespace plumbline {
+namespace {
+
+namespace net = boost::asio;
+namespace beast = boost::beast;
+namespace http = beast::http;
+using tcp = net::ip::tcp;
+
+// After an answer that closes the connection while the client may still be
+// sending (413 and other refusals mid-body), the rest of what it sends is read
+// and discarded for up to this long or this many bytes before the socket is
+// closed, so the client reads the answer instead of a connection reset.
+constexpr std::chrono::milliseconds kLingerTime{2000};
+constexpr std::size_t kLingerBytes = 64u << 20;
+// Wait before accepting again after an accept error (e.g. out of descriptors),
+// so that the accept loop does not spin.
+constexpr std::chrono::milliseconds kAcceptRetryDelay{100};
+
+constexpr char kServerHeader[] = "plumbline/" PLUMBLINE_VERSION;
+
+std::string_view Std(beast::string_view text) { return {text.data(), text.size()}; }
+
+// Ends of a connection that are part of normal operation, not errors.
+bool IsExpectedEnd(const beast::error_code& ec) {
+  return ec == http::error::end_of_stream || ec == net::error::eof ||
+         ec == net::error::operation_aborted || ec == net::error::connection_reset ||
+         ec == net::error::broken_pipe || ec == beast::error::timeout ||
+         ec == net::error::not_connected || ec == net::error::bad_descriptor;
+}
+
+std::string_view RouteOf(std::string_view target) {
+  const std::string_view path = target.substr(0, target.find('?'));
+  if (path == "/v1/readings") return "readings";
+  return "other";
+}
+
+class Session;
+
+}  // namespace
+
+std::string_view ToString(HttpLogLevel level) {
+  switch (level) {
+    case HttpLogLevel::kInfo: return "info";
+    case HttpLogLevel::kWarning: return "warning";
+    case HttpLogLevel::kError: return "error";
+  }
+  return "info";
+}
+
+bool HttpServerOptions::IsValid(std::string* why) const {
+  const auto fail = [why](const char* rule) {
+    if (why) *why = rule;
+    return false;
+  };
+  if (max_body_bytes < 1024 || max_body_bytes > (std::size_t{1} << 30)) {
+    return fail("max_body_bytes must be in [1024, 1073741824]");
+  }
+  if (max_header_bytes < 1024 || max_header_bytes > (std::size_t{1} << 20)) {
+    return fail("max_header_bytes must be in [1024, 1048576]");
+  }
+  if (read_timeout.count() <= 0 || write_timeout.count() <= 0) {
+    return fail("read_timeout and write_timeout must be positive");
+  }
+  if (max_connections < 1 || max_connections > 100000) {
+    return fail("max_connections must be in [1, 100000]");
+  }
+  if (handler_threads < 1 || handler_threads > 64) {
+    return fail("handler_threads must be in [1, 64]");
+  }
+  return api.IsValid(why);
+}
+
+// Everything the sessions share with the server. Sessions hold it by
+// shared_ptr, so it outlives the HttpServer object if the io_context still
+// holds (unrun) handlers when the server is destroyed; `detached` then keeps
+// them away from the view, the metrics and the logger.
+struct HttpServer::State : std::enable_shared_from_this<HttpServer::State> {
+  State(net::io_context& io_context, tcp::endpoint endpoint, ServiceView& view,
+        ServiceMetrics* service_metrics, HttpServerOptions server_options, HttpLogger log)
+      : io(io_context),
+        requested(std::move(endpoint)),
+        api(view, service_metrics, server_options.api),
+        metrics(service_metrics),
+        options(std::move(server_options)),
+        logger(std::move(log)),
+        acceptor(net::make_strand(io_context)),
+        accept_timer(acceptor.get_executor()),
+        grace_timer(acceptor.get_executor()),
+        workers(options.handler_threads) {}
+
+  void Log(HttpLogLevel level, const std::string& message) {
+    if (logger) logger(level, message);
+  }
+
+  // ---- on the acceptor's strand ----
+  void DoAccept();
+  void OnAccept(beast::error_code ec, tcp::socket socket);
+  void BeginStop(std::chrono::milliseconds grace);
+  void Finish();
+
+  // ---- any thread ----
+  void OnSessionClosed();
+  std::vector<std::shared_ptr<Session>> LiveSessions();
+
+  net::io_context& io;
+  const tcp::endpoint requested;
+  const HttpApi api;
+  ServiceMetrics* const metrics;
+  const HttpServerOptions options;
+  const HttpLogger logger;
+  std::atomic<bool> stopping{false};  // answers carry Connection: close once set
+
+  // Used only on the acceptor's strand (and in Start, before accepting).
+  tcp::acceptor acceptor;
+  net::steady_timer accept_timer;
+  net::steady_timer grace_timer;
+
+  // Runs the routes; joined by ~HttpServer.
+  net::thread_pool workers;
+
+  mutable std::mutex mutex;  // guards the members below
+  std::condition_variable finished_cv;
+  std::unordered_map<Session*, std::weak_ptr<Session>> sessions;  // open connections
+  bool started = false;     // Start succeeded
+  bool accepting = false;   // an accept is pending or posted
+  bool stop_requested = false;
+  bool finished = false;    // stopped: nothing open, nothing accepted
+  bool detached = false;    // the HttpServer is gone
+  tcp::endpoint bound;
+  std::function<void()> on_stopped;
+};
+
+namespace {
+
+// One connection: reads requests, hands them to the worker pool, writes the
+// answers. Lives through shared_from_this held by its pending handlers; every
+// handler runs on the session's strand (the stream's executor).
+class Session : public std::enable_shared_from_this<Session> {
+ public:
+  using State = HttpServer::State;
+
+  Session(tcp::socket socket, std::shared_ptr<State> state)
+      : stream_(std::move(socket)), state_(std::move(state)) {}
+
+  ~Session() { Unregister(); }
+
+  void Run() {
+    net::dispatch(stream_.get_executor(), [self = shared_from_this()] { self->DoRead(); });
+  }
+
+  // From Stop: close now if waiting for a request (or if `force`); otherwise
+  // the answer in progress is the last one.
+  void PostShutdown(bool force) {
+    net::post(stream_.get_executor(), [self = shared_from_this(), force] {
+      self->shutting_down_ = true;
+      if (force || self->phase_ == Phase::kWaiting) self->Close();
+    });
+  }
+
+ private:
+  enum class Phase {
+    kWaiting,   // for the first bytes of a request (idle keep-alive)
+    kReading,   // a request's header has come; its body is being read
+    kHandling,  // a worker runs the route
+    kWriting,   // the answer is being sent
+    kLingering, // draining what the client still sends before closing
+    kClosed,
+  };
+
+  void DoRead() {
+    if (shutting_down_ || state_->stopping) {
+      Close();
+      return;
+    }
+    phase_ = Phase::kWaiting;
+    parser_.emplace();
+    parser_->header_limit(static_cast<std::uint32_t>(state_->options.max_header_bytes));
+    parser_->body_limit(state_->options.max_body_bytes);
+    // One deadline for the idle wait and the whole request.
+    stream_.expires_after(state_->options.read_timeout);
+    http::async_read_header(stream_, buffer_, *parser_,
+                            [self = shared_from_this()](beast::error_code ec, std::size_t) {
+                              self->OnReadHeader(ec);
+                            });
+  }
+
+  void OnReadHeader(beast::error_code ec) {
+    if (ec) return OnReadError(ec);
+    phase_ = Phase::kReading;
+    const auto& request = parser_->get();
+    if (beast::iequals(request[http::field::expect], "100-continue") && !parser_->is_done()) {
+      // The client waits for our go-ahead before sending the body.
+      continue_.emplace(http::status::continue_, request.version());
+      http::async_write(stream_, *continue_,
+                        [self = shared_from_this()](beast::error_code ec, std::size_t) {
+                          if (ec) return self->OnWriteError(ec);
+                          self->DoReadBody();
+                        });
+      return;
+    }
+    DoReadBody();
+  }
+
+  void DoReadBody() {
+    if (parser_->is_done()) return DoHandle();
+    http::async_read(stream_, buffer_, *parser_,
+                     [self = shared_from_this()](beast::error_code ec, std::size_t) {
+                       if (ec) return self->OnReadError(ec);
+                       self->DoHandle();
+                     });
+  }
+
+  // A timeout closes the socket (tcp_stream's deadline), so a slow or idle
+  // client simply sees the connection end.
+  void OnReadError(beast::error_code ec) {
+    if (ec == http::error::body_limit) {
+      return RespondError(413, "request body larger than " +
+                                   std::to_string(state_->options.max_body_bytes) + " bytes");
+    }
+    if (ec == http::error::header_limit) {
+      return RespondError(431, "request header larger than " +
+                                   std::to_string(state_->options.max_header_bytes) + " bytes");
+    }
+    if (ec.category() == http::make_error_code(http::error::bad_target).category() &&
+        ec != http::error::end_of_stream && ec != http::error::partial_message) {
+      return RespondError(400, "malformed request: " + ec.message());
+    }
+    if (!IsExpectedEnd(ec) && ec != http::error::partial_message) {
+      state_->Log(HttpLogLevel::kWarning, "http: read failed: " + ec.message());
+    }
+    Close();
+  }
+
+  void DoHandle() {
+    phase_ = Phase::kHandling;
+    http::request<http::string_body> request = parser_->release();
+    keep_alive_ = request.keep_alive();
+    head_ = request.method() == http::verb::head;
+    version_ = request.version();
+    stream_.expires_never();  // the route may wait on backpressure; the write sets its own
+    net::post(state_->workers, [self = shared_from_this(), request = std::move(request)] {
+      ApiResponse response;
+      try {
+        response = self->state_->api.Handle(Std(request.method_string()),
+                                            Std(request.target()), request.body());
+      } catch (const std::exception& e) {
+        self->state_->Log(HttpLogLevel::kError,
+                          std::string("http: route failed: ") + e.what());
+        response = ApiResponse{};
+        response.status = 500;
+        response.body = "{\"error\":\"internal error\"}\n";
+        response.route = RouteOf(Std(request.target()));
+      }
+      net::post(self->stream_.get_executor(), [self, response = std::move(response)]() mutable {
+        self->OnHandled(std::move(response));
+      });
+    });
+  }
+
+  void OnHandled(ApiResponse response) {
+    if (phase_ == Phase::kClosed) return;
+    Respond(std::move(response), /*close=*/false);
+  }
+
+  // An answer the server makes itself (a request it could not read): always
+  // closes the connection afterwards.
+  void RespondError(unsigned status, const std::string& message) {
+    ApiResponse response;
+    response.status = status;
+    response.body = "{\"error\":";
+    AppendJsonString(message, &response.body);
+    response.body += "}\n";
+    if (parser_ && parser_->is_header_done()) {
+      response.route = RouteOf(Std(parser_->get().target()));
+      version_ = parser_->get().version();
+      head_ = parser_->get().method() == http::verb::head;
+    }
+    Respond(std::move(response), /*close=*/true);
+  }
+
+  void Respond(ApiResponse answer, bool close) {
+    phase_ = Phase::kWriting;
+    if (state_->metrics != nullptr) state_->metrics->CountHttpRequest(answer.route, answer.status);
+    close_ = close;
+    response_ = {};
+    response_.version(version_);
+    response_.result(answer.status);
+    response_.set(http::field::server, kServerHeader);
+    response_.set(http::field::content_type, answer.content_type);
+    if (!answer.allow.empty()) response_.set(http::field::allow, answer.allow);
+    if (answer.status == 503) response_.set(http::field::retry_after, "5");
+    response_.keep_alive(!close && keep_alive_ && !shutting_down_ && !state_->stopping);
+    const std::size_t length = answer.body.size();
+    response_.body() = std::move(answer.body);
+    response_.prepare_payload();
+    if (head_) {
+      response_.body().clear();
+      response_.content_length(length);
+    }
+    stream_.expires_after(state_->options.write_timeout);
+    http::async_write(stream_, response_,
+                      [self = shared_from_this()](beast::error_code ec, std::size_t) {
+                        self->OnWrite(ec);
+                      });
+  }
+
+  void OnWrite(beast::error_code ec) {
+    if (ec) return OnWriteError(ec);
+    if (close_) return DoLinger();
+    if (!response_.keep_alive()) return Close();
+    DoRead();
+  }
+
+  void OnWriteError(beast::error_code ec) {
+    if (!IsExpectedEnd(ec)) {
+      state_->Log(HttpLogLevel::kWarning, "http: write failed: " + ec.message());
+    }
+    Close();
+  }
+
+  // Half-closes, then reads and drops what the client still sends (bounded),
+  // so that it sees the answer rather than a reset.
+  void DoLinger() {
+    phase_ = Phase::kLingering;
+    beast::error_code ignored;
+    stream_.socket().shutdown(tcp::socket::shutdown_send, ignored);
+    stream_.expires_after(kLingerTime);
+    buffer_.clear();
+    DoLingerRead();
+  }
+
+  void DoLingerRead() {
+    stream_.async_read_some(
+        net::buffer(linger_buffer_),
+        [self = shared_from_this()](beast::error_code ec, std::size_t n) {
+          self->lingered_ += n;
+          if (ec || self->lingered_ >= kLingerBytes || self->phase_ == Phase::kClosed) {
+            return self->Close();
+          }
+          self->DoLingerRead();
+        });
+  }
+
+  void Close() {
+    if (phase_ == Phase::kClosed) return;
+    phase_ = Phase::kClosed;
+    beast::error_code ignored;
+    stream_.socket().shutdown(tcp::socket::shutdown_both, ignored);
+    stream_.close();
+    Unregister();
+  }
+
+  // The connection no longer counts as open (its socket is closed, though a
+  // worker may still hold the session until its route returns).
+  void Unregister() {
+    if (!registered_) return;
+    registered_ = false;
+    {
+      std::lock_guard<std::mutex> lock(state_->mutex);
+      state_->sessions.erase(this);
+    }
+    state_->OnSessionClosed();
+  }
+
+  beast::tcp_stream stream_;
+  beast::flat_buffer buffer_;
+  std::shared_ptr<State> state_;
+  std::optional<http::request_parser<http::string_body>> parser_;
+  std::optional<http::response<http::empty_body>> continue_;
+  http::response<http::string_body> response_;
+  std::array<char, 16384> linger_buffer_;
+  std::size_t lingered_ = 0;
+  Phase phase_ = Phase::kWaiting;
+  unsigned version_ = 11;
+  bool keep_alive_ = true;
+  bool head_ = false;
+  bool close_ = false;
+  bool shutting_down_ = false;
+  bool registered_ = true;  // in state_->sessions (OnAccept put it there)
+};
+
+}  // namespace
+
+void HttpServer::State::DoAccept() {
+  acceptor.async_accept(net::make_strand(io),
+                        [self = shared_from_this()](beast::error_code ec, tcp::socket socket) {
+                          self->OnAccept(ec, std::move(socket));
+                        });
+}
+
+void HttpServer::State::OnAccept(beast::error_code ec, tcp::socket socket) {
+  if (ec == net::error::operation_aborted || stopping) {
+    std::lock_guard<std::mutex> lock(mutex);
+    accepting = false;
+    return;  // stopping; the socket (if any) closes here
+  }
+  if (ec) {
+    Log(HttpLogLevel::kWarning, "http: accept failed: " + ec.message());
+    accept_timer.expires_after(kAcceptRetryDelay);
+    accept_timer.async_wait([self = shared_from_this()](beast::error_code timer_ec) {
+      if (timer_ec || self->stopping) {
+        std::lock_guard<std::mutex> lock(self->mutex);
+        self->accepting = false;
+        return;
+      }
+      self->DoAccept();
+    });
+    return;
+  }
+  auto session = std::make_shared<Session>(std::move(socket), shared_from_this());
+  bool more = false;
+  std::size_t open = 0;
+  {
+    std::lock_guard<std::mutex> lock(mutex);
+    sessions.emplace(session.get(), session);
+    open = sessions.size();
+    more = open < options.max_connections;
+    accepting = more;
+  }
+  if (metrics != nullptr) metrics->SetHttpConnections(open);
+  session->Run();
+  if (more) DoAccept();
+}
+
+std::vector<std::shared_ptr<Session>> HttpServer::State::LiveSessions() {
+  std::vector<std::shared_ptr<Session>> live;
+  std::lock_guard<std::mutex> lock(mutex);
+  for (auto& [raw, weak] : sessions) {
+    if (auto session = weak.lock()) live.push_back(std::move(session));
+  }
+  return live;
+}
+
+void HttpServer::State::OnSessionClosed() {
+  bool resume = false;
+  bool finish = false;
+  std::size_t open = 0;
+  {
+    std::lock_guard<std::mutex> lock(mutex);
+    if (detached) return;
+    open = sessions.size();
+    if (stop_requested) {
+      finish = open == 0;
+    } else if (started && !accepting && open < options.max_connections) {
+      accepting = resume = true;
+    }
+  }
+  if (metrics != nullptr) metrics->SetHttpConnections(open);
+  if (resume) net::post(acceptor.get_executor(), [self = shared_from_this()] { self->DoAccept(); });
+  if (finish) net::post(acceptor.get_executor(), [self = shared_from_this()] { self->Finish(); });
+}
+
+void HttpServer::State::BeginStop(std::chrono::milliseconds grace) {
+  beast::error_code ignored;
+  acceptor.close(ignored);  // a pending accept completes with operation_aborted
+  accept_timer.cancel();
+  std::vector<std::shared_ptr<Session>> live = LiveSessions();
+  for (auto& session : live) session->PostShutdown(/*force=*/false);
+  const bool none_open = live.empty();
+  live.clear();  // may run session destructors: no lock held here
+  if (none_open) {
+    bool empty = false;
+    {
+      std::lock_guard<std::mutex> lock(mutex);
+      empty = sessions.empty();
+    }
+    if (empty) return Finish();
+  }
+  grace_timer.expires_after(grace);
+  grace_timer.async_wait([self = shared_from_this()](beast::error_code ec) {
+    if (ec) return;  // cancelled by Finish
+    std::vector<std::shared_ptr<Session>> left = self->LiveSessions();
+    if (!left.empty()) {
+      self->Log(HttpLogLevel::kWarning, "http: closing " + std::to_string(left.size()) +
+                                            " connection(s) still busy after the grace period");
+    }
+    for (auto& session : left) session->PostShutdown(/*force=*/true);
+  });
+}
+
+void HttpServer::State::Finish() {
+  std::function<void()> callback;
+  {
+    std::lock_guard<std::mutex> lock(mutex);
+    if (finished) return;
+    finished = true;
+    callback = std::move(on_stopped);
+  }
+  grace_timer.cancel();
+  Log(HttpLogLevel::kInfo, "http: stopped");
+  finished_cv.notify_all();
+  if (callback) callback();
+}
+
+HttpServer::HttpServer(net::io_context& io, tcp::endpoint endpoint, ServiceView& view,
+                       ServiceMetrics* metrics, HttpServerOptions options, HttpLogger logger)
+    : state_(std::make_shared<State>(io, std::move(endpoint), view, metrics, std::move(options),
+                                     std::move(logger))) {}
+
+HttpServer::~HttpServer() {
+  {
+    std::lock_guard<std::mutex> lock(state_->mutex);
+    state_->stopping = true;
+  }
+  state_->workers.join();  // no route runs after this
+  std::lock_guard<std::mutex> lock(state_->mutex);
+  state_->detached = true;
+}
+
+Status HttpServer::Start() {
+  std::string why;
+  if (!state_->options.IsValid(&why)) return Status::InvalidArgument("http: " + why);
+  {
+    std::lock_guard<std::mutex> lock(state_->mutex);
+    if (state_->started || state_->stop_requested) {
+      return Status::FailedPrecondition("http: Start called twice or after Stop");
+    }
+  }
+  tcp::acceptor& acceptor = state_->acceptor;
+  beast::error_code ec;
+  const auto fail = [&](std::string_view step) {
+    beast::error_code ignored;
+    acceptor.close(ignored);
+    std::ostringstream address;
+    address << state_->requested;
+    return Status::Unavailable("http: cannot " + std::string(step) + " " + address.str() +
+                               ": " + ec.message());
+  };
+  acceptor.open(state_->requested.protocol(), ec);
+  if (ec) return fail("open a socket for");
+  acceptor.set_option(net::socket_base::reuse_address(true), ec);
+  if (ec) return fail("set SO_REUSEADDR on");
+  acceptor.bind(state_->requested, ec);
+  if (ec) return fail("bind");
+  acceptor.listen(net::socket_base::max_listen_connections, ec);
+  if (ec) return fail("listen on");
+  const tcp::endpoint bound = acceptor.local_endpoint(ec);
+  if (ec) return fail("read the address of");
+  {
+    std::lock_guard<std::mutex> lock(state_->mutex);
+    state_->bound = bound;
+    state_->started = true;
+    state_->accepting = true;
+  }
+  std::ostringstream address;
+  address << bound;
+  state_->Log(HttpLogLevel::kInfo, "http: listening on " + address.str());
+  net::post(acceptor.get_executor(), [state = state_] { state->DoAccept(); });
+  return Status::Ok();
+}
+
+tcp::endpoint HttpServer::local_endpoint() const {
+  std::lock_guard<std::mutex> lock(state_->mutex);
+  return state_->bound;
+}
+
+void HttpServer::Stop(std::chrono::milliseconds grace, std::function<void()> on_stopped) {
+  {
+    std::lock_guard<std::mutex> lock(state_->mutex);
+    if (state_->stop_requested) return;
+    state_->stop_requested = true;
+    state_->stopping = true;
+    state_->on_stopped = std::move(on_stopped);
+  }
+  net::post(state_->acceptor.get_executor(),
+            [state = state_, grace] { state->BeginStop(grace); });
+}
+
+bool HttpServer::WaitStopped(std::chrono::milliseconds timeout) {
+  std::unique_lock<std::mutex> lock(state_->mutex);
+  return state_->finished_cv.wait_for(lock, timeout, [this] { return state_->finished; });
+}
+
+std::size_t HttpServer::open_connections() const {
+  std::lock_guard<std::mutex> lock(state_->mutex);
+  return state_->sessions.size();
+}
+
+}  // namespace plumbline
