@@ -192,6 +192,7 @@ IngestOutcome Engine::Ingest(std::string_view name, EventTime time, double value
     if (!design) return IngestOutcome::kNoProfile;
     auto series = std::make_unique<Series>();
     series->name = std::string(name);
+    series->design = design;
     series->monitor = std::make_unique<SeriesMonitor>(design);
     it = series_.emplace(series->name, std::move(series)).first;
   }
@@ -241,6 +242,78 @@ void Engine::Finish(std::vector<Alert>* out) {
     series->monitor->Flush(&scratch_);
     Emit(*series, scratch_, out);
   }
+}
+
+namespace {
+
+// Whether two profiles model and watch a series the same way: every setting
+// but `match`. (A key added to ProfileOptions must be added here too.)
+bool SameSettings(const ProfileOptions& a, const ProfileOptions& b) {
+  return a.kind == b.kind && a.seasons == b.seasons && a.gaps == b.gaps &&
+         a.warmup == b.warmup && a.arl0 == b.arl0 && a.shift == b.shift &&
+         a.detectors == b.detectors && a.agree == b.agree &&
+         a.silence_after == b.silence_after && a.harmonics == b.harmonics &&
+         a.every == b.every && a.memory == b.memory && a.trend == b.trend &&
+         a.lateness == b.lateness && a.agree_within == b.agree_within &&
+         a.cooldown == b.cooldown;
+}
+
+}  // namespace
+
+ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
+  ReconfigureReport report;
+  for (auto& design : designs_) {
+    if (design) retired_designs_.push_back(std::move(design));
+  }
+  config_ = std::move(config);
+  designs_.clear();
+  designs_.resize(config_.series.size());
+  // Calibrated designs pass to new profiles with the same settings.
+  for (std::size_t j = 0; j < config_.series.size(); ++j) {
+    for (auto& design : retired_designs_) {
+      if (design && SameSettings(design->profile, config_.series[j])) {
+        designs_[j] = std::move(design);
+        break;
+      }
+    }
+  }
+  for (auto it = series_.begin(); it != series_.end();) {
+    Series& series = *it->second;
+    const ProfileOptions* profile = MatchProfile(config_, series.name);
+    if (profile && SameSettings(series.design->profile, *profile)) {
+      ++report.kept;
+      ++it;
+      continue;
+    }
+    scratch_.clear();
+    series.monitor->Flush(&scratch_);
+    Emit(series, scratch_, out);
+    const ProfileDesign* design = profile ? DesignFor(profile) : nullptr;
+    if (!design) {
+      ++report.dropped;
+      it = series_.erase(it);
+      continue;
+    }
+    series.design = design;
+    series.monitor = std::make_unique<SeriesMonitor>(design);
+    ++report.restarted;
+    ++it;
+  }
+  // Free the retired designs no series uses any more.
+  std::erase_if(retired_designs_, [this](const std::unique_ptr<ProfileDesign>& design) {
+    if (!design) return true;
+    for (const auto& [name, series] : series_) {
+      if (series->design == design.get()) return false;
+    }
+    return true;
+  });
+  // Deadlines may name dropped or restarted series: rebuild them.
+  deadlines_ = {};
+  for (auto& [name, series] : series_) {
+    series->scheduled.reset();
+    Schedule(series.get());
+  }
+  return report;
 }
 
 void Engine::Emit(const Series& series, const std::vector<SeriesEvent>& events,

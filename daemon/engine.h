@@ -47,6 +47,13 @@ std::string AlertToText(const Alert& alert);
 enum class IngestOutcome { kAccepted, kLate, kNoProfile, kNotFinite, kTooManySeries };
 std::string_view ToString(IngestOutcome outcome);
 
+// What Engine::Reconfigure did to the series it held.
+struct ReconfigureReport {
+  std::size_t kept = 0;       // same profile settings: model and detectors carry on
+  std::size_t restarted = 0;  // settings changed: the series starts learning again
+  std::size_t dropped = 0;    // no profile matches it any more: forgotten
+};
+
 struct EngineOptions {
   std::size_t max_series = 1'000'000;  // new series beyond this are refused
   bool IsValid(std::string* why) const;
@@ -65,6 +72,12 @@ class Engine {
   void AdvanceClock(EventTime now, std::vector<Alert>* out);
   // End of input: releases readings held for reordering.
   void Finish(std::vector<Alert>* out);
+  // Replaces the profiles (a reload) without losing series state: a series
+  // whose matching profile has the same settings as before (every key but
+  // `match`) keeps its monitor; one whose settings changed is flushed and
+  // starts again under its new profile; one that no profile matches any more
+  // is flushed and forgotten. Events from the flushes are appended to *out.
+  ReconfigureReport Reconfigure(Config config, std::vector<Alert>* out);
 
   std::size_t series_count() const { return series_.size(); }
   const SeriesMonitor* Find(std::string_view series) const;
@@ -74,6 +87,7 @@ class Engine {
  private:
   struct Series {
     std::string name;
+    const ProfileDesign* design = nullptr;  // in designs_ or retired_designs_
     std::unique_ptr<SeriesMonitor> monitor;
     std::optional<EventTime> scheduled;  // its entry in deadlines_, if any
   };
@@ -85,6 +99,8 @@ class Engine {
   Config config_;
   EngineOptions options_;
   std::vector<std::unique_ptr<ProfileDesign>> designs_;  // index: profile index
+  // Designs of replaced profiles that kept series still use (after Reconfigure).
+  std::vector<std::unique_ptr<ProfileDesign>> retired_designs_;
   // Transparent hashing: a lookup by string_view needs no string per reading.
   struct NameHash {
     using is_transparent = void;

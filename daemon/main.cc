@@ -18,20 +18,6 @@ struct Subcommand {
   int (*run)(const Args&);
 };
 
-// The daemon is the next step of the build-out; its contract is fixed already.
-int RunServe(const Args& args) {
-  if (args.size() == 1 && args[0] == "--help") {
-    std::printf(
-        "usage: plumbline serve --config FILE\n\n"
-        "Runs the daemon: ingests readings over TCP, HTTP and files and raises alerts\n"
-        "live. Not available in this build yet: use `plumbline replay` on files.\n");
-    return 0;
-  }
-  std::fprintf(stderr, "plumbline serve: not available in this build yet "
-                       "(use plumbline replay on files)\n");
-  return 2;
-}
-
 constexpr Subcommand kSubcommands[] = {
     {"serve", "serve --config FILE", "run the daemon", RunServe},
     {"replay", "replay --config FILE --input FILE [--input FILE ...] --alerts FILE",

@@ -13,5 +13,6 @@ using Args = std::vector<std::string>;
 int RunCalibrate(const Args& args);
 int RunCheck(const Args& args);
 int RunReplay(const Args& args);
+int RunServe(const Args& args);
 
 }  // namespace plumbline

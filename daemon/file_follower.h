@@ -1,0 +1,111 @@
+// FileFollower: follows a reading file as it grows (like `tail -F`), parsing
+// complete lines and routing them to the shards. One thread per file, which
+// looks at the file every poll_interval.
+//
+// - Rotation (the path now names another file: rename + create): the old file
+//   is read to its end (its last line counts even without a newline), then
+//   the new one from its start. While the path names no file, the old one is
+//   still followed.
+// - Truncation (the file is shorter than the offset read so far, same file):
+//   reading restarts at its start; a partial line held from before is dropped.
+// - Offset across restarts: the offset of the last complete line handed to
+//   the shards, with the file's device and inode, is kept in the state
+//   directory (follow-<hash of path>.offset, replaced by write-temp, fsync,
+//   rename), at most once per second and at Stop. At start, a saved offset is
+//   used when the device and inode still match and the file is at least that
+//   long; otherwise the file is read from its start (it was replaced or
+//   truncated while the daemon was down), or from its end when start_at is
+//   `end` and no offset was ever saved.
+// - Backpressure: a full shard queue blocks this thread, which simply reads
+//   later; the file is the buffer.
+//
+// Thread-safety: Start and Stop from one controlling thread; the counters from any.
+#pragma once
+
+#include <atomic>
+#include <condition_variable>
+#include <cstdint>
+#include <mutex>
+#include <optional>
+#include <string>
+#include <thread>
+
+#include "config/service_options.h"
+#include "daemon/clock.h"
+#include "daemon/file_system.h"
+#include "daemon/pipeline_observer.h"
+#include "daemon/shard.h"
+#include "detectors/status.h"
+
+namespace plumbline {
+
+// Where a follower was: which file (device, inode) and how far into it.
+struct FollowPosition {
+  std::uint64_t device = 0;
+  std::uint64_t inode = 0;
+  std::uint64_t offset = 0;
+};
+// "device inode offset\n" (plus a comment line naming the path), and back.
+std::string FormatFollowPosition(const std::string& path, const FollowPosition& position);
+std::optional<FollowPosition> ParseFollowPosition(std::string_view text);
+// The state file of `path` inside `state_directory`.
+std::string FollowStatePath(const std::string& state_directory, const std::string& path);
+
+class FileFollower {
+ public:
+  static constexpr int kLoggedRejections = 5;  // bad lines logged per file, then counted
+
+  // `shards`, `file_system` and `observer` (may be null) must outlive it.
+  FileFollower(FileInputOptions options, std::string state_directory, ShardSet* shards,
+               FileSystem* file_system, PipelineObserver* observer);
+  ~FileFollower();  // stops
+
+  // Reads the saved position and starts the thread. The file need not exist yet.
+  void Start();
+  // Finishes the chunk in hand, saves the position, and joins the thread.
+  void Stop();
+
+  std::uint64_t readings() const { return readings_.load(); }
+  std::uint64_t rejected_lines() const { return rejected_.load(); }
+  // Bytes of the current file consumed up to its last complete line.
+  std::uint64_t committed_offset() const { return committed_.load(); }
+  // Rotations and truncations seen.
+  std::uint64_t reopened() const { return reopened_.load(); }
+
+ private:
+  void Run();
+  bool OpenCurrent(bool use_saved);  // opens options_.path; false if it does not exist
+  void CloseFile();
+  // Reads to the end of the open file; false when shards stopped taking input.
+  bool ReadAvailable();
+  void SavePosition(bool force);
+  void NewParser();
+
+  const FileInputOptions options_;
+  const std::string state_path_;
+  ShardSet* const shards_;
+  FileSystem* const file_system_;
+  PipelineObserver* const observer_;
+
+  std::mutex mutex_;  // guards stop_
+  std::condition_variable wake_;
+  bool stop_ = false;
+  std::thread thread_;
+
+  // Follower thread only:
+  int fd_ = -1;
+  FollowPosition position_;              // of the open file; offset = bytes read
+  std::optional<FollowPosition> saved_;  // as loaded or last written
+  std::chrono::steady_clock::time_point last_save_{};
+  std::unique_ptr<ShardRouter> router_;
+  std::unique_ptr<ReadingParser> parser_;
+  std::uint64_t logged_rejections_ = 0;
+  bool status_logged_ = false;  // "waiting for the file" said once
+
+  std::atomic<std::uint64_t> readings_{0};
+  std::atomic<std::uint64_t> rejected_{0};
+  std::atomic<std::uint64_t> committed_{0};
+  std::atomic<std::uint64_t> reopened_{0};
+};
+
+}  // namespace plumbline

@@ -1,0 +1,154 @@
+#include "daemon/file_system.h"
+
+#include <fcntl.h>
+#include <sys/stat.h>
+#include <unistd.h>
+
+#include <cerrno>
+#include <cstring>
+#include <filesystem>
+#include <system_error>
+
+namespace plumbline {
+namespace {
+
+constexpr std::size_t kMaxReadBytes = 16u << 20;  // state files are small
+
+Status Errno(std::string_view what, const std::string& path, int error) {
+  return Status::IoError(std::string(what) + " " + path + ": " + std::strerror(error));
+}
+
+std::string DirectoryOf(const std::string& path) {
+  const std::size_t slash = path.rfind('/');
+  if (slash == std::string::npos) return ".";
+  if (slash == 0) return "/";
+  return path.substr(0, slash);
+}
+
+Status SyncDirectory(const std::string& path) {
+  const std::string directory = DirectoryOf(path);
+  const int fd = ::open(directory.c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC);
+  if (fd < 0) return Errno("cannot open directory", directory, errno);
+  Status status;
+  if (::fsync(fd) != 0) status = Errno("cannot fsync directory", directory, errno);
+  ::close(fd);
+  return status;
+}
+
+Status WriteAll(int fd, std::string_view data, const std::string& path) {
+  while (!data.empty()) {
+    const ssize_t n = ::write(fd, data.data(), data.size());
+    if (n < 0) {
+      if (errno == EINTR) continue;
+      return Errno("cannot write", path, errno);
+    }
+    data.remove_prefix(static_cast<std::size_t>(n));
+  }
+  return Status::Ok();
+}
+
+class PosixWritableFile : public WritableFile {
+ public:
+  PosixWritableFile(int fd, std::string path) : fd_(fd), path_(std::move(path)) {}
+  ~PosixWritableFile() override { Close(); }
+  Status Append(std::string_view data) override {
+    if (fd_ < 0) return Status::FailedPrecondition("file closed: " + path_);
+    return WriteAll(fd_, data, path_);
+  }
+  Status Sync() override {
+    if (fd_ < 0) return Status::FailedPrecondition("file closed: " + path_);
+    if (::fdatasync(fd_) != 0) return Errno("cannot fsync", path_, errno);
+    return Status::Ok();
+  }
+  Status Close() override {
+    if (fd_ < 0) return Status::Ok();
+    const int fd = fd_;
+    fd_ = -1;
+    if (::close(fd) != 0) return Errno("cannot close", path_, errno);
+    return Status::Ok();
+  }
+
+ private:
+  int fd_;
+  std::string path_;
+};
+
+class PosixFileSystem : public FileSystem {
+ public:
+  StatusOr<std::unique_ptr<WritableFile>> OpenAppend(const std::string& path) override {
+    struct stat info {};
+    const bool existed = ::stat(path.c_str(), &info) == 0;
+    const int fd = ::open(path.c_str(), O_WRONLY | O_APPEND | O_CREAT | O_CLOEXEC, 0640);
+    if (fd < 0) return Errno("cannot open", path, errno);
+    if (!existed) {
+      if (Status status = SyncDirectory(path); !status.ok()) {
+        ::close(fd);
+        return status;
+      }
+    }
+    return std::unique_ptr<WritableFile>(new PosixWritableFile(fd, path));
+  }
+
+  Status ReplaceFile(const std::string& path, std::string_view contents) override {
+    const std::string temporary = path + ".tmp";
+    const int fd =
+        ::open(temporary.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0640);
+    if (fd < 0) return Errno("cannot create", temporary, errno);
+    Status status = WriteAll(fd, contents, temporary);
+    if (status.ok() && ::fsync(fd) != 0) status = Errno("cannot fsync", temporary, errno);
+    if (::close(fd) != 0 && status.ok()) status = Errno("cannot close", temporary, errno);
+    if (status.ok() && ::rename(temporary.c_str(), path.c_str()) != 0) {
+      status = Errno("cannot rename onto", path, errno);
+    }
+    if (!status.ok()) {
+      ::unlink(temporary.c_str());
+      return status;
+    }
+    return SyncDirectory(path);
+  }
+
+  StatusOr<std::string> ReadFile(const std::string& path) override {
+    const int fd = ::open(path.c_str(), O_RDONLY | O_CLOEXEC);
+    if (fd < 0) {
+      if (errno == ENOENT) return Status::NotFound("no file " + path);
+      return Errno("cannot open", path, errno);
+    }
+    std::string contents;
+    char buffer[65536];
+    while (true) {
+      const ssize_t n = ::read(fd, buffer, sizeof buffer);
+      if (n < 0) {
+        if (errno == EINTR) continue;
+        const int error = errno;
+        ::close(fd);
+        return Errno("cannot read", path, error);
+      }
+      if (n == 0) break;
+      contents.append(buffer, static_cast<std::size_t>(n));
+      if (contents.size() > kMaxReadBytes) {
+        ::close(fd);
+        return Status::IoError(path + ": larger than 16 MiB; not a state file");
+      }
+    }
+    ::close(fd);
+    return contents;
+  }
+
+  Status CreateDirectories(const std::string& path) override {
+    std::error_code error;
+    const bool created = std::filesystem::create_directories(path, error);
+    if (error)
+      return Status::IoError("cannot create directory " + path + ": " + error.message());
+    if (created) ::chmod(path.c_str(), 0750);  // an existing directory keeps its mode
+    return Status::Ok();
+  }
+};
+
+}  // namespace
+
+FileSystem* FileSystem::Default() {
+  static PosixFileSystem file_system;
+  return &file_system;
+}
+
+}  // namespace plumbline

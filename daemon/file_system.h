@@ -1,0 +1,47 @@
+// The daemon's file-system seam: appending durable logs and replacing small
+// state files atomically. Sinks and inputs take a FileSystem* so tests can
+// inject a failed write, fsync or rename. Thread-safe: PosixFileSystem keeps
+// no state; a WritableFile is owned and used by one thread at a time.
+#pragma once
+
+#include <memory>
+#include <string>
+#include <string_view>
+
+#include "detectors/status.h"
+
+namespace plumbline {
+
+// A file opened for appending.
+class WritableFile {
+ public:
+  virtual ~WritableFile() = default;
+  // Writes all of `data` at the end of the file (O_APPEND). IoError naming the
+  // file and the system's reason on failure.
+  virtual Status Append(std::string_view data) = 0;
+  // Forces what was appended to stable storage (fdatasync).
+  virtual Status Sync() = 0;
+  // Closes the file; later calls do nothing.
+  virtual Status Close() = 0;
+};
+
+class FileSystem {
+ public:
+  virtual ~FileSystem() = default;
+  // Opens (creating with mode 0640 if absent) `path` for appending. A new file's
+  // directory entry is made durable (the directory is fsynced).
+  virtual StatusOr<std::unique_ptr<WritableFile>> OpenAppend(const std::string& path) = 0;
+  // Replaces `path` with `contents` atomically: write a temporary file beside
+  // it, fsync, rename over `path`, fsync the directory. On failure the old
+  // file is untouched and the temporary file removed.
+  virtual Status ReplaceFile(const std::string& path, std::string_view contents) = 0;
+  // The whole file (at most 16 MiB). NotFound when it does not exist.
+  virtual StatusOr<std::string> ReadFile(const std::string& path) = 0;
+  // Creates `path` and its missing parents (mode 0750). Ok when it exists.
+  virtual Status CreateDirectories(const std::string& path) = 0;
+
+  // The process-wide POSIX implementation.
+  static FileSystem* Default();
+};
+
+}  // namespace plumbline

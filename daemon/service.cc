@@ -1,0 +1,333 @@
+#include "daemon/service.h"
+
+#include <algorithm>
+#include <cmath>
+
+#include "daemon/log.h"
+#include "detectors/glob.h"
+
+namespace plumbline {
+namespace {
+
+using SteadyTime = std::chrono::steady_clock::time_point;
+
+// Alert batches waiting for the dispatcher, from all shards together.
+constexpr std::size_t kDispatcherQueueBatches = 1024;
+// Alerts and events kept for GET /v1/alerts.
+constexpr std::size_t kRecentAlerts = 10000;
+// Two-sided 95% normal quantile, for the forecast band.
+constexpr double kBandZ = 1.959963984540054;
+
+// Calibrates every profile once, so a profile that cannot be designed is
+// refused at start or reload instead of dropping its series later.
+Status CheckProfiles(const Config& config) {
+  for (const ProfileOptions& profile : config.series) {
+    auto design = ProfileDesign::Make(profile);
+    if (!design.ok()) {
+      return Status::InvalidArgument(
+          "profile \"" + profile.match +
+          "\" cannot be calibrated: " + design.status().message());
+    }
+  }
+  return Status::Ok();
+}
+
+SeriesSummary Summarise(const ShardState& state, const std::string& name,
+                        const SeriesExtras& extras) {
+  SeriesSummary summary;
+  summary.name = name;
+  if (const ProfileOptions* profile = MatchProfile(state.config(), name)) {
+    summary.kind = std::string(ToString(profile->kind));
+  }
+  summary.last_time = extras.last_time;
+  summary.last_value = extras.last_value;
+  summary.readings = extras.readings;
+  if (const SeriesMonitor* monitor = state.engine().Find(name)) {
+    summary.armed = monitor->armed();
+    summary.silent = monitor->silent();
+  }
+  return summary;
+}
+
+}  // namespace
+
+Service::Service(Config config, ServiceDependencies dependencies)
+    : config_(std::move(config)), deps_(dependencies) {}
+
+Service::~Service() { Shutdown(); }
+
+Status Service::Start() {
+  const ServiceOptions& options = config_.service;
+  std::string why;
+  if (!options.IsValid(&why)) return Status::InvalidArgument("service settings: " + why);
+  if (Status status = CheckProfiles(config_); !status.ok()) return status;
+  if (Status status = deps_.file_system->CreateDirectories(options.state_directory);
+      !status.ok()) {
+    return status;
+  }
+
+  AlertDispatcher::Options dispatch;
+  dispatch.queue_batches = kDispatcherQueueBatches;
+  dispatch.recent = kRecentAlerts;
+  dispatch.events = options.sinks.events;
+  dispatcher_ = std::make_unique<AlertDispatcher>(dispatch, deps_.observer);
+  if (options.sinks.alert_log.enabled) {
+    auto log =
+        std::make_unique<AlertLog>(options.InStateDirectory(options.sinks.alert_log.path),
+                                   deps_.file_system, deps_.observer);
+    std::string failure;
+    if (!log->Healthy(&failure)) return Status::IoError(failure);
+    dispatcher_->AddSink(std::move(log));
+  }
+  if (options.sinks.to_stdout)
+    dispatcher_->AddSink(std::make_unique<StdoutSink>(deps_.text_out));
+  if (options.sinks.webhook.enabled()) {
+    auto webhook = std::make_unique<WebhookSink>(
+        options.sinks.webhook,
+        options.InStateDirectory(options.sinks.webhook.dead_letter), deps_.file_system,
+        deps_.observer);
+    webhook->Start();
+    dispatcher_->AddSink(std::move(webhook));
+  }
+  dispatcher_->Start();
+
+  ShardOptions shard_options;
+  shard_options.queue_batches = static_cast<std::size_t>(options.queue_batches);
+  shard_options.engine.max_series = options.max_series;
+  shards_ = std::make_unique<ShardSet>(
+      static_cast<std::size_t>(options.EffectiveShards()), config_, shard_options,
+      deps_.clock, dispatcher_.get(), deps_.observer);
+  shards_->Start();
+
+  if (options.tcp.enabled) {
+    tcp_ = std::make_unique<TcpListener>(io_, options.tcp, shards_.get(), deps_.observer);
+    if (Status status = tcp_->Start(); !status.ok()) {
+      tcp_.reset();
+      started_ = true;
+      Shutdown();  // stops what already runs
+      return status;
+    }
+    work_.emplace(boost::asio::make_work_guard(io_));
+    io_thread_ = std::thread([this] { io_.run(); });
+  }
+  for (const FileInputOptions& file : options.files) {
+    followers_.push_back(std::make_unique<FileFollower>(
+        file, options.state_directory, shards_.get(), deps_.file_system, deps_.observer));
+    followers_.back()->Start();
+  }
+  started_ = true;
+  if (deps_.observer) deps_.observer->OnReady(true);
+  LogInfo("service started", {{"shards", shards_->size()},
+                              {"profiles", config_.series.size()},
+                              {"state_directory", options.state_directory},
+                              {"files", options.files.size()}});
+  return Status::Ok();
+}
+
+void Service::StopInputs(SteadyTime deadline) {
+  if (tcp_) {
+    tcp_->Stop();
+    while (tcp_->open_connections() > 0 && std::chrono::steady_clock::now() < deadline) {
+      std::this_thread::sleep_for(std::chrono::milliseconds(5));
+    }
+  }
+  for (auto& follower : followers_) follower->Stop();
+  if (io_thread_.joinable()) {
+    work_.reset();
+    io_.stop();
+    io_thread_.join();
+  }
+}
+
+void Service::Shutdown() {
+  if (!started_ || stopped_) return;
+  stopped_ = true;
+  stopping_ = true;
+  if (deps_.observer) deps_.observer->OnReady(false);
+  const auto begun = std::chrono::steady_clock::now();
+  const SteadyTime deadline =
+      begun + std::chrono::microseconds(config_.service.shutdown_timeout);
+  LogInfo("shutting down: stopping inputs");
+  StopInputs(deadline);
+  LogInfo("shutting down: draining shard queues");
+  if (shards_) shards_->CloseAndJoin();
+  LogInfo("shutting down: flushing sinks");
+  if (dispatcher_) dispatcher_->Stop(deadline);
+  const double seconds =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - begun).count();
+  LogInfo("stopped",
+          {{"seconds", seconds},
+           {"alerts_delivered", static_cast<unsigned long long>(delivered())}});
+}
+
+StatusOr<ReloadReport> Service::Reload(const Config& config) {
+  if (!started_ || stopping_)
+    return Status::FailedPrecondition("the service is not running");
+  if (Status status = CheckProfiles(config); !status.ok()) return status;
+  ReloadReport report;
+  const std::vector<std::string> before = DescribeService(config_.service);
+  const std::vector<std::string> after = DescribeService(config.service);
+  for (std::size_t i = 0; i < after.size(); ++i) {
+    if (i >= before.size() || before[i] != after[i]) report.ignored.push_back(after[i]);
+  }
+  // Shared, not referenced: a task that outlives a timed-out wait still has it.
+  auto shared = std::make_shared<const Config>(config);
+  for (std::size_t i = 0; i < shards_->size(); ++i) {
+    auto result = shards_->shard(i).Ask<ReconfigureReport>(
+        [shared, dispatcher = dispatcher_.get()](ShardState& state) {
+          std::vector<Alert> released;  // by series flushed for a restart
+          ReconfigureReport r = state.Reconfigure(*shared, &released);
+          dispatcher->Publish(state.index(), &released);
+          return r;
+        },
+        std::chrono::seconds(60));
+    if (!result)
+      return Status::Unavailable("shard " + std::to_string(i) + " did not answer");
+    report.series.kept += result->kept;
+    report.series.restarted += result->restarted;
+    report.series.dropped += result->dropped;
+  }
+  Config updated = config;
+  updated.service = config_.service;  // service settings change only with a restart
+  config_ = std::move(updated);
+  return report;
+}
+
+IngestReceipt Service::IngestLines(std::string_view body) {
+  IngestReceipt receipt;
+  if (!started_ || stopping_ || !shards_) {
+    receipt.rejected = 0;
+    receipt.first_rejections.push_back({0, "shutting_down"});
+    return receipt;
+  }
+  auto ticket = std::make_shared<IngestTicket>();
+  std::uint64_t routed = 0, parse_refused = 0;
+  {
+    ShardRouter router(shards_.get(), ticket);
+    ReadingParserOptions parser_options;
+    parser_options.max_line_bytes = config_.service.tcp.max_line_bytes;
+    ReadingParser* parser_ptr = nullptr;
+    ReadingParser parser(
+        parser_options,
+        [&](const Reading& reading) { router.Add(reading, parser_ptr->line_number()); },
+        [&](std::uint64_t line, ReadingError reason, std::string_view) {
+          if (deps_.observer) deps_.observer->OnParseRejected(reason, 1);
+          ++parse_refused;
+          ticket->Refuse(line, std::string(ToString(reason)));
+        });
+    parser_ptr = &parser;
+    parser.Feed(body);
+    parser.Finish();
+    router.Flush();
+    routed = router.routed();
+  }
+  const bool judged = ticket->Wait(kIngestWait);
+  receipt.accepted = ticket->accepted();
+  receipt.rejected = ticket->refused();
+  if (!judged) {
+    // Readings still queued were taken; their verdict is not known yet, so
+    // they count as accepted.
+    const std::uint64_t shard_refused = receipt.rejected - parse_refused;
+    const std::uint64_t pending = routed - receipt.accepted - shard_refused;
+    receipt.accepted += pending;
+    LogWarning("ingest answered before every reading was judged",
+               {{"input", "http"}, {"pending_readings", pending}});
+  }
+  for (const IngestTicket::Refusal& refusal : ticket->first_refusals()) {
+    receipt.first_rejections.push_back({refusal.line, refusal.reason});
+  }
+  return receipt;
+}
+
+std::vector<SeriesSummary> Service::ListSeries(std::string_view glob) {
+  std::vector<SeriesSummary> out;
+  if (!shards_) return out;
+  const std::string pattern = glob.empty() ? "**" : std::string(glob);
+  for (std::size_t i = 0; i < shards_->size(); ++i) {
+    auto part = shards_->shard(i).Ask<std::vector<SeriesSummary>>(
+        [pattern](ShardState& state) {
+          std::vector<SeriesSummary> rows;
+          for (const auto& [name, extras] : state.series()) {
+            if (pattern == "**" || GlobMatch(pattern, name)) {
+              rows.push_back(Summarise(state, name, extras));
+            }
+          }
+          return rows;
+        },
+        kAskTimeout);
+    if (!part) {
+      LogWarning("series list incomplete: a shard did not answer in time",
+                 {{"shard", i}});
+      continue;
+    }
+    out.insert(out.end(), std::make_move_iterator(part->begin()),
+               std::make_move_iterator(part->end()));
+  }
+  std::sort(out.begin(), out.end(), [](const SeriesSummary& a, const SeriesSummary& b) {
+    return a.name < b.name;
+  });
+  return out;
+}
+
+std::optional<SeriesDetail> Service::GetSeries(std::string_view name) {
+  if (!shards_) return std::nullopt;
+  const std::string wanted(name);
+  auto answer =
+      shards_->shard(shards_->ShardFor(wanted))
+          .Ask<std::optional<SeriesDetail>>(
+              [wanted](ShardState& state) -> std::optional<SeriesDetail> {
+                const SeriesExtras* extras = state.Find(wanted);
+                const SeriesMonitor* monitor = state.engine().Find(wanted);
+                if (!extras || !monitor) return std::nullopt;
+                SeriesDetail detail;
+                detail.summary = Summarise(state, wanted, *extras);
+                detail.sigma = monitor->scale().sigma();
+                detail.last_z = monitor->last_z();
+                const SeasonalForecaster* forecaster = monitor->forecaster();
+                if (forecaster && forecaster->has_data()) {
+                  const Forecast f = forecaster->Predict(extras->last_time);
+                  detail.forecast = f.value;
+                  const double half =
+                      kBandZ * detail.sigma *
+                      std::sqrt(1.0 + std::max(0.0, f.parameter_variance_factor));
+                  detail.band_low = f.value - half;
+                  detail.band_high = f.value + half;
+                }
+                for (const SeriesExtras::Point& p : extras->RecentPoints()) {
+                  SeriesDetail::Point point{p.time, p.value, 0.0};
+                  if (forecaster && forecaster->has_data())
+                    point.forecast = forecaster->Predict(p.time).value;
+                  detail.recent_points.push_back(point);
+                }
+                detail.recent_alerts = extras->alerts;
+                return detail;
+              },
+              kAskTimeout);
+  if (!answer) return std::nullopt;
+  return *answer;
+}
+
+std::vector<Alert> Service::AlertsSince(EventTime since) {
+  if (!dispatcher_) return {};
+  return dispatcher_->Recent(since, kMaxAlertsAnswered);
+}
+
+bool Service::Ready(std::string* why) {
+  if (!started_) {
+    if (why) *why = "starting";
+    return false;
+  }
+  if (stopping_) {
+    if (why) *why = "shutting down";
+    return false;
+  }
+  return dispatcher_->Healthy(why);
+}
+
+std::string Service::tcp_address() const {
+  return tcp_ ? tcp_->local_endpoint().address().to_string() : std::string();
+}
+
+int Service::tcp_port() const { return tcp_ ? tcp_->local_endpoint().port() : 0; }
+
+}  // namespace plumbline

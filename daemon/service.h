@@ -1,0 +1,123 @@
+// Service: the running `serve` daemon minus its HTTP server. It owns the
+// shards, the alert dispatcher and its sinks, the TCP listener (on its own I/O
+// thread) and the file followers, and implements ServiceView for the HTTP API.
+//
+//   TCP sessions ─┐                       ┌ shard 0 (Engine) ─┐
+//   file followers┼─ parse ─ ShardRouter ─┼ shard 1 (Engine) ─┼─ AlertDispatcher ─┬ alert
+//   log HTTP ingest ──┘   (per producer)      └ shard N-1        ─┘   (bounded queue)  ├
+//   stdout
+//                      bounded queues, blocking when full                         └
+//                      webhook ─ its own queue
+//
+// Staged shutdown (Shutdown): stop the inputs (the caller stops the HTTP server
+// first), let the shards drain their queues and release held readings, let
+// the dispatcher deliver what they raised, and drain the sinks (the webhook
+// until the deadline, then its dead-letter file), all within
+// `shutdown_timeout`. Reload (SIGHUP) swaps the profiles on every shard,
+// keeping the state of series whose settings did not change.
+//
+// Thread-safety: the ServiceView methods may be called from any thread once
+// Start has returned Ok, until Shutdown returns. Start, Reload and Shutdown
+// are called by one controlling thread.
+#pragma once
+
+#include <atomic>
+#include <boost/asio/executor_work_guard.hpp>
+#include <boost/asio/io_context.hpp>
+#include <chrono>
+#include <cstdio>
+#include <memory>
+#include <mutex>
+#include <optional>
+#include <string>
+#include <thread>
+#include <utility>  // before any Asio header (Boost 1.74 under C++20)
+#include <vector>
+
+#include "config/config.h"
+#include "daemon/alert_sinks.h"
+#include "daemon/clock.h"
+#include "daemon/file_follower.h"
+#include "daemon/file_system.h"
+#include "daemon/pipeline_observer.h"
+#include "daemon/service_view.h"
+#include "daemon/shard.h"
+#include "daemon/tcp_listener.h"
+
+namespace plumbline {
+
+struct ServiceDependencies {
+  const Clock* clock = SteadyClock::Get();
+  FileSystem* file_system = FileSystem::Default();
+  PipelineObserver* observer = nullptr;  // may stay null
+  std::FILE* text_out = stdout;          // the stdout sink's stream
+};
+
+// What Reload did.
+struct ReloadReport {
+  ReconfigureReport series;          // summed over the shards
+  std::vector<std::string> ignored;  // service settings that need a restart
+};
+
+class Service : public ServiceView {
+ public:
+  // Limits on what the API's questions may cost.
+  static constexpr std::chrono::milliseconds kAskTimeout{2000};  // one shard round trip
+  static constexpr std::chrono::seconds kIngestWait{
+      60};  // an HTTP body's readings to be judged
+  static constexpr std::size_t kMaxAlertsAnswered = 1000;
+
+  Service(Config config, ServiceDependencies dependencies = {});
+  ~Service() override;  // shuts down if still running
+
+  // Calibrates every profile (refusing one that cannot be), creates the state
+  // directory, opens the sinks, and starts the shards, the dispatcher, the TCP
+  // listener and the followers. On failure nothing keeps running.
+  Status Start();
+
+  // Staged shutdown (see the header comment); returns when done or when the
+  // deadline passed. Later calls do nothing.
+  void Shutdown();
+
+  // Replaces the profiles from `config` on every shard (SIGHUP). Refused
+  // (InvalidArgument, nothing changed) when a profile cannot be calibrated.
+  // Service settings that differ are reported in ignored: they need a restart.
+  StatusOr<ReloadReport> Reload(const Config& config);
+
+  // ---- ServiceView ----
+  IngestReceipt IngestLines(std::string_view body) override;
+  std::vector<SeriesSummary> ListSeries(std::string_view glob) override;
+  std::optional<SeriesDetail> GetSeries(std::string_view name) override;
+  std::vector<Alert> AlertsSince(EventTime since) override;
+  bool Ready(std::string* why) override;
+
+  // The TCP listener's bound address ("" when it is off).
+  std::string tcp_address() const;
+  int tcp_port() const;
+  // The config in force (controlling thread only: Reload replaces it).
+  const Config& config() const { return config_; }
+  std::size_t shard_count() const { return shards_ ? shards_->size() : 0; }
+  // Alerts and events handed to the sinks so far.
+  std::uint64_t delivered() const { return dispatcher_ ? dispatcher_->delivered() : 0; }
+
+ private:
+  void StopInputs(std::chrono::steady_clock::time_point deadline);
+
+  Config config_;
+  const ServiceDependencies deps_;
+
+  std::unique_ptr<AlertDispatcher> dispatcher_;
+  std::unique_ptr<ShardSet> shards_;
+  boost::asio::io_context io_;  // the TCP listener's
+  std::optional<boost::asio::executor_work_guard<boost::asio::io_context::executor_type>>
+      work_;
+  std::thread io_thread_;
+  std::unique_ptr<TcpListener> tcp_;
+  std::vector<std::unique_ptr<FileFollower>> followers_;
+
+  std::atomic<bool> started_{false};
+  std::atomic<bool> stopping_{false};
+  bool stopped_ = false;
+};
+
+}  // namespace plumbline

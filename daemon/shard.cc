@@ -1,0 +1,320 @@
+#include "daemon/shard.h"
+
+#include <algorithm>
+
+namespace plumbline {
+namespace {
+
+std::uint64_t Fnv1a(std::string_view text) {
+  std::uint64_t hash = 1469598103934665603ULL;
+  for (unsigned char c : text) {
+    hash ^= c;
+    hash *= 1099511628211ULL;
+  }
+  return hash;
+}
+
+}  // namespace
+
+bool ShardOptions::IsValid(std::string* why) const {
+  auto fail = [why](const char* message) {
+    if (why) *why = message;
+    return false;
+  };
+  if (queue_batches < 1) return fail("queue_batches must be at least 1");
+  if (tick <= 0) return fail("tick must be positive");
+  if (recent_points > 4096) return fail("recent_points must be in [0, 4096]");
+  if (recent_alerts > 4096) return fail("recent_alerts must be in [0, 4096]");
+  return engine.IsValid(why);
+}
+
+std::vector<SeriesExtras::Point> SeriesExtras::RecentPoints() const {
+  std::vector<Point> out;
+  out.reserve(points.size());
+  // Once the ring is full, `next` is the oldest point.
+  for (std::size_t i = 0; i < points.size(); ++i) {
+    out.push_back(points[(next + i) % points.size()]);
+  }
+  return out;
+}
+
+ShardState::ShardState(std::size_t index, const Config& config,
+                       const ShardOptions& options)
+    : index_(index),
+      config_(config),
+      options_(options),
+      engine_(std::make_unique<Engine>(config, options.engine)) {}
+
+const SeriesExtras* ShardState::Find(std::string_view name) const {
+  auto it = extras_.find(name);
+  return it == extras_.end() ? nullptr : &it->second;
+}
+
+ReconfigureReport ShardState::Reconfigure(const Config& config, std::vector<Alert>* out) {
+  config_ = config;
+  ReconfigureReport report = engine_->Reconfigure(config, out);
+  std::erase_if(extras_,
+                [this](const auto& entry) { return !engine_->Find(entry.first); });
+  return report;
+}
+
+Shard::Shard(std::size_t index, const Config& config, ShardOptions options,
+             const Clock* clock, AlertPublisher* publisher, PipelineObserver* observer)
+    : index_(index),
+      options_(std::move(options)),
+      clock_(clock),
+      publisher_(publisher),
+      observer_(observer),
+      state_(index, config, options_) {
+  if (observer_) observer_->OnQueueCapacity(index_, options_.queue_batches);
+}
+
+Shard::~Shard() {
+  CloseInput();
+  Join();
+}
+
+void Shard::Start() {
+  last_tick_ = clock_->Now();
+  thread_ = std::thread([this] { Run(); });
+}
+
+bool Shard::Push(ReadingBatch* batch) {
+  std::size_t depth = 0;
+  {
+    std::unique_lock<std::mutex> lock(mutex_);
+    not_full_.wait(lock, [this] {
+      return input_closed_ || batches_.size() < options_.queue_batches;
+    });
+    if (input_closed_) return false;
+    batch->handed_at = std::chrono::steady_clock::now();
+    batches_.push_back(std::move(*batch));
+    depth = batches_.size();
+  }
+  not_empty_.notify_one();
+  if (observer_) observer_->OnQueueDepth(index_, depth);
+  return true;
+}
+
+bool Shard::Post(std::function<void(ShardState&)> task) {
+  {
+    std::lock_guard<std::mutex> lock(mutex_);
+    if (stopped_) return false;
+    tasks_.push_back(std::move(task));
+  }
+  not_empty_.notify_one();
+  return true;
+}
+
+bool Shard::PostTick() {
+  return Post([this](ShardState&) { Tick(); });
+}
+
+void Shard::CloseInput() {
+  {
+    std::lock_guard<std::mutex> lock(mutex_);
+    input_closed_ = true;
+  }
+  not_empty_.notify_all();
+  not_full_.notify_all();
+}
+
+void Shard::Join() {
+  if (thread_.joinable()) thread_.join();
+}
+
+std::size_t Shard::queue_depth() const {
+  std::lock_guard<std::mutex> lock(mutex_);
+  return batches_.size();
+}
+
+void Shard::Run() {
+  const auto tick = std::chrono::microseconds(options_.tick);
+  while (true) {
+    std::deque<std::function<void(ShardState&)>> tasks;
+    std::optional<ReadingBatch> batch;
+    bool finish = false;
+    std::size_t depth = 0;
+    {
+      std::unique_lock<std::mutex> lock(mutex_);
+      not_empty_.wait_for(lock, tick, [this] {
+        return !tasks_.empty() || !batches_.empty() || input_closed_;
+      });
+      tasks.swap(tasks_);
+      if (!batches_.empty()) {
+        batch.emplace(std::move(batches_.front()));
+        batches_.pop_front();
+      }
+      depth = batches_.size();
+      if (input_closed_ && batches_.empty() && tasks.empty() && !batch) {
+        finish = true;
+        stopped_ = true;  // later Posts are refused; nothing is left queued
+      }
+    }
+    if (batch) {
+      not_full_.notify_one();
+      if (observer_) observer_->OnQueueDepth(index_, depth);
+    }
+    for (auto& task : tasks) task(state_);
+    if (batch) Process(*batch);
+    if (clock_->Now() - last_tick_ >= options_.tick) Tick();
+    if (finish) {
+      state_.engine_->Finish(&out_);
+      Publish();
+      return;
+    }
+    Publish();
+  }
+}
+
+void Shard::Process(ReadingBatch& batch) {
+  Engine& engine = *state_.engine_;
+  const EventTime arrived = clock_->Now();
+  std::uint64_t counts[5] = {};  // index: IngestOutcome
+  std::vector<IngestTicket::Refusal> refusals;
+  const std::size_t series_before = engine.series_count();
+  for (const ReadingBatch::Entry& entry : batch.entries) {
+    const std::string_view name = batch.name(entry);
+    if (!has_newest_ || entry.time > newest_) {
+      has_newest_ = true;
+      newest_ = entry.time;
+      newest_arrived_ = arrived;
+      engine.AdvanceClock(entry.time, &out_);
+    }
+    const IngestOutcome outcome = engine.Ingest(name, entry.time, entry.value, &out_);
+    ++counts[static_cast<int>(outcome)];
+    if (outcome != IngestOutcome::kAccepted) {
+      if (batch.ticket && refusals.size() < IngestTicket::kMaxRefusals) {
+        refusals.push_back({entry.line, std::string(ToString(outcome))});
+      }
+      continue;
+    }
+    auto it = state_.extras_.find(name);
+    if (it == state_.extras_.end()) {
+      it = state_.extras_.emplace(std::string(name), SeriesExtras{}).first;
+      if (observer_) observer_->OnNewSeries(index_, name);
+    }
+    SeriesExtras& extras = it->second;
+    ++extras.readings;
+    extras.last_time = entry.time;
+    extras.last_value = entry.value;
+    if (options_.recent_points > 0) {
+      if (extras.points.size() < options_.recent_points) {
+        extras.points.push_back({entry.time, entry.value});
+        extras.next = extras.points.size() % options_.recent_points;
+      } else {
+        extras.points[extras.next] = {entry.time, entry.value};
+        extras.next = (extras.next + 1) % options_.recent_points;
+      }
+    }
+  }
+  processed_.fetch_add(batch.size());
+  if (observer_) {
+    for (int i = 0; i < 5; ++i) {
+      if (counts[i] > 0) observer_->OnOutcome(static_cast<IngestOutcome>(i), counts[i]);
+    }
+    const double seconds =
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - batch.handed_at)
+            .count();
+    observer_->OnBatchLatency(seconds);
+  }
+  if (engine.series_count() != series_before) {
+    series_count_.store(engine.series_count());
+    if (observer_) observer_->OnSeriesCount(index_, engine.series_count());
+  }
+  if (batch.ticket) {
+    const std::uint64_t accepted = counts[static_cast<int>(IngestOutcome::kAccepted)];
+    batch.ticket->BatchDone(accepted, batch.size() - accepted, refusals);
+  }
+}
+
+void Shard::Tick() {
+  const EventTime now = clock_->Now();
+  last_tick_ = now;
+  if (!has_newest_) return;
+  state_.engine_->AdvanceClock(newest_ + (now - newest_arrived_), &out_);
+}
+
+void Shard::Publish() {
+  if (out_.empty()) return;
+  for (const Alert& alert : out_) {
+    auto it = state_.extras_.find(alert.series);
+    if (it == state_.extras_.end() || options_.recent_alerts == 0) continue;
+    std::vector<Alert>& recent = it->second.alerts;
+    if (recent.size() >= options_.recent_alerts) recent.erase(recent.begin());
+    recent.push_back(alert);
+  }
+  if (publisher_) {
+    publisher_->Publish(index_, &out_);
+  }
+  out_.clear();
+}
+
+ShardSet::ShardSet(std::size_t count, const Config& config, const ShardOptions& options,
+                   const Clock* clock, AlertPublisher* publisher,
+                   PipelineObserver* observer) {
+  for (std::size_t i = 0; i < std::max<std::size_t>(count, 1); ++i) {
+    shards_.push_back(
+        std::make_unique<Shard>(i, config, options, clock, publisher, observer));
+  }
+}
+
+void ShardSet::Start() {
+  for (auto& shard : shards_) shard->Start();
+}
+
+std::size_t ShardSet::ShardFor(std::string_view series) const {
+  return static_cast<std::size_t>(Fnv1a(series) % shards_.size());
+}
+
+void ShardSet::CloseAndJoin() {
+  for (auto& shard : shards_) shard->CloseInput();
+  for (auto& shard : shards_) shard->Join();
+}
+
+ShardRouter::ShardRouter(ShardSet* shards, std::shared_ptr<IngestTicket> ticket)
+    : shards_(shards), ticket_(std::move(ticket)), batches_(shards->size()) {}
+
+ShardRouter::~ShardRouter() { Flush(); }
+
+bool ShardRouter::Add(const Reading& reading, std::uint64_t line) {
+  if (closed_) return false;
+  const std::size_t shard = shards_->ShardFor(reading.series);
+  ReadingBatch& batch = batches_[shard];
+  batch.Add(reading, line);
+  ++routed_;
+  if (batch.full()) return PushBatch(shard);
+  return true;
+}
+
+bool ShardRouter::Flush() {
+  bool ok = true;
+  for (std::size_t i = 0; i < batches_.size(); ++i) {
+    if (!batches_[i].empty()) ok = PushBatch(i) && ok;
+  }
+  return ok;
+}
+
+bool ShardRouter::PushBatch(std::size_t shard) {
+  ReadingBatch& batch = batches_[shard];
+  if (closed_) {
+    batch = ReadingBatch();
+    return false;
+  }
+  if (ticket_) {
+    batch.ticket = ticket_;
+    ticket_->AddBatch();
+  }
+  if (!shards_->shard(shard).Push(&batch)) {
+    closed_ = true;
+    if (ticket_) ticket_->BatchDone(0, batch.size(), {});
+    batch = ReadingBatch();
+    return false;
+  }
+  // Push moved the batch out; reuse nothing from it (its buffers went along).
+  batch = ReadingBatch();
+  batch.entries.reserve(kMaxBatchReadings);
+  return true;
+}
+
+}  // namespace plumbline

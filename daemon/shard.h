@@ -1,0 +1,259 @@
+// Shards: the live engine of `serve`. A Shard is one thread that owns one
+// Engine outright (and so every series routed to it); nothing else touches its
+// series. Inputs hand it ReadingBatches through a bounded queue: when the queue
+// is full, Push blocks the input (backpressure) instead of growing memory.
+// Questions (the API's series views, a reload) are posted as tasks on a small
+// separate queue, so they never wait behind backpressure, and answered on the
+// shard thread.
+//
+// Time. Models and detectors run on event time, exactly as `replay` does: before
+// each reading whose time is past the shard's newest, the engine's clock is
+// advanced to that time (replay advances to each reading's time in merged
+// order, so for time-ordered input the decisions are the same). Silence in live
+// mode needs the wall clock: while no newer reading arrives, the shard's event
+// clock is carried forward by the elapsed monotonic time since the newest
+// reading arrived, checked every `tick`:
+//
+//   now_event = newest_event_time + (clock.Now() - clock time when it arrived)
+//
+// A live stream (event time close to wall time) thus goes silent on the wall
+// clock, while a file of last month's readings fed at full speed gives
+// replay's silences, not a silence per series the moment it is read.
+//
+// Thread-safety: Push, Post, CloseInput and the accessors may be called from
+// any thread; the ShardState handed to a task belongs to the shard thread.
+#pragma once
+
+#include <atomic>
+#include <chrono>
+#include <condition_variable>
+#include <cstddef>
+#include <deque>
+#include <functional>
+#include <future>
+#include <memory>
+#include <mutex>
+#include <optional>
+#include <string>
+#include <string_view>
+#include <thread>
+#include <unordered_map>
+#include <vector>
+
+#include "config/config.h"
+#include "daemon/clock.h"
+#include "daemon/engine.h"
+#include "daemon/pipeline_observer.h"
+#include "daemon/reading_batch.h"
+
+namespace plumbline {
+
+struct ShardOptions {
+  std::size_t queue_batches = 64;     // bound of the input queue, in batches
+  EventTime tick = kMicrosPerSecond;  // how often the wall clock is looked at (silence)
+  std::size_t recent_points = 32;     // kept per series for the API (oldest dropped)
+  std::size_t recent_alerts = 8;      // kept per series for the API
+  EngineOptions engine;
+
+  // Rules: queue_batches >= 1; tick positive; recent_points and recent_alerts
+  // in [0, 4096]; engine valid.
+  bool IsValid(std::string* why) const;
+};
+
+// Where a shard's alerts and events go (the dispatcher). Called on shard
+// threads; may block while the dispatcher's queue is full (which in turn
+// slows the inputs).
+class AlertPublisher {
+ public:
+  virtual ~AlertPublisher() = default;
+  // Takes the alerts out of *alerts (leaving it empty).
+  virtual void Publish(std::size_t shard, std::vector<Alert>* alerts) = 0;
+};
+
+// What the shard keeps per series beside its monitor, for the API.
+struct SeriesExtras {
+  struct Point {
+    EventTime time;
+    double value;
+  };
+  std::vector<Point> points;  // ring of at most recent_points
+  std::size_t next = 0;       // ring position of the next point
+  std::vector<Alert> alerts;  // oldest first, at most recent_alerts
+  long long readings = 0;     // accepted
+  EventTime last_time = 0;
+  double last_value = 0.0;
+
+  // Points oldest first.
+  std::vector<Point> RecentPoints() const;
+};
+
+// Heterogeneous lookup by string_view: no string is built per reading.
+struct SeriesNameHash {
+  using is_transparent = void;
+  std::size_t operator()(std::string_view name) const {
+    return std::hash<std::string_view>{}(name);
+  }
+};
+using SeriesExtrasMap =
+    std::unordered_map<std::string, SeriesExtras, SeriesNameHash, std::equal_to<>>;
+
+// A shard's state, as tasks see it on the shard thread.
+class ShardState {
+ public:
+  ShardState(std::size_t index, const Config& config, const ShardOptions& options);
+
+  std::size_t index() const { return index_; }
+  const Engine& engine() const { return *engine_; }
+  const Config& config() const { return config_; }
+  // Every series this shard holds, by name.
+  const SeriesExtrasMap& series() const { return extras_; }
+  const SeriesExtras* Find(std::string_view name) const;
+
+  // Replaces the profiles (SIGHUP), keeping the state of every series whose
+  // profile settings did not change (Engine::Reconfigure). Events released
+  // by restarted series are appended to *out.
+  ReconfigureReport Reconfigure(const Config& config, std::vector<Alert>* out);
+
+ private:
+  friend class Shard;
+  std::size_t index_;
+  Config config_;
+  ShardOptions options_;
+  std::unique_ptr<Engine> engine_;
+  SeriesExtrasMap extras_;
+};
+
+class Shard {
+ public:
+  // `clock`, `publisher` and `observer` (may be null) must outlive the shard.
+  // Precondition: options.IsValid().
+  Shard(std::size_t index, const Config& config, ShardOptions options, const Clock* clock,
+        AlertPublisher* publisher, PipelineObserver* observer);
+  // Closes the input and joins the thread if still running.
+  ~Shard();
+  Shard(const Shard&) = delete;
+  Shard& operator=(const Shard&) = delete;
+
+  void Start();
+
+  // Queues a batch (stamping handed_at), blocking while the queue is full.
+  // False, leaving *batch as it was, once the input is closed.
+  bool Push(ReadingBatch* batch);
+
+  // Runs `task` on the shard thread before any further batch. Never blocks.
+  // False when the shard has stopped (the task will not run).
+  bool Post(std::function<void(ShardState&)> task);
+
+  // Runs `question` on the shard thread and waits up to `timeout` for its
+  // answer; nullopt on timeout or when the shard has stopped.
+  template <typename Result>
+  std::optional<Result> Ask(std::function<Result(ShardState&)> question,
+                            std::chrono::milliseconds timeout) {
+    auto promise = std::make_shared<std::promise<Result>>();
+    std::future<Result> answer = promise->get_future();
+    if (!Post([promise, question = std::move(question)](ShardState& state) {
+          promise->set_value(question(state));
+        })) {
+      return std::nullopt;
+    }
+    if (answer.wait_for(timeout) != std::future_status::ready) return std::nullopt;
+    return answer.get();
+  }
+
+  // Looks at the wall clock now (as the periodic tick does). For tests.
+  bool PostTick();
+
+  // No more batches: the shard processes what is queued and the tasks posted,
+  // calls Engine::Finish (releasing readings held for reordering, as replay
+  // does at the end of input), publishes, and its thread ends.
+  void CloseInput();
+  // Waits for the thread to end (after CloseInput).
+  void Join();
+
+  std::size_t index() const { return index_; }
+  std::size_t queue_depth() const;
+  std::size_t queue_capacity() const { return options_.queue_batches; }
+  std::size_t series_count() const { return series_count_.load(); }
+  // Readings processed (any verdict), for tests and logs.
+  std::uint64_t processed() const { return processed_.load(); }
+
+ private:
+  void Run();
+  void Process(ReadingBatch& batch);
+  void Tick();
+  void Publish();
+
+  const std::size_t index_;
+  const ShardOptions options_;
+  const Clock* const clock_;
+  AlertPublisher* const publisher_;
+  PipelineObserver* const observer_;
+  ShardState state_;  // shard thread only
+
+  mutable std::mutex mutex_;           // guards the queues and the flags below
+  std::condition_variable not_empty_;  // the shard waits for work
+  std::condition_variable not_full_;   // producers wait for room
+  std::deque<ReadingBatch> batches_;
+  std::deque<std::function<void(ShardState&)>> tasks_;
+  bool input_closed_ = false;
+  bool stopped_ = false;
+
+  std::thread thread_;
+  std::atomic<std::size_t> series_count_{0};
+  std::atomic<std::uint64_t> processed_{0};
+
+  // Shard-thread state: the event clock (see the header comment).
+  bool has_newest_ = false;
+  EventTime newest_ = 0;          // newest event time seen
+  EventTime newest_arrived_ = 0;  // clock time when it was seen
+  EventTime last_tick_ = 0;
+  std::vector<Alert> out_;
+};
+
+// The set of shards and the stable routing of a series name to one of them.
+// Thread-safe as Shard is.
+class ShardSet {
+ public:
+  ShardSet(std::size_t count, const Config& config, const ShardOptions& options,
+           const Clock* clock, AlertPublisher* publisher, PipelineObserver* observer);
+  void Start();
+
+  std::size_t size() const { return shards_.size(); }
+  Shard& shard(std::size_t i) { return *shards_[i]; }
+  // FNV-1a of the name, modulo the shard count: the same shard for a name in
+  // every run with the same shard count.
+  std::size_t ShardFor(std::string_view series) const;
+
+  // Closes every shard's input and joins them all.
+  void CloseAndJoin();
+
+ private:
+  std::vector<std::unique_ptr<Shard>> shards_;
+};
+
+// Batches one producer's readings per shard and pushes full batches (blocking
+// while a shard's queue is full). Owned by one producer: not thread-safe.
+class ShardRouter {
+ public:
+  // `ticket` (may be null) is attached to every batch and told of each one.
+  explicit ShardRouter(ShardSet* shards, std::shared_ptr<IngestTicket> ticket = nullptr);
+  ~ShardRouter();  // flushes
+
+  // Adds one reading; pushes its shard's batch when full. False once the
+  // shards no longer take input (the reading is then dropped).
+  bool Add(const Reading& reading, std::uint64_t line);
+  // Pushes every non-empty batch. False if any shard refused.
+  bool Flush();
+  std::uint64_t routed() const { return routed_; }
+
+ private:
+  bool PushBatch(std::size_t shard);
+
+  ShardSet* shards_;
+  std::shared_ptr<IngestTicket> ticket_;
+  std::vector<ReadingBatch> batches_;  // index: shard
+  std::uint64_t routed_ = 0;
+  bool closed_ = false;
+};
+
+}  // namespace plumbline

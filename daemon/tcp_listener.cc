@@ -1,0 +1,284 @@
+#include "daemon/tcp_listener.h"
+
+#include <array>
+#include <boost/asio/post.hpp>
+#include <boost/asio/steady_timer.hpp>
+#include <chrono>
+#include <unordered_map>
+
+#include "daemon/log.h"
+
+namespace plumbline {
+namespace {
+
+namespace asio = boost::asio;
+using tcp = asio::ip::tcp;
+using SteadyTime = std::chrono::steady_clock::time_point;
+
+constexpr std::size_t kReadBytes = 64 * 1024;  // one read; also what a session pins
+
+std::string Describe(const tcp::endpoint& endpoint) {
+  const auto address = endpoint.address();
+  return (address.is_v6() ? "[" + address.to_string() + "]" : address.to_string()) + ":" +
+         std::to_string(endpoint.port());
+}
+
+bool Expected(const boost::system::error_code& error) {
+  return error == asio::error::eof || error == asio::error::operation_aborted ||
+         error == asio::error::connection_reset || error == asio::error::bad_descriptor;
+}
+
+class Session;
+
+}  // namespace
+
+struct TcpListener::State : std::enable_shared_from_this<TcpListener::State> {
+  State(asio::io_context& io_context, TcpListenerOptions o, ShardSet* s,
+        PipelineObserver* ob)
+      : io(io_context),
+        options(std::move(o)),
+        shards(s),
+        observer(ob),
+        acceptor(io_context) {}
+
+  void DoAccept();
+  void OnAccept(const boost::system::error_code& error, tcp::socket socket);
+  void CloseAll();
+
+  asio::io_context& io;
+  const TcpListenerOptions options;
+  ShardSet* const shards;
+  PipelineObserver* const observer;
+  tcp::acceptor acceptor;
+  tcp::endpoint endpoint;
+  std::atomic<std::size_t> open{0};
+  std::atomic<std::uint64_t> accepted{0};
+  // I/O thread only:
+  bool stopped = false;
+  std::unordered_map<Session*, std::weak_ptr<Session>> sessions;
+  std::uint64_t refused_over_limit = 0;
+};
+
+namespace {
+
+class Session : public std::enable_shared_from_this<Session> {
+ public:
+  Session(std::shared_ptr<TcpListener::State> state, tcp::socket socket, std::string peer)
+      : state_(std::move(state)),
+        socket_(std::move(socket)),
+        timer_(state_->io),
+        peer_(std::move(peer)),
+        router_(state_->shards),
+        parser_(
+            ReadingParserOptions{state_->options.max_line_bytes},
+            [this](const Reading& reading) {
+              if (!router_.Add(reading, parser_.line_number())) shards_closed_ = true;
+            },
+            [this](std::uint64_t line, ReadingError reason, std::string_view detail) {
+              if (state_->observer) state_->observer->OnParseRejected(reason, 1);
+              if (++rejected_ <= TcpListener::kLoggedRejections) {
+                LogWarning("line refused", {{"input", "tcp"},
+                                            {"peer", peer_},
+                                            {"line", line},
+                                            {"reason", ToString(reason)},
+                                            {"detail", detail}});
+              }
+            }) {}
+
+  void Start() {
+    last_activity_ = std::chrono::steady_clock::now();
+    DoRead();
+    DoWaitIdle(std::chrono::microseconds(state_->options.idle_timeout));
+  }
+
+  void Close(std::string_view why) {
+    if (closed_) return;
+    closed_ = true;
+    boost::system::error_code ignored;
+    socket_.shutdown(tcp::socket::shutdown_both, ignored);
+    socket_.close(ignored);
+    timer_.cancel();
+    router_.Flush();
+    state_->sessions.erase(this);
+    state_->open.fetch_sub(1);
+    LogDebug("connection closed", {{"input", "tcp"},
+                                   {"peer", peer_},
+                                   {"why", why},
+                                   {"readings", router_.routed()},
+                                   {"refused_lines", rejected_}});
+    if (rejected_ > TcpListener::kLoggedRejections) {
+      LogWarning("connection closed after refusing lines",
+                 {{"input", "tcp"},
+                  {"peer", peer_},
+                  {"refused_lines", rejected_},
+                  {"logged", TcpListener::kLoggedRejections}});
+    }
+  }
+
+ private:
+  void DoRead() {
+    socket_.async_read_some(
+        asio::buffer(buffer_),
+        [self = shared_from_this()](const boost::system::error_code& error,
+                                    std::size_t bytes) { self->OnRead(error, bytes); });
+  }
+
+  void OnRead(const boost::system::error_code& error, std::size_t bytes) {
+    if (closed_) return;
+    if (bytes > 0) {
+      last_activity_ = std::chrono::steady_clock::now();
+      parser_.Feed(std::string_view(buffer_.data(), bytes));
+      router_.Flush();
+    }
+    if (error) {
+      if (error == asio::error::eof) {
+        parser_.Finish();  // a last line without its newline still counts
+        router_.Flush();
+      } else if (!Expected(error)) {
+        LogWarning("connection read failed",
+                   {{"input", "tcp"}, {"peer", peer_}, {"error", error.message()}});
+      }
+      Close(error == asio::error::eof ? "end of stream" : "read error");
+      return;
+    }
+    if (shards_closed_) {
+      Close("shutting down");
+      return;
+    }
+    DoRead();
+  }
+
+  void DoWaitIdle(std::chrono::steady_clock::duration wait) {
+    timer_.expires_after(wait);
+    timer_.async_wait(
+        [self = shared_from_this()](const boost::system::error_code& error) {
+          self->OnIdleTimer(error);
+        });
+  }
+
+  void OnIdleTimer(const boost::system::error_code& error) {
+    if (closed_ || error == asio::error::operation_aborted) return;
+    const auto idle_limit = std::chrono::microseconds(state_->options.idle_timeout);
+    const auto idle = std::chrono::steady_clock::now() - last_activity_;
+    if (idle >= idle_limit) {
+      LogInfo("idle connection closed",
+              {{"input", "tcp"},
+               {"peer", peer_},
+               {"idle_seconds", std::chrono::duration<double>(idle).count()}});
+      Close("idle timeout");
+      return;
+    }
+    DoWaitIdle(idle_limit - idle);  // re-armed once per period, not per read
+  }
+
+  std::shared_ptr<TcpListener::State> state_;
+  tcp::socket socket_;
+  asio::steady_timer timer_;
+  const std::string peer_;
+  ShardRouter router_;
+  ReadingParser parser_;
+  std::array<char, kReadBytes> buffer_;
+  SteadyTime last_activity_;
+  std::uint64_t rejected_ = 0;
+  bool shards_closed_ = false;
+  bool closed_ = false;
+};
+
+}  // namespace
+
+void TcpListener::State::DoAccept() {
+  acceptor.async_accept([self = shared_from_this()](
+                            const boost::system::error_code& error, tcp::socket socket) {
+    self->OnAccept(error, std::move(socket));
+  });
+}
+
+void TcpListener::State::OnAccept(const boost::system::error_code& error,
+                                  tcp::socket socket) {
+  if (stopped) return;
+  if (error) {
+    if (error != asio::error::operation_aborted) {
+      LogWarning("accept failed", {{"input", "tcp"}, {"error", error.message()}});
+      DoAccept();
+    }
+    return;
+  }
+  boost::system::error_code peer_error;
+  const tcp::endpoint remote = socket.remote_endpoint(peer_error);
+  const std::string peer = peer_error ? std::string("unknown") : Describe(remote);
+  if (open.load() >= static_cast<std::size_t>(options.max_connections)) {
+    if (refused_over_limit++ % 100 == 0) {  // one line per hundred refusals
+      LogWarning("connection refused: too many open",
+                 {{"input", "tcp"},
+                  {"peer", peer},
+                  {"max_connections", options.max_connections},
+                  {"refused_so_far", refused_over_limit}});
+    }
+    boost::system::error_code ignored;
+    socket.close(ignored);
+    DoAccept();
+    return;
+  }
+  accepted.fetch_add(1);
+  open.fetch_add(1);
+  auto session = std::make_shared<Session>(shared_from_this(), std::move(socket), peer);
+  sessions[session.get()] = session;
+  LogDebug("connection opened", {{"input", "tcp"}, {"peer", peer}});
+  session->Start();
+  DoAccept();
+}
+
+void TcpListener::State::CloseAll() {
+  stopped = true;
+  boost::system::error_code ignored;
+  acceptor.close(ignored);
+  auto sessions_copy = sessions;
+  for (auto& [raw, weak] : sessions_copy) {
+    if (auto session = weak.lock()) session->Close("shutting down");
+  }
+}
+
+TcpListener::TcpListener(asio::io_context& io, TcpListenerOptions options,
+                         ShardSet* shards, PipelineObserver* observer)
+    : state_(std::make_shared<State>(io, std::move(options), shards, observer)) {}
+
+TcpListener::~TcpListener() = default;
+
+Status TcpListener::Start() {
+  State& s = *state_;
+  boost::system::error_code error;
+  const auto address = asio::ip::make_address(s.options.address, error);
+  if (error) {
+    return Status::InvalidArgument("tcp listener: bad address '" + s.options.address +
+                                   "': " + error.message());
+  }
+  const tcp::endpoint endpoint(address, static_cast<unsigned short>(s.options.port));
+  const std::string where = Describe(endpoint);
+  s.acceptor.open(endpoint.protocol(), error);
+  if (!error) s.acceptor.set_option(asio::socket_base::reuse_address(true), error);
+  if (!error) s.acceptor.bind(endpoint, error);
+  if (!error) s.acceptor.listen(asio::socket_base::max_listen_connections, error);
+  if (error) {
+    return Status::Unavailable("tcp listener: cannot listen on " + where + ": " +
+                               error.message());
+  }
+  s.endpoint = s.acceptor.local_endpoint(error);
+  LogInfo("listening", {{"input", "tcp"}, {"address", Describe(s.endpoint)}});
+  asio::post(s.io, [state = state_] { state->DoAccept(); });
+  return Status::Ok();
+}
+
+boost::asio::ip::tcp::endpoint TcpListener::local_endpoint() const {
+  return state_->endpoint;
+}
+
+void TcpListener::Stop() {
+  asio::post(state_->io, [state = state_] { state->CloseAll(); });
+}
+
+std::size_t TcpListener::open_connections() const { return state_->open.load(); }
+std::uint64_t TcpListener::accepted_connections() const {
+  return state_->accepted.load();
+}
+
+}  // namespace plumbline

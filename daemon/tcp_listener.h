@@ -1,0 +1,65 @@
+// TcpListener: the line input of `serve`. Each connection streams readings,
+// one per line (DESIGN.md "Readings"), parsed as they arrive by its own
+// ReadingParser and routed to the shards in batches. Nothing is sent back.
+//
+// - A line longer than max_line_bytes is refused (counted and logged), never
+//   the connection; so is any other bad line. Each connection logs its first
+//   kLoggedRejections bad lines with their line numbers, then only counts.
+// - A connection that sends nothing for idle_timeout is closed.
+// - At most max_connections are open; one more is accepted and closed at once,
+//   with a warning.
+// - Backpressure: when a shard's queue is full, the I/O thread waits in
+//   ShardRouter::Add, so every connection stops being read; the kernel's
+//   buffers fill and TCP flow control slows the senders.
+// - Each connection flushes its batches after every read, so a reading waits
+//   at most one read for its shard.
+//
+// Runs on the io_context it is given (one thread in serve). Sessions live
+// through shared_from_this held by their pending handlers. Thread-safety:
+// Start, Stop, local_endpoint and the counters may be called from any thread.
+#pragma once
+
+#include <atomic>
+#include <boost/asio/io_context.hpp>
+#include <boost/asio/ip/tcp.hpp>
+#include <cstddef>
+#include <cstdint>
+#include <memory>
+#include <utility>  // before any Asio header (Boost 1.74 under C++20)
+
+#include "config/service_options.h"
+#include "daemon/pipeline_observer.h"
+#include "daemon/shard.h"
+#include "detectors/status.h"
+
+namespace plumbline {
+
+class TcpListener {
+ public:
+  static constexpr int kLoggedRejections = 5;  // bad lines logged per connection
+
+  // `shards` and `observer` (may be null) must outlive the listener.
+  TcpListener(boost::asio::io_context& io, TcpListenerOptions options, ShardSet* shards,
+              PipelineObserver* observer);
+  ~TcpListener();
+
+  // Binds and listens on options.address:port, then accepts on the io_context.
+  // Unavailable with the address and the system's reason when it cannot bind.
+  Status Start();
+  // The bound address (the real port when port 0 was asked for).
+  boost::asio::ip::tcp::endpoint local_endpoint() const;
+  // Stops accepting and closes every connection after its current read
+  // (partial lines are dropped; complete ones were already routed). Returns at
+  // once; the work happens on the I/O thread.
+  void Stop();
+
+  std::size_t open_connections() const;
+  std::uint64_t accepted_connections() const;
+
+  struct State;  // shared with the sessions (tcp_listener.cc)
+
+ private:
+  std::shared_ptr<State> state_;
+};
+
+}  // namespace plumbline
