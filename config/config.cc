@@ -53,12 +53,14 @@ constexpr std::string_view kMetricsKeys[] = {"series_limit"};
 constexpr std::string_view kProfileKeys[] = {
     "match",  "kind",      "seasons",  "gaps",          "warmup",    "arl0",
     "shift",  "detectors", "agree",    "silence_after", "harmonics", "every",
-    "memory", "trend",     "lateness", "agree_within",  "cooldown"};
+    "memory", "trend",     "lateness", "agree_within",  "cooldown", "level_noise"};
 
 // Documents looked at after the first: enough to see a second document and a
 // parser that no longer advances.
 constexpr int kDocumentsToScan = 4;
 
+constexpr std::string_view kLevelNoiseHint =
+    "off, auto, or a number of noise variances per mean spacing such as 0.3";
 constexpr std::string_view kDurationHint =
     "a duration such as 15m (units ms, s, m, h, d, w)";
 
@@ -517,6 +519,23 @@ class Loader {
       if (Duration(f, false, &value)) p->memory = value;
     } else if (k == "trend") {
       Bool(f, &p->trend);
+    } else if (k == "level_noise") {
+      std::string text;
+      if (ScalarText(f, kLevelNoiseHint, &text)) {
+        if (text == "auto") {
+          p->level_noise_auto = true;
+          p->level_noise = 0.0;
+        } else if (text == "off") {
+          p->level_noise_auto = false;
+          p->level_noise = 0.0;
+        } else if (const std::optional<double> q = ParseFiniteNumber(text)) {
+          p->level_noise_auto = false;
+          p->level_noise = *q;
+        } else {
+          Error(f.Where(), std::string(f.key) + ": expected " + std::string(kLevelNoiseHint) +
+                               ", got '" + text + "'");
+        }
+      }
     } else if (k == "lateness") {
       Duration(f, true, &p->lateness);
     } else if (k == "agree_within") {
@@ -1038,6 +1057,11 @@ std::string DescribeProfile(const ProfileOptions& p) {
   if (p.every) out += ", every " + FormatDuration(*p.every);
   if (p.memory) out += ", memory " + FormatDuration(*p.memory);
   if (!p.trend) out += ", no trend";
+  if (p.level_noise_auto) {
+    out += ", level_noise auto";
+  } else if (p.level_noise > 0) {
+    out += ", level_noise " + FormatNumber(p.level_noise);
+  }
   if (p.lateness > 0) out += ", lateness " + FormatDuration(p.lateness);
   if (p.cooldown > 0) out += ", cooldown " + std::to_string(p.cooldown);
   return out;

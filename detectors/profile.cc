@@ -92,6 +92,9 @@ bool ProfileOptions::IsValid(std::string* why) const {
   if (silence_after && *silence_after <= 0) return fail("silence_after must be positive");
   if (every && *every <= 0) return fail("every must be a positive duration");
   if (memory && *memory <= 0) return fail("memory must be a positive duration");
+  if (!(level_noise >= 0 && level_noise <= 1000)) {
+    return fail("level_noise must be off, auto, or a number in [0, 1000]");
+  }
   if (lateness < 0) return fail("lateness must be zero or a positive duration");
   if (agree_within < 1 || agree_within > 1000) return fail("agree_within must be in [1, 1000] readings");
   if (cooldown < 0 || cooldown > 1000000) return fail("cooldown must be in [0, 1000000] readings");

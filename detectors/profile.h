@@ -58,6 +58,11 @@ struct ProfileOptions {
   std::optional<EventTime> every;    // bucket width; unset = each reading at its own time
   std::optional<EventTime> memory;   // forgetting timescale; unset = derived from seasons and spacing
   bool trend = true;                 // include a local linear trend term
+  // Does the level wander (a random walk under the noise)? 0 = no (the
+  // default); q > 0: its variance per mean spacing is q noise variances, [0, 1000];
+  // level_noise_auto: chosen from the warmup's forecasts (series_monitor.h).
+  double level_noise = 0.0;
+  bool level_noise_auto = false;
   EventTime lateness = 0;            // readings up to this much out of order are reordered
   int agree_within = 5;              // readings within which `agree` detectors must fire, [1, 1000]
   int cooldown = 0;                  // readings after an alert before the next; 0 = warmup

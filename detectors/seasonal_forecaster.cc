@@ -26,6 +26,10 @@ bool SeasonalForecasterOptions::IsValid(std::string* why) const {
   if (!(prior_variance > 0 && std::isfinite(prior_variance))) {
     return fail("prior_variance must be finite and > 0");
   }
+  if (!(level_noise >= 0 && level_noise <= kMaxLevelNoise)) {
+    return fail("level_noise must be in [0, 1000]");
+  }
+  if (level_noise_unit <= 0) return fail("level_noise_unit must be a positive duration");
   return true;
 }
 
@@ -111,7 +115,8 @@ Forecast SeasonalForecaster::PredictInterval(EventTime from, EventTime to) const
   FillIntervalRegressors(from, to, &x_);
   const double lambda = std::exp(-static_cast<double>(std::max<EventTime>(to - t_ref_, 0)) /
                                  static_cast<double>(options_.memory));
-  return {x_.dot(theta_), x_.dot(p_.selfadjointView<Eigen::Lower>() * x_) / lambda};
+  return {x_.dot(theta_), x_.dot(p_.selfadjointView<Eigen::Lower>() * x_) / lambda +
+                             x_[0] * x_[0] * LevelDrift(to - t_ref_)};
 }
 
 Forecast SeasonalForecaster::Predict(EventTime t) const {
@@ -121,7 +126,8 @@ Forecast SeasonalForecaster::Predict(EventTime t) const {
                                  static_cast<double>(options_.memory));
   Forecast f;
   f.value = x_.dot(theta_);
-  f.parameter_variance_factor = x_.dot(p_.selfadjointView<Eigen::Lower>() * x_) / lambda;
+  f.parameter_variance_factor = x_.dot(p_.selfadjointView<Eigen::Lower>() * x_) / lambda +
+                                x_[0] * x_[0] * LevelDrift(t - t_ref_);
   return f;
 }
 
@@ -173,8 +179,10 @@ StatusOr<Forecast> SeasonalForecaster::BeginUpdate(EventTime from, EventTime to)
   const double lambda = std::exp(
       -std::min(static_cast<double>(to - t_ref_) / static_cast<double>(options_.memory),
                 kMaxForgettingExponent));
+  const EventTime elapsed = to - t_ref_;
   Recentre(to);
   p_ /= lambda;
+  p_(0, 0) += LevelDrift(elapsed);
   // Bounding before the update as well keeps a long gap's huge P / lambda out
   // of the rank-one downdate (it would leave P with a condition number ~1e16).
   BoundCovariance(to);
@@ -245,6 +253,12 @@ void SeasonalForecaster::BoundCovariance(EventTime t) {
   p_.noalias() =
       eigen.eigenvectors() * clamped.asDiagonal() * eigen.eigenvectors().transpose();
   p_.triangularView<Eigen::StrictlyUpper>() = p_.transpose();
+}
+
+double SeasonalForecaster::LevelDrift(EventTime elapsed) const {
+  if (options_.level_noise == 0 || elapsed <= 0) return 0.0;
+  return options_.level_noise * static_cast<double>(elapsed) /
+         static_cast<double>(options_.level_noise_unit);
 }
 
 void SeasonalForecaster::ShiftLevel(double delta, double level_variance) {

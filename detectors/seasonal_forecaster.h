@@ -23,7 +23,7 @@
 // lambda_n = exp(-(t_n - t_{n-1}) / memory):
 //
 //   re-centre: l += b * (t_n - t_ref)/U;  P = A P A'  with A = I + e_l e_b' (t_n - t_ref)/U
-//   forget:    P = P / lambda_n
+//   forget:    P = P / lambda_n;  P_ll += q (t_n - t_{n-1}) / unit   (level noise, below)
 //   gain:      k = P x / (1 + x' P x)
 //   residual:  e = y - x' theta        (one step ahead: taken BEFORE the update)
 //   update:    theta += k e;  P -= k (P x)';  P = (P + P')/2
@@ -57,8 +57,22 @@
 // so a very large prior_variance costs digits: with y ~ 20 the difference from
 // the exact fit is ~1e-12 at prior_variance 1e4 and ~1e-8 at 1e8.
 //
-// Prediction variance: Var(y_new - yhat) = sigma^2 (1 + x' P x / lambda), with P
-// inflated for the time elapsed since the last update; ResidualScale supplies sigma.
+// Level noise (optional, q = level_noise >= 0): the level may also wander as a
+// random walk, l(t) = l(s) + eta with Var(eta) = q sigma^2 (t - s) / unit. This
+// is the Kalman filter of a local level (plus trend and seasonal) structural
+// model, with q its signal-to-noise ratio (Harvey 1989, "Forecasting, Structural
+// Time Series Models and the Kalman Filter", ch. 2 and 3; Durbin & Koopman 2001,
+// ch. 2; MEM): after forgetting, q (t_n - t_{n-1}) / unit is added to P_ll, so
+// the level keeps learning from recent readings at a rate set by q while the
+// seasonal coefficients keep their long memory. It suits series whose level
+// moves by small lasting steps all the time (monthly sales, traffic), where a
+// smooth trend would leave long runs of same-signed residuals. q = 0 (the
+// default) is the plain weighted least-squares fit above; with q > 0 the WLS
+// identity no longer holds. SeriesMonitor picks q per series from the data.
+//
+// Prediction variance: Var(y_new - yhat) = sigma^2 (1 + x' P x / lambda + q dt / unit),
+// with P inflated for the time dt elapsed since the last update; ResidualScale
+// supplies sigma.
 //
 // Choosing parameters: `memory` should span several of the longest season (the
 // default is 4 x the longest season, and at least 50 x the typical spacing); more
@@ -81,6 +95,11 @@ struct SeasonalForecasterOptions {
   bool trend = true;                // include the local linear trend b
   EventTime memory = 28 * kMicrosPerDay;  // forgetting timescale, > 0
   double prior_variance = 1e8;      // variance of the ridge prior on each coefficient, > 0
+  // Random-walk variance of the level per level_noise_unit of time, as a
+  // multiple of the noise variance (the signal-to-noise ratio q), [0, 1000].
+  double level_noise = 0.0;
+  EventTime level_noise_unit = kMicrosPerDay;  // > 0
+  static constexpr double kMaxLevelNoise = 1000.0;
 
   bool IsValid(std::string* why) const;
   // Default harmonics for a season period: sharper shapes for short periods.
@@ -140,6 +159,10 @@ class SeasonalForecaster {
   // variance (at most up to half the covariance bound below), so the model
   // re-baselines fast after a detected change.
   void ShiftLevel(double delta, double level_variance);
+  // Sets the time unit of level_noise (the series' mean spacing, say); > 0.
+  void SetLevelNoiseUnit(EventTime unit) {
+    if (unit > 0) options_.level_noise_unit = unit;
+  }
 
   const Vector& coefficients() const { return theta_; }
   const Matrix& covariance() const { return p_; }
@@ -147,6 +170,8 @@ class SeasonalForecaster {
 
  private:
   void FillRegressors(EventTime t, Vector* x) const;
+  // Level random-walk variance (in noise variances) accrued over `elapsed`.
+  double LevelDrift(EventTime elapsed) const;
   void FillIntervalRegressors(EventTime from, EventTime to, Vector* x) const;
   StatusOr<Forecast> UpdateWith(EventTime t, double y, bool interval, EventTime from);
 

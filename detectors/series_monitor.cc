@@ -254,7 +254,21 @@ void SeriesMonitor::StartForecaster() {
     options.memory = std::max<EventTime>(
         {4 * longest, static_cast<EventTime>(100.0 * spacing), kMicrosPerHour});
   }
+  options.level_noise = design_->profile.level_noise_auto ? 0.0 : design_->profile.level_noise;
   forecaster_.emplace(options);
+  rivals_.clear();
+  for (double q : kLevelNoiseGrid) {
+    if (!design_->profile.level_noise_auto) break;
+    if (q == options.level_noise) continue;
+    SeasonalForecasterOptions rival = options;
+    rival.level_noise = q;
+    rivals_.push_back({SeasonalForecaster(rival), {}});
+  }
+  // Level noise is measured per mean spacing, so q means the same for minute
+  // and monthly data.
+  const EventTime unit = std::max<EventTime>(1, static_cast<EventTime>(spacing));
+  forecaster_->SetLevelNoiseUnit(unit);
+  for (RivalForecaster& rival : rivals_) rival.forecaster.SetLevelNoiseUnit(unit);
   // Phase bins over the shortest season, about four readings wide, at most 48.
   EventTime shortest = 0;
   for (EventTime period : options.seasons) {
@@ -274,6 +288,52 @@ void SeriesMonitor::StartForecaster() {
     } else {
       (void)forecaster_->Update(h.to, h.y);
     }
+    ScoreRivals(h.from, h.to, h.y);
+  }
+}
+
+void SeriesMonitor::ForecastScore::Add(double error, double variance_factor) {
+  // Each candidate's standardised errors are whitened by an AR(1) fitted to its
+  // own earlier errors, as the pipeline whitens the leader's: errors that are
+  // merely autocorrelated (a shape the harmonics miss) must not pass for a
+  // wandering level.
+  const double u = error / std::sqrt(1.0 + variance_factor);
+  double whitened = u;
+  if (count > 0) {
+    const double phi = square > 0 ? std::clamp(cross / square, -kMaxPhi, kMaxPhi) : 0.0;
+    whitened = u - phi * previous;
+    cross += u * previous;
+    square += previous * previous;
+  }
+  previous = u;
+  scaled_squares += whitened * whitened;
+  log_spreads += std::log1p(variance_factor);
+  ++count;
+}
+
+double SeriesMonitor::ForecastScore::Criterion(bool extra_parameter) const {
+  // A forecaster with level noise must beat the plain one by a likelihood-ratio
+  // test at the 1% level (chi-square, 1 degree of freedom: 6.63), not merely by
+  // Akaike's 2: on short warmups a wandering level fits the start-up transient
+  // better by chance, and a level that wanders absorbs the shifts the detectors
+  // are there to find (the threshold is common practice, no source).
+  const double penalty = extra_parameter ? kLevelNoisePenalty : 0.0;
+  // Too little evidence: the plain forecaster stays.
+  if (count < kMinScores) return extra_parameter ? std::numeric_limits<double>::infinity() : 0.0;
+  const double n = static_cast<double>(count);
+  // The prediction-error decomposition of the Gaussian likelihood with the
+  // noise variance concentrated out (Harvey 1989, section 3.4; MEM).
+  return n * std::log(std::max(scaled_squares / n, 1e-300)) + log_spreads + penalty;
+}
+
+void SeriesMonitor::ScoreRivals(EventTime from, EventTime to, double y) {
+  for (RivalForecaster& rival : rivals_) {
+    SeasonalForecaster& f = rival.forecaster;
+    const bool scored = f.updates() >= kScoreAfterDimensions * f.dimension();
+    const StatusOr<Forecast> begun = f.BeginUpdate(from, to);
+    if (!begun.ok()) continue;
+    if (scored) rival.score.Add(y - begun->value, begun->parameter_variance_factor);
+    (void)f.CommitUpdate(y);
   }
 }
 
@@ -321,6 +381,23 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
     y_fit = f.value + (profile_->Mean(bin) + std::copysign(clip * phase_sigma, a)) * spread;
   }
   (void)forecaster_->CommitUpdate(y_fit);
+  if (!rivals_.empty()) {
+    if (forecaster_->updates() > kScoreAfterDimensions * forecaster_->dimension()) {
+      forecaster_score_.Add(y - f.value, f.parameter_variance_factor);
+    }
+    ScoreRivals(from, to, y);
+    // The best-scoring forecaster leads; once armed the choice is final.
+    for (RivalForecaster& rival : rivals_) {
+      if (rival.score.Criterion(rival.forecaster.options().level_noise > 0) <
+          forecaster_score_.Criterion(forecaster_->options().level_noise > 0)) {
+        std::swap(*forecaster_, rival.forecaster);
+        std::swap(forecaster_score_, rival.score);
+      }
+    }
+    if (observations_ > design_->profile.warmup) {
+      std::vector<RivalForecaster>().swap(rivals_);
+    }
+  }
   if (identified && !suspicious) {
     scale_.Update(a);
     profile_->Update(bin, u, a, scale_.sigma());

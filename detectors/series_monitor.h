@@ -52,6 +52,23 @@
 // narrower-spread side and BOCPD are not fed, since all-zero residuals would
 // look to them like a change.
 //
+// Wandering level (profile key level_noise): the forecaster's level may be
+// given random-walk noise, q noise variances per mean spacing (the local level
+// structural model, seasonal_forecaster.h). With `auto`, forecasters with q in
+// kLevelNoiseGrid run side by side until the detectors arm; each is scored by
+// the Gaussian likelihood of its one-step forecasts (prediction-error
+// decomposition with the noise variance concentrated out, each candidate's
+// errors whitened by its own AR(1)), and a q > 0 must beat the plain forecaster
+// by a likelihood-ratio test at the 5% level for a variance on the boundary
+// (a 50:50 mixture of chi-square 0 and 1: 2.71; Self & Liang 1987, JASA
+// 82:605-610; MEM). Scoring starts once a forecaster has seen twice as many
+// observations as it has coefficients and needs kMinScores errors, so short
+// warmups keep the plain forecaster. A wandering level absorbs slow shifts (a
+// shift is then told apart from the wandering only by its size), which is why
+// it is not the default: series such as monthly sales or traffic whose level
+// moves in small lasting steps all the time want it; sensors with a stationary
+// but autocorrelated noise do not (the AR(1) whitening below handles them).
+//
 // False-alarm budget: the profile's arl0 is shared so that all alert kinds
 // together keep it (union bound): level detectors get 1/2 of the rate
 // (ARL0 x 2), the variance CUSUM 1/4 (x 4), the arrival CUSUMs 1/4 (x 4, in gaps).
@@ -194,6 +211,34 @@ class SeriesMonitor {
   static constexpr int kMinScaleResiduals = 10;
   static constexpr int kMaxPhaseBins = 48;
   std::optional<SeasonalForecaster> forecaster_;
+  // Level-noise selection (see the header comment): until the detectors arm,
+  // forecasters that differ only in level_noise run beside forecaster_, each
+  // scored by the likelihood of its one-step forecasts; the best one leads
+  // (is forecaster_), and once armed the others are dropped.
+  struct ForecastScore {
+    double scaled_squares = 0.0;  // sum of whitened e^2 / (1 + f)
+    double log_spreads = 0.0;     // sum of ln(1 + f)
+    long long count = 0;
+    double previous = 0.0, cross = 0.0, square = 0.0;  // the AR(1) whitening's sums
+    static constexpr double kMaxPhi = 0.99;
+    void Add(double error, double variance_factor);
+    // -2 ln L, sigma^2 concentrated out, plus kLevelNoisePenalty with level noise.
+    double Criterion(bool extra_parameter) const;
+  };
+  struct RivalForecaster {
+    SeasonalForecaster forecaster;
+    ForecastScore score;
+  };
+  static constexpr double kLevelNoisePenalty = 2.71;
+  static constexpr std::array<double, 6> kLevelNoiseGrid = {0.0, 0.01, 0.03, 0.1, 0.3, 1.0};
+  // Forecasts are scored once a forecaster has seen this many times as many
+  // observations as it has coefficients (before that, its errors mostly tell
+  // how far from identified it still is), and a choice needs kMinScores of them.
+  static constexpr int kScoreAfterDimensions = 2;
+  static constexpr long long kMinScores = 10;
+  ForecastScore forecaster_score_;
+  std::vector<RivalForecaster> rivals_;
+  void ScoreRivals(EventTime from, EventTime to, double y);
   struct HeldObservation {
     EventTime from, to;
     double y;

@@ -33,7 +33,7 @@ GUARANTEED_KEYS = {"match", "kind", "seasons", "gaps", "warmup", "arl0", "shift"
 REQUIRED_KEYS = GUARANTEED_KEYS - {"silence_after"}
 # Further profile keys Plumbline documents (README "Using it"); allowed, not required.
 OPTIONAL_KEYS = {"harmonics", "every", "memory", "trend", "lateness", "agree_within",
-                 "cooldown"}
+                 "cooldown", "level_noise"}
 KINDS = {"gauge", "count", "meter"}
 GAPS = {"skip", "zero", "hold"}
 DETECTORS = {"cusum", "page-hinkley", "bocpd", "ewma"}

@@ -95,6 +95,7 @@ TEST(ConfigTest, OptionalKeysMapOntoTheStruct) {
     every: 90s
     memory: 2w
     trend: false
+    level_noise: 0.3
     lateness: 250ms
     detectors: [ewma, cusum]
     agree: 2
@@ -114,6 +115,8 @@ TEST(ConfigTest, OptionalKeysMapOntoTheStruct) {
   EXPECT_EQ(p.every, std::optional<EventTime>(90 * kMicrosPerSecond));
   EXPECT_EQ(p.memory, std::optional<EventTime>(14 * kDay));
   EXPECT_FALSE(p.trend);
+  EXPECT_EQ(p.level_noise, 0.3);
+  EXPECT_FALSE(p.level_noise_auto);
   EXPECT_EQ(p.lateness, 250'000);
   EXPECT_EQ(p.detectors,
             (std::vector<DetectorKind>{DetectorKind::kEwma, DetectorKind::kCusum}));
@@ -143,6 +146,8 @@ TEST(ConfigTest, AbsentKeysTakeTheStructDefaults) {
   EXPECT_EQ(p.every, defaults.every);
   EXPECT_EQ(p.memory, defaults.memory);
   EXPECT_EQ(p.trend, defaults.trend);
+  EXPECT_EQ(p.level_noise, defaults.level_noise);
+  EXPECT_EQ(p.level_noise_auto, defaults.level_noise_auto);
   EXPECT_EQ(p.lateness, defaults.lateness);
   EXPECT_EQ(p.agree_within, defaults.agree_within);
   EXPECT_EQ(p.cooldown, defaults.cooldown);
@@ -520,6 +525,24 @@ TEST(ConfigTest, MangledConfigsNeverCrashAndEveryErrorHasAPosition) {
     }
   }
   EXPECT_GT(failures, 300);  // the edits do break configs, so the loop checks something
+}
+
+}  // namespace
+}  // namespace plumbline
+
+namespace plumbline {
+namespace {
+
+TEST(ConfigLevelNoiseTest, TakesOffAutoOrANumberAndNamesTheChoicesOtherwise) {
+  const Config automatic = MustLoad("series:\n  - match: \"a/*\"\n    level_noise: auto\n");
+  EXPECT_TRUE(automatic.series[0].level_noise_auto);
+  const Config off = MustLoad("series:\n  - match: \"a/*\"\n    level_noise: off\n");
+  EXPECT_FALSE(off.series[0].level_noise_auto);
+  EXPECT_EQ(off.series[0].level_noise, 0.0);
+  ExpectOneError("series:\n  - match: \"a/*\"\n    level_noise: sometimes\n", 3, 18,
+                 {"level_noise", "off, auto, or a number", "sometimes"});
+  ExpectOneError("series:\n  - match: \"a/*\"\n    level_noise: -2\n", 3, 18,
+                 {"level_noise", "[0, 1000]"});
 }
 
 }  // namespace

@@ -486,3 +486,75 @@ TEST(SeasonalForecasterTest, ShiftLevelMovesForecastsAndKeepsCovariancePositiveD
 
 }  // namespace
 }  // namespace plumbline
+
+namespace plumbline {
+namespace {
+
+// Level noise turns the fit into the Kalman filter of the local level model.
+// Its predicted level variance converges to the steady state
+//   P = (q + sqrt(q^2 + 4 q)) / 2   (in noise variances, per step)
+// (Durbin & Koopman 2001, "Time Series Analysis by State Space Methods",
+// section 2.11, steady state of the local level model; MEM), and the level's
+// gain to P / (1 + P).
+TEST(SeasonalForecasterLevelNoiseTest, ReachesTheLocalLevelModelsSteadyState) {
+  for (double q : {0.01, 0.3, 2.0}) {
+    SeasonalForecasterOptions options;
+    options.trend = false;
+    options.memory = 100'000'000 * kMicrosPerDay;  // no forgetting to speak of
+    options.level_noise = q;
+    options.level_noise_unit = kMicrosPerMinute;
+    SeasonalForecaster forecaster(options);
+    Random random(17);
+    double level = 0.0;
+    EventTime t = 0;
+    for (int i = 0; i < 3000; ++i) {
+      level += std::sqrt(q) * random.Normal();
+      t += kMicrosPerMinute;
+      ASSERT_TRUE(forecaster.Update(t, level + random.Normal()).ok());
+    }
+    const double steady = (q + std::sqrt(q * q + 4.0 * q)) / 2.0;
+    const Forecast next = forecaster.Predict(t + kMicrosPerMinute);
+    EXPECT_NEAR(next.parameter_variance_factor, steady, 1e-6 * steady) << "q " << q;
+    // The gain: one more reading moves the level by P / (1 + P) of its error.
+    const double before = next.value;
+    const double y = before + 1.0;
+    ASSERT_TRUE(forecaster.Update(t + kMicrosPerMinute, y).ok());
+    EXPECT_NEAR(forecaster.coefficients()[0] - before, steady / (1.0 + steady), 1e-6)
+        << "q " << q;
+  }
+}
+
+TEST(SeasonalForecasterLevelNoiseTest, NoiseGrowsWithElapsedTimeAndZeroIsThePlainFit) {
+  SeasonalForecasterOptions options;
+  options.trend = false;
+  options.level_noise = 0.5;
+  options.level_noise_unit = kMicrosPerHour;
+  SeasonalForecasterOptions plain = options;
+  plain.level_noise = 0.0;
+  SeasonalForecaster wandering(options), fixed(plain);
+  for (int i = 1; i <= 50; ++i) {
+    const double y = std::sin(i * 0.7);
+    ASSERT_TRUE(wandering.Update(i * kMicrosPerHour, y).ok());
+    ASSERT_TRUE(fixed.Update(i * kMicrosPerHour, y).ok());
+  }
+  const EventTime last = 50 * kMicrosPerHour;
+  // Two hours ahead carries 0.5 x 2 more level variance than the plain fit's
+  // parameter variance would on its own (with forgetting the same in both).
+  const double extra_1h =
+      wandering.Predict(last + kMicrosPerHour).parameter_variance_factor -
+      wandering.Predict(last).parameter_variance_factor;
+  const double extra_2h =
+      wandering.Predict(last + 2 * kMicrosPerHour).parameter_variance_factor -
+      wandering.Predict(last).parameter_variance_factor;
+  const double plain_1h = fixed.Predict(last + kMicrosPerHour).parameter_variance_factor -
+                          fixed.Predict(last).parameter_variance_factor;
+  EXPECT_GT(extra_1h, plain_1h + 0.5 - 1e-9);
+  EXPECT_GT(extra_2h, extra_1h + 0.5 - 1e-6);
+  std::string why;
+  options.level_noise = -1;
+  EXPECT_FALSE(options.IsValid(&why));
+  EXPECT_NE(why.find("level_noise"), std::string::npos);
+}
+
+}  // namespace
+}  // namespace plumbline

@@ -838,3 +838,89 @@ TEST(SeriesMonitorFiniteTest,
 
 }  // namespace
 }  // namespace plumbline
+
+namespace plumbline {
+namespace {
+
+// A local level stream (common practice, no source): y = level + N(0, 1),
+// the level a random walk with variance q per reading, one reading a minute.
+std::vector<std::pair<EventTime, double>> LocalLevelStream(double q, int count,
+                                                           std::uint64_t seed) {
+  Random random(seed);
+  std::vector<std::pair<EventTime, double>> readings;
+  double level = 10.0;
+  for (int i = 0; i < count; ++i) {
+    level += std::sqrt(q) * random.Normal();
+    readings.emplace_back(kMicrosPerDay + i * kMicrosPerMinute, level + random.Normal());
+  }
+  return readings;
+}
+
+struct LevelNoiseRun {
+  double chosen_q = -1.0;
+  int level_alerts = 0;
+};
+
+LevelNoiseRun RunLevelNoise(const ProfileDesign& design,
+                            const std::vector<std::pair<EventTime, double>>& readings) {
+  SeriesMonitor monitor(&design);
+  LevelNoiseRun run;
+  std::vector<SeriesEvent> events;
+  for (const auto& [t, v] : readings) {
+    events.clear();
+    monitor.Observe(t, v, &events);
+    for (const SeriesEvent& e : events) {
+      if (e.type == EventType::kAlert && e.kind == AlertKind::kLevel) ++run.level_alerts;
+    }
+  }
+  run.chosen_q = monitor.forecaster()->options().level_noise;
+  return run;
+}
+
+ProfileOptions LevelNoiseProfile(bool automatic) {
+  ProfileOptions profile;
+  profile.seasons = {};
+  profile.trend = false;
+  profile.warmup = 300;
+  profile.arl0 = 5000;
+  profile.level_noise_auto = automatic;
+  return profile;
+}
+
+TEST(SeriesMonitorLevelNoiseTest, AutoFindsAWanderingLevelAndStopsItsFalseAlarms) {
+  const ProfileDesign automatic = MakeDesign(LevelNoiseProfile(true));
+  const ProfileDesign off = MakeDesign(LevelNoiseProfile(false));
+  int chosen_near = 0, alerts_auto = 0, alerts_off = 0;
+  constexpr int kTrials = 20;
+  for (int trial = 0; trial < kTrials; ++trial) {
+    const auto readings = LocalLevelStream(0.3, 3000, 900 + trial);
+    const LevelNoiseRun a = RunLevelNoise(automatic, readings);
+    const LevelNoiseRun o = RunLevelNoise(off, readings);
+    if (a.chosen_q >= 0.1 && a.chosen_q <= 1.0) ++chosen_near;  // the grid around 0.3
+    alerts_auto += a.level_alerts;
+    alerts_off += o.level_alerts;
+  }
+  std::printf("[figures] level_noise auto on a local level stream (q 0.3): q in [0.1, 1] in "
+              "%d/%d; level alerts %d with auto, %d with off, over %d x 3000 readings\n",
+              chosen_near, kTrials, alerts_auto, alerts_off, kTrials);
+  EXPECT_GE(chosen_near, 18);
+  EXPECT_LE(alerts_auto * 3, alerts_off);  // at least three times fewer (measured: 4x)
+  EXPECT_LE(alerts_auto, kTrials);         // ~1 false alarm per stream at most
+}
+
+TEST(SeriesMonitorLevelNoiseTest, AutoKeepsTheFixedLevelOnWhiteNoise) {
+  const ProfileDesign automatic = MakeDesign(LevelNoiseProfile(true));
+  int plain = 0;
+  constexpr int kTrials = 40;
+  for (int trial = 0; trial < kTrials; ++trial) {
+    const auto readings = LocalLevelStream(0.0, 400, 1900 + trial);
+    if (RunLevelNoise(automatic, readings).chosen_q == 0.0) ++plain;
+  }
+  std::printf("[figures] level_noise auto on white noise: plain level kept in %d/%d\n", plain,
+              kTrials);
+  // The test is at the 5% level, a little more with six candidates.
+  EXPECT_GE(plain, 34);
+}
+
+}  // namespace
+}  // namespace plumbline
