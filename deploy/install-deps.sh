@@ -7,6 +7,8 @@ packages=(
   build-essential cmake ninja-build pkg-config
   libboost-dev libeigen3-dev libyaml-cpp-dev prometheus-cpp-dev
   libgtest-dev libgmock-dev libbenchmark-dev
+  # deploy checks and the scrape test: promtool and a Prometheus server
+  prometheus
   # reference checks: numpy/scipy/statsmodels oracles and R's data sets
   python3 python3-numpy python3-scipy python3-statsmodels r-base-core r-cran-boot
 )
