@@ -682,4 +682,48 @@ void SeriesMonitor::StartRegime(EventTime change_at) {
   regime_observations_ = inside;
 }
 
+std::vector<SeriesMonitor::DetectorSnapshot> SeriesMonitor::DetectorSnapshots() const {
+  std::vector<DetectorSnapshot> out;
+  out.reserve(level_.size() + 2);
+  // Of two sides, the one with the larger fraction of its decision interval.
+  const auto nearer = [](std::string_view name, double a, double a_h, double b, double b_h) {
+    return a / a_h >= b / b_h ? DetectorSnapshot{name, a, a_h} : DetectorSnapshot{name, b, b_h};
+  };
+  for (std::size_t i = 0; i < level_.size(); ++i) {
+    const std::string_view name = ToString(level_kinds_[i]);
+    std::visit(
+        [&](const auto& detector) {
+          using T = std::decay_t<decltype(detector)>;
+          if constexpr (std::is_same_v<T, Cusum>) {
+            out.push_back({name, std::max(detector.upper(), detector.lower()),
+                           detector.options().h});
+          } else if constexpr (std::is_same_v<T, PageHinkley>) {
+            out.push_back({name, std::max(detector.up_statistic(), detector.down_statistic()),
+                           detector.options().lambda});
+          } else if constexpr (std::is_same_v<T, Bocpd>) {
+            out.push_back({name, detector.change_probability(), detector.options().threshold});
+          } else {
+            out.push_back({name, std::abs(detector.value()), detector.limit()});
+          }
+        },
+        level_[i]);
+  }
+  const VarianceCusumOptions& v = variance_.options();
+  out.push_back(nearer("variance", variance_.wider_statistic(), v.up_h,
+                       variance_.narrower_statistic(), v.down_h));
+  const ArrivalModelOptions& a = arrival_.options();
+  out.push_back(nearer("rate", arrival_.slower_statistic(), a.slower_h,
+                       arrival_.faster_statistic(), a.faster_h));
+  return out;
+}
+
+std::optional<SeriesMonitor::RunLengthSnapshot> SeriesMonitor::RunLength() const {
+  for (const LevelDetector& detector : level_) {
+    if (const Bocpd* bocpd = std::get_if<Bocpd>(&detector)) {
+      return RunLengthSnapshot{bocpd->map_run_length(), bocpd->change_probability()};
+    }
+  }
+  return std::nullopt;
+}
+
 }  // namespace plumbline

@@ -174,6 +174,23 @@ class SeriesMonitor {
   // Estimated lag-one autocorrelation of the residuals at the mean spacing.
   double residual_autocorrelation() const { return rho_; }
 
+  // What one detector shows now (for the HTTP API and metrics). A two-sided
+  // detector reports the side nearer its decision interval.
+  struct DetectorSnapshot {
+    std::string_view name;  // cusum | page-hinkley | bocpd | ewma | variance | rate
+    double statistic = 0.0;  // cusum, page-hinkley, variance, rate: the CUSUM sum;
+                             // bocpd: P(change within its window); ewma: |z|
+    double threshold = 0.0;  // the value at which it fires
+  };
+  // The level detectors in profile order, then the variance and rate CUSUM pairs.
+  std::vector<DetectorSnapshot> DetectorSnapshots() const;
+  // BOCPD's run-length view, when the profile runs BOCPD.
+  struct RunLengthSnapshot {
+    int most_likely = 0;  // MAP run length, in observations
+    double change_probability = 0.0;
+  };
+  std::optional<RunLengthSnapshot> RunLength() const;
+
  private:
   using LevelDetector = std::variant<Cusum, PageHinkley, Bocpd, Ewma>;
   struct Firing {
