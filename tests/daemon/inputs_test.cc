@@ -1,0 +1,381 @@
+// Inputs (daemon/file_follower.h, daemon/tcp_listener.h): the follower reads a
+// growing file, survives rotation and truncation and resumes from its saved
+// offset; the TCP listener takes readings from many connections at once,
+// refuses bad and over-long lines without closing the connection, and closes
+// idle ones. The rules are the headers' and DESIGN.md's ("Readings"); common
+// practice, no published source. Waits poll for an outcome with a generous
+// bound; nothing here measures speed.
+#include <gtest/gtest.h>
+#include <unistd.h>
+
+#include <atomic>
+#include <boost/asio/connect.hpp>
+#include <boost/asio/io_context.hpp>
+#include <boost/asio/ip/tcp.hpp>
+#include <boost/asio/read.hpp>
+#include <boost/asio/write.hpp>
+#include <chrono>
+#include <cstdio>
+#include <filesystem>
+#include <fstream>
+#include <functional>
+#include <map>
+#include <memory>
+#include <mutex>
+#include <string>
+#include <thread>
+#include <utility>  // before any Asio header (Boost 1.74 under C++20)
+#include <vector>
+
+#include "config/config.h"
+#include "daemon/file_follower.h"
+#include "daemon/tcp_listener.h"
+#include "detectors/time_format.h"
+
+namespace plumbline {
+namespace {
+
+namespace asio = boost::asio;
+using tcp = asio::ip::tcp;
+
+// Polls `done` every millisecond for up to 20 s.
+bool WaitFor(const std::function<bool()>& done) {
+  for (int i = 0; i < 20000; ++i) {
+    if (done()) return true;
+    std::this_thread::sleep_for(std::chrono::milliseconds(1));
+  }
+  return done();
+}
+
+std::string TempDir(const std::string& name) {
+  const std::string dir =
+      testing::TempDir() + "/inputs_" + name + "_" + std::to_string(::getpid());
+  std::filesystem::remove_all(dir);
+  std::filesystem::create_directories(dir);
+  return dir;
+}
+
+// Counts parse refusals by reason.
+class CountingObserver : public PipelineObserver {
+ public:
+  void OnParseRejected(ReadingError reason, std::uint64_t n) override {
+    std::lock_guard<std::mutex> lock(mutex_);
+    refused_[std::string(ToString(reason))] += n;
+  }
+  std::uint64_t Refused(const std::string& reason) {
+    std::lock_guard<std::mutex> lock(mutex_);
+    return refused_[reason];
+  }
+
+ private:
+  std::mutex mutex_;
+  std::map<std::string, std::uint64_t> refused_;
+};
+
+// Shards that accept any series; the test reads what reached them.
+class Pipeline {
+ public:
+  explicit Pipeline(std::size_t shards = 2) {
+    auto config =
+        LoadConfigText("series:\n  - seasons: []\n    warmup: 20\n", "test.yaml");
+    EXPECT_TRUE(config.ok());
+    set_ = std::make_unique<ShardSet>(shards, *config, ShardOptions{}, &clock_, nullptr,
+                                      &observer_);
+    set_->Start();
+  }
+  ~Pipeline() { set_->CloseAndJoin(); }
+  ShardSet* shards() { return set_.get(); }
+  CountingObserver* observer() { return &observer_; }
+  std::uint64_t Processed() {
+    std::uint64_t n = 0;
+    for (std::size_t i = 0; i < set_->size(); ++i) n += set_->shard(i).processed();
+    return n;
+  }
+  // Accepted readings per series, asked on the shard threads.
+  long long Readings(const std::string& series) {
+    auto n = set_->shard(set_->ShardFor(series))
+                 .Ask<long long>(
+                     [series](ShardState& s) {
+                       const SeriesExtras* e = s.Find(series);
+                       return e ? e->readings : 0LL;
+                     },
+                     std::chrono::seconds(10));
+    return n.value_or(-1);
+  }
+
+ private:
+  ManualClock clock_;
+  CountingObserver observer_;
+  std::unique_ptr<ShardSet> set_;
+};
+
+std::string Lines(const std::string& series, int from, int count) {
+  std::string text;
+  for (int i = from; i < from + count; ++i) {
+    text += FormatRfc3339((1'772'323'200LL + 60 * i) * kMicrosPerSecond) + "," + series +
+            "," + std::to_string(i % 10) + "\n";
+  }
+  return text;
+}
+
+void Append(const std::string& path, const std::string& text) {
+  std::ofstream file(path, std::ios::app | std::ios::binary);
+  file << text;
+}
+
+FileInputOptions Follow(const std::string& path) {
+  FileInputOptions o;
+  o.path = path;
+  o.poll_interval = 2000;  // 2 ms
+  return o;
+}
+
+TEST(FollowPositionTest, RoundTripsAndRefusesGarbage) {
+  const FollowPosition p{2049, 1234567, 987654321};
+  auto back = ParseFollowPosition(FormatFollowPosition("/var/log/a.csv", p));
+  ASSERT_TRUE(back);
+  EXPECT_EQ(back->device, p.device);
+  EXPECT_EQ(back->inode, p.inode);
+  EXPECT_EQ(back->offset, p.offset);
+  EXPECT_FALSE(ParseFollowPosition("1 2\n"));
+  EXPECT_FALSE(ParseFollowPosition("1 2 x\n"));
+  EXPECT_FALSE(ParseFollowPosition("1 2 3 4\n"));
+  EXPECT_FALSE(ParseFollowPosition("# only a comment"));
+  EXPECT_NE(FollowStatePath("/s", "/a.csv"), FollowStatePath("/s", "/b.csv"));
+  EXPECT_EQ(FollowStatePath("/s", "/a.csv").rfind("/s/follow-", 0), 0u);
+}
+
+TEST(FileFollowerTest, ReadsAGrowingFileLineByLineIncludingAPartialLineLater) {
+  Pipeline pipeline;
+  const std::string dir = TempDir("grow");
+  const std::string path = dir + "/readings.csv";
+  Append(path, "time,series,value\n" + Lines("a", 0, 100));
+  FileFollower follower(Follow(path), dir, pipeline.shards(), FileSystem::Default(),
+                        nullptr);
+  follower.Start();
+  ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 100; }));
+  // Half a line is held until its end arrives.
+  const std::string next = Lines("a", 100, 1);
+  Append(path, next.substr(0, 10));
+  Append(path, next.substr(10) + Lines("a", 101, 49));
+  ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 150; }));
+  EXPECT_EQ(pipeline.Readings("a"), 150);
+  EXPECT_EQ(follower.rejected_lines(), 0u);
+  follower.Stop();
+}
+
+TEST(FileFollowerTest, FollowsTheNewFileAfterRotationWithoutLosingTheOldTail) {
+  Pipeline pipeline;
+  const std::string dir = TempDir("rotate");
+  const std::string path = dir + "/readings.csv";
+  Append(path, Lines("a", 0, 50));
+  FileFollower follower(Follow(path), dir, pipeline.shards(), FileSystem::Default(),
+                        nullptr);
+  follower.Start();
+  ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 50; }));
+  // The writer adds a last line without its newline, the file is rotated,
+  // and a new one is started.
+  const std::string last = Lines("a", 50, 1);
+  Append(path, last.substr(0, last.size() - 1));
+  std::filesystem::rename(path, path + ".1");
+  Append(path, Lines("a", 51, 30));
+  ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 81; }));
+  EXPECT_EQ(pipeline.Readings("a"), 81);
+  EXPECT_EQ(follower.reopened(), 1u);
+  follower.Stop();
+}
+
+TEST(FileFollowerTest, StartsAgainFromTheTopAfterTruncation) {
+  Pipeline pipeline;
+  const std::string dir = TempDir("truncate");
+  const std::string path = dir + "/readings.csv";
+  Append(path, Lines("a", 0, 40));
+  FileFollower follower(Follow(path), dir, pipeline.shards(), FileSystem::Default(),
+                        nullptr);
+  follower.Start();
+  ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 40; }));
+  std::filesystem::resize_file(path, 0);
+  ASSERT_TRUE(WaitFor([&] { return follower.reopened() == 1; }));
+  Append(path, Lines("b", 0, 10));
+  ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 50; }));
+  EXPECT_EQ(pipeline.Readings("b"), 10);
+  follower.Stop();
+}
+
+TEST(FileFollowerTest, ResumesFromItsSavedOffsetAfterARestart) {
+  const std::string dir = TempDir("resume");
+  const std::string path = dir + "/readings.csv";
+  const std::string line60 = Lines("a", 60, 1);
+  Append(path, Lines("a", 0, 60) + line60.substr(0, line60.size() - 3));  // unfinished
+  {
+    Pipeline pipeline;
+    FileFollower follower(Follow(path), dir, pipeline.shards(), FileSystem::Default(),
+                          nullptr);
+    follower.Start();
+    ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 60; }));
+    follower.Stop();
+  }
+  // The saved offset is that of the last complete line.
+  auto saved = FileSystem::Default()->ReadFile(FollowStatePath(dir, path));
+  ASSERT_TRUE(saved.ok());
+  auto position = ParseFollowPosition(*saved);
+  ASSERT_TRUE(position);
+  EXPECT_EQ(position->offset, Lines("a", 0, 60).size());
+  Append(path, line60.substr(line60.size() - 3) + Lines("a", 61, 9));
+  Pipeline pipeline;
+  FileFollower follower(Follow(path), dir, pipeline.shards(), FileSystem::Default(),
+                        nullptr);
+  follower.Start();
+  ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 10; }));
+  EXPECT_EQ(pipeline.Readings("a"), 10);  // the 10 new lines, none of the 60 old
+  follower.Stop();
+}
+
+TEST(FileFollowerTest, StartAtEndSkipsWhatIsAlreadyThereOnAFirstRun) {
+  Pipeline pipeline;
+  const std::string dir = TempDir("end");
+  const std::string path = dir + "/readings.csv";
+  Append(path, Lines("a", 0, 30));
+  FileInputOptions options = Follow(path);
+  options.start_at = StartAt::kEnd;
+  FileFollower follower(options, dir, pipeline.shards(), FileSystem::Default(), nullptr);
+  follower.Start();
+  ASSERT_TRUE(WaitFor([&] { return follower.committed_offset() > 0; }));
+  Append(path, Lines("a", 30, 5));
+  ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 5; }));
+  follower.Stop();
+}
+
+TEST(FileFollowerTest, WaitsForAFileThatDoesNotExistYet) {
+  Pipeline pipeline;
+  const std::string dir = TempDir("later");
+  const std::string path = dir + "/readings.csv";
+  FileFollower follower(Follow(path), dir, pipeline.shards(), FileSystem::Default(),
+                        nullptr);
+  follower.Start();
+  std::this_thread::sleep_for(std::chrono::milliseconds(20));
+  Append(path, Lines("a", 0, 7));
+  ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 7; }));
+  follower.Stop();
+}
+
+// ---- TCP ----
+
+class TcpFixture : public testing::Test {
+ protected:
+  void StartListener(TcpListenerOptions options) {
+    options.port = 0;
+    listener_ = std::make_unique<TcpListener>(io_, options, pipeline_.shards(),
+                                              pipeline_.observer());
+    ASSERT_TRUE(listener_->Start().ok());
+    work_.emplace(asio::make_work_guard(io_));
+    thread_ = std::thread([this] { io_.run(); });
+  }
+  void TearDown() override {
+    if (listener_) listener_->Stop();
+    WaitFor([&] { return !listener_ || listener_->open_connections() == 0; });
+    work_.reset();
+    io_.stop();
+    if (thread_.joinable()) thread_.join();
+  }
+  tcp::socket Connect() {
+    tcp::socket socket(client_io_);
+    socket.connect(listener_->local_endpoint());
+    return socket;
+  }
+
+  Pipeline pipeline_;
+  asio::io_context io_;
+  asio::io_context client_io_;
+  std::optional<asio::executor_work_guard<asio::io_context::executor_type>> work_;
+  std::unique_ptr<TcpListener> listener_;
+  std::thread thread_;
+};
+
+TEST_F(TcpFixture, BadAndOverlongLinesAreRefusedWithoutClosingTheConnection) {
+  TcpListenerOptions options;
+  options.max_line_bytes = 100;
+  StartListener(options);
+  tcp::socket socket = Connect();
+  const std::string text = Lines("a", 0, 5) + "not,a,reading\n" + std::string(500, 'x') +
+                           "\n" + Lines("a", 5, 5);
+  asio::write(socket, asio::buffer(text));
+  ASSERT_TRUE(WaitFor([&] { return pipeline_.Processed() == 10; }));
+  EXPECT_EQ(pipeline_.observer()->Refused("bad_time"), 1u);
+  EXPECT_EQ(pipeline_.observer()->Refused("line_too_long"), 1u);
+  EXPECT_EQ(listener_->open_connections(), 1u);  // still open
+  asio::write(socket, asio::buffer(Lines("a", 10, 5)));
+  ASSERT_TRUE(WaitFor([&] { return pipeline_.Processed() == 15; }));
+  EXPECT_EQ(pipeline_.Readings("a"), 15);
+}
+
+TEST_F(TcpFixture, HundredsOfConcurrentConnectionsAllGetThrough) {
+  StartListener({});
+  constexpr int kConnections = 300, kLinesEach = 20;
+  std::vector<tcp::socket> sockets;
+  for (int c = 0; c < kConnections; ++c) sockets.push_back(Connect());
+  ASSERT_TRUE(WaitFor([&] { return listener_->open_connections() == kConnections; }));
+  for (int c = 0; c < kConnections; ++c) {
+    asio::write(sockets[c], asio::buffer(Lines("s" + std::to_string(c), 0, kLinesEach)));
+  }
+  for (auto& socket : sockets) socket.close();
+  ASSERT_TRUE(
+      WaitFor([&] { return pipeline_.Processed() == kConnections * kLinesEach; }));
+  EXPECT_EQ(pipeline_.Readings("s0"), kLinesEach);
+  EXPECT_EQ(pipeline_.Readings("s299"), kLinesEach);
+  ASSERT_TRUE(WaitFor([&] { return listener_->open_connections() == 0; }));
+}
+
+TEST_F(TcpFixture, LastLineWithoutNewlineCountsAtEndOfStream) {
+  StartListener({});
+  tcp::socket socket = Connect();
+  const std::string text = Lines("a", 0, 3);
+  asio::write(socket, asio::buffer(text.substr(0, text.size() - 1)));
+  socket.shutdown(tcp::socket::shutdown_send);
+  ASSERT_TRUE(WaitFor([&] { return pipeline_.Processed() == 3; }));
+}
+
+TEST_F(TcpFixture, IdleConnectionIsClosed) {
+  TcpListenerOptions options;
+  options.idle_timeout = 50 * 1000;  // 50 ms
+  StartListener(options);
+  tcp::socket socket = Connect();
+  asio::write(socket, asio::buffer(Lines("a", 0, 1)));
+  // The server closes: our read ends with end of stream.
+  char byte;
+  boost::system::error_code error;
+  asio::read(socket, asio::buffer(&byte, 1), error);
+  EXPECT_EQ(error, asio::error::eof);
+  ASSERT_TRUE(WaitFor([&] { return listener_->open_connections() == 0; }));
+  EXPECT_TRUE(WaitFor([&] { return pipeline_.Processed() == 1; }));
+}
+
+TEST_F(TcpFixture, ConnectionsBeyondTheLimitAreClosedAtOnce) {
+  TcpListenerOptions options;
+  options.max_connections = 2;
+  StartListener(options);
+  tcp::socket a = Connect(), b = Connect();
+  ASSERT_TRUE(WaitFor([&] { return listener_->open_connections() == 2; }));
+  tcp::socket c = Connect();
+  char byte;
+  boost::system::error_code error;
+  asio::read(c, asio::buffer(&byte, 1), error);
+  EXPECT_TRUE(error == asio::error::eof || error == asio::error::connection_reset)
+      << error.message();
+  EXPECT_EQ(listener_->open_connections(), 2u);
+}
+
+TEST_F(TcpFixture, AddressInUseIsReportedNotThrown) {
+  StartListener({});
+  TcpListenerOptions options;
+  options.port = listener_->local_endpoint().port();
+  asio::io_context other;
+  TcpListener second(other, options, pipeline_.shards(), nullptr);
+  const Status status = second.Start();
+  EXPECT_FALSE(status.ok());
+  EXPECT_NE(status.message().find("cannot listen on 127.0.0.1:"), std::string::npos)
+      << status.message();
+}
+
+}  // namespace
+}  // namespace plumbline

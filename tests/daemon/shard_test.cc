@@ -1,0 +1,362 @@
+// Shards (daemon/shard.h): the live engine gives the decisions `replay` gives
+// on the same readings, whatever the shard count; a full queue blocks its
+// producer; silence comes from the wall clock only once readings stop; a
+// reload keeps the state of series whose settings did not change. The rules
+// are DESIGN.md's ("Data flow", "Time is event time") and the header's;
+// common practice, no published source.
+#include "daemon/shard.h"
+
+#include <gtest/gtest.h>
+
+#include <atomic>
+#include <fstream>
+#include <mutex>
+#include <set>
+#include <sstream>
+#include <string>
+#include <thread>
+#include <tuple>
+#include <vector>
+
+#include "config/config.h"
+#include "daemon/reading_parser.h"
+#include "detectors/time_format.h"
+#include "tests/support/synthetic_stream.h"
+
+namespace plumbline {
+namespace {
+
+class CollectingPublisher : public AlertPublisher {
+ public:
+  void Publish(std::size_t, std::vector<Alert>* alerts) override {
+    std::lock_guard<std::mutex> lock(mutex_);
+    for (Alert& a : *alerts) alerts_.push_back(std::move(a));
+    alerts->clear();
+  }
+  std::vector<Alert> alerts() const {
+    std::lock_guard<std::mutex> lock(mutex_);
+    return alerts_;
+  }
+
+ private:
+  mutable std::mutex mutex_;
+  std::vector<Alert> alerts_;
+};
+
+using AlertKey = std::tuple<std::string, std::string, EventTime,
+                            EventTime>;  // id, event, change, detect
+
+std::multiset<AlertKey> Keys(const std::vector<Alert>& alerts) {
+  std::multiset<AlertKey> keys;
+  for (const Alert& a : alerts) {
+    keys.emplace(a.id, std::string(ToString(a.event)), a.change_at, a.detected_at);
+  }
+  return keys;
+}
+
+struct OwnedReading {
+  EventTime time;
+  std::string series;
+  double value;
+};
+
+std::vector<OwnedReading> ReadFixture(const std::string& path) {
+  std::ifstream file(path);
+  std::stringstream text;
+  text << file.rdbuf();
+  std::vector<OwnedReading> out;
+  ReadingParser parser({}, [&](const Reading& r) {
+    out.push_back({r.time, std::string(r.series), r.value});
+  });
+  parser.Feed(text.str());
+  parser.Finish();
+  return out;
+}
+
+// What `replay` does (daemon/replay_command.cc) for one time-ordered input.
+std::vector<Alert> Replay(const Config& config,
+                          const std::vector<OwnedReading>& readings) {
+  Engine engine(config);
+  std::vector<Alert> out;
+  for (const OwnedReading& r : readings) {
+    engine.AdvanceClock(r.time, &out);
+    engine.Ingest(r.series, r.time, r.value, &out);
+  }
+  engine.Finish(&out);
+  return out;
+}
+
+std::vector<Alert> RunShards(const Config& config,
+                             const std::vector<OwnedReading>& readings,
+                             std::size_t shards, const Clock* clock) {
+  CollectingPublisher publisher;
+  ShardSet set(shards, config, ShardOptions{}, clock, &publisher, nullptr);
+  set.Start();
+  {
+    ShardRouter router(&set);
+    std::uint64_t line = 0;
+    for (const OwnedReading& r : readings) {
+      EXPECT_TRUE(router.Add({r.time, r.series, r.value}, ++line));
+    }
+  }
+  set.CloseAndJoin();
+  return publisher.alerts();
+}
+
+TEST(ShardTest, DemoThroughShardsGivesReplaysEventsForAnyShardCount) {
+  const std::string fixture = PLUMBLINE_FIXTURES_DIR "/harbourside";
+  auto config = LoadConfigFile(fixture + "/plumbline.yaml");
+  ASSERT_TRUE(config.ok()) << config.status().message();
+  const std::vector<OwnedReading> readings = ReadFixture(fixture + "/readings.csv");
+  ASSERT_GT(readings.size(), 100000u);
+  const std::multiset<AlertKey> expected = Keys(Replay(*config, readings));
+  ASSERT_GT(expected.size(), 20u);
+  ManualClock clock;  // never advanced: a fast feed of old readings
+  for (std::size_t shards : {1u, 3u}) {
+    EXPECT_EQ(Keys(RunShards(*config, readings, shards, &clock)), expected)
+        << shards << " shards";
+  }
+}
+
+Config OneProfile(const std::string& yaml) {
+  auto config = LoadConfigText(yaml, "test.yaml");
+  EXPECT_TRUE(config.ok()) << config.status().message();
+  return *config;
+}
+
+constexpr char kGaugeProfile[] =
+    "series:\n  - match: \"**\"\n    seasons: []\n    warmup: 20\n    silence_after: "
+    "30m\n";
+
+std::vector<synthetic::SyntheticReading> Stream(long long count) {
+  synthetic::SyntheticStreamOptions o;
+  o.spacing = kMicrosPerMinute;
+  o.jitter = 0;
+  o.gap_probability = 0;
+  o.daily_amplitude = 0;
+  o.weekly_amplitude = 0;
+  o.trend_per_week = 0;
+  return synthetic::MakeSyntheticStream(o, count, 7);
+}
+
+// Tasks overtake queued batches by design; tests wait for the batches first.
+void WaitProcessed(const Shard& shard, std::uint64_t readings) {
+  for (int i = 0; i < 20000 && shard.processed() < readings; ++i) {
+    std::this_thread::sleep_for(std::chrono::milliseconds(1));
+  }
+  ASSERT_GE(shard.processed(), readings);
+}
+
+TEST(ShardTest, SilenceComesFromTheWallClockOnceReadingsStop) {
+  ManualClock clock;
+  CollectingPublisher publisher;
+  Shard shard(0, OneProfile(kGaugeProfile), ShardOptions{}, &clock, &publisher, nullptr);
+  shard.Start();
+  ReadingBatch batch;
+  const auto stream = Stream(100);
+  for (std::size_t i = 0; i < stream.size(); ++i) {
+    batch.Add({stream[i].time, "coldstore/freezer-1/temp_c", stream[i].value}, i + 1);
+  }
+  ASSERT_TRUE(shard.Push(&batch));
+  WaitProcessed(shard, stream.size());
+  // The readings span 100 minutes of event time but arrive at once: no silence.
+  ASSERT_TRUE(shard.PostTick());
+  ASSERT_TRUE(shard.Ask<int>([](ShardState&) { return 0; }, std::chrono::seconds(10)));
+  for (const Alert& a : publisher.alerts()) EXPECT_NE(a.kind, AlertKind::kSilence);
+
+  clock.Advance(29 * kMicrosPerMinute);
+  ASSERT_TRUE(shard.PostTick());
+  ASSERT_TRUE(shard.Ask<int>([](ShardState&) { return 0; }, std::chrono::seconds(10)));
+  for (const Alert& a : publisher.alerts()) EXPECT_NE(a.kind, AlertKind::kSilence);
+
+  clock.Advance(2 * kMicrosPerMinute);  // 31 minutes of wall time without a reading
+  ASSERT_TRUE(shard.PostTick());
+  ASSERT_TRUE(shard.Ask<int>([](ShardState&) { return 0; }, std::chrono::seconds(10)));
+  std::vector<Alert> silences;
+  for (const Alert& a : publisher.alerts()) {
+    if (a.kind == AlertKind::kSilence && a.event == EventType::kAlert)
+      silences.push_back(a);
+  }
+  ASSERT_EQ(silences.size(), 1u);
+  // Timed from the last reading's event time, as replay would.
+  EXPECT_EQ(silences[0].detected_at, stream.back().time + 30 * kMicrosPerMinute);
+  EXPECT_EQ(silences[0].change_at, stream.back().time);
+  shard.CloseInput();
+  shard.Join();
+}
+
+TEST(ShardTest, FullQueueBlocksTheProducerUntilTheShardTakesABatch) {
+  ManualClock clock;
+  ShardOptions options;
+  options.queue_batches = 1;
+  Shard shard(0, OneProfile(kGaugeProfile), options, &clock, nullptr, nullptr);
+  shard.Start();
+  // Hold the shard thread in a task, so nothing leaves the queue.
+  std::mutex gate;
+  gate.lock();
+  std::atomic<bool> holding{false};
+  ASSERT_TRUE(shard.Post([&](ShardState&) {
+    holding = true;
+    std::lock_guard<std::mutex> wait(gate);
+  }));
+  while (!holding) std::this_thread::yield();
+
+  auto one_batch = [] {
+    ReadingBatch batch;
+    batch.Add({1'772'323'200LL * kMicrosPerSecond, "a", 1.0}, 1);
+    return batch;
+  };
+  ReadingBatch first = one_batch();
+  ASSERT_TRUE(shard.Push(&first));  // fills the queue
+  EXPECT_EQ(shard.queue_depth(), 1u);
+  std::atomic<bool> second_pushed{false};
+  std::thread producer([&] {
+    ReadingBatch second = one_batch();
+    EXPECT_TRUE(shard.Push(&second));
+    second_pushed = true;
+  });
+  // However long we look, the producer stays blocked while the queue is full.
+  std::this_thread::sleep_for(std::chrono::milliseconds(50));
+  EXPECT_FALSE(second_pushed.load());
+  EXPECT_EQ(shard.queue_depth(), 1u);
+  gate.unlock();
+  producer.join();
+  EXPECT_TRUE(second_pushed.load());
+  shard.CloseInput();
+  shard.Join();
+  EXPECT_EQ(shard.processed(), 2u);
+}
+
+TEST(ShardTest, ClosedShardRefusesBatchesAndTasks) {
+  ManualClock clock;
+  Shard shard(0, OneProfile(kGaugeProfile), ShardOptions{}, &clock, nullptr, nullptr);
+  shard.Start();
+  shard.CloseInput();
+  shard.Join();
+  ReadingBatch batch;
+  batch.Add({0, "a", 1.0}, 1);
+  EXPECT_FALSE(shard.Push(&batch));
+  EXPECT_EQ(batch.size(), 1u);  // left as it was
+  EXPECT_FALSE(shard.Post([](ShardState&) {}));
+  EXPECT_FALSE(shard.Ask<int>([](ShardState&) { return 1; }, std::chrono::seconds(1)));
+}
+
+TEST(ShardTest, RouterSendsEverySeriesToOneStableShard) {
+  ManualClock clock;
+  const Config config = OneProfile(kGaugeProfile);
+  ShardSet a(4, config, ShardOptions{}, &clock, nullptr, nullptr);
+  ShardSet b(4, config, ShardOptions{}, &clock, nullptr, nullptr);
+  std::set<std::size_t> used;
+  for (int i = 0; i < 200; ++i) {
+    const std::string name = "coldstore/room-" + std::to_string(i) + "/temp_c";
+    EXPECT_EQ(a.ShardFor(name), b.ShardFor(name));
+    EXPECT_LT(a.ShardFor(name), 4u);
+    used.insert(a.ShardFor(name));
+  }
+  EXPECT_EQ(used.size(), 4u);  // 200 names reach every shard
+}
+
+TEST(ShardTest, TicketGathersVerdictsWithLineNumbersAcrossShards) {
+  ManualClock clock;
+  const Config config = OneProfile(
+      "series:\n  - match: \"coldstore/**\"\n    seasons: []\n    warmup: 20\n");
+  ShardSet set(3, config, ShardOptions{}, &clock, nullptr, nullptr);
+  set.Start();
+  auto ticket = std::make_shared<IngestTicket>();
+  {
+    ShardRouter router(&set, ticket);
+    const EventTime t0 = 1'772'323'200LL * kMicrosPerSecond;
+    for (int i = 0; i < 3000; ++i) {
+      const std::string name = "coldstore/room-" + std::to_string(i % 7) + "/temp_c";
+      ASSERT_TRUE(router.Add({t0 + i * kMicrosPerSecond, name, 1.0 + i % 3}, i + 1));
+    }
+    ASSERT_TRUE(router.Add({t0, "office/temp_c", 1.0}, 3001));            // no profile
+    ASSERT_TRUE(router.Add({t0, "coldstore/room-0/temp_c", 1.0}, 3002));  // late
+  }
+  ASSERT_TRUE(ticket->Wait(std::chrono::seconds(30)));
+  EXPECT_EQ(ticket->accepted(), 3000u);
+  EXPECT_EQ(ticket->refused(), 2u);
+  const auto refusals = ticket->first_refusals();
+  ASSERT_EQ(refusals.size(), 2u);
+  EXPECT_EQ(refusals[0].line, 3001u);
+  EXPECT_EQ(refusals[0].reason, "no_profile");
+  EXPECT_EQ(refusals[1].line, 3002u);
+  EXPECT_EQ(refusals[1].reason, "late");
+  set.CloseAndJoin();
+}
+
+TEST(IngestTicketTest, KeepsTheLowestLineNumbersInOrder) {
+  IngestTicket ticket;
+  for (std::uint64_t line : {50, 3, 40, 1, 30, 2, 20, 4, 10, 5, 60, 6}) {
+    ticket.Refuse(line, "bad_time");
+  }
+  EXPECT_EQ(ticket.refused(), 12u);
+  std::vector<std::uint64_t> lines;
+  for (const auto& r : ticket.first_refusals()) lines.push_back(r.line);
+  EXPECT_EQ(lines, (std::vector<std::uint64_t>{1, 2, 3, 4, 5, 6, 10, 20, 30, 40}));
+}
+
+// Observations made by each named series, asked on the shard thread.
+long long Observations(Shard& shard, const std::string& name) {
+  auto n = shard.Ask<long long>(
+      [name](ShardState& state) {
+        const SeriesMonitor* m = state.engine().Find(name);
+        return m ? m->observations() : -1LL;
+      },
+      std::chrono::seconds(10));
+  return n.value_or(-2);
+}
+
+TEST(ShardTest, ReloadKeepsSeriesWhoseSettingsDidNotChange) {
+  ManualClock clock;
+  const Config before = OneProfile(
+      "series:\n"
+      "  - match: \"coldstore/freezer-*/temp_c\"\n    seasons: []\n    warmup: 20\n"
+      "  - match: \"coldstore/compressor-*/power_kw\"\n    seasons: []\n    warmup: 20\n"
+      "  - match: \"coldstore/dock/*\"\n    seasons: []\n    warmup: 20\n");
+  Shard shard(0, before, ShardOptions{}, &clock, nullptr, nullptr);
+  shard.Start();
+  ReadingBatch batch;
+  const auto stream = Stream(60);
+  for (const char* name :
+       {"coldstore/freezer-1/temp_c", "coldstore/compressor-2/power_kw",
+        "coldstore/dock/door_openings"}) {
+    for (std::size_t i = 0; i < stream.size(); ++i) {
+      batch.Add({stream[i].time, name, stream[i].value}, i + 1);
+    }
+  }
+  ASSERT_TRUE(shard.Push(&batch));
+  WaitProcessed(shard, 3 * stream.size());
+  const long long seen = Observations(shard, "coldstore/freezer-1/temp_c");
+  ASSERT_GT(seen, 40);
+  EXPECT_EQ(Observations(shard, "coldstore/compressor-2/power_kw"), seen);
+
+  // Freezer: same settings under a wider glob (kept). Compressor: a new arl0
+  // (restarted). Dock: no profile any more (dropped).
+  const Config after = OneProfile(
+      "series:\n"
+      "  - match: \"coldstore/freezer-*/*\"\n    seasons: []\n    warmup: 20\n"
+      "  - match: \"coldstore/compressor-*/power_kw\"\n    seasons: []\n    warmup: 20\n"
+      "    arl0: 20000\n");
+  auto report = shard.Ask<ReconfigureReport>(
+      [&after](ShardState& state) {
+        std::vector<Alert> released;
+        return state.Reconfigure(after, &released);
+      },
+      std::chrono::seconds(30));
+  ASSERT_TRUE(report);
+  EXPECT_EQ(report->kept, 1u);
+  EXPECT_EQ(report->restarted, 1u);
+  EXPECT_EQ(report->dropped, 1u);
+  EXPECT_EQ(Observations(shard, "coldstore/freezer-1/temp_c"), seen);
+  EXPECT_EQ(Observations(shard, "coldstore/compressor-2/power_kw"), 0);
+  EXPECT_EQ(Observations(shard, "coldstore/dock/door_openings"), -1);
+  auto listed = shard.Ask<std::size_t>([](ShardState& s) { return s.series().size(); },
+                                       std::chrono::seconds(10));
+  EXPECT_EQ(listed, 2u);  // the dropped series left the API's list too
+  shard.CloseInput();
+  shard.Join();
+}
+
+}  // namespace
+}  // namespace plumbline
