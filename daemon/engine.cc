@@ -247,13 +247,18 @@ void Engine::Finish(std::vector<Alert>* out) {
 namespace {
 
 // Whether two profiles model and watch a series the same way: every setting
-// but `match`. (A key added to ProfileOptions must be added here too.)
+// but `match`. A key added to ProfileOptions must be compared here too; the
+// size check below trips when one is added (on the 64-bit Linux build), as a
+// reminder, after which update the size.
+static_assert(sizeof(void*) != 8 || sizeof(ProfileOptions) == 232,
+              "ProfileOptions changed: compare the new key in SameSettings, then update 232");
 bool SameSettings(const ProfileOptions& a, const ProfileOptions& b) {
   return a.kind == b.kind && a.seasons == b.seasons && a.gaps == b.gaps &&
          a.warmup == b.warmup && a.arl0 == b.arl0 && a.shift == b.shift &&
          a.detectors == b.detectors && a.agree == b.agree &&
          a.silence_after == b.silence_after && a.harmonics == b.harmonics &&
          a.every == b.every && a.memory == b.memory && a.trend == b.trend &&
+         a.level_noise == b.level_noise && a.level_noise_auto == b.level_noise_auto &&
          a.lateness == b.lateness && a.agree_within == b.agree_within &&
          a.cooldown == b.cooldown;
 }
