@@ -428,6 +428,14 @@ ApiResponse HttpApi::Ready() const {
 ApiResponse HttpApi::Metrics() const {
   std::string why;
   metrics_->SetReady(view_.Ready(&why));
+  // Per-series detector gauges (at most max_detector_series series), as of now.
+  for (const auto& [name, gauges] : metrics_->AdmittedSeries()) {
+    const std::optional<SeriesDetail> detail = view_.GetSeries(name);
+    if (!detail) continue;
+    for (const SeriesDetail::DetectorState& d : detail->detectors) {
+      gauges->Set(d.name, d.statistic, d.threshold);
+    }
+  }
   ApiResponse response;
   response.route = "metrics";
   response.content_type = std::string(kPrometheusTextContentType);

@@ -11,7 +11,9 @@
 //   GET  /v1/alerts?since=T      alerts and events at or after T (RFC 3339 or epoch seconds)
 //   GET  /healthz                200 while the process serves requests
 //   GET  /readyz                 200, or 503 with the reason
-//   GET  /metrics                Prometheus text exposition (ServiceMetrics)
+//   GET  /metrics                Prometheus text exposition (ServiceMetrics); first
+//                                refreshes the per-series detector gauges of the
+//                                admitted series (one ServiceView::GetSeries each)
 //
 // GET routes answer HEAD too. An unknown path is 404; a known path with
 // another method is 405 with an Allow header. Errors are JSON

@@ -265,6 +265,14 @@ SeriesGauges* ServiceMetrics::AdmitSeries(std::string_view series) {
   return result;
 }
 
+std::vector<std::pair<std::string, SeriesGauges*>> ServiceMetrics::AdmittedSeries() const {
+  std::lock_guard<std::mutex> lock(series_mutex_);
+  std::vector<std::pair<std::string, SeriesGauges*>> out;
+  out.reserve(admitted_.size());
+  for (const auto& [name, gauges] : admitted_) out.emplace_back(name, gauges.get());
+  return out;
+}
+
 void ServiceMetrics::CountHttpRequest(std::string_view route, unsigned status) {
   http_requests_family_->Add({{"route", std::string(route)}, {"code", std::to_string(status)}})
       .Increment();

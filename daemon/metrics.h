@@ -26,6 +26,8 @@
 //   plumbline_sink_failures_total{sink}             failed deliveries or writes, by sink
 //   plumbline_detector_statistic{series,detector}   per-series detector statistic  } at most
 //   plumbline_detector_threshold{series,detector}   and its decision interval      } max_detector_series
+//                                                   (refreshed at each scrape by HttpApi: one
+//                                                   ServiceView::GetSeries per admitted series)
 //   plumbline_detector_series                       series that have detector gauges
 //   plumbline_detector_series_refused_total         series refused by the cardinality guard
 //   plumbline_ready                                 1 when /readyz answers 200, else 0
@@ -145,6 +147,9 @@ class ServiceMetrics {
   // one. Call it once per series (when its shard creates it) and keep the
   // pointer, so each refused series is counted once.
   SeriesGauges* AdmitSeries(std::string_view series);
+  // The admitted series, by name, with their gauges (a copy of the list: the
+  // pointers stay valid as long as this object).
+  std::vector<std::pair<std::string, SeriesGauges*>> AdmittedSeries() const;
 
   // ---- HTTP ----
   void CountHttpRequest(std::string_view route, unsigned status);
@@ -185,7 +190,7 @@ class ServiceMetrics {
   prometheus::Gauge* http_connections_;
   prometheus::Gauge* ready_;
 
-  std::mutex series_mutex_;  // guards admitted_
+  mutable std::mutex series_mutex_;  // guards admitted_
   std::map<std::string, std::unique_ptr<SeriesGauges>, std::less<>> admitted_;
 };
 

@@ -283,6 +283,14 @@ std::optional<SeriesDetail> Service::GetSeries(std::string_view name) {
                 detail.summary = Summarise(state, wanted, *extras);
                 detail.sigma = monitor->scale().sigma();
                 detail.last_z = monitor->last_z();
+                for (const SeriesMonitor::DetectorSnapshot& d : monitor->DetectorSnapshots()) {
+                  detail.detectors.push_back({std::string(d.name), d.statistic, d.threshold});
+                }
+                if (const auto run_length = monitor->RunLength()) {
+                  detail.run_length = SeriesDetail::RunLength{
+                      static_cast<double>(run_length->most_likely),
+                      run_length->change_probability};
+                }
                 const SeasonalForecaster* forecaster = monitor->forecaster();
                 if (forecaster && forecaster->has_data()) {
                   const Forecast f = forecaster->Predict(extras->last_time);

@@ -413,6 +413,19 @@ TEST_F(HttpServerTest, MetricsIsPrometheusTextWithTheReadingsCounter) {
             std::string::npos);
 }
 
+TEST_F(HttpServerTest, MetricsShowDetectorGaugesOfAdmittedSeriesAsOfTheScrape) {
+  StartServer();
+  ASSERT_EQ(Post("/v1/readings", kReadings).status, 200u);
+  const std::string text = Get("/metrics").body;
+  EXPECT_NE(text.find("\nplumbline_detector_statistic{detector=\"cusum\","
+                      "series=\"coldstore/freezer-1/temp_c\"} 1.5\n"),
+            std::string::npos);
+  EXPECT_NE(text.find("\nplumbline_detector_threshold{detector=\"page-hinkley\","
+                      "series=\"coldstore/dock/door_openings\"} 7\n"),
+            std::string::npos);
+  EXPECT_NE(text.find("\nplumbline_detector_series 3\n"), std::string::npos);
+}
+
 TEST_F(HttpServerTest, MetricsShowNotReady) {
   StartServer();
   view_->SetReady(false, "restoring state");

@@ -51,7 +51,9 @@ class FakeServiceView : public ServiceView {
     parser.Finish();
     std::lock_guard<std::mutex> lock(mutex_);
     for (auto& [name, reading] : readings) {
-      Series& s = series_[name];
+      auto [it, inserted] = series_.try_emplace(name);
+      Series& s = it->second;
+      if (inserted && metrics_) metrics_->AdmitSeries(name);  // as the service does
       s.summary.name = name;
       s.summary.kind = "gauge";
       s.summary.last_time = reading.time;
