@@ -1,0 +1,283 @@
+// Service (daemon/service.h) through its ServiceView: the ingest receipt counts
+// and names refused lines by number, the series views answer from the shards,
+// alerts are kept for "since" queries, readiness follows the durable sinks,
+// and a reload reports what it kept. Also the logger's line format. The rules
+// are ServiceView's and DESIGN.md's; common practice, no published source.
+#include "daemon/service.h"
+
+#include <gtest/gtest.h>
+#include <unistd.h>
+
+#include <atomic>
+#include <filesystem>
+#include <string>
+#include <thread>
+#include <vector>
+
+#include "daemon/log.h"
+#include "detectors/time_format.h"
+
+namespace plumbline {
+namespace {
+
+std::string TempDir(const std::string& name) {
+  const std::string dir =
+      testing::TempDir() + "/service_" + name + "_" + std::to_string(::getpid());
+  std::filesystem::remove_all(dir);
+  return dir;
+}
+
+// POSIX, except that fsync fails once told to.
+class FailingSyncFileSystem : public FileSystem {
+ public:
+  std::atomic<bool> fail{false};
+  StatusOr<std::unique_ptr<WritableFile>> OpenAppend(const std::string& path) override {
+    auto file = FileSystem::Default()->OpenAppend(path);
+    if (!file.ok()) return file.status();
+    return std::unique_ptr<WritableFile>(new File(this, std::move(file).value()));
+  }
+  Status ReplaceFile(const std::string& p, std::string_view c) override {
+    return FileSystem::Default()->ReplaceFile(p, c);
+  }
+  StatusOr<std::string> ReadFile(const std::string& p) override {
+    return FileSystem::Default()->ReadFile(p);
+  }
+  Status CreateDirectories(const std::string& p) override {
+    return FileSystem::Default()->CreateDirectories(p);
+  }
+
+ private:
+  class File : public WritableFile {
+   public:
+    File(FailingSyncFileSystem* fs, std::unique_ptr<WritableFile> inner)
+        : fs_(fs), inner_(std::move(inner)) {}
+    Status Append(std::string_view d) override { return inner_->Append(d); }
+    Status Sync() override {
+      return fs_->fail ? Status::IoError("injected: no space left on device")
+                       : inner_->Sync();
+    }
+    Status Close() override { return inner_->Close(); }
+
+   private:
+    FailingSyncFileSystem* fs_;
+    std::unique_ptr<WritableFile> inner_;
+  };
+};
+
+constexpr char kProfiles[] =
+    "series:\n"
+    "  - match: \"coldstore/**\"\n    seasons: []\n    warmup: 20\n    silence_after: "
+    "30m\n";
+
+Config MakeConfig(const std::string& state, const std::string& profiles = kProfiles) {
+  auto config = LoadConfigText(profiles, "test.yaml");
+  EXPECT_TRUE(config.ok()) << config.status().message();
+  config->service.tcp.enabled = false;
+  config->service.shards = 2;
+  config->service.state_directory = state;
+  config->service.sinks.to_stdout = false;
+  return *config;
+}
+
+std::string Body(const std::string& series, int from, int count, double level) {
+  std::string text;
+  for (int i = from; i < from + count; ++i) {
+    text += FormatRfc3339((1'772'323'200LL + 60 * i) * kMicrosPerSecond) + "," + series +
+            "," + std::to_string(level + 0.1 * (i % 5)) + "\n";
+  }
+  return text;
+}
+
+TEST(ServiceTest, IngestReceiptCountsAndNamesRefusedLinesByNumber) {
+  ManualClock clock;
+  ServiceDependencies deps;
+  deps.clock = &clock;
+  Service service(MakeConfig(TempDir("receipt")), deps);
+  {
+    const Status started = service.Start();
+    ASSERT_TRUE(started.ok()) << started.message();
+  }
+  const std::string body =
+      "time,series,value\n" + Body("coldstore/freezer-1/temp_c", 0, 50, -20) +
+      "garbage\n" +                                              // line 52
+      "2026-03-01T02:00:00Z,office/kettle/temp_c,90\n" +         // line 53
+      "2026-03-01T00:00:00Z,coldstore/freezer-1/temp_c,-20\n" +  // late
+      "\n" + Body("coldstore/freezer-1/temp_c", 50, 10, -20);
+  const IngestReceipt receipt = service.IngestLines(body);
+  EXPECT_EQ(receipt.accepted, 60u);
+  EXPECT_EQ(receipt.rejected, 3u);
+  ASSERT_EQ(receipt.first_rejections.size(), 3u);
+  EXPECT_EQ(receipt.first_rejections[0].line, 52u);
+  EXPECT_EQ(receipt.first_rejections[0].reason, "wrong_field_count");
+  EXPECT_EQ(receipt.first_rejections[1].line, 53u);
+  EXPECT_EQ(receipt.first_rejections[1].reason, "no_profile");
+  EXPECT_EQ(receipt.first_rejections[2].line, 54u);
+  EXPECT_EQ(receipt.first_rejections[2].reason, "late");
+  // The verdicts are in when IngestLines returns: the views see every reading.
+  const auto series = service.ListSeries("");
+  ASSERT_EQ(series.size(), 1u);
+  EXPECT_EQ(series[0].name, "coldstore/freezer-1/temp_c");
+  EXPECT_EQ(series[0].readings, 60);
+  EXPECT_EQ(series[0].kind, "gauge");
+  EXPECT_TRUE(series[0].armed);
+  service.Shutdown();
+}
+
+TEST(ServiceTest, SeriesViewsFilterByGlobAndDescribeOneSeries) {
+  ManualClock clock;
+  ServiceDependencies deps;
+  deps.clock = &clock;
+  Service service(MakeConfig(TempDir("views")), deps);
+  {
+    const Status started = service.Start();
+    ASSERT_TRUE(started.ok()) << started.message();
+  }
+  for (const char* name : {"coldstore/freezer-1/temp_c", "coldstore/freezer-2/temp_c",
+                           "coldstore/compressor-2/power_kw"}) {
+    ASSERT_EQ(service.IngestLines(Body(name, 0, 80, 10)).accepted, 80u);
+  }
+  const auto freezers = service.ListSeries("coldstore/freezer-*/temp_c");
+  ASSERT_EQ(freezers.size(), 2u);
+  EXPECT_EQ(freezers[0].name, "coldstore/freezer-1/temp_c");  // sorted
+  EXPECT_EQ(freezers[1].name, "coldstore/freezer-2/temp_c");
+  EXPECT_EQ(service.ListSeries("**").size(), 3u);
+
+  const auto detail = service.GetSeries("coldstore/compressor-2/power_kw");
+  ASSERT_TRUE(detail);
+  EXPECT_EQ(detail->summary.readings, 80);
+  EXPECT_EQ(detail->summary.last_time, (1'772'323'200LL + 60 * 79) * kMicrosPerSecond);
+  EXPECT_GT(detail->sigma, 0.0);
+  EXPECT_LT(detail->band_low, detail->forecast);
+  EXPECT_GT(detail->band_high, detail->forecast);
+  ASSERT_EQ(detail->recent_points.size(), 32u);  // the newest, oldest first
+  EXPECT_EQ(detail->recent_points.back().time, detail->summary.last_time);
+  EXPECT_LT(detail->recent_points.front().time, detail->recent_points.back().time);
+  EXPECT_FALSE(service.GetSeries("coldstore/nothing"));
+  service.Shutdown();
+}
+
+TEST(ServiceTest, AlertsAreKeptForSinceQueries) {
+  ManualClock clock;
+  ServiceDependencies deps;
+  deps.clock = &clock;
+  Config config = MakeConfig(TempDir("alerts"));
+  config.service.shards = 1;  // both series share the shard's event clock
+  Service service(config, deps);
+  {
+    const Status started = service.Start();
+    ASSERT_TRUE(started.ok()) << started.message();
+  }
+  ASSERT_EQ(service.IngestLines(Body("coldstore/freezer-1/temp_c", 0, 100, -20)).accepted,
+            100u);
+  // An hour after the freezer's last reading another series reports: the
+  // freezer has been silent since minute 99, so the alert is at minute 129.
+  ASSERT_EQ(service.IngestLines(Body("coldstore/freezer-2/temp_c", 160, 1, -20)).accepted,
+            1u);
+  std::vector<Alert> alerts;
+  for (int i = 0; i < 20000 && alerts.empty(); ++i) {
+    alerts = service.AlertsSince(0);
+    std::this_thread::sleep_for(std::chrono::milliseconds(1));
+  }
+  ASSERT_EQ(alerts.size(), 1u);
+  EXPECT_EQ(alerts[0].kind, AlertKind::kSilence);
+  EXPECT_EQ(alerts[0].series, "coldstore/freezer-1/temp_c");
+  const EventTime minute_129 = (1'772'323'200LL + 60 * 129) * kMicrosPerSecond;
+  EXPECT_EQ(alerts[0].detected_at, minute_129);
+  EXPECT_EQ(service.AlertsSince(minute_129).size(), 1u);
+  EXPECT_TRUE(service.AlertsSince(minute_129 + 1).empty());
+  service.Shutdown();
+}
+
+TEST(ServiceTest, NotReadyOnceTheAlertLogFailsAndSaysWhy) {
+  ManualClock clock;
+  FailingSyncFileSystem fs;
+  ServiceDependencies deps;
+  deps.clock = &clock;
+  deps.file_system = &fs;
+  Service service(MakeConfig(TempDir("ready")), deps);
+  std::string why;
+  EXPECT_FALSE(service.Ready(&why));
+  EXPECT_EQ(why, "starting");
+  {
+    const Status started = service.Start();
+    ASSERT_TRUE(started.ok()) << started.message();
+  }
+  EXPECT_TRUE(service.Ready(&why)) << why;
+  fs.fail = true;
+  // A silence alert reaches the alert log, whose fsync now fails.
+  service.IngestLines(Body("coldstore/freezer-1/temp_c", 0, 30, -20) +
+                      Body("coldstore/freezer-1/temp_c", 100, 1, -20));
+  for (int i = 0; i < 5000 && service.Ready(nullptr); ++i) {
+    std::this_thread::sleep_for(std::chrono::milliseconds(1));
+  }
+  EXPECT_FALSE(service.Ready(&why));
+  EXPECT_NE(why.find("alert log"), std::string::npos) << why;
+  EXPECT_NE(why.find("no space left"), std::string::npos) << why;
+  service.Shutdown();
+  EXPECT_FALSE(service.Ready(&why));
+  EXPECT_EQ(why, "shutting down");
+}
+
+TEST(ServiceTest, ReloadKeepsStateAndReportsServiceSettingsThatNeedARestart) {
+  ManualClock clock;
+  ServiceDependencies deps;
+  deps.clock = &clock;
+  const std::string state = TempDir("reload");
+  Service service(MakeConfig(state), deps);
+  {
+    const Status started = service.Start();
+    ASSERT_TRUE(started.ok()) << started.message();
+  }
+  ASSERT_EQ(service.IngestLines(Body("coldstore/freezer-1/temp_c", 0, 50, -20)).accepted,
+            50u);
+  Config next = MakeConfig(state);
+  next.service.shards = 3;
+  auto report = service.Reload(next);
+  ASSERT_TRUE(report.ok()) << report.status().message();
+  EXPECT_EQ(report->series.kept, 1u);
+  EXPECT_EQ(report->series.restarted, 0u);
+  ASSERT_EQ(report->ignored.size(), 1u);
+  EXPECT_NE(report->ignored[0].find("shards: 3"), std::string::npos)
+      << report->ignored[0];
+  EXPECT_EQ(service.shard_count(), 2u);  // unchanged until a restart
+  EXPECT_EQ(service.ListSeries("")[0].readings, 50);
+  service.Shutdown();
+  EXPECT_FALSE(service.Reload(next).ok());  // not running any more
+}
+
+TEST(ServiceTest, StartFailsCleanlyWhenTheStateDirectoryCannotBeMade) {
+  Service service(MakeConfig("/proc/plumbline-cannot-be-here"));
+  const Status status = service.Start();
+  EXPECT_FALSE(status.ok());
+  EXPECT_NE(status.message().find("/proc/plumbline-cannot-be-here"), std::string::npos);
+}
+
+TEST(LogTest, LinesAreLogfmtWithQuotedValuesWhereNeeded) {
+  EXPECT_EQ(
+      FormatLogFields(LogLevel::kWarning, "line refused",
+                      {{"input", "tcp"},
+                       {"line", 12},
+                       {"detail", "say \"hi\"\n"},
+                       {"empty", ""},
+                       {"ok", true}}),
+      "level=warning msg=\"line refused\" input=tcp line=12 detail=\"say \\\"hi\\\"\\n\" "
+      "empty=\"\" ok=true");
+  std::vector<std::string> lines;
+  SetLogWriter([&](std::string_view line) { lines.emplace_back(line); });
+  SetLogLevel(LogLevel::kWarning);
+  LogInfo("dropped");
+  LogError("kept", {{"x", 1.5}});
+  SetLogLevel(LogLevel::kInfo);
+  SetLogWriter(nullptr);
+  ASSERT_EQ(lines.size(), 1u);
+  EXPECT_EQ(lines[0].rfind("ts=", 0), 0u);
+  EXPECT_NE(lines[0].find(" level=error msg=kept x=1.5"), std::string::npos) << lines[0];
+  for (LogLevel level :
+       {LogLevel::kDebug, LogLevel::kInfo, LogLevel::kWarning, LogLevel::kError}) {
+    EXPECT_EQ(LogLevelFromString(ToString(level)), level);
+  }
+  EXPECT_FALSE(LogLevelFromString("loud"));
+}
+
+}  // namespace
+}  // namespace plumbline
