@@ -24,6 +24,9 @@ bool ArrivalModelOptions::IsValid(std::string* why) const {
   if (season < 0) return fail("arrival season must be zero or a positive duration");
   if (season_bins < 1 || season_bins > 1000) return fail("arrival season_bins must be in [1, 1000]");
   if (season > 0 && season / season_bins < 1) return fail("arrival season_bins too many for the season");
+  if (season_fold_bins < 0 || (season_fold_bins > 0 && season_bins % season_fold_bins != 0)) {
+    return fail("arrival season_fold_bins must be 0 or divide season_bins");
+  }
   if (shape_memory < 0) return fail("arrival shape_memory must be zero or positive");
   return true;
 }
@@ -52,10 +55,11 @@ StatusOr<ArrivalModelOptions> ArrivalModelOptions::Calibrated(double arl0) {
   return options;
 }
 
-ArrivalShape::ArrivalShape(EventTime period, int bins, EventTime memory)
+ArrivalShape::ArrivalShape(EventTime period, int bins, EventTime memory, int fold_bins)
     : period_(period),
       width_(period / bins),
       memory_(static_cast<double>(memory > 0 ? memory : 4 * period)),
+      fold_bins_(fold_bins > 0 && fold_bins < bins && bins % fold_bins == 0 ? fold_bins : 0),
       events_(static_cast<size_t>(bins), 0.0),
       exposure_(static_cast<size_t>(bins), 0.0),
       p_(static_cast<size_t>(bins), 1.0) {}
@@ -132,9 +136,26 @@ void ArrivalShape::Refresh() {
   // kShapePrior pseudo-events at the mean rate, weighted like a new event.
   const double prior_events = kShapePrior * weight_;
   const double prior_exposure = prior_events / rate;
+  // With two levels, each bin's prior rate is its phase's pooled rate.
+  std::vector<double>& parent = parent_scratch_;
+  if (fold_bins_ > 0) {
+    const size_t fold = static_cast<size_t>(fold_bins_);
+    std::vector<double>& parent_events = parent_events_scratch_;
+    parent.assign(fold, 0.0);
+    parent_events.assign(fold, 0.0);
+    for (size_t b = 0; b < p_.size(); ++b) {
+      parent_events[b % fold] += events_[b];
+      parent[b % fold] += exposure_[b];
+    }
+    for (size_t j = 0; j < fold; ++j) {
+      parent[j] = (parent_events[j] + prior_events) / (parent[j] + prior_exposure);
+    }
+  }
   double sum = 0;
   for (size_t b = 0; b < p_.size(); ++b) {
-    p_[b] = (events_[b] + prior_events) / (exposure_[b] + prior_exposure);
+    const double prior_rate =
+        fold_bins_ > 0 ? parent[b % static_cast<size_t>(fold_bins_)] : rate;
+    p_[b] = (events_[b] + prior_exposure * prior_rate) / (exposure_[b] + prior_exposure);
     sum += p_[b];
   }
   const double mean = sum / static_cast<double>(p_.size());
@@ -175,7 +196,10 @@ EventTime ArrivalShape::WallTimeAfter(EventTime from, double operational) const 
 }
 
 ArrivalModel::ArrivalModel(const ArrivalModelOptions& options) : options_(options) {
-  if (options.season > 0) shape_.emplace(options.season, options.season_bins, options.shape_memory);
+  if (options.season > 0) {
+    shape_.emplace(options.season, options.season_bins, options.shape_memory,
+                   options.season_fold_bins);
+  }
 }
 
 Alarm ArrivalModel::Observe(EventTime t) {

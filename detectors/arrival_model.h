@@ -61,6 +61,18 @@
 //
 // (e_b events and x_b exposure in bin b, rbar the mean rate, k = kShapePrior).
 //
+// Two-level pooling (with a shorter season that divides this one, such as a day
+// in a week): a weekly bin is shrunk toward its hour of the day instead, itself
+// pooled over the days and shrunk toward the mean rate as above,
+//
+//   r_j = (E_j + k) / (X_j + k / rbar)          (E_j, X_j: sums over the bins at phase j of the day)
+//   p_b = (e_b + k r_j / rbar) / (x_b + k / rbar)
+//
+// so a quiet night hour is learned from every night seen, not only from the same
+// night of the week (a hierarchical, empirical-Bayes prior; common practice, no
+// source). Without it a weekly shape needs weeks before its quiet hours stop
+// looking like a slowdown.
+//
 // It is used once it has seen one whole season (before that p = 1).
 //
 // Change time: the arrival that started the fired side's excursion (the reading
@@ -90,6 +102,8 @@ struct ArrivalModelOptions {
   EventTime season = 0;    // period of the arrival intensity's shape; 0 = even
   int season_bins = 1;     // phase bins of the shape, [1, 1000]
   EventTime shape_memory = 0;  // forgetting time of the shape; 0 = 4 seasons
+  int season_fold_bins = 0;    // bins of a shorter season that divides `season` (the
+                               // two-level pooling above); 0 = none; must divide season_bins
 
   // Reference values of the two sides (see above): theta -> 2 theta, theta -> theta / 2.
   static constexpr double kSlowerReference = 2.0 * std::numbers::ln2;
@@ -106,7 +120,9 @@ class ArrivalShape {
  public:
   static constexpr double kShapePrior = 2.0;  // pseudo-events per bin at the mean rate
 
-  ArrivalShape(EventTime period, int bins, EventTime memory);
+  // fold_bins: 0, or the bins of a shorter season dividing the period (must
+  // divide `bins`), toward whose phases the bins are pooled.
+  ArrivalShape(EventTime period, int bins, EventTime memory, int fold_bins = 0);
   // Records the stretch [from, to] in which the stream was watched, ending with
   // an arrival at `to`.
   void Record(EventTime from, EventTime to);
@@ -129,7 +145,9 @@ class ArrivalShape {
   EventTime period_;
   EventTime width_;               // bin width
   double memory_;                 // microseconds
+  int fold_bins_;                 // 0 = one-level pooling
   std::vector<double> events_, exposure_, p_;
+  std::vector<double> parent_scratch_, parent_events_scratch_;  // Refresh's, sized once
   double exposure_total_ = 0.0;   // unforgotten, for `learned`
   EventTime anchor_ = 0;          // weights grow as exp((t - anchor) / memory)
   double weight_ = 1.0;           // weight of the latest contribution

@@ -98,6 +98,15 @@ StatusOr<ProfileDesign> ProfileDesign::Make(const ProfileOptions& profile) {
                                                                   : 15 * kMicrosPerMinute;
     design.arrival.season_bins = static_cast<int>(
         std::clamp<EventTime>(design.arrival.season / slice, 1, 168));
+    // A shorter season that divides it into whole bins (a day in a week) pools
+    // the shape's bins by their phase in that season.
+    for (EventTime period : profile.seasons) {
+      if (period >= design.arrival.season || design.arrival.season % period != 0) continue;
+      const EventTime repeats = design.arrival.season / period;
+      if (design.arrival.season_bins % repeats != 0) continue;
+      const int fold = static_cast<int>(design.arrival.season_bins / repeats);
+      if (fold >= 2) design.arrival.season_fold_bins = std::max(design.arrival.season_fold_bins, fold);
+    }
   }
 
   design.forecaster.seasons = profile.seasons;
