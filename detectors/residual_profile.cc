@@ -7,11 +7,28 @@
 
 namespace plumbline {
 
-ResidualProfile::ResidualProfile(EventTime period, int bins, double clip)
+ResidualProfile::ResidualProfile(EventTime period, int bins, double clip, int fold_bins)
     : period_(period),
       clip_(clip),
       correction_(1.0 / ResidualScale::ClippedSecondMoment(clip)),
-      bins_(static_cast<size_t>(std::max(bins, 1))) {}
+      bins_(static_cast<size_t>(std::max(bins, 1))) {
+  if (fold_bins > 0 && fold_bins < this->bins() && this->bins() % fold_bins == 0) {
+    folded_.resize(static_cast<size_t>(fold_bins));
+  }
+}
+
+double ResidualProfile::PriorMean(int bin) const {
+  if (folded_.empty()) return 0.0;
+  const Bin_& j = folded_[static_cast<size_t>(bin) % folded_.size()];
+  return j.n / (j.n + kPrior) * j.mean;
+}
+
+double ResidualProfile::PriorVariance(int bin, double sigma_all) const {
+  const double all = sigma_all * sigma_all;
+  if (folded_.empty()) return all;
+  const Bin_& j = folded_[static_cast<size_t>(bin) % folded_.size()];
+  return (j.n * j.s2 + kPrior * all) / (j.n + kPrior);
+}
 
 int ResidualProfile::Bin(EventTime t) const {
   EventTime within = t % period_;
@@ -23,28 +40,39 @@ int ResidualProfile::Bin(EventTime t) const {
 
 double ResidualProfile::Mean(int bin) const {
   const Bin_& b = bins_[static_cast<size_t>(bin)];
-  return b.n / (b.n + kPrior) * b.mean;
+  return (b.n * b.mean + kPrior * PriorMean(bin)) / (b.n + kPrior);
 }
 
 double ResidualProfile::Sigma(int bin, double sigma_all) const {
   const Bin_& b = bins_[static_cast<size_t>(bin)];
-  return std::sqrt((b.n * b.s2 + kPrior * sigma_all * sigma_all) / (b.n + kPrior));
+  return std::sqrt((b.n * b.s2 + kPrior * PriorVariance(bin, sigma_all)) / (b.n + kPrior));
+}
+
+void ResidualProfile::Fold(Bin_* b, double r, double a, double sigma, double clip,
+                           double correction, double window) {
+  b->n += 1;
+  const double weight = 1.0 / std::min(b->n, window);
+  const double limit = 4.0 * sigma;
+  b->mean += (std::clamp(r, b->mean - limit, b->mean + limit) - b->mean) * weight;
+  const double clipped = std::min(a * a, clip * clip * sigma * sigma) * correction;
+  if (b->n == 1) {
+    b->s2 = clipped;
+  } else {
+    b->s2 += (clipped - b->s2) * weight;
+  }
 }
 
 void ResidualProfile::Update(int bin, double r, double a, double sigma_all) {
   if (!std::isfinite(r) || !std::isfinite(a) || !(sigma_all > 0)) return;
   const double sigma = Sigma(bin, sigma_all);
-  Bin_& b = bins_[static_cast<size_t>(bin)];
-  b.n += 1;
-  const double weight = 1.0 / std::min(b.n, static_cast<double>(kWindow));
-  const double limit = 4.0 * sigma;
-  b.mean += (std::clamp(r, b.mean - limit, b.mean + limit) - b.mean) * weight;
-  const double clipped = std::min(a * a, clip_ * clip_ * sigma * sigma) * correction_;
-  if (b.n == 1) {
-    b.s2 = clipped;
-  } else {
-    b.s2 += (clipped - b.s2) * weight;
+  if (!folded_.empty()) {
+    // The pooled phase sees every repeat, so its window spans as many periods.
+    const size_t j = static_cast<size_t>(bin) % folded_.size();
+    const double repeats = static_cast<double>(bins_.size() / folded_.size());
+    const double phase_sigma = std::sqrt(PriorVariance(bin, sigma_all));
+    Fold(&folded_[j], r, a, phase_sigma, clip_, correction_, kWindow * repeats);
   }
+  Fold(&bins_[static_cast<size_t>(bin)], r, a, sigma, clip_, correction_, kWindow);
 }
 
 }  // namespace plumbline

@@ -16,7 +16,21 @@
 // with n0 = kPrior readings of shrinkage (empirical-Bayes style partial pooling,
 // common practice, no source) and m(c) the clipped second moment of N(0,1)
 // (ResidualScale::ClippedSecondMoment). Bins are equal slices of the period, in
-// event time. Not thread-safe; owned by one shard.
+// event time.
+//
+// Two levels (fold_bins > 0): the period is a whole number of repeats of a
+// shorter season (a week of days), and each bin is shrunk toward its phase in
+// that shorter season, pooled over all repeats, instead of toward zero and the
+// whole series:
+//
+//   mean_b  = n_b / (n_b + n0) * m_b + n0 / (n_b + n0) * mean_j     (j = b mod fold_bins)
+//   mean_j  = N_j / (N_j + n0) * M_j                                (M_j, N_j over the repeats)
+//   sigma_b = sqrt((n_b s2_b + n0 sigma_j^2) / (n_b + n0)),  sigma_j likewise toward sigma_all
+//
+// So a shape shared by every day is learned from every day, while what sets one
+// day of the week apart (a Sunday with no orders, say: the smooth day and week
+// terms of the forecaster, being additive, cannot turn the daily pattern off for
+// one day) is learned as the weekly bins fill. Not thread-safe; owned by one shard.
 #pragma once
 
 #include <vector>
@@ -31,7 +45,8 @@ class ResidualProfile {
   static constexpr int kWindow = 200;     // readings per bin in the running means
 
   // period > 0, bins >= 1. One bin is a plain (phase-free) robust scale.
-  ResidualProfile(EventTime period, int bins, double clip);
+  // fold_bins: 0, or the bins of the shorter season (must divide bins; else 0).
+  ResidualProfile(EventTime period, int bins, double clip, int fold_bins = 0);
 
   int Bin(EventTime t) const;
   // The expected residual and its spread at the phase of t. `sigma_all` is the
@@ -42,6 +57,7 @@ class ResidualProfile {
   // whole-series scale.
   void Update(int bin, double r, double a, double sigma_all);
   int bins() const { return static_cast<int>(bins_.size()); }
+  int fold_bins() const { return static_cast<int>(folded_.size()); }
 
  private:
   struct Bin_ {
@@ -51,6 +67,13 @@ class ResidualProfile {
   double clip_;
   double correction_;
   std::vector<Bin_> bins_;
+  std::vector<Bin_> folded_;  // the shorter season's phases; empty for one level
+  // The prior each bin is shrunk toward: its phase's pooled values, or (one
+  // level) zero mean and the whole series' spread.
+  double PriorMean(int bin) const;
+  double PriorVariance(int bin, double sigma_all) const;
+  static void Fold(Bin_* b, double r, double a, double sigma, double clip, double correction,
+                   double window);
 };
 
 }  // namespace plumbline

@@ -288,7 +288,26 @@ void SeriesMonitor::StartForecaster() {
     bins = static_cast<int>(std::clamp(static_cast<double>(shortest) / (4.0 * spacing), 1.0,
                                        static_cast<double>(kMaxPhaseBins)));
   }
-  profile_.emplace(shortest > 0 ? shortest : kMicrosPerDay, bins, design_->scale.clip);
+  // With a longer season of up to a week that repeats the shortest a whole
+  // number of times (a week of days, a day of 8-hour defrost cycles), the
+  // profile spans it, its bins pooled by their phase in the shortest season
+  // (residual_profile.h): the additive seasonal terms cannot switch one day's
+  // pattern off, the profile can. Bins stay the same width, at most kMaxLongPhaseBins.
+  EventTime profile_period = shortest > 0 ? shortest : kMicrosPerDay;
+  int fold = 0;
+  if (shortest > 0 && spacing > 0) {
+    for (EventTime period : options.seasons) {
+      if (period <= shortest || period > 7 * kMicrosPerDay || period % shortest != 0) continue;
+      const int repeats = static_cast<int>(period / shortest);
+      if (bins * repeats > kMaxLongPhaseBins) continue;
+      if (period > profile_period) {
+        profile_period = period;
+        fold = bins;
+      }
+    }
+  }
+  profile_.emplace(profile_period, fold > 0 ? fold * static_cast<int>(profile_period / shortest) : bins,
+                   design_->scale.clip, fold);
   std::vector<HeldObservation> held;
   held.swap(probe_);
   for (const HeldObservation& h : held) {
