@@ -227,7 +227,7 @@ class SeriesMonitor {
   // Residuals the scale must have seen before the detectors arm.
   static constexpr int kMinScaleResiduals = 10;
   static constexpr int kMaxPhaseBins = 48;
-  static constexpr int kMaxLongPhaseBins = 168;  // a week of hours
+  static constexpr int kMaxLongPhaseBins = 168;  // a week of hours; the longer profile is skipped beyond it
   std::optional<SeasonalForecaster> forecaster_;
   // Level-noise selection (see the header comment): until the detectors arm,
   // forecasters that differ only in level_noise run beside forecaster_, each
