@@ -3,6 +3,7 @@
 #include <cmath>
 #include <cstdio>
 
+#include "detectors/glob.h"
 #include "detectors/time_format.h"
 
 namespace plumbline {
@@ -69,6 +70,15 @@ bool EngineOptions::IsValid(std::string* why) const {
   return true;
 }
 
+// The annotations whose glob matches a series name, in config order.
+std::vector<Annotation> AnnotationsFor(const Config& config, std::string_view name) {
+  std::vector<Annotation> out;
+  for (const Annotation& a : config.annotations) {
+    if (GlobMatch(a.match, name)) out.push_back(a);
+  }
+  return out;
+}
+
 std::string AlertToJson(const Alert& a) {
   std::string out = "{\"id\":";
   AppendJsonString(&out, a.id);
@@ -123,6 +133,10 @@ std::string AlertToJson(const Alert& a) {
     out += ",\"total_after\":";
     AppendNumber(&out, a.after);
   }
+  if (!a.annotation.empty()) {
+    out += a.event == EventType::kSuppressed ? ",\"suppressed_by\":" : ",\"explained_by\":";
+    AppendJsonString(&out, a.annotation);
+  }
   out += ",\"advisory\":true}";
   return out;
 }
@@ -136,6 +150,8 @@ std::string AlertToText(const Alert& a) {
     out += a.series;
     if (a.event == EventType::kRetrain) {
       out += "  retrain on " + FormatRfc3339(a.change_at) + " .. " + FormatRfc3339(a.window_to);
+    } else if (a.event == EventType::kSuppressed) {
+      out += "  " + std::string(ToString(a.kind)) + " held back by " + a.annotation;
     }
     return out;
   }
@@ -159,6 +175,7 @@ std::string AlertToText(const Alert& a) {
     for (size_t i = 0; i < a.detectors.size(); ++i) out += (i ? "," : "") + a.detectors[i];
     out += "]";
   }
+  if (!a.annotation.empty()) out += "  (expected: " + a.annotation + ")";
   return out;
 }
 
@@ -194,10 +211,17 @@ IngestOutcome Engine::Ingest(std::string_view name, EventTime time, double value
     series->name = std::string(name);
     series->design = design;
     series->monitor = std::make_unique<SeriesMonitor>(design);
+    series->monitor->SetAnnotations(AnnotationsFor(config_, series->name));
     it = series_.emplace(series->name, std::move(series)).first;
   }
   Series* series = it->second.get();
   scratch_.clear();
+  // The series' own event clock: a reading past its silence deadline shows
+  // the silence first (replay's AdvanceClock before this reading has already
+  // reported it, so this changes nothing there; serve relies on it).
+  if (const auto deadline = series->monitor->silence_deadline(); deadline && time >= *deadline) {
+    series->monitor->AdvanceClock(time, &scratch_);
+  }
   const ReadingVerdict verdict = series->monitor->Observe(time, value, &scratch_);
   Emit(*series, scratch_, out);
   if (verdict == ReadingVerdict::kLate) return IngestOutcome::kLate;
@@ -234,6 +258,14 @@ void Engine::AdvanceClock(EventTime now, std::vector<Alert>* out) {
     series->monitor->AdvanceClock(now, &scratch_);
     Emit(*series, scratch_, out);
   }
+}
+
+void Engine::AdvanceSeriesClock(std::string_view name, EventTime now, std::vector<Alert>* out) {
+  auto it = series_.find(name);
+  if (it == series_.end()) return;
+  scratch_.clear();
+  it->second->monitor->AdvanceClock(now, &scratch_);
+  Emit(*it->second, scratch_, out);
 }
 
 void Engine::Finish(std::vector<Alert>* out) {
@@ -301,6 +333,7 @@ ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
     }
     series.design = design;
     series.monitor = std::make_unique<SeriesMonitor>(design);
+    series.monitor->SetAnnotations(AnnotationsFor(config_, series.name));
     ++report.restarted;
     ++it;
   }
@@ -347,6 +380,7 @@ void Engine::Emit(const Series& series, const std::vector<SeriesEvent>& events,
     a.magnitude_sd = e.magnitude_sd;
     a.before = e.before;
     a.after = e.after;
+    a.annotation = e.annotation;
     // Fields joined by a NUL byte (which no field contains), so no two
     // different field lists hash the same text.
     const std::string fields = a.series + '\0' + std::string(ToString(a.event)) + '\0' +

@@ -35,6 +35,9 @@ struct Alert {
   double magnitude_sd = 0.0;
   double before = 0.0;
   double after = 0.0;
+  // The annotation (config `annotations`) that explains this alert, or for a
+  // suppressed event the maintenance window that held it back; else empty.
+  std::string annotation;
 };
 
 // One JSON object, no trailing newline. Guaranteed fields (DESIGN.md): series,
@@ -68,8 +71,13 @@ class Engine {
   // series must come in time order, up to its profile's `lateness`.
   IngestOutcome Ingest(std::string_view series, EventTime time, double value,
                        std::vector<Alert>* out);
-  // Reports silences due at `now`.
+  // Reports silences due at `now` (one clock for every series: replay's).
   void AdvanceClock(EventTime now, std::vector<Alert>* out);
+  // Reports the silence of one series if due at `now` (its own clock: serve,
+  // where independent inputs run at different speeds). Unknown names are
+  // ignored. Ingest itself reports a series' silence when a reading of it
+  // comes past its deadline.
+  void AdvanceSeriesClock(std::string_view series, EventTime now, std::vector<Alert>* out);
   // End of input: releases readings held for reordering.
   void Finish(std::vector<Alert>* out);
   // Replaces the profiles (a reload) without losing series state: a series

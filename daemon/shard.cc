@@ -55,7 +55,44 @@ ReconfigureReport ShardState::Reconfigure(const Config& config, std::vector<Aler
   ReconfigureReport report = engine_->Reconfigure(config, out);
   std::erase_if(extras_,
                 [this](const auto& entry) { return !engine_->Find(entry.first); });
+  // Entries may name dropped series, and deadlines changed: queue afresh.
+  silence_queue_ = {};
+  for (auto& [name, extras] : extras_) {
+    extras.scheduled = false;
+    ScheduleSilence(name, &extras);
+  }
   return report;
+}
+
+void ShardState::ScheduleSilence(const std::string& name, SeriesExtras* extras) {
+  if (extras->scheduled) return;
+  const SeriesMonitor* monitor = engine_->Find(name);
+  if (!monitor) return;
+  const auto deadline = monitor->silence_deadline();
+  if (!deadline) return;
+  silence_queue_.emplace(extras->arrived + (*deadline - extras->newest), &name);
+  extras->scheduled = true;
+}
+
+void ShardState::CheckSilences(EventTime now, std::vector<Alert>* out) {
+  while (!silence_queue_.empty() && silence_queue_.top().first <= now) {
+    const std::string& name = *silence_queue_.top().second;
+    silence_queue_.pop();
+    auto it = extras_.find(name);
+    if (it == extras_.end()) continue;
+    SeriesExtras& extras = it->second;
+    extras.scheduled = false;
+    const SeriesMonitor* monitor = engine_->Find(name);
+    const auto deadline = monitor ? monitor->silence_deadline() : std::nullopt;
+    if (!deadline) continue;  // silent already: its next reading queues it again
+    const EventTime due = extras.arrived + (*deadline - extras.newest);
+    if (due > now) {  // readings came since: wait for the current due time
+      silence_queue_.emplace(due, &it->first);
+      extras.scheduled = true;
+      continue;
+    }
+    engine_->AdvanceSeriesClock(name, extras.newest + (now - extras.arrived), out);
+  }
 }
 
 Shard::Shard(std::size_t index, const Config& config, ShardOptions options,
@@ -175,12 +212,6 @@ void Shard::Process(ReadingBatch& batch) {
   const std::size_t series_before = engine.series_count();
   for (const ReadingBatch::Entry& entry : batch.entries) {
     const std::string_view name = batch.name(entry);
-    if (!has_newest_ || entry.time > newest_) {
-      has_newest_ = true;
-      newest_ = entry.time;
-      newest_arrived_ = arrived;
-      engine.AdvanceClock(entry.time, &out_);
-    }
     const IngestOutcome outcome = engine.Ingest(name, entry.time, entry.value, &out_);
     ++counts[static_cast<int>(outcome)];
     if (outcome != IngestOutcome::kAccepted) {
@@ -198,6 +229,9 @@ void Shard::Process(ReadingBatch& batch) {
     ++extras.readings;
     extras.last_time = entry.time;
     extras.last_value = entry.value;
+    if (extras.readings == 1 || entry.time > extras.newest) extras.newest = entry.time;
+    extras.arrived = arrived;
+    state_.ScheduleSilence(it->first, &extras);
     if (options_.recent_points > 0) {
       if (extras.points.size() < options_.recent_points) {
         extras.points.push_back({entry.time, entry.value});
@@ -229,10 +263,8 @@ void Shard::Process(ReadingBatch& batch) {
 }
 
 void Shard::Tick() {
-  const EventTime now = clock_->Now();
-  last_tick_ = now;
-  if (!has_newest_) return;
-  state_.engine_->AdvanceClock(newest_ + (now - newest_arrived_), &out_);
+  last_tick_ = clock_->Now();
+  state_.CheckSilences(last_tick_, &out_);
 }
 
 void Shard::Publish() {

@@ -6,19 +6,21 @@
 // separate queue, so they never wait behind backpressure, and answered on the
 // shard thread.
 //
-// Time. Models and detectors run on event time, exactly as `replay` does: before
-// each reading whose time is past the shard's newest, the engine's clock is
-// advanced to that time (replay advances to each reading's time in merged
-// order, so for time-ordered input the decisions are the same). Silence in live
-// mode needs the wall clock: while no newer reading arrives, the shard's event
-// clock is carried forward by the elapsed monotonic time since the newest
-// reading arrived, checked every `tick`:
+// Time. Models and detectors run on event time, each series on its own: a
+// reading past its series' silence deadline first reports that silence, at
+// the deadline, as replay does (replay advances one clock for all series in
+// merged time order; both give the same alerts for every silence that ends
+// with a reading). Silence in live mode needs the wall clock: every `tick`
+// the shard looks for series whose last reading arrived longer ago, on the
+// monotonic clock, than their silence span (deadline - last reading), and
+// reports them at
 //
-//   now_event = newest_event_time + (clock.Now() - clock time when it arrived)
+//   now_event = last event time + (clock.Now() - clock time it arrived)
 //
-// A live stream (event time close to wall time) thus goes silent on the wall
-// clock, while a file of last month's readings fed at full speed gives
-// replay's silences, not a silence per series the moment it is read.
+// A live stream thus goes silent on the wall clock; a file of last month's
+// readings fed at full speed gives replay's silences; and inputs that run at
+// different speeds (two sites replaying history, one behind) never make each
+// other's series look silent.
 //
 // Thread-safety: Push, Post, CloseInput and the accessors may be called from
 // any thread; the ShardState handed to a task belongs to the shard thread.
@@ -34,6 +36,7 @@
 #include <memory>
 #include <mutex>
 #include <optional>
+#include <queue>
 #include <string>
 #include <string_view>
 #include <thread>
@@ -82,6 +85,9 @@ struct SeriesExtras {
   long long readings = 0;     // accepted
   EventTime last_time = 0;
   double last_value = 0.0;
+  EventTime newest = 0;    // newest event time accepted
+  EventTime arrived = 0;   // clock time when the last reading was accepted
+  bool scheduled = false;  // holds an entry in the silence queue
 
   // Points oldest first.
   std::vector<Point> RecentPoints() const;
@@ -116,11 +122,24 @@ class ShardState {
 
  private:
   friend class Shard;
+  // Queues the series' wall-clock silence check, unless queued already or it
+  // has no deadline now (then its next reading tries again).
+  void ScheduleSilence(const std::string& name, SeriesExtras* extras);
+  // Reports the silences due at clock time `now`.
+  void CheckSilences(EventTime now, std::vector<Alert>* out);
+
   std::size_t index_;
   Config config_;
   ShardOptions options_;
   std::unique_ptr<Engine> engine_;
   SeriesExtrasMap extras_;
+  // Wall-clock silence checks, earliest first, at most one per series: a
+  // reading moves a series' due time later without a new entry; an entry that
+  // comes due is re-queued at the current due time (or the silence fires).
+  // The names point at extras_'s keys (stable; rebuilt after a reload).
+  using SilenceEntry = std::pair<EventTime, const std::string*>;
+  std::priority_queue<SilenceEntry, std::vector<SilenceEntry>, std::greater<>>
+      silence_queue_;
 };
 
 class Shard {
@@ -202,11 +221,7 @@ class Shard {
   std::atomic<std::size_t> series_count_{0};
   std::atomic<std::uint64_t> processed_{0};
 
-  // Shard-thread state: the event clock (see the header comment).
-  bool has_newest_ = false;
-  EventTime newest_ = 0;          // newest event time seen
-  EventTime newest_arrived_ = 0;  // clock time when it was seen
-  EventTime last_tick_ = 0;
+  EventTime last_tick_ = 0;  // shard thread only
   std::vector<Alert> out_;
 };
 

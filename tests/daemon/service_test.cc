@@ -160,31 +160,36 @@ TEST(ServiceTest, AlertsAreKeptForSinceQueries) {
   ManualClock clock;
   ServiceDependencies deps;
   deps.clock = &clock;
-  Config config = MakeConfig(TempDir("alerts"));
-  config.service.shards = 1;  // both series share the shard's event clock
-  Service service(config, deps);
+  Service service(MakeConfig(TempDir("alerts")), deps);
   {
     const Status started = service.Start();
     ASSERT_TRUE(started.ok()) << started.message();
   }
   ASSERT_EQ(service.IngestLines(Body("coldstore/freezer-1/temp_c", 0, 100, -20)).accepted,
             100u);
-  // An hour after the freezer's last reading another series reports: the
-  // freezer has been silent since minute 99, so the alert is at minute 129.
+  // Another series' readings an hour later do not make the freezer silent
+  // (each series has its own event clock)...
   ASSERT_EQ(service.IngestLines(Body("coldstore/freezer-2/temp_c", 160, 1, -20)).accepted,
             1u);
+  // ...but 31 minutes of wall time without readings do: each silence is
+  // reported at its series' last reading + 30 minutes (minutes 129 and 190).
+  clock.Advance(31 * kMicrosPerMinute);
   std::vector<Alert> alerts;
-  for (int i = 0; i < 20000 && alerts.empty(); ++i) {
+  for (int i = 0; i < 20000 && alerts.size() < 2; ++i) {
     alerts = service.AlertsSince(0);
     std::this_thread::sleep_for(std::chrono::milliseconds(1));
   }
-  ASSERT_EQ(alerts.size(), 1u);
-  EXPECT_EQ(alerts[0].kind, AlertKind::kSilence);
-  EXPECT_EQ(alerts[0].series, "coldstore/freezer-1/temp_c");
+  ASSERT_EQ(alerts.size(), 2u);
   const EventTime minute_129 = (1'772'323'200LL + 60 * 129) * kMicrosPerSecond;
+  const EventTime minute_190 = (1'772'323'200LL + 60 * 190) * kMicrosPerSecond;
+  EXPECT_EQ(alerts[0].kind, AlertKind::kSilence);  // ordered by detected_at
+  EXPECT_EQ(alerts[0].series, "coldstore/freezer-1/temp_c");
   EXPECT_EQ(alerts[0].detected_at, minute_129);
-  EXPECT_EQ(service.AlertsSince(minute_129).size(), 1u);
-  EXPECT_TRUE(service.AlertsSince(minute_129 + 1).empty());
+  EXPECT_EQ(alerts[1].series, "coldstore/freezer-2/temp_c");
+  EXPECT_EQ(alerts[1].detected_at, minute_190);
+  EXPECT_EQ(service.AlertsSince(minute_129).size(), 2u);
+  ASSERT_EQ(service.AlertsSince(minute_129 + 1).size(), 1u);
+  EXPECT_EQ(service.AlertsSince(minute_129 + 1)[0].series, "coldstore/freezer-2/temp_c");
   service.Shutdown();
 }
 

@@ -185,6 +185,57 @@ TEST(ShardTest, SilenceComesFromTheWallClockOnceReadingsStop) {
   shard.Join();
 }
 
+TEST(ShardTest, InputsAtDifferentSpeedsDoNotMakeEachOtherSilent) {
+  // Two sites replay the same day of history, one far ahead of the other:
+  // each series keeps its own event clock, so neither looks silent.
+  ManualClock clock;
+  CollectingPublisher publisher;
+  Shard shard(0, OneProfile(kGaugeProfile), ShardOptions{}, &clock, &publisher, nullptr);
+  shard.Start();
+  const auto stream = Stream(600);
+  ReadingBatch ahead, behind;
+  for (std::size_t i = 0; i < stream.size(); ++i) {
+    ahead.Add({stream[i].time, "site-1/coldstore/freezer-1/temp_c", stream[i].value},
+              i + 1);
+  }
+  for (std::size_t i = 0; i < stream.size(); ++i) {
+    behind.Add({stream[i].time, "site-2/coldstore/freezer-1/temp_c", stream[i].value},
+               i + 1);
+  }
+  ASSERT_TRUE(shard.Push(&ahead));
+  ASSERT_TRUE(shard.Push(&behind));
+  shard.CloseInput();
+  shard.Join();
+  for (const Alert& a : publisher.alerts()) {
+    EXPECT_NE(a.kind, AlertKind::kSilence)
+        << a.series << " " << FormatRfc3339(a.detected_at);
+  }
+  // A series' own gap still counts: a reading 2 hours after the last one
+  // reports the silence at the deadline, then the resume.
+  CollectingPublisher gap_publisher;
+  Shard gap_shard(0, OneProfile(kGaugeProfile), ShardOptions{}, &clock, &gap_publisher,
+                  nullptr);
+  gap_shard.Start();
+  ReadingBatch gap;
+  for (std::size_t i = 0; i < 100; ++i)
+    gap.Add({stream[i].time, "a", stream[i].value}, i + 1);
+  gap.Add({stream[99].time + 2 * kMicrosPerHour, "a", stream[99].value}, 101);
+  ASSERT_TRUE(gap_shard.Push(&gap));
+  gap_shard.CloseInput();
+  gap_shard.Join();
+  std::vector<std::string> events;
+  for (const Alert& a : gap_publisher.alerts()) {
+    if (a.kind == AlertKind::kSilence) {
+      events.push_back(std::string(ToString(a.event)) + "@" +
+                       FormatRfc3339(a.detected_at));
+    }
+  }
+  EXPECT_EQ(events,
+            (std::vector<std::string>{
+                "alert@" + FormatRfc3339(stream[99].time + 30 * kMicrosPerMinute),
+                "resume@" + FormatRfc3339(stream[99].time + 2 * kMicrosPerHour)}));
+}
+
 TEST(ShardTest, FullQueueBlocksTheProducerUntilTheShardTakesABatch) {
   ManualClock clock;
   ShardOptions options;
