@@ -9,6 +9,8 @@ packages=(
   libgtest-dev libgmock-dev libbenchmark-dev
   # deploy checks and the scrape test: promtool and a Prometheus server
   prometheus
+  # HTTP load figures (tests/benchmarks/http/http_load.sh)
+  wrk curl
   # reference checks: numpy/scipy/statsmodels oracles and R's data sets
   python3 python3-numpy python3-scipy python3-statsmodels r-base-core r-cran-boot
 )
