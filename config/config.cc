@@ -30,11 +30,14 @@ constexpr std::size_t kMaxConfigBytes = 16u << 20;
 constexpr std::string_view kEverySeries = "**";
 
 constexpr std::string_view kTopLevelKeys[] = {
-    "series", "listeners",  "shards",  "queue_batches", "max_series",
-    "storage", "inputs",    "sinks",   "metrics",       "shutdown_timeout"};
+    "series",  "listeners", "shards",  "queue_batches",    "max_series",
+    "storage", "inputs",    "sinks",   "metrics",          "shutdown_timeout",
+    "annotations"};
 // Sections that later versions add; named so the error says "not yet" rather
 // than "unknown".
-constexpr std::string_view kPlannedTopLevelKeys[] = {"annotations", "covariates"};
+constexpr std::string_view kPlannedTopLevelKeys[] = {"covariates"};
+constexpr std::string_view kAnnotationKeys[] = {"id", "kind", "match", "at", "direction", "within",
+                                                 "from", "to", "learn", "note"};
 
 // The keys of the service sections (config/service_options.h).
 constexpr std::string_view kListenerKeys[] = {"tcp", "http"};
@@ -371,6 +374,10 @@ class Loader {
           LoadSeries(field, config);
           return;
         }
+        if (field.key == "annotations") {
+          LoadAnnotations(field, config);
+          return;
+        }
         if (LoadServiceKey(field, &config->service)) {
           service_marks_[std::string(field.key)] = field.Where();
           return;
@@ -424,6 +431,96 @@ class Loader {
       }
     }
     CheckReachable(config->series, marks);
+  }
+
+  // annotations: a list of planned changes and maintenance windows
+  // (detectors/annotation.h). Times are RFC 3339 or epoch seconds.
+  void LoadAnnotations(const Field& field, Config* config) {
+    if (field.value.IsNull()) return;
+    if (!field.value.IsSequence()) {
+      Error(field.Where(), "annotations: expected a list (each starting with '- kind: "
+                           "planned-change' or '- kind: maintenance'), got " +
+                               Describe(field.value));
+      return;
+    }
+    for (const YAML::Node& item : field.value) {
+      if (!item.IsMap()) {
+        Error(item.Mark().is_null() ? field.key_mark : item.Mark(),
+              "annotations: each entry must be a mapping (kind: ..., match: ...), got " +
+                  Describe(item));
+        continue;
+      }
+      const std::size_t errors_before = errors_.size();
+      Annotation a;
+      std::map<std::string_view, YAML::Mark> marks;
+      ForEachKey(item, [&](const Field& f) {
+        marks[f.key] = f.Where();
+        const std::string_view k = f.key;
+        std::string text;
+        if (k == "id" || k == "note") {
+          if (ScalarText(f, "text", &text)) (k == "id" ? a.id : a.note) = text;
+        } else if (k == "kind") {
+          if (ScalarText(f, "planned-change or maintenance", &text) &&
+              !AnnotationKindFromString(text, &a.kind)) {
+            Error(f.Where(), "kind: expected planned-change or maintenance, got '" + text + "'");
+          }
+        } else if (k == "match") {
+          if (!ScalarText(f, "a glob such as \"coldstore/*\"", &text)) return;
+          if (Status status = ValidateGlob(text); !status.ok()) {
+            Error(f.Where(), "match: invalid glob \"" + text + "\": " + status.message());
+            return;
+          }
+          a.match = text;
+        } else if (k == "at" || k == "from" || k == "to") {
+          if (!ScalarText(f, "a time such as 2026-04-01T00:00:00Z", &text)) return;
+          StatusOr<EventTime> t = ParseTime(text);
+          if (!t.ok()) {
+            Error(f.Where(), std::string(k) + ": expected a time such as "
+                                              "2026-04-01T00:00:00Z, got '" + text + "'");
+            return;
+          }
+          (k == "at" ? a.at : k == "from" ? a.from : a.to) = *t;
+        } else if (k == "direction") {
+          if (!ScalarText(f, "up, down or any", &text)) return;
+          if (text == "any") {
+            a.direction = Direction::kNone;
+          } else if (auto d = DirectionFromString(text); d && *d != Direction::kNone) {
+            a.direction = *d;
+          } else {
+            Error(f.Where(), "direction: expected up, down or any, got '" + text + "'");
+          }
+        } else if (k == "within") {
+          Duration(f, false, &a.within);
+        } else if (k == "learn") {
+          Bool(f, &a.learn);
+        } else {
+          UnknownKey(f, " in an annotation", kAnnotationKeys);
+        }
+      });
+      if (errors_.size() != errors_before) continue;
+      const bool planned = a.kind == AnnotationKind::kPlannedChange;
+      const char* needed[] = {"kind", planned ? "at" : "from", planned ? "at" : "to"};
+      bool complete = true;
+      for (const char* key : needed) {
+        if (!marks.count(key)) {
+          Error(item.Mark(), std::string("annotation: missing '") + key + "' (a " +
+                                 std::string(ToString(a.kind)) + " needs kind, " +
+                                 (planned ? "at" : "from and to") + ")");
+          complete = false;
+          break;
+        }
+      }
+      if (!complete) continue;
+      if (a.id.empty()) a.id = std::string(ToString(a.kind)) + "-" + std::to_string(config->annotations.size() + 1);
+      std::string why;
+      if (!a.IsValid(&why)) {
+        const std::string_view key = std::string_view(why).substr(0, why.find(' '));
+        auto it = marks.find(key);
+        Error(it != marks.end() ? it->second : item.Mark(), "annotation: " + why);
+        continue;
+      }
+      config->annotations.push_back(std::move(a));
+    }
   }
 
   // A profile is dead when an earlier one takes every series it could match:

@@ -49,6 +49,7 @@
 
 #include "config/service_options.h"
 #include "detectors/profile.h"
+#include "detectors/annotation.h"
 #include "detectors/status.h"
 
 namespace plumbline {
@@ -61,6 +62,8 @@ struct Config {
   // loopback daemon, so a config with only `series` keeps working. Later
   // sections (annotations, covariates) are added the same way.
   ServiceOptions service;
+  // Planned changes and maintenance windows, in config order.
+  std::vector<Annotation> annotations;
 };
 
 // One problem found in a config file.

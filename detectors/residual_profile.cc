@@ -17,6 +17,11 @@ ResidualProfile::ResidualProfile(EventTime period, int bins, double clip, int fo
   }
 }
 
+void ResidualProfile::Reset() {
+  std::fill(bins_.begin(), bins_.end(), Bin_{});
+  std::fill(folded_.begin(), folded_.end(), Bin_{});
+}
+
 double ResidualProfile::PriorMean(int bin) const {
   if (folded_.empty()) return 0.0;
   const Bin_& j = folded_[static_cast<size_t>(bin) % folded_.size()];

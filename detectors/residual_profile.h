@@ -56,6 +56,8 @@ class ResidualProfile {
   // Folds in residual r and innovation a observed in `bin`, given the current
   // whole-series scale.
   void Update(int bin, double r, double a, double sigma_all);
+  // Forgets everything learned (a planned change).
+  void Reset();
   int bins() const { return static_cast<int>(bins_.size()); }
   int fold_bins() const { return static_cast<int>(folded_.size()); }
 

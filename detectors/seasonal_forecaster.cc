@@ -255,6 +255,13 @@ void SeasonalForecaster::BoundCovariance(EventTime t) {
   p_.triangularView<Eigen::StrictlyUpper>() = p_.transpose();
 }
 
+void SeasonalForecaster::Reopen(double variance) {
+  const double ceiling = kBoundReset * CovarianceBound(t_ref_);
+  for (int i = 0; i < dimension(); ++i) {
+    p_(i, i) += std::clamp(variance, 0.0, std::max(ceiling - p_(i, i), 0.0));
+  }
+}
+
 double SeasonalForecaster::LevelDrift(EventTime elapsed) const {
   if (options_.level_noise == 0 || elapsed <= 0) return 0.0;
   return options_.level_noise * static_cast<double>(elapsed) /

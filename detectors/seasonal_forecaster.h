@@ -159,6 +159,10 @@ class SeasonalForecaster {
   // variance (at most up to half the covariance bound below), so the model
   // re-baselines fast after a detected change.
   void ShiftLevel(double delta, double level_variance);
+  // Adds `variance` (in noise variances) to every coefficient's variance, so
+  // the level, trend and seasonal shape re-learn from the next readings (a
+  // planned change). Bounded like ShiftLevel; P stays positive definite.
+  void Reopen(double variance);
   // Sets the time unit of level_noise (the series' mean spacing, say); > 0.
   void SetLevelNoiseUnit(EventTime unit) {
     if (unit > 0) options_.level_noise_unit = unit;

@@ -65,6 +65,7 @@ std::string_view ToString(EventType type) {
     case EventType::kResume: return "resume";
     case EventType::kRetrain: return "retrain";
     case EventType::kMeterReset: return "meter-reset";
+    case EventType::kSuppressed: return "suppressed";
   }
   return "alert";
 }
@@ -157,6 +158,7 @@ std::optional<EventTime> SeriesMonitor::silence_deadline() const {
 void SeriesMonitor::AdvanceClock(EventTime now, std::vector<SeriesEvent>* events) {
   const auto deadline = silence_deadline();
   if (!deadline || now < *deadline) return;
+  const std::size_t first = events->size();
   silent_ = true;
   SeriesEvent e;
   e.type = EventType::kAlert;
@@ -166,11 +168,13 @@ void SeriesMonitor::AdvanceClock(EventTime now, std::vector<SeriesEvent>* events
   e.change_at = last_reading_;
   e.magnitude = ToSeconds(*deadline - last_reading_);
   events->push_back(e);
+  Annotate(events, first);
 }
 
 ReadingVerdict SeriesMonitor::Observe(EventTime t, double value,
                                       std::vector<SeriesEvent>* events) {
   if (!std::isfinite(value)) return ReadingVerdict::kNotFinite;
+  const std::size_t first = events->size();
   const EventTime lateness = design_->profile.lateness;
   if (t < released_ || (newest_ != INT64_MIN && t < newest_ - lateness)) {
     return ReadingVerdict::kLate;
@@ -192,6 +196,7 @@ ReadingVerdict SeriesMonitor::Observe(EventTime t, double value,
   if (lateness == 0) {
     newest_ = released_ = t;
     Process(t, value, events);
+    Annotate(events, first);
     return ReadingVerdict::kAccepted;
   }
   pending_.emplace_back(t, value);
@@ -206,16 +211,82 @@ ReadingVerdict SeriesMonitor::Observe(EventTime t, double value,
     released_ = time;
     Process(time, v, events);
   }
+  Annotate(events, first);
   return ReadingVerdict::kAccepted;
 }
 
 void SeriesMonitor::Flush(std::vector<SeriesEvent>* events) {
+  const std::size_t first = events->size();
   std::sort(pending_.begin(), pending_.end());
   for (const auto& [time, v] : pending_) {
     released_ = time;
     Process(time, v, events);
   }
   pending_.clear();
+  Annotate(events, first);
+}
+
+void SeriesMonitor::SetAnnotations(std::vector<Annotation> annotations) {
+  planned_.clear();
+  maintenance_.clear();
+  for (Annotation& a : annotations) {
+    if (!a.IsValid(nullptr)) continue;
+    (a.kind == AnnotationKind::kPlannedChange ? planned_ : maintenance_).push_back(std::move(a));
+  }
+  std::stable_sort(planned_.begin(), planned_.end(),
+                   [](const Annotation& a, const Annotation& b) { return a.at < b.at; });
+  // Changes already behind the series are history, not news.
+  next_planned_ = 0;
+  while (next_planned_ < planned_.size() && has_reading_ &&
+         planned_[next_planned_].at <= released_) {
+    ++next_planned_;
+  }
+}
+
+void SeriesMonitor::Annotate(std::vector<SeriesEvent>* events, std::size_t first) const {
+  if (planned_.empty() && maintenance_.empty()) return;
+  for (std::size_t i = first; i < events->size(); ++i) {
+    SeriesEvent& e = (*events)[i];
+    if (e.type != EventType::kAlert) continue;
+    bool held = false;
+    for (const Annotation& m : maintenance_) {
+      if (e.detected_at >= m.from && e.detected_at < m.to) {
+        e.type = EventType::kSuppressed;
+        e.annotation = m.id;
+        held = true;
+        break;
+      }
+    }
+    if (held || e.kind == AlertKind::kSilence) continue;
+    for (const Annotation& p : planned_) {
+      const EventTime distance = e.change_at > p.at ? e.change_at - p.at : p.at - e.change_at;
+      if (distance <= p.within &&
+          (p.direction == Direction::kNone || p.direction == e.direction)) {
+        e.annotation = p.id;
+        break;
+      }
+    }
+  }
+}
+
+bool SeriesMonitor::Unlearned(EventTime t) const {
+  for (const Annotation& m : maintenance_) {
+    if (!m.learn && t >= m.from && t < m.to) return true;
+  }
+  return false;
+}
+
+void SeriesMonitor::ApplyPlannedChange(const Annotation& change) {
+  if (forecaster_) forecaster_->Reopen(kReopenVariance);
+  if (profile_) profile_->Reset();
+  ResetLevelDetectors();
+  variance_.Reset();
+  const long long wait = std::max<long long>(
+      design_->profile.warmup, forecaster_ ? 2LL * forecaster_->dimension() : 0LL);
+  level_hold_until_ = std::max(level_hold_until_, observations_ + wait);
+  variance_hold_until_ = std::max(variance_hold_until_, observations_ + wait);
+  regime_start_ = change.at;
+  regime_observations_ = 0;
 }
 
 void SeriesMonitor::Process(EventTime t, double value, std::vector<SeriesEvent>* events) {
@@ -367,6 +438,10 @@ void SeriesMonitor::ScoreRivals(EventTime from, EventTime to, double y) {
 
 void SeriesMonitor::Model(EventTime from, EventTime to, double y,
                           std::vector<SeriesEvent>* events) {
+  while (next_planned_ < planned_.size() && planned_[next_planned_].at <= to) {
+    ApplyPlannedChange(planned_[next_planned_++]);
+  }
+  if (Unlearned(to)) return;
   ++observations_;
   recent_times_[observations_ % recent_times_.size()] = to;
   if (!forecaster_) {

@@ -69,6 +69,17 @@
 // moves in small lasting steps all the time want it; sensors with a stationary
 // but autocorrelated noise do not (the AR(1) whitening below handles them).
 //
+// Annotations (detectors/annotation.h): at a planned change the series
+// re-baselines from its time T: the forecaster's coefficients are opened up
+// (kReopenVariance) so level and seasonal shape re-learn, the phase profile
+// starts afresh, the level and variance detectors restart and wait
+// max(warmup, 2 x coefficients) observations, and a retrain event follows with
+// change_at = T. Any level, variance or rate alert whose change_at lies within
+// `within` of T (in the expected direction, if one is given) is marked as
+// explained by it. An alert of any kind detected inside a maintenance window is
+// turned into a kSuppressed event naming the window (kept, not sent as an
+// alert); with learn: false the window's readings do not reach the model.
+//
 // False-alarm budget: the profile's arl0 is shared so that all alert kinds
 // together keep it (union bound): level detectors get 1/2 of the rate
 // (ARL0 x 2), the variance CUSUM 1/4 (x 4), the arrival CUSUMs 1/4 (x 4, in gaps).
@@ -86,6 +97,7 @@
 #include <variant>
 #include <vector>
 
+#include "detectors/annotation.h"
 #include "detectors/arrival_model.h"
 #include "detectors/bocpd.h"
 #include "detectors/calibration.h"
@@ -112,6 +124,7 @@ enum class EventType {
   kResume,      // a silent series sent a reading again
   kRetrain,     // the new regime has `warmup` observations: retrain on [from, to]
   kMeterReset,  // a meter total went down: reset or replacement, re-based, no alert
+  kSuppressed,  // an alert held back by a maintenance window (kept, not sent as an alert)
 };
 std::string_view ToString(EventType type);
 
@@ -127,6 +140,9 @@ struct SeriesEvent {
   double magnitude_sd = 0.0;  // level: shift in residual standard deviations
   double before = 0.0;        // level: forecast at detection; rate: mean gap (s) before
   double after = 0.0;         // level: before + magnitude; rate: mean gap (s) after
+  // The annotation that explains this alert (a planned change near change_at)
+  // or, for kSuppressed, the maintenance window that held it back; else empty.
+  std::string annotation;
 };
 
 // Everything derived from a profile once and shared by all its series:
@@ -150,6 +166,10 @@ class SeriesMonitor {
  public:
   // `design` must outlive the monitor.
   explicit SeriesMonitor(const ProfileDesign* design);
+
+  // The planned changes and maintenance windows that apply to this series (see
+  // "Annotations" above); replaces any given before. Invalid ones are ignored.
+  void SetAnnotations(std::vector<Annotation> annotations);
 
   // Feeds one reading; events (if any) are appended to *events.
   ReadingVerdict Observe(EventTime t, double value, std::vector<SeriesEvent>* events);
@@ -203,6 +223,16 @@ class SeriesMonitor {
   void DecideLevel(EventTime t, double forecast, double sigma, bool resolvable,
                    std::vector<SeriesEvent>* events);
   void StartRegime(EventTime change_at);
+  // Annotations.
+  void ApplyPlannedChange(const Annotation& change);
+  void Annotate(std::vector<SeriesEvent>* events, std::size_t first) const;
+  bool Unlearned(EventTime t) const;  // in a maintenance window that does not teach the model
+  std::vector<Annotation> planned_;      // by `at`
+  std::vector<Annotation> maintenance_;
+  std::size_t next_planned_ = 0;
+  // Coefficient variance added at a planned change (in noise variances): the
+  // seasonal shape and level re-learn within about `dimension` observations.
+  static constexpr double kReopenVariance = 100.0;
   void ResetLevelDetectors();
   // True while any level detector is past the given fraction of its threshold:
   // baselines then hold still rather than learn the change being tested for.

@@ -232,8 +232,8 @@ TEST(ConfigTest, UnknownTopLevelKeyListsTheKnownOnes) {
 }
 
 TEST(ConfigTest, PlannedTopLevelSectionIsReportedAsNotYetSupported) {
-  ExpectOneError("series: []\nannotations:\n  - at: 2026-03-01\n", 2, 1,
-                 {"top-level section 'annotations' is not supported by this version yet",
+  ExpectOneError("series: []\ncovariates:\n  - series: x\n", 2, 1,
+                 {"top-level section 'covariates' is not supported by this version yet",
                   "valid keys: series, listeners"});
 }
 
@@ -543,6 +543,64 @@ TEST(ConfigLevelNoiseTest, TakesOffAutoOrANumberAndNamesTheChoicesOtherwise) {
                  {"level_noise", "off, auto, or a number", "sometimes"});
   ExpectOneError("series:\n  - match: \"a/*\"\n    level_noise: -2\n", 3, 18,
                  {"level_noise", "[0, 1000]"});
+}
+
+}  // namespace
+}  // namespace plumbline
+
+namespace plumbline {
+namespace {
+
+TEST(ConfigAnnotationTest, PlannedChangesAndMaintenanceWindowsMapOntoAnnotations) {
+  const Config config = MustLoad(R"(
+series:
+  - match: "coldstore/**"
+annotations:
+  - kind: planned-change
+    id: defrost-every-6h
+    at: 2026-04-01T00:00:00Z
+    match: "coldstore/freezer-1/*"
+    direction: up
+    within: 2h
+    note: defrost every 6 hours from 1 April
+  - kind: maintenance
+    from: 2026-04-20T08:00:00Z
+    to: 2026-04-20T12:00:00Z
+    learn: false
+)");
+  ASSERT_EQ(config.annotations.size(), 2u);
+  const Annotation& planned = config.annotations[0];
+  EXPECT_EQ(planned.kind, AnnotationKind::kPlannedChange);
+  EXPECT_EQ(planned.id, "defrost-every-6h");
+  EXPECT_EQ(planned.match, "coldstore/freezer-1/*");
+  EXPECT_EQ(planned.direction, Direction::kUp);
+  EXPECT_EQ(planned.within, 2 * kHour);
+  EXPECT_EQ(planned.at, *ParseTime("2026-04-01T00:00:00Z"));
+  const Annotation& window = config.annotations[1];
+  EXPECT_EQ(window.kind, AnnotationKind::kMaintenance);
+  EXPECT_EQ(window.id, "maintenance-2");  // numbered when no id is given
+  EXPECT_EQ(window.match, "**");
+  EXPECT_FALSE(window.learn);
+  EXPECT_EQ(window.to - window.from, 4 * kHour);
+}
+
+TEST(ConfigAnnotationTest, MistakesAreReportedWithTheirPositionAndChoices) {
+  ExpectOneError("annotations:\n  - kind: someday\n    at: 2026-04-01T00:00:00Z\n", 2, 11,
+                 {"kind: expected planned-change or maintenance", "someday"});
+  ExpectOneError("annotations:\n  - kind: planned-change\n    at: soon\n", 3, 9,
+                 {"at: expected a time", "soon"});
+  ExpectOneError("annotations:\n  - kind: maintenance\n    from: 2026-04-02T00:00:00Z\n", 2, 5,
+                 {"missing 'to'"});
+  ExpectOneError(
+      "annotations:\n  - kind: maintenance\n    from: 2026-04-02T00:00:00Z\n"
+      "    to: 2026-04-01T00:00:00Z\n",
+      4, 9, {"to must come after from"});
+  ExpectOneError("annotations:\n  - kind: planned-change\n    at: 2026-04-01T00:00:00Z\n"
+                 "    direction: sideways\n",
+                 4, 16, {"direction: expected up, down or any", "sideways"});
+  ExpectOneError("annotations:\n  - kind: planned-change\n    at: 2026-04-01T00:00:00Z\n"
+                 "    wen: 1h\n",
+                 4, 5, {"wen", "within"});
 }
 
 }  // namespace
