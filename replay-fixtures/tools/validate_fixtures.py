@@ -156,9 +156,19 @@ def check_config(path, where):
     except (OSError, yaml.YAMLError) as e:
         problem(where, f"cannot load: {e}")
         return []
-    if not isinstance(doc, dict) or set(doc) != {"series"} or not isinstance(doc["series"], list):
-        problem(where, "top level must be exactly one key, 'series', holding a list")
+    # Fixture configs hold profiles and, where a fixture's story has planned
+    # changes or maintenance, `annotations` (README "Using it"); nothing else.
+    if (not isinstance(doc, dict) or "series" not in doc or not set(doc) <= {"series", "annotations"}
+            or not isinstance(doc["series"], list)):
+        problem(where, "top level must be 'series' (a list) and optionally 'annotations'")
         return []
+    for i, a in enumerate(doc.get("annotations") or []):
+        w = f"{where} annotations[{i}]"
+        if not isinstance(a, dict) or a.get("kind") not in ("planned-change", "maintenance"):
+            problem(w, "must be a mapping with kind planned-change or maintenance")
+        elif a["kind"] == "planned-change" and not (
+                isinstance(a.get("at"), datetime) or parse_time(str(a.get("at"))) is not None):
+            problem(w, "a planned change needs `at`, an RFC 3339 time")
     profiles = []
     for i, p in enumerate(doc["series"]):
         w = f"{where} series[{i}]"
