@@ -145,12 +145,15 @@ void Service::Shutdown() {
   stopping_ = true;
   if (deps_.observer) deps_.observer->OnReady(false);
   const auto begun = std::chrono::steady_clock::now();
-  const SteadyTime deadline =
-      begun + std::chrono::microseconds(config_.service.shutdown_timeout);
+  // The stages share the time: inputs and shard queues get 60% of it, the
+  // sinks (the webhook's retries) what is left.
+  const auto timeout = std::chrono::microseconds(config_.service.shutdown_timeout);
+  const SteadyTime drain_deadline = begun + timeout * 6 / 10;
+  const SteadyTime deadline = begun + timeout;
   LogInfo("shutting down: stopping inputs");
-  StopInputs(deadline);
+  StopInputs(drain_deadline);
   LogInfo("shutting down: draining shard queues");
-  if (shards_) shards_->CloseAndJoin();
+  if (shards_) shards_->CloseAndJoin(drain_deadline);
   LogInfo("shutting down: flushing sinks");
   if (dispatcher_) dispatcher_->Stop(deadline);
   const double seconds =
@@ -283,8 +286,10 @@ std::optional<SeriesDetail> Service::GetSeries(std::string_view name) {
                 detail.summary = Summarise(state, wanted, *extras);
                 detail.sigma = monitor->scale().sigma();
                 detail.last_z = monitor->last_z();
-                for (const SeriesMonitor::DetectorSnapshot& d : monitor->DetectorSnapshots()) {
-                  detail.detectors.push_back({std::string(d.name), d.statistic, d.threshold});
+                for (const SeriesMonitor::DetectorSnapshot& d :
+                     monitor->DetectorSnapshots()) {
+                  detail.detectors.push_back(
+                      {std::string(d.name), d.statistic, d.threshold});
                 }
                 if (const auto run_length = monitor->RunLength()) {
                   detail.run_length = SeriesDetail::RunLength{

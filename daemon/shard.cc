@@ -2,6 +2,8 @@
 
 #include <algorithm>
 
+#include "daemon/log.h"
+
 namespace plumbline {
 namespace {
 
@@ -147,10 +149,11 @@ bool Shard::PostTick() {
   return Post([this](ShardState&) { Tick(); });
 }
 
-void Shard::CloseInput() {
+void Shard::CloseInput(std::optional<std::chrono::steady_clock::time_point> deadline) {
   {
     std::lock_guard<std::mutex> lock(mutex_);
     input_closed_ = true;
+    if (deadline) drain_deadline_ = deadline;
   }
   not_empty_.notify_all();
   not_full_.notify_all();
@@ -170,6 +173,7 @@ void Shard::Run() {
   while (true) {
     std::deque<std::function<void(ShardState&)>> tasks;
     std::optional<ReadingBatch> batch;
+    std::deque<ReadingBatch> dropped;
     bool finish = false;
     std::size_t depth = 0;
     {
@@ -178,6 +182,10 @@ void Shard::Run() {
         return !tasks_.empty() || !batches_.empty() || input_closed_;
       });
       tasks.swap(tasks_);
+      if (input_closed_ && drain_deadline_ && !batches_.empty() &&
+          std::chrono::steady_clock::now() >= *drain_deadline_) {
+        dropped.swap(batches_);
+      }
       if (!batches_.empty()) {
         batch.emplace(std::move(batches_.front()));
         batches_.pop_front();
@@ -191,6 +199,17 @@ void Shard::Run() {
     if (batch) {
       not_full_.notify_one();
       if (observer_) observer_->OnQueueDepth(index_, depth);
+    }
+    if (!dropped.empty()) {
+      not_full_.notify_all();
+      std::size_t readings = 0;
+      for (ReadingBatch& b : dropped) {
+        readings += b.size();
+        if (b.ticket) b.ticket->BatchDone(0, b.size(), {});
+      }
+      LogWarning(
+          "shutdown deadline passed: readings still queued are dropped",
+          {{"shard", index_}, {"batches", dropped.size()}, {"readings", readings}});
     }
     for (auto& task : tasks) task(state_);
     if (batch) Process(*batch);
@@ -299,8 +318,9 @@ std::size_t ShardSet::ShardFor(std::string_view series) const {
   return static_cast<std::size_t>(Fnv1a(series) % shards_.size());
 }
 
-void ShardSet::CloseAndJoin() {
-  for (auto& shard : shards_) shard->CloseInput();
+void ShardSet::CloseAndJoin(
+    std::optional<std::chrono::steady_clock::time_point> deadline) {
+  for (auto& shard : shards_) shard->CloseInput(deadline);
   for (auto& shard : shards_) shard->Join();
 }
 

@@ -185,7 +185,12 @@ class Shard {
   // No more batches: the shard processes what is queued and the tasks posted,
   // calls Engine::Finish (releasing readings held for reordering, as replay
   // does at the end of input), publishes, and its thread ends.
-  void CloseInput();
+  //
+  // With a deadline (staged shutdown), batches still queued when it passes
+  // are dropped, counted and logged, so that shutdown stays bounded however
+  // slow the engine is; their tickets see them refused.
+  void CloseInput(
+      std::optional<std::chrono::steady_clock::time_point> deadline = std::nullopt);
   // Waits for the thread to end (after CloseInput).
   void Join();
 
@@ -215,6 +220,7 @@ class Shard {
   std::deque<ReadingBatch> batches_;
   std::deque<std::function<void(ShardState&)>> tasks_;
   bool input_closed_ = false;
+  std::optional<std::chrono::steady_clock::time_point> drain_deadline_;
   bool stopped_ = false;
 
   std::thread thread_;
@@ -240,7 +246,8 @@ class ShardSet {
   std::size_t ShardFor(std::string_view series) const;
 
   // Closes every shard's input and joins them all.
-  void CloseAndJoin();
+  void CloseAndJoin(
+      std::optional<std::chrono::steady_clock::time_point> deadline = std::nullopt);
 
  private:
   std::vector<std::unique_ptr<Shard>> shards_;

@@ -278,6 +278,35 @@ TEST(ShardTest, FullQueueBlocksTheProducerUntilTheShardTakesABatch) {
   EXPECT_EQ(shard.processed(), 2u);
 }
 
+TEST(ShardTest, BatchesStillQueuedAtTheShutdownDeadlineAreDroppedAndCounted) {
+  ManualClock clock;
+  Shard shard(0, OneProfile(kGaugeProfile), ShardOptions{}, &clock, nullptr, nullptr);
+  shard.Start();
+  std::mutex gate;
+  gate.lock();
+  std::atomic<bool> holding{false};
+  ASSERT_TRUE(shard.Post([&](ShardState&) {
+    holding = true;
+    std::lock_guard<std::mutex> wait(gate);
+  }));
+  while (!holding) std::this_thread::yield();
+  auto ticket = std::make_shared<IngestTicket>();
+  for (int b = 0; b < 3; ++b) {
+    ReadingBatch batch;
+    batch.Add({1'772'323'200LL * kMicrosPerSecond + b, "a", 1.0}, b + 1);
+    batch.ticket = ticket;
+    ticket->AddBatch();
+    ASSERT_TRUE(shard.Push(&batch));
+  }
+  shard.CloseInput(std::chrono::steady_clock::now() - std::chrono::seconds(1));
+  gate.unlock();
+  shard.Join();
+  EXPECT_EQ(shard.processed(), 0u);
+  ASSERT_TRUE(ticket->Wait(std::chrono::seconds(10)));
+  EXPECT_EQ(ticket->refused(), 3u);
+  EXPECT_EQ(ticket->accepted(), 0u);
+}
+
 TEST(ShardTest, ClosedShardRefusesBatchesAndTasks) {
   ManualClock clock;
   Shard shard(0, OneProfile(kGaugeProfile), ShardOptions{}, &clock, nullptr, nullptr);
