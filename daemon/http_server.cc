@@ -87,8 +87,8 @@ bool HttpServerOptions::IsValid(std::string* why) const {
   if (max_connections < 1 || max_connections > 100000) {
     return fail("max_connections must be in [1, 100000]");
   }
-  if (handler_threads < 1 || handler_threads > 64) {
-    return fail("handler_threads must be in [1, 64]");
+  if (ingest_threads < 1 || ingest_threads > 64 || query_threads < 1 || query_threads > 64) {
+    return fail("ingest_threads and query_threads must be in [1, 64]");
   }
   return api.IsValid(why);
 }
@@ -109,7 +109,8 @@ struct HttpServer::State : std::enable_shared_from_this<HttpServer::State> {
         acceptor(net::make_strand(io_context)),
         accept_timer(acceptor.get_executor()),
         grace_timer(acceptor.get_executor()),
-        workers(options.handler_threads) {}
+        ingest_workers(options.ingest_threads),
+        query_workers(options.query_threads) {}
 
   void Log(HttpLogLevel level, const std::string& message) {
     if (logger) logger(level, message);
@@ -138,8 +139,9 @@ struct HttpServer::State : std::enable_shared_from_this<HttpServer::State> {
   net::steady_timer accept_timer;
   net::steady_timer grace_timer;
 
-  // Runs the routes; joined by ~HttpServer.
-  net::thread_pool workers;
+  // Run the routes (POST /v1/readings; the others); joined by ~HttpServer.
+  net::thread_pool ingest_workers;
+  net::thread_pool query_workers;
 
   mutable std::mutex mutex;  // guards the members below
   std::condition_variable finished_cv;
@@ -261,7 +263,14 @@ class Session : public std::enable_shared_from_this<Session> {
     head_ = request.method() == http::verb::head;
     version_ = request.version();
     stream_.expires_never();  // the route may wait on backpressure; the write sets its own
-    net::post(state_->workers, [self = shared_from_this(), request = std::move(request)] {
+    const std::string_view target = Std(request.target());
+    if (target == "/healthz" && request.body().empty()) {
+      // Liveness asks the service nothing: answered here, whatever the pools do.
+      return OnHandled(state_->api.Handle(Std(request.method_string()), target, ""));
+    }
+    const bool ingest = RouteOf(target) == "readings";
+    net::thread_pool& pool = ingest ? state_->ingest_workers : state_->query_workers;
+    net::post(pool, [self = shared_from_this(), request = std::move(request)] {
       ApiResponse response;
       try {
         response = self->state_->api.Handle(Std(request.method_string()),
@@ -525,7 +534,8 @@ HttpServer::~HttpServer() {
     std::lock_guard<std::mutex> lock(state_->mutex);
     state_->stopping = true;
   }
-  state_->workers.join();  // no route runs after this
+  state_->ingest_workers.join();  // no route runs after these
+  state_->query_workers.join();
   std::lock_guard<std::mutex> lock(state_->mutex);
   state_->detached = true;
 }

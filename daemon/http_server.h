@@ -7,9 +7,10 @@
 // deadline; request headers and bodies have size limits (431 and 413). At most
 // max_connections are open: at the limit the server stops accepting and
 // resumes when one closes (waiting clients queue in the kernel's backlog).
-// Routes run on a small pool of handler threads, never on the I/O threads,
+// Routes run on small pools of handler threads, never on the I/O threads,
 // since ServiceView calls may block (ingest backpressure, shard round trips):
-// a blocked ingest never stalls /healthz or /metrics.
+// ingest has a pool of its own, so a blocked ingest never stalls the queries
+// or /metrics; /healthz is answered on the I/O thread (it asks nothing).
 //
 // Expected ends of a connection (end of stream, reset by peer, idle timeout,
 // shutdown) are not logged as errors.
@@ -50,12 +51,16 @@ struct HttpServerOptions {
   std::chrono::milliseconds read_timeout{30'000};
   std::chrono::milliseconds write_timeout{30'000};  // to send one response
   std::size_t max_connections = 256;  // accepting pauses at this many open
-  std::size_t handler_threads = 2;    // threads that run routes (ServiceView calls)
+  // Threads that run routes (ServiceView calls), in two pools so that ingest
+  // waiting on backpressure never holds up the queries: POST /v1/readings runs
+  // on `ingest_threads`, every other route on `query_threads`.
+  std::size_t ingest_threads = 2;
+  std::size_t query_threads = 2;
   HttpApiOptions api{};
 
   // Rules: max_body_bytes in [1024, 1 GiB]; max_header_bytes in [1024, 1 MiB];
-  // timeouts positive; max_connections in [1, 100000]; handler_threads in
-  // [1, 64]; api valid.
+  // timeouts positive; max_connections in [1, 100000]; ingest_threads and
+  // query_threads in [1, 64]; api valid.
   bool IsValid(std::string* why) const;
 };
 

@@ -522,16 +522,35 @@ TEST_F(HttpServerTest, PartialRequestIsDroppedAtTheReadTimeout) {
   EXPECT_EQ(view_->total_accepted(), 0u);
 }
 
-TEST_F(HttpServerTest, HealthzAnswersWhileAnIngestWaitsOnBackpressure) {
-  StartServer();
+TEST_F(HttpServerTest, QueriesAnswerWhileEveryIngestThreadWaitsOnBackpressure) {
+  StartServer();  // two ingest threads
   view_->CloseGate();
-  auto pending = std::async(std::launch::async, [this] {
-    return Post("/v1/readings", "2026-03-01T12:00:00Z,coldstore/freezer-1/temp_c,-18.5\n");
-  });
-  view_->AwaitWaiting(1);
+  std::vector<std::future<Reply>> pending;
+  for (int i = 0; i < 3; ++i) {  // one more than there are ingest threads
+    pending.push_back(std::async(std::launch::async, [this] {
+      return Post("/v1/readings", "2026-03-01T12:00:00Z,coldstore/freezer-1/temp_c,-18.5\n");
+    }));
+  }
+  view_->AwaitWaiting(2);
   EXPECT_EQ(Get("/healthz").status, 200u);
   EXPECT_EQ(Get("/metrics").status, 200u);
+  EXPECT_EQ(Get("/v1/series").status, 200u);
+  EXPECT_EQ(Get("/readyz").status, 200u);
   view_->OpenGate();
+  for (auto& reply : pending) EXPECT_EQ(reply.get().status, 200u);
+}
+
+TEST_F(HttpServerTest, HealthzAnswersEvenWhenEveryQueryThreadIsBusy) {
+  HttpServerOptions options;
+  options.query_threads = 1;
+  StartServer(options);
+  view_->CloseQueryGate();
+  auto pending = std::async(std::launch::async, [this] { return Get("/v1/series"); });
+  view_->AwaitQueryWaiting(1);
+  EXPECT_EQ(Get("/healthz").status, 200u);
+  Client client(port_);
+  EXPECT_EQ(client.Send(http::verb::head, "/healthz").status, 200u);
+  view_->OpenQueryGate();
   EXPECT_EQ(pending.get().status, 200u);
 }
 
@@ -641,7 +660,8 @@ TEST(HttpServerOptionsTest, Rules) {
   EXPECT_FALSE(HttpServerOptions{.max_body_bytes = 10}.IsValid(&why));
   EXPECT_NE(why.find("max_body_bytes"), std::string::npos);
   EXPECT_FALSE(HttpServerOptions{.max_connections = 0}.IsValid(&why));
-  EXPECT_FALSE(HttpServerOptions{.handler_threads = 0}.IsValid(&why));
+  EXPECT_FALSE(HttpServerOptions{.ingest_threads = 0}.IsValid(&why));
+  EXPECT_FALSE(HttpServerOptions{.query_threads = 65}.IsValid(&why));
   EXPECT_FALSE(HttpServerOptions{.read_timeout = std::chrono::milliseconds(0)}.IsValid(&why));
 }
 

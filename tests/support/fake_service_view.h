@@ -3,7 +3,7 @@
 // series, the count and the last reading; the model fields of GetSeries are
 // made-up but deterministic functions of the readings. Tests control
 // readiness, stored alerts, and can hold IngestLines at a gate (to stand in for
-// backpressure). Counts readings in ServiceMetrics when given one.
+// backpressure) and ListSeries at another (a slow shard round trip). Counts readings in ServiceMetrics when given one.
 // Thread-safe (one mutex).
 #pragma once
 
@@ -73,7 +73,11 @@ class FakeServiceView : public ServiceView {
   }
 
   std::vector<SeriesSummary> ListSeries(std::string_view glob) override {
-    std::lock_guard<std::mutex> lock(mutex_);
+    std::unique_lock<std::mutex> lock(mutex_);
+    ++query_waiting_;
+    changed_.notify_all();
+    changed_.wait(lock, [this] { return !query_gate_closed_; });
+    --query_waiting_;
     std::vector<SeriesSummary> rows;
     for (const auto& [name, s] : series_) {  // std::map: sorted by name
       if (glob.empty() || glob == "**" || GlobMatch(glob, name)) rows.push_back(s.summary);
@@ -143,6 +147,20 @@ class FakeServiceView : public ServiceView {
     std::unique_lock<std::mutex> lock(mutex_);
     changed_.wait(lock, [&] { return waiting_ >= n; });
   }
+  // The same for ListSeries (a query that holds a query thread).
+  void CloseQueryGate() {
+    std::lock_guard<std::mutex> lock(mutex_);
+    query_gate_closed_ = true;
+  }
+  void OpenQueryGate() {
+    std::lock_guard<std::mutex> lock(mutex_);
+    query_gate_closed_ = false;
+    changed_.notify_all();
+  }
+  void AwaitQueryWaiting(int n) {
+    std::unique_lock<std::mutex> lock(mutex_);
+    changed_.wait(lock, [&] { return query_waiting_ >= n; });
+  }
   std::size_t total_accepted() {
     std::lock_guard<std::mutex> lock(mutex_);
     return total_accepted_;
@@ -162,6 +180,8 @@ class FakeServiceView : public ServiceView {
   std::string not_ready_reason_;
   bool gate_closed_ = false;
   int waiting_ = 0;
+  bool query_gate_closed_ = false;
+  int query_waiting_ = 0;
   std::size_t total_accepted_ = 0;
 };
 
