@@ -21,11 +21,21 @@ void AppendJsonString(std::string* out, std::string_view text) {
   out->push_back('"');
   for (unsigned char c : text) {
     switch (c) {
-      case '"': *out += "\\\""; break;
-      case '\\': *out += "\\\\"; break;
-      case '\n': *out += "\\n"; break;
-      case '\r': *out += "\\r"; break;
-      case '\t': *out += "\\t"; break;
+      case '"':
+        *out += "\\\"";
+        break;
+      case '\\':
+        *out += "\\\\";
+        break;
+      case '\n':
+        *out += "\\n";
+        break;
+      case '\r':
+        *out += "\\r";
+        break;
+      case '\t':
+        *out += "\\t";
+        break;
       default:
         if (c < 0x20) {
           char buffer[8];
@@ -53,11 +63,16 @@ void AppendNumber(std::string* out, double value) {
 
 std::string_view ToString(IngestOutcome outcome) {
   switch (outcome) {
-    case IngestOutcome::kAccepted: return "accepted";
-    case IngestOutcome::kLate: return "late";
-    case IngestOutcome::kNoProfile: return "no_profile";
-    case IngestOutcome::kNotFinite: return "non_finite_value";
-    case IngestOutcome::kTooManySeries: return "too_many_series";
+    case IngestOutcome::kAccepted:
+      return "accepted";
+    case IngestOutcome::kLate:
+      return "late";
+    case IngestOutcome::kNoProfile:
+      return "no_profile";
+    case IngestOutcome::kNotFinite:
+      return "non_finite_value";
+    case IngestOutcome::kTooManySeries:
+      return "too_many_series";
   }
   return "accepted";
 }
@@ -134,7 +149,8 @@ std::string AlertToJson(const Alert& a) {
     AppendNumber(&out, a.after);
   }
   if (!a.annotation.empty()) {
-    out += a.event == EventType::kSuppressed ? ",\"suppressed_by\":" : ",\"explained_by\":";
+    out +=
+        a.event == EventType::kSuppressed ? ",\"suppressed_by\":" : ",\"explained_by\":";
     AppendJsonString(&out, a.annotation);
   }
   out += ",\"advisory\":true}";
@@ -149,14 +165,16 @@ std::string AlertToText(const Alert& a) {
     out += "  ";
     out += a.series;
     if (a.event == EventType::kRetrain) {
-      out += "  retrain on " + FormatRfc3339(a.change_at) + " .. " + FormatRfc3339(a.window_to);
+      out += "  retrain on " + FormatRfc3339(a.change_at) + " .. " +
+             FormatRfc3339(a.window_to);
     } else if (a.event == EventType::kSuppressed) {
       out += "  " + std::string(ToString(a.kind)) + " held back by " + a.annotation;
     }
     return out;
   }
   std::string kind(ToString(a.kind));
-  if (a.direction != Direction::kNone) kind += a.direction == Direction::kUp ? " up" : " down";
+  if (a.direction != Direction::kNone)
+    kind += a.direction == Direction::kUp ? " up" : " down";
   kind.resize(std::max<size_t>(kind.size(), 13), ' ');
   out += kind + " " + a.series + "  from " + FormatRfc3339(a.change_at);
   char buffer[96];
@@ -168,11 +186,13 @@ std::string AlertToText(const Alert& a) {
     std::snprintf(buffer, sizeof buffer, "  sd x%.2f", a.magnitude);
     out += buffer;
   } else if (a.kind == AlertKind::kSilence) {
-    out += "  no reading for " + FormatDuration(static_cast<EventTime>(a.magnitude * 1e6));
+    out +=
+        "  no reading for " + FormatDuration(static_cast<EventTime>(a.magnitude * 1e6));
   }
   if (!a.detectors.empty()) {
     out += "  [";
-    for (size_t i = 0; i < a.detectors.size(); ++i) out += (i ? "," : "") + a.detectors[i];
+    for (size_t i = 0; i < a.detectors.size(); ++i)
+      out += (i ? "," : "") + a.detectors[i];
     out += "]";
   }
   if (!a.annotation.empty()) out += "  (expected: " + a.annotation + ")";
@@ -187,7 +207,8 @@ Engine::Engine(Config config, EngineOptions options)
 const ProfileDesign* Engine::DesignFor(const ProfileOptions* profile) {
   const size_t index = static_cast<size_t>(profile - config_.series.data());
   if (!designs_[index]) {
-    auto design = ProfileDesign::Make(*profile);
+    auto design = options_.make_design ? options_.make_design(*profile)
+                                       : ProfileDesign::Make(*profile);
     if (!design.ok()) {
       if (design_status_.ok()) design_status_ = design.status();
       return nullptr;
@@ -219,7 +240,8 @@ IngestOutcome Engine::Ingest(std::string_view name, EventTime time, double value
   // The series' own event clock: a reading past its silence deadline shows
   // the silence first (replay's AdvanceClock before this reading has already
   // reported it, so this changes nothing there; serve relies on it).
-  if (const auto deadline = series->monitor->silence_deadline(); deadline && time >= *deadline) {
+  if (const auto deadline = series->monitor->silence_deadline();
+      deadline && time >= *deadline) {
     series->monitor->AdvanceClock(time, &scratch_);
   }
   const ReadingVerdict verdict = series->monitor->Observe(time, value, &scratch_);
@@ -260,7 +282,8 @@ void Engine::AdvanceClock(EventTime now, std::vector<Alert>* out) {
   }
 }
 
-void Engine::AdvanceSeriesClock(std::string_view name, EventTime now, std::vector<Alert>* out) {
+void Engine::AdvanceSeriesClock(std::string_view name, EventTime now,
+                                std::vector<Alert>* out) {
   auto it = series_.find(name);
   if (it == series_.end()) return;
   scratch_.clear();
@@ -276,15 +299,13 @@ void Engine::Finish(std::vector<Alert>* out) {
   }
 }
 
-namespace {
-
-// Whether two profiles model and watch a series the same way: every setting
-// but `match`. A key added to ProfileOptions must be compared here too; the
+// A key added to ProfileOptions must be compared here too; the
 // size check below trips when one is added (on the 64-bit Linux build), as a
 // reminder, after which update the size.
 static_assert(sizeof(void*) != 8 || sizeof(ProfileOptions) == 232,
-              "ProfileOptions changed: compare the new key in SameSettings, then update 232");
-bool SameSettings(const ProfileOptions& a, const ProfileOptions& b) {
+              "ProfileOptions changed: compare the new key in SameProfileSettings, then "
+              "update 232");
+bool SameProfileSettings(const ProfileOptions& a, const ProfileOptions& b) {
   return a.kind == b.kind && a.seasons == b.seasons && a.gaps == b.gaps &&
          a.warmup == b.warmup && a.arl0 == b.arl0 && a.shift == b.shift &&
          a.detectors == b.detectors && a.agree == b.agree &&
@@ -294,8 +315,6 @@ bool SameSettings(const ProfileOptions& a, const ProfileOptions& b) {
          a.lateness == b.lateness && a.agree_within == b.agree_within &&
          a.cooldown == b.cooldown;
 }
-
-}  // namespace
 
 ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
   ReconfigureReport report;
@@ -308,7 +327,7 @@ ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
   // Calibrated designs pass to new profiles with the same settings.
   for (std::size_t j = 0; j < config_.series.size(); ++j) {
     for (auto& design : retired_designs_) {
-      if (design && SameSettings(design->profile, config_.series[j])) {
+      if (design && SameProfileSettings(design->profile, config_.series[j])) {
         designs_[j] = std::move(design);
         break;
       }
@@ -317,7 +336,7 @@ ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
   for (auto it = series_.begin(); it != series_.end();) {
     Series& series = *it->second;
     const ProfileOptions* profile = MatchProfile(config_, series.name);
-    if (profile && SameSettings(series.design->profile, *profile)) {
+    if (profile && SameProfileSettings(series.design->profile, *profile)) {
       ++report.kept;
       ++it;
       continue;
@@ -367,7 +386,8 @@ void Engine::Emit(const Series& series, const std::vector<SeriesEvent>& events,
     a.window_to = e.window_to;
     for (DetectorKind d : {DetectorKind::kCusum, DetectorKind::kPageHinkley,
                            DetectorKind::kBocpd, DetectorKind::kEwma}) {
-      if (e.detectors & (1u << static_cast<int>(d))) a.detectors.emplace_back(ToString(d));
+      if (e.detectors & (1u << static_cast<int>(d)))
+        a.detectors.emplace_back(ToString(d));
     }
     if (e.kind == AlertKind::kVariance && e.type == EventType::kAlert) {
       a.detectors.emplace_back("variance-cusum");

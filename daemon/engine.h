@@ -6,6 +6,7 @@
 #pragma once
 
 #include <cstdint>
+#include <functional>
 #include <memory>
 #include <optional>
 #include <queue>
@@ -57,8 +58,19 @@ struct ReconfigureReport {
   std::size_t dropped = 0;    // no profile matches it any more: forgotten
 };
 
+// Makes a profile's design (calibration: up to a fraction of a second).
+using DesignMaker = std::function<StatusOr<ProfileDesign>(const ProfileOptions& profile)>;
+
+// Whether two profiles model and watch a series the same way: every setting
+// but `match` (the rule Reconfigure keeps series by).
+bool SameProfileSettings(const ProfileOptions& a, const ProfileOptions& b);
+
 struct EngineOptions {
   std::size_t max_series = 1'000'000;  // new series beyond this are refused
+  // Empty: ProfileDesign::Make. serve shares one memoizing maker among its
+  // shards, so each profile is calibrated once; a shared one must be
+  // thread-safe.
+  DesignMaker make_design;
   bool IsValid(std::string* why) const;
 };
 
@@ -77,7 +89,8 @@ class Engine {
   // where independent inputs run at different speeds). Unknown names are
   // ignored. Ingest itself reports a series' silence when a reading of it
   // comes past its deadline.
-  void AdvanceSeriesClock(std::string_view series, EventTime now, std::vector<Alert>* out);
+  void AdvanceSeriesClock(std::string_view series, EventTime now,
+                          std::vector<Alert>* out);
   // End of input: releases readings held for reordering.
   void Finish(std::vector<Alert>* out);
   // Replaces the profiles (a reload) without losing series state: a series
@@ -116,7 +129,8 @@ class Engine {
       return std::hash<std::string_view>{}(name);
     }
   };
-  std::unordered_map<std::string, std::unique_ptr<Series>, NameHash, std::equal_to<>> series_;
+  std::unordered_map<std::string, std::unique_ptr<Series>, NameHash, std::equal_to<>>
+      series_;
   // Silence deadlines, earliest first, about one entry per series: a reading
   // moves a series' deadline later without a new entry; when the old entry
   // comes due it is re-queued at the current deadline (or the silence fires).

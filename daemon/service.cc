@@ -18,11 +18,35 @@ constexpr std::size_t kRecentAlerts = 10000;
 // Two-sided 95% normal quantile, for the forecast band.
 constexpr double kBandZ = 1.959963984540054;
 
-// Calibrates every profile once, so a profile that cannot be designed is
-// refused at start or reload instead of dropping its series later.
-Status CheckProfiles(const Config& config) {
-  for (const ProfileOptions& profile : config.series) {
+}  // namespace
+
+// Profile designs made once and shared by all shards (a design is read-only
+// once made). Thread-safe: the mutex is held while calibrating, so shards
+// asking for the same profile wait for the one calibration.
+class DesignCache {
+ public:
+  StatusOr<ProfileDesign> Make(const ProfileOptions& profile) {
+    std::lock_guard<std::mutex> lock(mutex_);
+    for (const auto& [options, design] : made_) {
+      if (SameProfileSettings(options, profile)) return design;
+    }
     auto design = ProfileDesign::Make(profile);
+    if (design.ok()) made_.emplace_back(profile, *design);
+    return design;
+  }
+
+ private:
+  std::mutex mutex_;  // guards made_
+  std::vector<std::pair<ProfileOptions, ProfileDesign>> made_;
+};
+
+namespace {
+
+// Calibrates every profile (once, into the cache), so a profile that cannot
+// be designed is refused at start or reload instead of dropping its series.
+Status CheckProfiles(const Config& config, DesignCache* designs) {
+  for (const ProfileOptions& profile : config.series) {
+    auto design = designs->Make(profile);
     if (!design.ok()) {
       return Status::InvalidArgument(
           "profile \"" + profile.match +
@@ -52,7 +76,9 @@ SeriesSummary Summarise(const ShardState& state, const std::string& name,
 }  // namespace
 
 Service::Service(Config config, ServiceDependencies dependencies)
-    : config_(std::move(config)), deps_(dependencies) {}
+    : config_(std::move(config)),
+      deps_(dependencies),
+      designs_(std::make_shared<DesignCache>()) {}
 
 Service::~Service() { Shutdown(); }
 
@@ -60,7 +86,7 @@ Status Service::Start() {
   const ServiceOptions& options = config_.service;
   std::string why;
   if (!options.IsValid(&why)) return Status::InvalidArgument("service settings: " + why);
-  if (Status status = CheckProfiles(config_); !status.ok()) return status;
+  if (Status status = CheckProfiles(config_, designs_.get()); !status.ok()) return status;
   if (Status status = deps_.file_system->CreateDirectories(options.state_directory);
       !status.ok()) {
     return status;
@@ -94,6 +120,9 @@ Status Service::Start() {
   ShardOptions shard_options;
   shard_options.queue_batches = static_cast<std::size_t>(options.queue_batches);
   shard_options.engine.max_series = options.max_series;
+  shard_options.engine.make_design = [designs = designs_](const ProfileOptions& profile) {
+    return designs->Make(profile);
+  };
   shards_ = std::make_unique<ShardSet>(
       static_cast<std::size_t>(options.EffectiveShards()), config_, shard_options,
       deps_.clock, dispatcher_.get(), deps_.observer);
@@ -166,7 +195,7 @@ void Service::Shutdown() {
 StatusOr<ReloadReport> Service::Reload(const Config& config) {
   if (!started_ || stopping_)
     return Status::FailedPrecondition("the service is not running");
-  if (Status status = CheckProfiles(config); !status.ok()) return status;
+  if (Status status = CheckProfiles(config, designs_.get()); !status.ok()) return status;
   ReloadReport report;
   const std::vector<std::string> before = DescribeService(config_.service);
   const std::vector<std::string> after = DescribeService(config.service);

@@ -105,6 +105,8 @@ class Service : public ServiceView {
 
   Config config_;
   const ServiceDependencies deps_;
+  // Calibrates each distinct profile once, for every shard and reload.
+  std::shared_ptr<class DesignCache> designs_;
 
   std::unique_ptr<AlertDispatcher> dispatcher_;
   std::unique_ptr<ShardSet> shards_;
