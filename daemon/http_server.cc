@@ -149,7 +149,8 @@ struct HttpServer::State : std::enable_shared_from_this<HttpServer::State> {
   bool started = false;     // Start succeeded
   bool accepting = false;   // an accept is pending or posted
   bool stop_requested = false;
-  bool finished = false;    // stopped: nothing open, nothing accepted
+  bool finishing = false;   // Finish has begun
+  bool finished = false;    // stopped: nothing open, nothing accepted, on_stopped done
   bool detached = false;    // the HttpServer is gone
   tcp::endpoint bound;
   std::function<void()> on_stopped;
@@ -510,18 +511,23 @@ void HttpServer::State::BeginStop(std::chrono::milliseconds grace) {
   });
 }
 
+// On the acceptor's strand. on_stopped runs before WaitStopped returns.
 void HttpServer::State::Finish() {
   std::function<void()> callback;
   {
     std::lock_guard<std::mutex> lock(mutex);
-    if (finished) return;
-    finished = true;
+    if (finishing) return;
+    finishing = true;
     callback = std::move(on_stopped);
   }
   grace_timer.cancel();
   Log(HttpLogLevel::kInfo, "http: stopped");
-  finished_cv.notify_all();
   if (callback) callback();
+  {
+    std::lock_guard<std::mutex> lock(mutex);
+    finished = true;
+  }
+  finished_cv.notify_all();
 }
 
 HttpServer::HttpServer(net::io_context& io, tcp::endpoint endpoint, ServiceView& view,
