@@ -376,7 +376,7 @@ def scenario_sigterm(args, tmp, expected, accepted):
     data = read_bytes(args.readings)
     sender = threading.Thread(target=lambda: send_quietly(daemon.tcp_port, data))
     sender.start()
-    time.sleep(0.3)  # readings are pouring in
+    time.sleep(0.1)  # readings are pouring in
     seconds = daemon.stop()
     sender.join()
     text = daemon.text()
