@@ -316,6 +316,13 @@ bool SameProfileSettings(const ProfileOptions& a, const ProfileOptions& b) {
          a.cooldown == b.cooldown;
 }
 
+bool SameModelSettings(const ProfileOptions& a, const ProfileOptions& b) {
+  return a.kind == b.kind && a.seasons == b.seasons && a.harmonics == b.harmonics &&
+         a.gaps == b.gaps && a.every == b.every && a.memory == b.memory &&
+         a.trend == b.trend && a.level_noise == b.level_noise &&
+         a.level_noise_auto == b.level_noise_auto && a.lateness == b.lateness;
+}
+
 ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
   ReconfigureReport report;
   for (auto& design : designs_) {
@@ -337,9 +344,21 @@ ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
     Series& series = *it->second;
     const ProfileOptions* profile = MatchProfile(config_, series.name);
     if (profile && SameProfileSettings(series.design->profile, *profile)) {
+      series.monitor->SetAnnotations(
+          AnnotationsFor(config_, series.name));  // may have changed
       ++report.kept;
       ++it;
       continue;
+    }
+    if (profile && SameModelSettings(series.design->profile, *profile)) {
+      if (const ProfileDesign* design = DesignFor(profile)) {
+        series.design = design;
+        series.monitor->Retune(design);
+        series.monitor->SetAnnotations(AnnotationsFor(config_, series.name));
+        ++report.retuned;
+        ++it;
+        continue;
+      }
     }
     scratch_.clear();
     series.monitor->Flush(&scratch_);

@@ -54,6 +54,7 @@ std::string_view ToString(IngestOutcome outcome);
 // What Engine::Reconfigure did to the series it held.
 struct ReconfigureReport {
   std::size_t kept = 0;       // same profile settings: model and detectors carry on
+  std::size_t retuned = 0;    // new thresholds only: the model carries on, detectors anew
   std::size_t restarted = 0;  // settings changed: the series starts learning again
   std::size_t dropped = 0;    // no profile matches it any more: forgotten
 };
@@ -64,6 +65,10 @@ using DesignMaker = std::function<StatusOr<ProfileDesign>(const ProfileOptions& 
 // Whether two profiles model and watch a series the same way: every setting
 // but `match` (the rule Reconfigure keeps series by).
 bool SameProfileSettings(const ProfileOptions& a, const ProfileOptions& b);
+// Whether two profiles model a series the same way (kind, seasons, harmonics,
+// gaps, every, memory, trend, level_noise, lateness), whatever their
+// thresholds: a series can then be retuned instead of restarted.
+bool SameModelSettings(const ProfileOptions& a, const ProfileOptions& b);
 
 struct EngineOptions {
   std::size_t max_series = 1'000'000;  // new series beyond this are refused
@@ -95,9 +100,12 @@ class Engine {
   void Finish(std::vector<Alert>* out);
   // Replaces the profiles (a reload) without losing series state: a series
   // whose matching profile has the same settings as before (every key but
-  // `match`) keeps its monitor; one whose settings changed is flushed and
-  // starts again under its new profile; one that no profile matches any more
-  // is flushed and forgotten. Events from the flushes are appended to *out.
+  // `match`) keeps its monitor; one whose model settings are the same but
+  // whose thresholds changed (SameModelSettings) keeps its model and gets new
+  // detectors (SeriesMonitor::Retune); one whose model settings changed is
+  // flushed and starts again under its new profile; one that no profile
+  // matches any more is flushed and forgotten. Events from the flushes are
+  // appended to *out.
   ReconfigureReport Reconfigure(Config config, std::vector<Alert>* out);
 
   std::size_t series_count() const { return series_.size(); }

@@ -151,6 +151,7 @@ void Reload(Service* service, const std::optional<std::string>& path) {
   LogInfo("config reloaded", {{"path", *path},
                               {"profiles", config->series.size()},
                               {"series_kept", report->series.kept},
+                              {"series_retuned", report->series.retuned},
                               {"series_restarted", report->series.restarted},
                               {"series_dropped", report->series.dropped}});
   for (const std::string& line : report->ignored) {

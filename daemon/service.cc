@@ -216,6 +216,7 @@ StatusOr<ReloadReport> Service::Reload(const Config& config) {
     if (!result)
       return Status::Unavailable("shard " + std::to_string(i) + " did not answer");
     report.series.kept += result->kept;
+    report.series.retuned += result->retuned;
     report.series.restarted += result->restarted;
     report.series.dropped += result->dropped;
   }

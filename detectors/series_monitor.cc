@@ -726,6 +726,29 @@ void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
   }
 }
 
+void SeriesMonitor::Retune(const ProfileDesign* design) {
+  design_ = design;
+  level_.clear();
+  level_kinds_.clear();
+  const DetectorDesign& d = design->level;
+  for (DetectorKind kind : d.detectors) {
+    switch (kind) {
+      case DetectorKind::kCusum: level_.emplace_back(Cusum(d.cusum)); break;
+      case DetectorKind::kPageHinkley: level_.emplace_back(PageHinkley(d.page_hinkley)); break;
+      case DetectorKind::kBocpd: level_.emplace_back(Bocpd(d.bocpd)); break;
+      case DetectorKind::kEwma: level_.emplace_back(Ewma(d.ewma)); break;
+    }
+    level_kinds_.push_back(kind);
+  }
+  firings_.assign(level_.size(), Firing{});
+  threshold_fraction_.assign(level_.size(), 0.0);
+  variance_ = VarianceCusum(design->variance);
+  arrival_.SetDecisionIntervals(design->arrival.slower_h, design->arrival.faster_h);
+  variance_refitted_ = arrival_refitted_ = false;
+  variance_sample_.clear();
+  arrival_sample_.clear();
+}
+
 void SeriesMonitor::ResetLevelDetectors() {
   for (auto& detector : level_) std::visit([](auto& d) { d.Reset(); }, detector);
   for (auto& firing : firings_) firing = Firing{};

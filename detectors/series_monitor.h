@@ -179,6 +179,17 @@ class SeriesMonitor {
   void AdvanceClock(EventTime now, std::vector<SeriesEvent>* events);
   // When AdvanceClock would next report silence; nullopt when it cannot yet.
   std::optional<EventTime> silence_deadline() const;
+  // Swaps in `design` (which must outlive the monitor) for a new false-alarm
+  // budget or decision rule (arl0, shift, detectors, agree, agree_within,
+  // cooldown, warmup, silence_after) while keeping what the series taught the
+  // model: forecaster, residual scale and phase profile, whitening, arrival
+  // shape, reorder buffer, silence state. The level detectors and the
+  // variance CUSUM start afresh from the new design, and the variance and
+  // arrival decision intervals return to its calibrated values and are
+  // re-fitted on the next readings, as after warmup. Precondition: the model
+  // settings (kind, seasons, harmonics, gaps, every, memory, trend,
+  // level_noise, lateness) equal the current design's.
+  void Retune(const ProfileDesign* design);
 
   // Read-only views for APIs and tests.
   // Null until the first kProbe observations have set the forecaster's memory.

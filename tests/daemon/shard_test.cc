@@ -387,37 +387,54 @@ long long Observations(Shard& shard, const std::string& name) {
   return n.value_or(-2);
 }
 
-TEST(ShardTest, ReloadKeepsSeriesWhoseSettingsDidNotChange) {
+// The first level detector's threshold, asked on the shard thread.
+double FirstThreshold(Shard& shard, const std::string& name) {
+  auto t = shard.Ask<double>(
+      [name](ShardState& state) {
+        const SeriesMonitor* m = state.engine().Find(name);
+        return m ? m->DetectorSnapshots().at(0).threshold : -1.0;
+      },
+      std::chrono::seconds(10));
+  return t.value_or(-2.0);
+}
+
+TEST(ShardTest, ReloadKeepsRetunesRestartsOrDropsEachSeriesByWhatChanged) {
   ManualClock clock;
   const Config before = OneProfile(
       "series:\n"
       "  - match: \"coldstore/freezer-*/temp_c\"\n    seasons: []\n    warmup: 20\n"
       "  - match: \"coldstore/compressor-*/power_kw\"\n    seasons: []\n    warmup: 20\n"
-      "  - match: \"coldstore/dock/*\"\n    seasons: []\n    warmup: 20\n");
+      "  - match: \"coldstore/dock/*\"\n    seasons: []\n    warmup: 20\n"
+      "  - match: \"coldstore/orders/*\"\n    seasons: []\n    warmup: 20\n");
   Shard shard(0, before, ShardOptions{}, &clock, nullptr, nullptr);
   shard.Start();
   ReadingBatch batch;
   const auto stream = Stream(60);
-  for (const char* name :
-       {"coldstore/freezer-1/temp_c", "coldstore/compressor-2/power_kw",
-        "coldstore/dock/door_openings"}) {
+  const std::vector<std::string> names = {
+      "coldstore/freezer-1/temp_c", "coldstore/compressor-2/power_kw",
+      "coldstore/dock/door_openings", "coldstore/orders/pallets_shipped"};
+  for (const std::string& name : names) {
     for (std::size_t i = 0; i < stream.size(); ++i) {
       batch.Add({stream[i].time, name, stream[i].value}, i + 1);
     }
   }
   ASSERT_TRUE(shard.Push(&batch));
-  WaitProcessed(shard, 3 * stream.size());
-  const long long seen = Observations(shard, "coldstore/freezer-1/temp_c");
+  WaitProcessed(shard, names.size() * stream.size());
+  const long long seen = Observations(shard, names[0]);
   ASSERT_GT(seen, 40);
-  EXPECT_EQ(Observations(shard, "coldstore/compressor-2/power_kw"), seen);
+  for (const std::string& name : names)
+    EXPECT_EQ(Observations(shard, name), seen) << name;
+  const double threshold_before = FirstThreshold(shard, names[1]);
 
   // Freezer: same settings under a wider glob (kept). Compressor: a new arl0
-  // (restarted). Dock: no profile any more (dropped).
+  // (retuned: its model stays). Dock: a daily season (a new model:
+  // restarted). Orders: no profile any more (dropped).
   const Config after = OneProfile(
       "series:\n"
       "  - match: \"coldstore/freezer-*/*\"\n    seasons: []\n    warmup: 20\n"
       "  - match: \"coldstore/compressor-*/power_kw\"\n    seasons: []\n    warmup: 20\n"
-      "    arl0: 20000\n");
+      "    arl0: 20000\n"
+      "  - match: \"coldstore/dock/*\"\n    seasons: [1d]\n    warmup: 20\n");
   auto report = shard.Ask<ReconfigureReport>(
       [&after](ShardState& state) {
         std::vector<Alert> released;
@@ -426,14 +443,25 @@ TEST(ShardTest, ReloadKeepsSeriesWhoseSettingsDidNotChange) {
       std::chrono::seconds(30));
   ASSERT_TRUE(report);
   EXPECT_EQ(report->kept, 1u);
+  EXPECT_EQ(report->retuned, 1u);
   EXPECT_EQ(report->restarted, 1u);
   EXPECT_EQ(report->dropped, 1u);
-  EXPECT_EQ(Observations(shard, "coldstore/freezer-1/temp_c"), seen);
-  EXPECT_EQ(Observations(shard, "coldstore/compressor-2/power_kw"), 0);
-  EXPECT_EQ(Observations(shard, "coldstore/dock/door_openings"), -1);
+  EXPECT_EQ(Observations(shard, names[0]), seen);
+  EXPECT_EQ(Observations(shard, names[1]), seen);                // the model carried on
+  EXPECT_GT(FirstThreshold(shard, names[1]), threshold_before);  // arl0 up: wider
+  EXPECT_EQ(Observations(shard, names[2]), 0);
+  EXPECT_EQ(Observations(shard, names[3]), -1);
   auto listed = shard.Ask<std::size_t>([](ShardState& s) { return s.series().size(); },
                                        std::chrono::seconds(10));
-  EXPECT_EQ(listed, 2u);  // the dropped series left the API's list too
+  EXPECT_EQ(listed, 3u);  // the dropped series left the API's list too
+  // The retuned series goes on taking readings.
+  ReadingBatch more;
+  const auto later = Stream(70);
+  for (std::size_t i = 60; i < later.size(); ++i)
+    more.Add({later[i].time, names[1], 1.0}, i);
+  ASSERT_TRUE(shard.Push(&more));
+  WaitProcessed(shard, names.size() * stream.size() + 10);
+  EXPECT_EQ(Observations(shard, names[1]), seen + 10);
   shard.CloseInput();
   shard.Join();
 }

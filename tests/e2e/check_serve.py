@@ -342,8 +342,8 @@ def scenario_sighup(args, tmp, expected, accepted):
     check(daemon.process.poll() is None, "daemon died on an invalid config")
     check("arl0 must be in" in daemon.text(), "the refusal does not say why")
 
-    # A valid one: the pallets profile changes (its series restarts), the
-    # four others keep their state.
+    # A valid one: the pallets profile gets a new arl0 (its series keeps its
+    # model, with new detectors), the four others keep everything.
     changed = re.sub(r"arl0: 10000\b", "arl0: 20000", args.profiles)
     check(changed != args.profiles, "fixture config has no 'arl0: 10000' to change")
     write_config(config, changed, state)
@@ -353,7 +353,8 @@ def scenario_sighup(args, tmp, expected, accepted):
         check(time.time() < deadline, "no log line for the reload")
         time.sleep(0.05)
     line = [l for l in daemon.text().splitlines() if "config reloaded" in l][0]
-    check("series_kept=4" in line and "series_restarted=1" in line, "reload: " + line)
+    check("series_kept=4" in line and "series_retuned=1" in line and
+          "series_restarted=0" in line, "reload: " + line)
     daemon.send_tcp(halves[1])
     daemon.wait_readings(accepted)
     daemon.stop()
@@ -365,7 +366,7 @@ def scenario_sighup(args, tmp, expected, accepted):
               [a for a in got if a["series"] in kept],
               [a for a in expected if a["series"] in kept]))
     print("check_serve: sighup: invalid config refused with its reason; reload kept 4 "
-          "series (their %d alerts equal replay's) and restarted 1" % len(keys(got, kept)))
+          "series (their %d alerts equal replay's) and retuned 1" % len(keys(got, kept)))
 
 
 def scenario_sigterm(args, tmp, expected, accepted):
