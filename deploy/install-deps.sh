@@ -7,8 +7,9 @@ packages=(
   build-essential cmake ninja-build pkg-config
   libboost-dev libeigen3-dev libyaml-cpp-dev prometheus-cpp-dev
   libgtest-dev libgmock-dev libbenchmark-dev
-  # deploy checks and the scrape test: promtool and a Prometheus server
-  prometheus
+  # deploy checks and the scrape test: promtool and a Prometheus server, and
+  # systemd-analyze to verify the unit (so that check runs rather than skips)
+  prometheus systemd
   # HTTP load figures (tests/benchmarks/http/http_load.sh)
   wrk curl
   # reference checks: numpy/scipy/statsmodels oracles and R's data sets
