@@ -24,23 +24,36 @@
 //   beta'  = beta + kappa (x - mu)^2 / (2 (kappa + 1))
 // Predictive of the next reading: Student-t with nu = 2 alpha degrees of
 // freedom, location mu, scale^2 = beta (kappa + 1) / (alpha kappa). Its log
-// density simplifies to
-//   log pi_n(x) = c_n + alpha_n log beta - (alpha_n + 1/2) log beta'
-//   c_n = lgamma(alpha_n + 1/2) - lgamma(alpha_n)
-//         - (1/2) log(2 pi (kappa_n + 1) / kappa_n)
-// with beta' the updated beta: one logarithm per run both scores the reading
-// and prepares the next step. c_n, kappa_n and alpha_n depend on the run
-// length n alone and are tabulated for n = 0..R at construction.
+// density is a difference of log marginal likelihoods:
+//   log pi_n(x) = M_{n+1}(beta') - M_n(beta),  M_n(beta) = L_n - alpha_n log beta
+//   L_n = lgamma(alpha_n) - lgamma(alpha0) - (n/2) log(2 pi)
+//         - (1/2) log(kappa_n / kappa0)
+// with beta' the updated beta (M_n + alpha0 log beta0 is the log marginal
+// likelihood of the run's n readings). L_n, kappa_n and alpha_n depend on the
+// run length alone and are tabulated for n = 0..R + 1 at construction.
 //
 // Recursion (Algorithm 1). With P_t(j) = P(r_t = j | x_1..t) and P_0(0) = 1:
 //   w_j          = P_{t-1}(j) pi_j(x_t)                  for every held j
 //   p(x_t | x_1..t-1) = sum_j w_j                        (evidence increment)
 //   P_t(0)       = H
 //   P_t(j + 1)   = (1 - H) w_j / sum_k w_k
-// so P_t(0) = H exactly at every t. The w_j are formed as
-// P_{t-1}(j) exp(log pi_j - max_k log pi_k), so neither long runs nor outliers
-// underflow; if even that sum underflows (every held state improbable and far
-// off), it is redone from log P_{t-1}(j) + log pi_j.
+// so P_t(0) = H exactly at every t.
+//
+// How it is computed. As pi telescopes along a run, each state keeps a number
+// g_j, set at its birth, such that
+//   log P_t(j) = g_j + M_{n_j}(beta_j) - s_t
+// with s_t one number shared by all states. A reading then costs, per state,
+// one logarithm and one exponential:
+//   u_j = g_j + L_{n+1} - alpha_{n+1} log beta'_j     (= log w_j + s_{t-1})
+//   w_j = exp(u_j - max_k u_k)                        (the w_j above, rescaled)
+// and, once per reading, log p(x_t | x_1..t-1) = max_k u_k + log sum_k w_k -
+// s_{t-1}; s_t = max_k u_k + log sum_k w_k - log(1 - H); a fresh state gets
+// g = log H + alpha0 log beta0 + s_t; and the P_t(j + 1) are the w_j times one
+// scale factor. The sum is at least 1, so neither long runs nor outliers
+// underflow it; a state whose w_j underflows to 0 keeps its g and can
+// recover. When |s_t| passes 1024 it is folded into every g_j, which keeps
+// them small. The g_j change only then and at the cap, so rounding errors do
+// not build up along a run.
 //
 // Bounded memory: a cap and pruning.
 //  * Cap R = max_run_length. The state r = R stands for "a run of at least R
@@ -48,13 +61,15 @@
 //    (a sliding window). When j = R - 1 grows to R and the cap state grows
 //    past R, both hold exactly the last R readings, so their masses add:
 //      P_t(R) = (1 - H) (w_{R-1} + w_R) / sum_k w_k
-//    and no mass is lost or renormalised. If the state R - 1 is not held
-//    (pruned), the cap state slides alone: it takes x_t and gives back
-//    x_{t-R} (the exact reverse of the conjugate update).
+//    and no mass is lost or renormalised (the kept state's g rises by
+//    log(1 + w_R / w_{R-1})). If the state R - 1 is not held (pruned), the
+//    cap state slides alone: it takes x_t and gives back x_{t-R} (the exact
+//    reverse of the conjugate update), and its g is set anew so that its
+//    probability is unchanged.
 //  * Pruning. After each update every state j >= 1 whose posterior is below
 //    prune_tolerance is dropped, except the most probable one, and the states
-//    j >= 1 that remain are rescaled to sum to 1 - H (so P_t(0) = H still).
-//    prune_tolerance = 0 keeps every state.
+//    j >= 1 that remain are rescaled to sum to 1 - H (so P_t(0) = H still; a
+//    change of s_t). prune_tolerance = 0 keeps every state.
 // Hence at most R + 1 states are ever held. All storage is allocated at
 // construction; Update allocates nothing.
 //
@@ -125,7 +140,9 @@
 // some 1e-5 of mass), after a clear change the old long runs go.
 #pragma once
 
+#include <cstddef>
 #include <cstdint>
+#include <new>
 #include <string>
 #include <vector>
 
@@ -159,6 +176,45 @@ struct BocpdOptions {
   bool IsValid(std::string* why) const;
 };
 
+namespace bocpd_internal {
+
+// Instruction sets the update loop is compiled for (see bocpd.cc): kPortable
+// (2 lanes; SSE2, NEON or plain code; no fused multiply-add), kAvx2 (4 lanes,
+// x86-64 with AVX2 and FMA) and kAvx512 (8 lanes, x86-64 with AVX-512F). kAvx2
+// and kAvx512 give bit-identical results; kPortable agrees with them to
+// rounding, not bit for bit.
+enum class Isa { kPortable, kAvx2, kAvx512 };
+
+// True when this processor (and build) can run `isa`.
+bool Supported(Isa isa);
+// The widest supported instruction set: what RunLengthPosterior uses.
+Isa BestIsa();
+
+// The vectorised exp and log of the update loop on `isa` (must be
+// Supported), one value at a time, for tests. FastExp: x <= 0 (0 below -708).
+// FastLog: positive normal x below 1.3e308.
+double FastExp(double x, Isa isa = BestIsa());
+double FastLog(double x, Isa isa = BestIsa());
+
+// Allocator of 64-byte aligned storage (a cache line; one AVX-512 vector).
+template <class T>
+struct CacheLineAllocator {
+  using value_type = T;
+  CacheLineAllocator() = default;
+  template <class U>
+  CacheLineAllocator(const CacheLineAllocator<U>&) {}
+  T* allocate(std::size_t n) {
+    return static_cast<T*>(::operator new (n * sizeof(T), std::align_val_t{64}));
+  }
+  void deallocate(T* p, std::size_t) { ::operator delete (p, std::align_val_t{64}); }
+  friend bool operator==(const CacheLineAllocator&, const CacheLineAllocator&) {
+    return true;
+  }
+};
+using AlignedDoubles = std::vector<double, CacheLineAllocator<double>>;
+
+}  // namespace bocpd_internal
+
 // The run-length distribution P(r_t | x_1..t) and the per-run Normal-Gamma
 // statistics, updated by Adams and MacKay's recursion with the cap and pruning
 // described above. States are indexed 0..size()-1 in increasing run length;
@@ -166,8 +222,12 @@ struct BocpdOptions {
 class RunLengthPosterior {
  public:
   // Uses the prior, hazard, max_run_length and prune_tolerance of `options`.
-  // Precondition: options.IsValid(nullptr).
+  // Precondition: options.IsValid(nullptr). The update loop runs on the widest
+  // instruction set this processor supports (bocpd_internal::BestIsa()).
   explicit RunLengthPosterior(const BocpdOptions& options);
+  // The same on a given instruction set, for tests that compare them (one this
+  // processor does not support falls back to kPortable).
+  RunLengthPosterior(const BocpdOptions& options, bocpd_internal::Isa isa);
 
   // Adds one reading. Precondition: x finite and |x| <= kBocpdMaxAbsReading
   // (Bocpd::Update checks it). Allocation-free.
@@ -210,37 +270,51 @@ class RunLengthPosterior {
 
  private:
   std::size_t Slot(int i) const { return end_ - 1 - static_cast<std::size_t>(i); }
-  void SlideCapState(std::size_t slot);
+  void SlideCapState(std::size_t slot, double log_joint);
   void Prune();
   void AppendFreshState();
 
-  // Options used by the recursion.
-  double mu0_, kappa0_, alpha0_, beta0_, log_beta0_, hazard_, tolerance_;
-  int cap_;  // R
+  // Options used by the recursion, and logs of a few of them.
+  double mu0_, kappa0_, alpha0_, beta0_;
+  double prior_log_mass_;  // alpha0 log beta0
+  double log_hazard_;      // log H
+  double log_growth_;      // log(1 - H)
+  double hazard_, tolerance_;
+  int cap_;                  // R
+  bocpd_internal::Isa isa_;  // instruction set of the update loop
 
-  // Per-run-length constants, indexed by R - n for a run holding n readings
-  // (descending n), so that states without gaps read a contiguous slice.
-  std::vector<double> alpha_by_age_;       // alpha_n
-  std::vector<double> half_ratio_by_age_;  // kappa_n / (2 (kappa_n + 1))
-  std::vector<double> step_by_age_;        // 1 / (kappa_n + 1)
-  std::vector<double> log_norm_by_age_;    // c_n
+  // Per-run-length constants for a run holding n readings before a reading,
+  // indexed by 8 + R - n (descending n, after 8 entries of padding), so that
+  // states without gaps read a contiguous slice.
+  std::vector<double> step_by_age_;         // 1 / (kappa_n + 1)
+  std::vector<double> log_ml_next_by_age_;  // L_{n+1}
+  std::vector<double> alpha_next_by_age_;   // alpha_{n+1}
 
   // States, oldest (longest run) first, in slots [begin_, end_) of buffers
   // holding 2 (R + 1) + 1 slots; the block slides right as states are merged
   // away at the cap and appended at r = 0, and moves back to slot 0 when it
-  // reaches the end (every R updates or so).
-  std::vector<double> mu_, beta_, log_beta_, prob_;
-  std::vector<std::int64_t> birth_;  // readings_ when the state was r = 0
+  // reaches the end (every R updates or so). Slot buffers are 64-byte
+  // aligned (the update loop aligns its vectors on slots).
+  bocpd_internal::AlignedDoubles mu_, beta_;
+  bocpd_internal::AlignedDoubles log_mass_;  // g_j
+  bocpd_internal::AlignedDoubles weight_;    // w_j
+  std::vector<std::int64_t> birth_;          // readings_ when the state was r = 0
+  std::size_t slots_ = 0;                    // 2 (R + 1) + 1
   std::size_t begin_ = 0, end_ = 0;
-  std::size_t map_slot_ =
-      0;  // most probable state with r >= 1 (valid when readings_ > 0)
+  // Most probable state with r >= 1 (valid when readings_ > 0).
+  std::size_t map_slot_ = 0;
+  double scale_ = 1.0;      // P_t(j) = w_j scale_
+  double log_shift_ = 0.0;  // s_t
 
-  // Scratch for one update, R + 1 entries each.
-  std::vector<double> log_pred_, weight_;
-  std::vector<double> gather_alpha_, gather_half_ratio_, gather_step_, gather_log_norm_;
+  // Scratch for one update, indexed by slot like the states: the
+  // per-run-length constants gathered when pruning has left gaps. (The u_j
+  // of an update live in weight_ until they are weighed.)
+  bocpd_internal::AlignedDoubles gather_step_, gather_log_ml_next_, gather_alpha_next_;
 
-  // The last R + 1 readings (ring), for the sliding cap state.
+  // The last R + 1 readings (ring), for the sliding cap state; reading t at
+  // index t mod (R + 1), the latest at recent_at_.
   std::vector<double> recent_;
+  std::size_t recent_at_ = 0;
 
   std::int64_t readings_ = 0;
   double log_evidence_ = 0.0;
@@ -316,19 +390,14 @@ class Bocpd {
   BocpdOptions options_;
   RunLengthPosterior posterior_;
   // Ring of the last w reading times and of the last w + 1 snapshots of the
-  // most probable run, indexed by reading number modulo their size.
+  // most probable run, indexed by reading number modulo their size; the
+  // latest at time_at_ and snapshot_at_.
   std::vector<EventTime> times_;
   std::vector<Snapshot> snapshots_;
+  std::size_t time_at_ = 0, snapshot_at_ = 0;
   double change_probability_ = 0.0;
   bool above_ = false;  // armed and C_t > threshold at the previous reading
   std::int64_t alarms_ = 0;
 };
-
-namespace bocpd_internal {
-// The vectorised exp and log of the update loop, one value at a time, for
-// tests. FastExp: x <= 0 (0 below -708). FastLog: positive normal x.
-double FastExp(double x);
-double FastLog(double x);
-}  // namespace bocpd_internal
 
 }  // namespace plumbline

@@ -70,5 +70,30 @@ void BM_BocpdUpdateWithChanges(benchmark::State& state) {
 }
 BENCHMARK(BM_BocpdUpdateWithChanges)->Arg(300);
 
+// The run-length posterior alone, default options with the cap R = range(0),
+// N(0, 1), on the instruction set range(1) of the update loop (0 portable, 1
+// AVX2, 2 AVX-512; skipped where the processor lacks it). BM_BocpdUpdate runs
+// on the widest one.
+void BM_RunLengthPosteriorUpdate(benchmark::State& state) {
+  const auto isa = static_cast<bocpd_internal::Isa>(state.range(1));
+  if (!bocpd_internal::Supported(isa)) {
+    state.SkipWithError("instruction set not supported here");
+    return;
+  }
+  BocpdOptions options;
+  options.max_run_length = static_cast<int>(state.range(0));
+  const std::vector<double> x = Readings(0);
+  const std::size_t mask = x.size() - 1;
+  RunLengthPosterior posterior(options, isa);
+  std::size_t i = 0;
+  for (int k = 0; k < 3 * options.max_run_length; ++k, ++i) posterior.Update(x[i & mask]);
+  for (auto _ : state) {
+    posterior.Update(x[i & mask]);
+    benchmark::DoNotOptimize(posterior.last_log_predictive());
+    ++i;
+  }
+}
+BENCHMARK(BM_RunLengthPosteriorUpdate)->ArgsProduct({{100, 300, 1000}, {0, 1, 2}});
+
 }  // namespace
 }  // namespace plumbline

@@ -512,5 +512,136 @@ TEST(BocpdTest, FastExpAndLogAgreeWithLibm) {
   EXPECT_EQ(bocpd_internal::FastExp(-800.0), 0.0);
 }
 
+// ------------------------------------------------------ instruction sets ----
+
+// A stream that exercises every path of the update: level and variance
+// changes (pruning leaves gaps, so the per-state constants are gathered),
+// bursts (the cap state slides alone) and long calm stretches (merges at the
+// cap), with options that make all of them frequent.
+std::vector<double> EveryPathStream(int length, std::uint64_t seed) {
+  Random random(seed);
+  std::vector<double> x;
+  for (int t = 0; t < length; ++t) {
+    const double level = (t / 250) % 3 == 1 ? 2.5 : 0.0;
+    const double scale = (t / 400) % 2 == 1 ? 3.0 : 1.0;
+    x.push_back((t % 97 < 2) ? 8.0 * random.Normal() : level + scale * random.Normal());
+  }
+  return x;
+}
+
+BocpdOptions EveryPathOptions() {
+  BocpdOptions o;
+  o.max_run_length = 60;
+  o.window = 10;
+  o.min_readings = 11;
+  o.prune_tolerance = 1e-4;
+  return o;
+}
+
+// Common practice, no source: the AVX2 and AVX-512 builds of the update loop
+// perform the same operations lane by lane and sum in the same order, so they
+// agree bit for bit, state by state, at every step (bocpd.cc). Skipped where
+// the processor lacks either.
+TEST(BocpdTest, AvxBuildsAgreeBitForBit) {
+  using bocpd_internal::Isa;
+  if (!bocpd_internal::Supported(Isa::kAvx2) ||
+      !bocpd_internal::Supported(Isa::kAvx512)) {
+    GTEST_SKIP() << "needs AVX2 and AVX-512F";
+  }
+  for (const BocpdOptions& o : {EveryPathOptions(), BocpdOptions{}}) {
+    RunLengthPosterior avx2(o, Isa::kAvx2), avx512(o, Isa::kAvx512);
+    for (double x : EveryPathStream(3000, 17)) {
+      avx2.Update(x);
+      avx512.Update(x);
+      ASSERT_EQ(avx2.size(), avx512.size());
+      for (int i = 0; i < avx2.size(); ++i) {
+        ASSERT_EQ(avx2.run_length(i), avx512.run_length(i));
+        ASSERT_EQ(avx2.probability(i), avx512.probability(i)) << "t=" << avx2.readings();
+        ASSERT_EQ(avx2.mean(i), avx512.mean(i));
+        ASSERT_EQ(avx2.variance(i), avx512.variance(i));
+      }
+      ASSERT_EQ(avx2.log_evidence(), avx512.log_evidence());
+      ASSERT_EQ(avx2.MostProbableRunIndex(), avx512.MostProbableRunIndex());
+    }
+  }
+}
+
+// Common practice, no source: the portable build (separate rounding of each
+// product) agrees with the processor's best build to rounding: every
+// probability within 1e-12, the log evidence within 1e-12 relative, the same
+// states held and the same MAP run length at every step.
+TEST(BocpdTest, PortableBuildAgreesWithBestBuildToRounding) {
+  using bocpd_internal::Isa;
+  for (const BocpdOptions& o : {EveryPathOptions(), BocpdOptions{}}) {
+    RunLengthPosterior portable(o, Isa::kPortable), best(o, bocpd_internal::BestIsa());
+    double worst = 0.0;
+    for (double x : EveryPathStream(3000, 23)) {
+      portable.Update(x);
+      best.Update(x);
+      ASSERT_EQ(portable.size(), best.size()) << "t=" << best.readings();
+      for (int i = 0; i < best.size(); ++i) {
+        ASSERT_EQ(portable.run_length(i), best.run_length(i));
+        worst = std::max(worst, std::abs(portable.probability(i) - best.probability(i)));
+      }
+      ASSERT_EQ(portable.MapRunLength(), best.MapRunLength()) << "t=" << best.readings();
+      ASSERT_NEAR(portable.log_evidence(), best.log_evidence(),
+                  1e-12 * std::abs(best.log_evidence()));
+    }
+    EXPECT_LE(worst, 1e-12);
+  }
+}
+
+// Common practice, no source: the exp and log of every build this processor
+// runs agree with the C library's to within 4 ulps over their working ranges
+// (FastExpAndLogAgreeWithLibm checks the build the update loop uses).
+TEST(BocpdTest, FastExpAndLogOfEveryBuildAgreeWithLibm) {
+  using bocpd_internal::Isa;
+  for (Isa isa : {Isa::kPortable, Isa::kAvx2, Isa::kAvx512}) {
+    if (!bocpd_internal::Supported(isa)) continue;
+    Random random(6);
+    double worst_exp = 0.0, worst_log = 0.0;
+    for (int i = 0; i < 200000; ++i) {
+      const double x = -708.0 * random.Uniform() * (i % 2 == 0 ? 1.0 : 1e-3);
+      const double e = std::exp(x);
+      worst_exp = std::max(worst_exp, std::abs(bocpd_internal::FastExp(x, isa) - e) / e);
+      // Up to 1e300, and within 1e-3 of 1 (where the log is small) every
+      // fourth time.
+      const double y = i % 4 == 0 ? 1.0 + 1e-3 * (random.Uniform() - 0.5)
+                                  : std::exp(1380.0 * (random.Uniform() - 0.5));
+      const double l = std::log(y);
+      if (l != 0.0) {
+        worst_log = std::max(worst_log,
+                             std::abs(bocpd_internal::FastLog(y, isa) - l) / std::abs(l));
+      }
+    }
+    EXPECT_LE(worst_exp, 4 * std::numeric_limits<double>::epsilon())
+        << static_cast<int>(isa);
+    EXPECT_LE(worst_log, 4 * std::numeric_limits<double>::epsilon())
+        << static_cast<int>(isa);
+  }
+}
+
+// Common practice, no source: gross outliers (1e6 sd; each moves the shared
+// offset s_t of bocpd.h by thousands and leaves most weights at 0) keep the
+// posterior finite and normalised, with P(r = 0) = H, over a long stream.
+TEST(BocpdTest, GrossOutliersKeepThePosteriorFiniteAndNormalised) {
+  BocpdOptions o;
+  o.max_run_length = 50;
+  o.window = 10;
+  o.min_readings = 11;
+  RunLengthPosterior posterior(o);
+  Random random(31);
+  for (int t = 1; t <= 200000; ++t) {
+    const double x = t % 1000 == 0 ? 1e6 : random.Normal();
+    posterior.Update(x);
+    if (t % 997 != 0) continue;
+    double total = 0.0;
+    for (int i = 0; i < posterior.size(); ++i) total += posterior.probability(i);
+    ASSERT_NEAR(total, 1.0, 1e-12) << "t=" << t;
+    ASSERT_NEAR(posterior.probability(0), o.hazard, 1e-15) << "t=" << t;
+    ASSERT_TRUE(std::isfinite(posterior.log_evidence()));
+  }
+}
+
 }  // namespace
 }  // namespace plumbline
