@@ -78,6 +78,7 @@ SeriesSummary Summarise(const ShardState& state, const std::string& name,
 Service::Service(Config config, ServiceDependencies dependencies)
     : config_(std::move(config)),
       deps_(dependencies),
+      max_line_bytes_(config_.service.tcp.max_line_bytes),
       designs_(std::make_shared<DesignCache>()) {}
 
 Service::~Service() { Shutdown(); }
@@ -229,8 +230,11 @@ StatusOr<ReloadReport> Service::Reload(const Config& config) {
 IngestReceipt Service::IngestLines(std::string_view body) {
   IngestReceipt receipt;
   if (!started_ || stopping_ || !shards_) {
-    receipt.rejected = 0;
-    receipt.first_rejections.push_back({0, "shutting_down"});
+    // Not taking readings: every line is refused, reported once as line 1.
+    receipt.rejected =
+        static_cast<std::size_t>(std::count(body.begin(), body.end(), '\n')) +
+        (!body.empty() && body.back() != '\n' ? 1 : 0);
+    receipt.first_rejections.push_back({1, started_ ? "shutting_down" : "starting"});
     return receipt;
   }
   auto ticket = std::make_shared<IngestTicket>();
@@ -238,7 +242,7 @@ IngestReceipt Service::IngestLines(std::string_view body) {
   {
     ShardRouter router(shards_.get(), ticket);
     ReadingParserOptions parser_options;
-    parser_options.max_line_bytes = config_.service.tcp.max_line_bytes;
+    parser_options.max_line_bytes = max_line_bytes_;
     ReadingParser* parser_ptr = nullptr;
     ReadingParser parser(
         parser_options,

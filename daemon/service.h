@@ -105,6 +105,9 @@ class Service : public ServiceView {
 
   Config config_;
   const ServiceDependencies deps_;
+  // HTTP ingest's line limit (the TCP listener's), fixed at construction: the
+  // API threads read it while Reload may replace config_.
+  const std::size_t max_line_bytes_;
   // Calibrates each distinct profile once, for every shard and reload.
   std::shared_ptr<class DesignCache> designs_;
 

@@ -203,6 +203,11 @@ TEST(ServiceTest, NotReadyOnceTheAlertLogFailsAndSaysWhy) {
   std::string why;
   EXPECT_FALSE(service.Ready(&why));
   EXPECT_EQ(why, "starting");
+  const IngestReceipt early = service.IngestLines("a\nb\nc");
+  EXPECT_EQ(early.accepted, 0u);
+  EXPECT_EQ(early.rejected, 3u);
+  ASSERT_EQ(early.first_rejections.size(), 1u);
+  EXPECT_EQ(early.first_rejections[0].reason, "starting");
   {
     const Status started = service.Start();
     ASSERT_TRUE(started.ok()) << started.message();
