@@ -391,7 +391,7 @@ def scenario_sigterm(args, tmp, expected, accepted):
     got = load_alerts(os.path.join(state, "alerts.jsonl"))
     expected_keys = set(keys(expected))
     check(all(k in expected_keys for k in keys(got)), "an alert replay does not have")
-    print("check_serve: sigterm: stopped in %.2f s mid-stream with exit status 0, stages "
+    print("check_serve: sigterm: sent 0.1 s into the feed, stopped in %.2f s with exit status 0, stages "
           "in order, %d alerts all replay's" % (seconds, len(got)))
 
 
