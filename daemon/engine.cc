@@ -3,6 +3,7 @@
 #include <cmath>
 #include <cstdio>
 
+#include "daemon/text.h"
 #include "detectors/glob.h"
 #include "detectors/time_format.h"
 
@@ -15,38 +16,6 @@ std::uint64_t Fnv1a(std::string_view text, std::uint64_t hash = 1469598103934665
     hash *= 1099511628211ULL;
   }
   return hash;
-}
-
-void AppendJsonString(std::string* out, std::string_view text) {
-  out->push_back('"');
-  for (unsigned char c : text) {
-    switch (c) {
-      case '"':
-        *out += "\\\"";
-        break;
-      case '\\':
-        *out += "\\\\";
-        break;
-      case '\n':
-        *out += "\\n";
-        break;
-      case '\r':
-        *out += "\\r";
-        break;
-      case '\t':
-        *out += "\\t";
-        break;
-      default:
-        if (c < 0x20) {
-          char buffer[8];
-          std::snprintf(buffer, sizeof buffer, "\\u%04x", c);
-          *out += buffer;
-        } else {
-          out->push_back(static_cast<char>(c));
-        }
-    }
-  }
-  out->push_back('"');
 }
 
 void AppendNumber(std::string* out, double value) {
@@ -96,30 +65,30 @@ std::vector<Annotation> AnnotationsFor(const Config& config, std::string_view na
 
 std::string AlertToJson(const Alert& a) {
   std::string out = "{\"id\":";
-  AppendJsonString(&out, a.id);
+  AppendJsonString(a.id, &out);
   out += ",\"event\":";
-  AppendJsonString(&out, ToString(a.event));
+  AppendJsonString(ToString(a.event), &out);
   out += ",\"series\":";
-  AppendJsonString(&out, a.series);
+  AppendJsonString(a.series, &out);
   out += ",\"kind\":";
-  AppendJsonString(&out, ToString(a.kind));
+  AppendJsonString(ToString(a.kind), &out);
   out += ",\"direction\":";
-  AppendJsonString(&out, ToString(a.direction));
+  AppendJsonString(ToString(a.direction), &out);
   out += ",\"detected_at\":";
-  AppendJsonString(&out, FormatRfc3339(a.detected_at));
+  AppendJsonString(FormatRfc3339(a.detected_at), &out);
   out += ",\"change_at\":";
-  AppendJsonString(&out, FormatRfc3339(a.change_at));
+  AppendJsonString(FormatRfc3339(a.change_at), &out);
   out += ",\"detectors\":[";
   for (size_t i = 0; i < a.detectors.size(); ++i) {
     if (i) out += ',';
-    AppendJsonString(&out, a.detectors[i]);
+    AppendJsonString(a.detectors[i], &out);
   }
   out += ']';
   if (a.event == EventType::kRetrain) {
     out += ",\"retrain_from\":";
-    AppendJsonString(&out, FormatRfc3339(a.change_at));
+    AppendJsonString(FormatRfc3339(a.change_at), &out);
     out += ",\"retrain_to\":";
-    AppendJsonString(&out, FormatRfc3339(a.window_to));
+    AppendJsonString(FormatRfc3339(a.window_to), &out);
   } else if (a.event == EventType::kAlert && a.kind == AlertKind::kLevel) {
     out += ",\"magnitude\":";
     AppendNumber(&out, a.magnitude);
@@ -151,7 +120,7 @@ std::string AlertToJson(const Alert& a) {
   if (!a.annotation.empty()) {
     out +=
         a.event == EventType::kSuppressed ? ",\"suppressed_by\":" : ",\"explained_by\":";
-    AppendJsonString(&out, a.annotation);
+    AppendJsonString(a.annotation, &out);
   }
   out += ",\"advisory\":true}";
   return out;

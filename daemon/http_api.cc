@@ -19,34 +19,6 @@ int HexDigit(char c) {
   return -1;
 }
 
-// Length of the well-formed UTF-8 sequence at text[i] (RFC 3629: no overlongs,
-// no surrogates, at most U+10FFFF), or 0 when the bytes there are not one.
-std::size_t Utf8SequenceLength(std::string_view text, std::size_t i) {
-  const auto byte = [&](std::size_t k) { return static_cast<unsigned char>(text[k]); };
-  const unsigned char b0 = byte(i);
-  if (b0 < 0x80) return 1;
-  std::size_t length = 0;
-  unsigned char low = 0x80, high = 0xBF;  // range of the second byte
-  if (b0 >= 0xC2 && b0 <= 0xDF) {
-    length = 2;
-  } else if (b0 >= 0xE0 && b0 <= 0xEF) {
-    length = 3;
-    if (b0 == 0xE0) low = 0xA0;
-    if (b0 == 0xED) high = 0x9F;
-  } else if (b0 >= 0xF0 && b0 <= 0xF4) {
-    length = 4;
-    if (b0 == 0xF0) low = 0x90;
-    if (b0 == 0xF4) high = 0x8F;
-  } else {
-    return 0;
-  }
-  if (i + length > text.size()) return 0;
-  if (byte(i + 1) < low || byte(i + 1) > high) return 0;
-  for (std::size_t k = 2; k < length; ++k) {
-    if (byte(i + k) < 0x80 || byte(i + k) > 0xBF) return 0;
-  }
-  return length;
-}
 
 void AppendKey(std::string_view key, std::string* out) {
   AppendJsonString(key, out);
@@ -155,52 +127,6 @@ std::optional<std::string> QueryParameter(std::string_view query, std::string_vi
     return value;
   }
   return std::nullopt;
-}
-
-void AppendJsonString(std::string_view text, std::string* out) {
-  out->push_back('"');
-  for (std::size_t i = 0; i < text.size();) {
-    const auto c = static_cast<unsigned char>(text[i]);
-    if (c >= 0x80) {
-      const std::size_t length = Utf8SequenceLength(text, i);
-      if (length == 0) {
-        *out += "\xEF\xBF\xBD";  // U+FFFD REPLACEMENT CHARACTER
-        ++i;
-      } else {
-        out->append(text.substr(i, length));
-        i += length;
-      }
-      continue;
-    }
-    switch (c) {
-      case '"': *out += "\\\""; break;
-      case '\\': *out += "\\\\"; break;
-      case '\n': *out += "\\n"; break;
-      case '\r': *out += "\\r"; break;
-      case '\t': *out += "\\t"; break;
-      default:
-        if (c < 0x20 || c == 0x7F) {
-          static constexpr char kHex[] = "0123456789abcdef";
-          *out += "\\u00";
-          out->push_back(kHex[c >> 4]);
-          out->push_back(kHex[c & 0xF]);
-        } else {
-          out->push_back(static_cast<char>(c));
-        }
-    }
-    ++i;
-  }
-  out->push_back('"');
-}
-
-void AppendJsonNumber(double value, std::string* out) {
-  if (!std::isfinite(value)) {
-    *out += "null";
-    return;
-  }
-  char buffer[32];
-  const auto result = std::to_chars(buffer, buffer + sizeof buffer, value);
-  out->append(buffer, result.ptr);
 }
 
 std::string SeriesSummaryToJson(const SeriesSummary& summary) {

@@ -29,6 +29,7 @@
 
 #include "daemon/metrics.h"
 #include "daemon/service_view.h"
+#include "daemon/text.h"
 
 namespace plumbline {
 
@@ -84,12 +85,6 @@ std::optional<std::string> PercentDecode(std::string_view text, bool plus_is_spa
 std::optional<std::string> QueryParameter(std::string_view query, std::string_view key,
                                           bool* malformed = nullptr);
 
-// Appends `text` as a JSON string literal: quotes, backslashes and control
-// characters escaped; bytes that are not valid UTF-8 replaced by U+FFFD, so
-// the output is always valid JSON.
-void AppendJsonString(std::string_view text, std::string* out);
-// Appends a number in its shortest round-trip form; null when not finite.
-void AppendJsonNumber(double value, std::string* out);
 
 std::string SeriesSummaryToJson(const SeriesSummary& summary);
 std::string SeriesDetailToJson(const SeriesDetail& detail);

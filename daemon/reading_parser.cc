@@ -7,6 +7,7 @@
 #include <system_error>
 #include <utility>
 
+#include "daemon/text.h"
 #include "detectors/time_format.h"
 
 namespace plumbline {
@@ -25,32 +26,6 @@ constexpr bool IsJsonSpace(char c) {
 constexpr bool IsDigit(char c) { return c >= '0' && c <= '9'; }
 
 // ---- UTF-8 ----
-
-// Length of the well-formed UTF-8 sequence at p[0..n) (Unicode 15, table 3-7:
-// no overlong forms, no surrogates, nothing above U+10FFFF), or 0 if there is
-// none. Precondition: n > 0.
-std::size_t Utf8SequenceLength(const unsigned char* p, std::size_t n) {
-  const unsigned c = p[0];
-  if (c < 0x80) return 1;
-  auto in = [](unsigned byte, unsigned lo, unsigned hi) {
-    return byte >= lo && byte <= hi;
-  };
-  if (c < 0xC2) return 0;  // a continuation byte, or an overlong 2-byte lead
-  if (c < 0xE0) return n >= 2 && in(p[1], 0x80, 0xBF) ? 2 : 0;
-  if (c < 0xF0) {
-    if (n < 3) return 0;
-    const unsigned lo = c == 0xE0 ? 0xA0 : 0x80;  // E0: no overlongs
-    const unsigned hi = c == 0xED ? 0x9F : 0xBF;  // ED: no surrogates
-    return in(p[1], lo, hi) && in(p[2], 0x80, 0xBF) ? 3 : 0;
-  }
-  if (c < 0xF5) {
-    if (n < 4) return 0;
-    const unsigned lo = c == 0xF0 ? 0x90 : 0x80;  // F0: no overlongs
-    const unsigned hi = c == 0xF4 ? 0x8F : 0xBF;  // F4: nothing above U+10FFFF
-    return in(p[1], lo, hi) && in(p[2], 0x80, 0xBF) && in(p[3], 0x80, 0xBF) ? 4 : 0;
-  }
-  return 0;
-}
 
 // True for a 2-byte sequence encoding a C1 control, U+0080..U+009F.
 bool IsC1Control(const unsigned char* p) { return p[0] == 0xC2 && p[1] < 0xA0; }
