@@ -465,12 +465,7 @@ class Loader {
             Error(f.Where(), "kind: expected planned-change or maintenance, got '" + text + "'");
           }
         } else if (k == "match") {
-          if (!ScalarText(f, "a glob such as \"coldstore/*\"", &text)) return;
-          if (Status status = ValidateGlob(text); !status.ok()) {
-            Error(f.Where(), "match: invalid glob \"" + text + "\": " + status.message());
-            return;
-          }
-          a.match = text;
+          Glob(f, &a.match);
         } else if (k == "at" || k == "from" || k == "to") {
           if (!ScalarText(f, "a time such as 2026-04-01T00:00:00Z", &text)) return;
           StatusOr<EventTime> t = ParseTime(text);
@@ -571,15 +566,7 @@ class Loader {
   bool LoadProfileKey(const Field& f, ProfileOptions* p) {
     const std::string_view k = f.key;
     if (k == "match") {
-      std::string text;
-      if (!ScalarText(f, "a glob such as \"coldstore/*/temp_c\"", &text)) return true;
-      if (Status status = ValidateGlob(text); !status.ok()) {
-        std::string why = status.message();
-        if (why.rfind("glob: ", 0) == 0) why.erase(0, 6);
-        Error(f.Where(), "match: invalid glob \"" + text + "\": " + why);
-        return true;
-      }
-      p->match = std::move(text);
+      Glob(f, &p->match);
     } else if (k == "kind") {
       Enum(f, SeriesKindFromString, SeriesKindChoices(), &p->kind);
     } else if (k == "seasons") {
@@ -924,6 +911,20 @@ class Loader {
       return false;
     }
     *out = static_cast<int>(*value);
+    return true;
+  }
+
+  // A `match` glob over series names; *out is left alone when it is invalid.
+  bool Glob(const Field& f, std::string* out) {
+    std::string text;
+    if (!ScalarText(f, "a glob such as \"coldstore/*/temp_c\"", &text)) return false;
+    if (Status status = ValidateGlob(text); !status.ok()) {
+      std::string why = status.message();
+      if (why.rfind("glob: ", 0) == 0) why.erase(0, 6);
+      Error(f.Where(), "match: invalid glob \"" + text + "\": " + why);
+      return false;
+    }
+    *out = std::move(text);
     return true;
   }
 

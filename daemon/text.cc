@@ -33,9 +33,8 @@ void AppendJsonString(std::string_view text, std::string* out) {
   for (std::size_t i = 0; i < text.size();) {
     const auto c = static_cast<unsigned char>(text[i]);
     if (c >= 0x80) {
-      const std::size_t length =
-          Utf8SequenceLength(reinterpret_cast<const unsigned char*>(text.data()) + i,
-                             text.size() - i);
+      const std::size_t length = Utf8SequenceLength(
+          reinterpret_cast<const unsigned char*>(text.data()) + i, text.size() - i);
       if (length == 0) {
         *out += "\xEF\xBF\xBD";  // U+FFFD REPLACEMENT CHARACTER
         ++i;
@@ -46,11 +45,21 @@ void AppendJsonString(std::string_view text, std::string* out) {
       continue;
     }
     switch (c) {
-      case '"': *out += "\\\""; break;
-      case '\\': *out += "\\\\"; break;
-      case '\n': *out += "\\n"; break;
-      case '\r': *out += "\\r"; break;
-      case '\t': *out += "\\t"; break;
+      case '"':
+        *out += "\\\"";
+        break;
+      case '\\':
+        *out += "\\\\";
+        break;
+      case '\n':
+        *out += "\\n";
+        break;
+      case '\r':
+        *out += "\\r";
+        break;
+      case '\t':
+        *out += "\\t";
+        break;
       default:
         if (c < 0x20 || c == 0x7F) {
           static constexpr char kHex[] = "0123456789abcdef";
