@@ -30,33 +30,32 @@ constexpr std::size_t kMaxConfigBytes = 16u << 20;
 constexpr std::string_view kEverySeries = "**";
 
 constexpr std::string_view kTopLevelKeys[] = {
-    "series",  "listeners", "shards",  "queue_batches",    "max_series",
-    "storage", "inputs",    "sinks",   "metrics",          "shutdown_timeout",
-    "annotations"};
+    "series", "listeners", "shards",  "queue_batches",    "max_series", "storage",
+    "inputs", "sinks",     "metrics", "shutdown_timeout", "annotations"};
 // Sections that later versions add; named so the error says "not yet" rather
 // than "unknown".
 constexpr std::string_view kPlannedTopLevelKeys[] = {"covariates"};
-constexpr std::string_view kAnnotationKeys[] = {"id", "kind", "match", "at", "direction", "within",
-                                                 "from", "to", "learn", "note"};
+constexpr std::string_view kAnnotationKeys[] = {
+    "id", "kind", "match", "at", "direction", "within", "from", "to", "learn", "note"};
 
 // The keys of the service sections (config/service_options.h).
 constexpr std::string_view kListenerKeys[] = {"tcp", "http"};
-constexpr std::string_view kTcpKeys[] = {"enabled",         "address",        "port",
-                                         "idle_timeout",    "max_connections", "max_line_bytes"};
+constexpr std::string_view kTcpKeys[] = {
+    "enabled", "address", "port", "idle_timeout", "max_connections", "max_line_bytes"};
 constexpr std::string_view kHttpKeys[] = {"enabled", "address", "port", "max_body_bytes"};
 constexpr std::string_view kStorageKeys[] = {"directory"};
 constexpr std::string_view kInputKeys[] = {"files"};
 constexpr std::string_view kFileKeys[] = {"path", "start_at", "poll_interval"};
 constexpr std::string_view kSinkKeys[] = {"alert_log", "webhook", "stdout", "events"};
 constexpr std::string_view kAlertLogKeys[] = {"enabled", "path"};
-constexpr std::string_view kWebhookKeys[] = {"url",     "attempts", "backoff",    "backoff_max",
-                                             "timeout", "queue",    "dead_letter"};
+constexpr std::string_view kWebhookKeys[] = {
+    "url", "attempts", "backoff", "backoff_max", "timeout", "queue", "dead_letter"};
 constexpr std::string_view kMetricsKeys[] = {"series_limit"};
 
 constexpr std::string_view kProfileKeys[] = {
     "match",  "kind",      "seasons",  "gaps",          "warmup",    "arl0",
     "shift",  "detectors", "agree",    "silence_after", "harmonics", "every",
-    "memory", "trend",     "lateness", "agree_within",  "cooldown", "level_noise"};
+    "memory", "trend",     "lateness", "agree_within",  "cooldown",  "level_noise"};
 
 // Documents looked at after the first: enough to see a second document and a
 // parser that no longer advances.
@@ -438,9 +437,10 @@ class Loader {
   void LoadAnnotations(const Field& field, Config* config) {
     if (field.value.IsNull()) return;
     if (!field.value.IsSequence()) {
-      Error(field.Where(), "annotations: expected a list (each starting with '- kind: "
-                           "planned-change' or '- kind: maintenance'), got " +
-                               Describe(field.value));
+      Error(field.Where(),
+            "annotations: expected a list (each starting with '- kind: "
+            "planned-change' or '- kind: maintenance'), got " +
+                Describe(field.value));
       return;
     }
     for (const YAML::Node& item : field.value) {
@@ -462,7 +462,8 @@ class Loader {
         } else if (k == "kind") {
           if (ScalarText(f, "planned-change or maintenance", &text) &&
               !AnnotationKindFromString(text, &a.kind)) {
-            Error(f.Where(), "kind: expected planned-change or maintenance, got '" + text + "'");
+            Error(f.Where(),
+                  "kind: expected planned-change or maintenance, got '" + text + "'");
           }
         } else if (k == "match") {
           Glob(f, &a.match);
@@ -470,8 +471,10 @@ class Loader {
           if (!ScalarText(f, "a time such as 2026-04-01T00:00:00Z", &text)) return;
           StatusOr<EventTime> t = ParseTime(text);
           if (!t.ok()) {
-            Error(f.Where(), std::string(k) + ": expected a time such as "
-                                              "2026-04-01T00:00:00Z, got '" + text + "'");
+            Error(f.Where(), std::string(k) +
+                                 ": expected a time such as "
+                                 "2026-04-01T00:00:00Z, got '" +
+                                 text + "'");
             return;
           }
           (k == "at" ? a.at : k == "from" ? a.from : a.to) = *t;
@@ -506,7 +509,9 @@ class Loader {
         }
       }
       if (!complete) continue;
-      if (a.id.empty()) a.id = std::string(ToString(a.kind)) + "-" + std::to_string(config->annotations.size() + 1);
+      if (a.id.empty())
+        a.id = std::string(ToString(a.kind)) + "-" +
+               std::to_string(config->annotations.size() + 1);
       std::string why;
       if (!a.IsValid(&why)) {
         const std::string_view key = std::string_view(why).substr(0, why.find(' '));
@@ -616,8 +621,8 @@ class Loader {
           p->level_noise_auto = false;
           p->level_noise = *q;
         } else {
-          Error(f.Where(), std::string(f.key) + ": expected " + std::string(kLevelNoiseHint) +
-                               ", got '" + text + "'");
+          Error(f.Where(), std::string(f.key) + ": expected " +
+                               std::string(kLevelNoiseHint) + ", got '" + text + "'");
         }
       }
     } else if (k == "lateness") {
@@ -631,7 +636,6 @@ class Loader {
     }
     return true;
   }
-
 
   // ---- The service sections (config/service_options.h) ----
 
@@ -785,8 +789,10 @@ class Loader {
   void LoadFiles(const Field& f, std::vector<FileInputOptions>* files) {
     if (f.value.IsNull()) return;
     if (!f.value.IsSequence()) {
-      Error(f.Where(), "files: expected a list of files to follow (each a path or "
-                       "'- path: ...'), got " + Describe(f.value));
+      Error(f.Where(),
+            "files: expected a list of files to follow (each a path or "
+            "'- path: ...'), got " +
+                Describe(f.value));
       return;
     }
     for (const YAML::Node& element : f.value) {
@@ -820,7 +826,8 @@ class Loader {
   // loaded cleanly, is_valid's rule (if given) is reported at the key its
   // first word names, else at the section.
   template <typename Keys, typename LoadKey>
-  void Section(const Field& f, std::string_view name, const Keys& keys, LoadKey load_key) {
+  void Section(const Field& f, std::string_view name, const Keys& keys,
+               LoadKey load_key) {
     Section(f, name, keys, load_key, [](std::string*) { return true; });
   }
   template <typename Keys, typename LoadKey, typename IsValid>
@@ -846,7 +853,8 @@ class Loader {
     std::string why;
     if (!is_valid(&why)) {
       auto it = marks.find(why.substr(0, why.find(' ')));
-      Error(it != marks.end() ? it->second : f.value.Mark(), std::string(name) + ": " + why);
+      Error(it != marks.end() ? it->second : f.value.Mark(),
+            std::string(name) + ": " + why);
     }
   }
 

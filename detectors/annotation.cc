@@ -4,8 +4,10 @@ namespace plumbline {
 
 std::string_view ToString(AnnotationKind kind) {
   switch (kind) {
-    case AnnotationKind::kPlannedChange: return "planned-change";
-    case AnnotationKind::kMaintenance: return "maintenance";
+    case AnnotationKind::kPlannedChange:
+      return "planned-change";
+    case AnnotationKind::kMaintenance:
+      return "maintenance";
   }
   return "planned-change";
 }

@@ -20,16 +20,16 @@ std::string_view ToString(AnnotationKind kind);
 bool AnnotationKindFromString(std::string_view text, AnnotationKind* kind);
 
 struct Annotation {
-  std::string id;                 // names it in the alerts it explains or holds back; non-empty
+  std::string id;  // names it in the alerts it explains or holds back; non-empty
   AnnotationKind kind = AnnotationKind::kPlannedChange;
-  std::string match = "**";       // glob over series names
-  EventTime at = 0;               // planned change: when it takes effect
+  std::string match = "**";                // glob over series names
+  EventTime at = 0;                        // planned change: when it takes effect
   Direction direction = Direction::kNone;  // planned change: expected way; none = either
   EventTime within = kMicrosPerHour;       // planned change: an alert whose change_at is
                                            // this close to `at` is explained by it, > 0
-  EventTime from = 0, to = 0;     // maintenance: [from, to), from < to
-  bool learn = true;              // maintenance: whether its readings teach the model
-  std::string note;               // free text for people
+  EventTime from = 0, to = 0;              // maintenance: [from, to), from < to
+  bool learn = true;  // maintenance: whether its readings teach the model
+  std::string note;   // free text for people
 
   bool IsValid(std::string* why) const;
 };

@@ -17,14 +17,21 @@ bool ArrivalModelOptions::IsValid(std::string* why) const {
     if (why) *why = message;
     return false;
   };
-  if (warmup < 3 || warmup > 1000000) return fail("arrival warmup must be in [3, 1000000] gaps");
-  if (window < 10 || window > 10000000) return fail("arrival window must be in [10, 10000000] gaps");
-  if (!(slower_h > 0) || !(faster_h > 0)) return fail("arrival decision intervals must be > 0");
-  if (!(gap_cap > 2.0 * std::numbers::ln2)) return fail("arrival gap_cap must be > 2 ln 2");
+  if (warmup < 3 || warmup > 1000000)
+    return fail("arrival warmup must be in [3, 1000000] gaps");
+  if (window < 10 || window > 10000000)
+    return fail("arrival window must be in [10, 10000000] gaps");
+  if (!(slower_h > 0) || !(faster_h > 0))
+    return fail("arrival decision intervals must be > 0");
+  if (!(gap_cap > 2.0 * std::numbers::ln2))
+    return fail("arrival gap_cap must be > 2 ln 2");
   if (season < 0) return fail("arrival season must be zero or a positive duration");
-  if (season_bins < 1 || season_bins > 1000) return fail("arrival season_bins must be in [1, 1000]");
-  if (season > 0 && season / season_bins < 1) return fail("arrival season_bins too many for the season");
-  if (season_fold_bins < 0 || (season_fold_bins > 0 && season_bins % season_fold_bins != 0)) {
+  if (season_bins < 1 || season_bins > 1000)
+    return fail("arrival season_bins must be in [1, 1000]");
+  if (season > 0 && season / season_bins < 1)
+    return fail("arrival season_bins too many for the season");
+  if (season_fold_bins < 0 ||
+      (season_fold_bins > 0 && season_bins % season_fold_bins != 0)) {
     return fail("arrival season_fold_bins must be 0 or divide season_bins");
   }
   if (shape_memory < 0) return fail("arrival shape_memory must be zero or positive");
@@ -59,7 +66,8 @@ ArrivalShape::ArrivalShape(EventTime period, int bins, EventTime memory, int fol
     : period_(period),
       width_(period / bins),
       memory_(static_cast<double>(memory > 0 ? memory : 4 * period)),
-      fold_bins_(fold_bins > 0 && fold_bins < bins && bins % fold_bins == 0 ? fold_bins : 0),
+      fold_bins_(fold_bins > 0 && fold_bins < bins && bins % fold_bins == 0 ? fold_bins
+                                                                            : 0),
       events_(static_cast<size_t>(bins), 0.0),
       exposure_(static_cast<size_t>(bins), 0.0),
       p_(static_cast<size_t>(bins), 1.0) {}
@@ -73,7 +81,8 @@ int ArrivalShape::Bin(EventTime t) const {
 EventTime ArrivalShape::BinEnd(EventTime t, int bin) const {
   EventTime within = t % period_;
   if (within < 0) within += period_;
-  const bool last = bin + 1 == static_cast<int>(p_.size());  // takes the period's remainder
+  const bool last =
+      bin + 1 == static_cast<int>(p_.size());  // takes the period's remainder
   return t - within + (last ? period_ : (bin + 1) * width_);
 }
 
@@ -163,7 +172,8 @@ void ArrivalShape::Refresh() {
 }
 
 double ArrivalShape::Operational(EventTime from, EventTime to) const {
-  if (!learned() || to <= from) return static_cast<double>(std::max<EventTime>(to - from, 0));
+  if (!learned() || to <= from)
+    return static_cast<double>(std::max<EventTime>(to - from, 0));
   const EventTime length = to - from;
   double total = static_cast<double>((length / period_) * period_);  // p averages 1
   from = to - (length % period_);

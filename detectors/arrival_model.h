@@ -65,8 +65,8 @@
 // in a week): a weekly bin is shrunk toward its hour of the day instead, itself
 // pooled over the days and shrunk toward the mean rate as above,
 //
-//   r_j = (E_j + k) / (X_j + k / rbar)          (E_j, X_j: sums over the bins at phase j of the day)
-//   p_b = (e_b + k r_j / rbar) / (x_b + k / rbar)
+//   r_j = (E_j + k) / (X_j + k / rbar)          (E_j, X_j: sums over the bins at phase j
+//   of the day) p_b = (e_b + k r_j / rbar) / (x_b + k / rbar)
 //
 // so a quiet night hour is learned from every night seen, not only from the same
 // night of the week (a hierarchical, empirical-Bayes prior; common practice, no
@@ -93,17 +93,18 @@
 namespace plumbline {
 
 struct ArrivalModelOptions {
-  int warmup = 20;         // gaps before the CUSUMs arm, [3, 1e6]
-  int window = 1000;       // gaps in the baseline's running mean, [10, 1e7]
-  double slower_h = 10.0;  // decision interval of the slower-arrivals side, > 0
-  double faster_h = 10.0;  // decision interval of the faster-arrivals side, > 0
-  double gap_cap = 6.0;    // X is capped here, so one long gap (a silence) alone
-                           // cannot fire the slower side; > 2 ln 2
-  EventTime season = 0;    // period of the arrival intensity's shape; 0 = even
-  int season_bins = 1;     // phase bins of the shape, [1, 1000]
+  int warmup = 20;             // gaps before the CUSUMs arm, [3, 1e6]
+  int window = 1000;           // gaps in the baseline's running mean, [10, 1e7]
+  double slower_h = 10.0;      // decision interval of the slower-arrivals side, > 0
+  double faster_h = 10.0;      // decision interval of the faster-arrivals side, > 0
+  double gap_cap = 6.0;        // X is capped here, so one long gap (a silence) alone
+                               // cannot fire the slower side; > 2 ln 2
+  EventTime season = 0;        // period of the arrival intensity's shape; 0 = even
+  int season_bins = 1;         // phase bins of the shape, [1, 1000]
   EventTime shape_memory = 0;  // forgetting time of the shape; 0 = 4 seasons
-  int season_fold_bins = 0;    // bins of a shorter season that divides `season` (the
-                               // two-level pooling above); 0 = none; must divide season_bins
+  int season_fold_bins =
+      0;  // bins of a shorter season that divides `season` (the
+          // two-level pooling above); 0 = none; must divide season_bins
 
   // Reference values of the two sides (see above): theta -> 2 theta, theta -> theta / 2.
   static constexpr double kSlowerReference = 2.0 * std::numbers::ln2;
@@ -143,17 +144,17 @@ class ArrivalShape {
   void Refresh();
 
   EventTime period_;
-  EventTime width_;               // bin width
-  double memory_;                 // microseconds
-  int fold_bins_;                 // 0 = one-level pooling
+  EventTime width_;  // bin width
+  double memory_;    // microseconds
+  int fold_bins_;    // 0 = one-level pooling
   std::vector<double> events_, exposure_, p_;
   std::vector<double> parent_scratch_, parent_events_scratch_;  // Refresh's, sized once
-  double exposure_total_ = 0.0;   // unforgotten, for `learned`
-  EventTime anchor_ = 0;          // weights grow as exp((t - anchor) / memory)
-  double weight_ = 1.0;           // weight of the latest contribution
+  double exposure_total_ = 0.0;             // unforgotten, for `learned`
+  EventTime anchor_ = 0;                    // weights grow as exp((t - anchor) / memory)
+  double weight_ = 1.0;                     // weight of the latest contribution
   static constexpr int kRefreshEvery = 32;  // arrivals between re-derivations of p
   int records_since_refresh_ = 0;
-  bool refreshed_once_ = false;   // derived at least once since being learned
+  bool refreshed_once_ = false;  // derived at least once since being learned
   bool anchored_ = false;
 };
 
@@ -191,8 +192,8 @@ class ArrivalModel {
  private:
   ArrivalModelOptions options_;
   double theta_ = 0.0;
-  long long gaps_ = 0;       // gaps seen since the last (re)baseline
-  long long used_ = 0;       // gaps in theta_
+  long long gaps_ = 0;  // gaps seen since the last (re)baseline
+  long long used_ = 0;  // gaps in theta_
   long long arrivals_ = 0;
   EventTime last_ = 0;
   double slower_ = 0.0, faster_ = 0.0;

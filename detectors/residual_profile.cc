@@ -50,7 +50,8 @@ double ResidualProfile::Mean(int bin) const {
 
 double ResidualProfile::Sigma(int bin, double sigma_all) const {
   const Bin_& b = bins_[static_cast<size_t>(bin)];
-  return std::sqrt((b.n * b.s2 + kPrior * PriorVariance(bin, sigma_all)) / (b.n + kPrior));
+  return std::sqrt((b.n * b.s2 + kPrior * PriorVariance(bin, sigma_all)) /
+                   (b.n + kPrior));
 }
 
 void ResidualProfile::Fold(Bin_* b, double r, double a, double sigma, double clip,

@@ -24,8 +24,9 @@
 // whole series:
 //
 //   mean_b  = n_b / (n_b + n0) * m_b + n0 / (n_b + n0) * mean_j     (j = b mod fold_bins)
-//   mean_j  = N_j / (N_j + n0) * M_j                                (M_j, N_j over the repeats)
-//   sigma_b = sqrt((n_b s2_b + n0 sigma_j^2) / (n_b + n0)),  sigma_j likewise toward sigma_all
+//   mean_j  = N_j / (N_j + n0) * M_j                                (M_j, N_j over the
+//   repeats) sigma_b = sqrt((n_b s2_b + n0 sigma_j^2) / (n_b + n0)),  sigma_j likewise
+//   toward sigma_all
 //
 // So a shape shared by every day is learned from every day, while what sets one
 // day of the week apart (a Sunday with no orders, say: the smooth day and week
@@ -74,8 +75,8 @@ class ResidualProfile {
   // level) zero mean and the whole series' spread.
   double PriorMean(int bin) const;
   double PriorVariance(int bin, double sigma_all) const;
-  static void Fold(Bin_* b, double r, double a, double sigma, double clip, double correction,
-                   double window);
+  static void Fold(Bin_* b, double r, double a, double sigma, double clip,
+                   double correction, double window);
 };
 
 }  // namespace plumbline

@@ -55,8 +55,9 @@ SeasonalForecaster::SeasonalForecaster(const SeasonalForecasterOptions& options)
 void SeasonalForecaster::FillRegressors(EventTime t, Vector* x) const {
   Vector& r = *x;
   r[0] = 1.0;
-  r[1] = options_.trend ? static_cast<double>(t - t_ref_) / static_cast<double>(options_.memory)
-                        : 0.0;
+  r[1] = options_.trend
+             ? static_cast<double>(t - t_ref_) / static_cast<double>(options_.memory)
+             : 0.0;
   int i = 2;
   for (size_t s = 0; s < periods_.size(); ++s) {
     EventTime within = t % periods_[s];
@@ -94,8 +95,8 @@ void SeasonalForecaster::FillIntervalRegressors(EventTime from, EventTime to,
     EventTime a = from % period;
     if (a < 0) a += period;
     const double length = static_cast<double>(to - from);  // may span many periods
-    const double angle_a = 2.0 * std::numbers::pi * static_cast<double>(a) /
-                           static_cast<double>(period);
+    const double angle_a =
+        2.0 * std::numbers::pi * static_cast<double>(a) / static_cast<double>(period);
     const double span = 2.0 * std::numbers::pi * length / static_cast<double>(period);
     for (int j = 1; j <= harmonics_[s]; ++j) {
       // (sin(w b) - sin(w a)) / (w (b - a)) = cos(w m) sin(h) / h and
@@ -113,17 +114,19 @@ void SeasonalForecaster::FillIntervalRegressors(EventTime from, EventTime to,
 Forecast SeasonalForecaster::PredictInterval(EventTime from, EventTime to) const {
   if (updates_ == 0) return {0.0, std::numeric_limits<double>::infinity()};
   FillIntervalRegressors(from, to, &x_);
-  const double lambda = std::exp(-static_cast<double>(std::max<EventTime>(to - t_ref_, 0)) /
-                                 static_cast<double>(options_.memory));
+  const double lambda =
+      std::exp(-static_cast<double>(std::max<EventTime>(to - t_ref_, 0)) /
+               static_cast<double>(options_.memory));
   return {x_.dot(theta_), x_.dot(p_.selfadjointView<Eigen::Lower>() * x_) / lambda +
-                             x_[0] * x_[0] * LevelDrift(to - t_ref_)};
+                              x_[0] * x_[0] * LevelDrift(to - t_ref_)};
 }
 
 Forecast SeasonalForecaster::Predict(EventTime t) const {
   if (updates_ == 0) return {0.0, std::numeric_limits<double>::infinity()};
   FillRegressors(t, &x_);
-  const double lambda = std::exp(-static_cast<double>(std::max<EventTime>(t - t_ref_, 0)) /
-                                 static_cast<double>(options_.memory));
+  const double lambda =
+      std::exp(-static_cast<double>(std::max<EventTime>(t - t_ref_, 0)) /
+               static_cast<double>(options_.memory));
   Forecast f;
   f.value = x_.dot(theta_);
   f.parameter_variance_factor = x_.dot(p_.selfadjointView<Eigen::Lower>() * x_) / lambda +

@@ -14,19 +14,19 @@
 //
 // Fit: theta = (l, b, a_11, c_11, ...) minimises the weighted least-squares cost
 //
-//   J_n(theta) = sum_i w_i (y_i - x_i' theta)^2 + w_0 (theta - theta_0)' R_0 (theta - theta_0)
-//   w_i = exp(-(t_n - t_i) / memory)        (forgetting measured in time)
-//   R_0 = I / prior_variance                 (ridge prior, centred on theta_0)
+//   J_n(theta) = sum_i w_i (y_i - x_i' theta)^2 + w_0 (theta - theta_0)' R_0 (theta -
+//   theta_0) w_i = exp(-(t_n - t_i) / memory)        (forgetting measured in time) R_0 =
+//   I / prior_variance                 (ridge prior, centred on theta_0)
 //
 // computed recursively (Ljung & Soederstroem 1983, "Theory and Practice of
 // Recursive Identification", MIT Press, ch. 2; MEM) in covariance form, with
 // lambda_n = exp(-(t_n - t_{n-1}) / memory):
 //
-//   re-centre: l += b * (t_n - t_ref)/U;  P = A P A'  with A = I + e_l e_b' (t_n - t_ref)/U
-//   forget:    P = P / lambda_n;  P_ll += q (t_n - t_{n-1}) / unit   (level noise, below)
-//   gain:      k = P x / (1 + x' P x)
-//   residual:  e = y - x' theta        (one step ahead: taken BEFORE the update)
-//   update:    theta += k e;  P -= k (P x)';  P = (P + P')/2
+//   re-centre: l += b * (t_n - t_ref)/U;  P = A P A'  with A = I + e_l e_b' (t_n -
+//   t_ref)/U forget:    P = P / lambda_n;  P_ll += q (t_n - t_{n-1}) / unit   (level
+//   noise, below) gain:      k = P x / (1 + x' P x) residual:  e = y - x' theta (one step
+//   ahead: taken BEFORE the update) update:    theta += k e;  P -= k (P x)';  P = (P +
+//   P')/2
 //
 // The re-centring is an exact reparametrisation, so the result equals the batch
 // weighted least-squares fit above, with the prior term taken in the coordinates
@@ -90,11 +90,11 @@
 namespace plumbline {
 
 struct SeasonalForecasterOptions {
-  std::vector<EventTime> seasons;   // periods, each > 0
-  std::vector<int> harmonics;       // per season, each in [1, 24]; same length as seasons
-  bool trend = true;                // include the local linear trend b
+  std::vector<EventTime> seasons;  // periods, each > 0
+  std::vector<int> harmonics;      // per season, each in [1, 24]; same length as seasons
+  bool trend = true;               // include the local linear trend b
   EventTime memory = 28 * kMicrosPerDay;  // forgetting timescale, > 0
-  double prior_variance = 1e8;      // variance of the ridge prior on each coefficient, > 0
+  double prior_variance = 1e8;  // variance of the ridge prior on each coefficient, > 0
   // Random-walk variance of the level per level_noise_unit of time, as a
   // multiple of the noise variance (the signal-to-noise ratio q), [0, 1000].
   double level_noise = 0.0;
@@ -183,8 +183,8 @@ class SeasonalForecaster {
   struct Pending {
     bool active = false;
     EventTime from = 0, to = 0;
-    double forecast = 0.0;   // x' theta at `to`
-    double xpx = 0.0;        // x' P x after forgetting
+    double forecast = 0.0;  // x' theta at `to`
+    double xpx = 0.0;       // x' P x after forgetting
   };
   Pending pending_;
   void Recentre(EventTime t);
@@ -202,14 +202,14 @@ class SeasonalForecaster {
   static constexpr double kMaxForgettingExponent = 30.0;
 
   SeasonalForecasterOptions options_;
-  std::vector<EventTime> periods_;   // one entry per season
+  std::vector<EventTime> periods_;  // one entry per season
   std::vector<int> harmonics_;
   Vector theta_;
   Matrix p_;
-  mutable Vector x_;                 // scratch regressor, sized once
-  Vector px_;                        // scratch P x
+  mutable Vector x_;  // scratch regressor, sized once
+  Vector px_;         // scratch P x
   EventTime t_ref_ = 0;
-  EventTime t_first_ = 0;            // time of the first update (the prior's time)
+  EventTime t_first_ = 0;  // time of the first update (the prior's time)
   long long updates_ = 0;
 };
 

@@ -16,10 +16,14 @@ namespace {
 // same argument with a running mean; BOCPD's and EWMA's are coarser.
 int Trust(DetectorKind kind) {
   switch (kind) {
-    case DetectorKind::kCusum: return 0;
-    case DetectorKind::kPageHinkley: return 1;
-    case DetectorKind::kBocpd: return 2;
-    case DetectorKind::kEwma: return 3;
+    case DetectorKind::kCusum:
+      return 0;
+    case DetectorKind::kPageHinkley:
+      return 1;
+    case DetectorKind::kBocpd:
+      return 2;
+    case DetectorKind::kEwma:
+      return 3;
   }
   return 4;
 }
@@ -43,17 +47,21 @@ double ThresholdFraction(const Bocpd&) { return 0.0; }  // a probability, not a 
 
 std::string_view ToString(AlertKind kind) {
   switch (kind) {
-    case AlertKind::kLevel: return "level";
-    case AlertKind::kVariance: return "variance";
-    case AlertKind::kRate: return "rate";
-    case AlertKind::kSilence: return "silence";
+    case AlertKind::kLevel:
+      return "level";
+    case AlertKind::kVariance:
+      return "variance";
+    case AlertKind::kRate:
+      return "rate";
+    case AlertKind::kSilence:
+      return "silence";
   }
   return "level";
 }
 
 std::optional<AlertKind> AlertKindFromString(std::string_view text) {
-  for (AlertKind k : {AlertKind::kLevel, AlertKind::kVariance, AlertKind::kRate,
-                      AlertKind::kSilence}) {
+  for (AlertKind k :
+       {AlertKind::kLevel, AlertKind::kVariance, AlertKind::kRate, AlertKind::kSilence}) {
     if (ToString(k) == text) return k;
   }
   return std::nullopt;
@@ -61,11 +69,16 @@ std::optional<AlertKind> AlertKindFromString(std::string_view text) {
 
 std::string_view ToString(EventType type) {
   switch (type) {
-    case EventType::kAlert: return "alert";
-    case EventType::kResume: return "resume";
-    case EventType::kRetrain: return "retrain";
-    case EventType::kMeterReset: return "meter-reset";
-    case EventType::kSuppressed: return "suppressed";
+    case EventType::kAlert:
+      return "alert";
+    case EventType::kResume:
+      return "resume";
+    case EventType::kRetrain:
+      return "retrain";
+    case EventType::kMeterReset:
+      return "meter-reset";
+    case EventType::kSuppressed:
+      return "suppressed";
   }
   return "alert";
 }
@@ -95,18 +108,20 @@ StatusOr<ProfileDesign> ProfileDesign::Make(const ProfileOptions& profile) {
     }
   }
   if (design.arrival.season > 0) {
-    const EventTime slice = design.arrival.season > kMicrosPerDay ? kMicrosPerHour
-                                                                  : 15 * kMicrosPerMinute;
-    design.arrival.season_bins = static_cast<int>(
-        std::clamp<EventTime>(design.arrival.season / slice, 1, 168));
+    const EventTime slice =
+        design.arrival.season > kMicrosPerDay ? kMicrosPerHour : 15 * kMicrosPerMinute;
+    design.arrival.season_bins =
+        static_cast<int>(std::clamp<EventTime>(design.arrival.season / slice, 1, 168));
     // A shorter season that divides it into whole bins (a day in a week) pools
     // the shape's bins by their phase in that season.
     for (EventTime period : profile.seasons) {
-      if (period >= design.arrival.season || design.arrival.season % period != 0) continue;
+      if (period >= design.arrival.season || design.arrival.season % period != 0)
+        continue;
       const EventTime repeats = design.arrival.season / period;
       if (design.arrival.season_bins % repeats != 0) continue;
       const int fold = static_cast<int>(design.arrival.season_bins / repeats);
-      if (fold >= 2) design.arrival.season_fold_bins = std::max(design.arrival.season_fold_bins, fold);
+      if (fold >= 2)
+        design.arrival.season_fold_bins = std::max(design.arrival.season_fold_bins, fold);
     }
   }
 
@@ -135,10 +150,18 @@ SeriesMonitor::SeriesMonitor(const ProfileDesign* design)
   const DetectorDesign& d = design->level;
   for (DetectorKind kind : d.detectors) {
     switch (kind) {
-      case DetectorKind::kCusum: level_.emplace_back(Cusum(d.cusum)); break;
-      case DetectorKind::kPageHinkley: level_.emplace_back(PageHinkley(d.page_hinkley)); break;
-      case DetectorKind::kBocpd: level_.emplace_back(Bocpd(d.bocpd)); break;
-      case DetectorKind::kEwma: level_.emplace_back(Ewma(d.ewma)); break;
+      case DetectorKind::kCusum:
+        level_.emplace_back(Cusum(d.cusum));
+        break;
+      case DetectorKind::kPageHinkley:
+        level_.emplace_back(PageHinkley(d.page_hinkley));
+        break;
+      case DetectorKind::kBocpd:
+        level_.emplace_back(Bocpd(d.bocpd));
+        break;
+      case DetectorKind::kEwma:
+        level_.emplace_back(Ewma(d.ewma));
+        break;
     }
     level_kinds_.push_back(kind);
   }
@@ -148,7 +171,8 @@ SeriesMonitor::SeriesMonitor(const ProfileDesign* design)
 
 std::optional<EventTime> SeriesMonitor::silence_deadline() const {
   if (!has_reading_ || silent_) return std::nullopt;
-  if (design_->profile.silence_after) return last_reading_ + *design_->profile.silence_after;
+  if (design_->profile.silence_after)
+    return last_reading_ + *design_->profile.silence_after;
   if (!arrival_.armed() || arrival_.mean_gap() <= 0) return std::nullopt;
   // Adaptive: max(5, ln(4 arl0)) mean gaps of operational time (see the header).
   const double multiple = std::max(5.0, std::log(4.0 * design_->profile.arl0));
@@ -231,7 +255,8 @@ void SeriesMonitor::SetAnnotations(std::vector<Annotation> annotations) {
   maintenance_.clear();
   for (Annotation& a : annotations) {
     if (!a.IsValid(nullptr)) continue;
-    (a.kind == AnnotationKind::kPlannedChange ? planned_ : maintenance_).push_back(std::move(a));
+    (a.kind == AnnotationKind::kPlannedChange ? planned_ : maintenance_)
+        .push_back(std::move(a));
   }
   std::stable_sort(planned_.begin(), planned_.end(),
                    [](const Annotation& a, const Annotation& b) { return a.at < b.at; });
@@ -259,7 +284,8 @@ void SeriesMonitor::Annotate(std::vector<SeriesEvent>* events, std::size_t first
     }
     if (held || e.kind == AlertKind::kSilence) continue;
     for (const Annotation& p : planned_) {
-      const EventTime distance = e.change_at > p.at ? e.change_at - p.at : p.at - e.change_at;
+      const EventTime distance =
+          e.change_at > p.at ? e.change_at - p.at : p.at - e.change_at;
       if (distance <= p.within &&
           (p.direction == Direction::kNone || p.direction == e.direction)) {
         e.annotation = p.id;
@@ -334,7 +360,8 @@ void SeriesMonitor::StartForecaster() {
     options.memory = std::max<EventTime>(
         {4 * longest, static_cast<EventTime>(100.0 * spacing), kMicrosPerHour});
   }
-  options.level_noise = design_->profile.level_noise_auto ? 0.0 : design_->profile.level_noise;
+  options.level_noise =
+      design_->profile.level_noise_auto ? 0.0 : design_->profile.level_noise;
   forecaster_.emplace(options);
   rivals_.clear();
   for (double q : kLevelNoiseGrid) {
@@ -356,8 +383,8 @@ void SeriesMonitor::StartForecaster() {
   }
   int bins = 1;
   if (shortest > 0 && spacing > 0) {
-    bins = static_cast<int>(std::clamp(static_cast<double>(shortest) / (4.0 * spacing), 1.0,
-                                       static_cast<double>(kMaxPhaseBins)));
+    bins = static_cast<int>(std::clamp(static_cast<double>(shortest) / (4.0 * spacing),
+                                       1.0, static_cast<double>(kMaxPhaseBins)));
   }
   // With a longer season of up to a week that repeats the shortest a whole
   // number of times (a week of days, a day of 8-hour defrost cycles), the
@@ -368,7 +395,8 @@ void SeriesMonitor::StartForecaster() {
   int fold = 0;
   if (shortest > 0 && spacing > 0) {
     for (EventTime period : options.seasons) {
-      if (period <= shortest || period > 7 * kMicrosPerDay || period % shortest != 0) continue;
+      if (period <= shortest || period > 7 * kMicrosPerDay || period % shortest != 0)
+        continue;
       const int repeats = static_cast<int>(period / shortest);
       if (bins * repeats > kMaxLongPhaseBins) continue;
       if (period > profile_period) {
@@ -377,7 +405,8 @@ void SeriesMonitor::StartForecaster() {
       }
     }
   }
-  profile_.emplace(profile_period, fold > 0 ? fold * static_cast<int>(profile_period / shortest) : bins,
+  profile_.emplace(profile_period,
+                   fold > 0 ? fold * static_cast<int>(profile_period / shortest) : bins,
                    design_->scale.clip, fold);
   std::vector<HeldObservation> held;
   held.swap(probe_);
@@ -418,7 +447,8 @@ double SeriesMonitor::ForecastScore::Criterion(bool extra_parameter) const {
   // are there to find (the threshold is common practice, no source).
   const double penalty = extra_parameter ? kLevelNoisePenalty : 0.0;
   // Too little evidence: the plain forecaster stays.
-  if (count < kMinScores) return extra_parameter ? std::numeric_limits<double>::infinity() : 0.0;
+  if (count < kMinScores)
+    return extra_parameter ? std::numeric_limits<double>::infinity() : 0.0;
   const double n = static_cast<double>(count);
   // The prediction-error decomposition of the Gaussian likelihood with the
   // noise variance concentrated out (Harvey 1989, section 3.4; MEM).
@@ -452,7 +482,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // The forecast comes from the first half of a two-phase update, so the
   // regressors and P x are computed once per observation.
   const StatusOr<Forecast> begun = forecaster_->BeginUpdate(from, to);
-  if (!begun.ok()) return;  // earlier than the model's clock: cannot happen after reordering
+  if (!begun.ok())
+    return;  // earlier than the model's clock: cannot happen after reordering
   const Forecast& f = *begun;
   const double spread = std::sqrt(1.0 + f.parameter_variance_factor);
   const double u = (y - f.value) / spread;
@@ -481,7 +512,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   double y_fit = y;
   const double clip = Suspicious(kLearnFraction) ? 1.0 : 4.0;
   if (armed && std::abs(z) > clip) {
-    y_fit = f.value + (profile_->Mean(bin) + std::copysign(clip * phase_sigma, a)) * spread;
+    y_fit =
+        f.value + (profile_->Mean(bin) + std::copysign(clip * phase_sigma, a)) * spread;
   }
   (void)forecaster_->CommitUpdate(y_fit);
   if (!rivals_.empty()) {
@@ -553,8 +585,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   DecideLevel(to, f.value, sigma * spread, resolvable, events);
 }
 
-void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma, bool resolvable,
-                                std::vector<SeriesEvent>* events) {
+void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma,
+                                bool resolvable, std::vector<SeriesEvent>* events) {
   const ProfileOptions& profile = design_->profile;
   const double clipped_z = std::clamp(last_z_, -kLevelClip, kLevelClip);
   for (size_t i = 0; i < level_.size(); ++i) {
@@ -562,12 +594,14 @@ void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma, bool
     // resolution floor (all zero) would look to it like a change; the mean
     // detectors still watch them.
     if (!resolvable && level_kinds_[i] == DetectorKind::kBocpd) continue;
-    StatusOr<Alarm> result =
-        std::visit([&](auto& detector) { return detector.Update(clipped_z, t); }, level_[i]);
+    StatusOr<Alarm> result = std::visit(
+        [&](auto& detector) { return detector.Update(clipped_z, t); }, level_[i]);
     if (!result.ok()) continue;
     if (result->fired) firings_[i] = {observations_, *result};
-    threshold_fraction_[i] = result->fired ? 0.0 : std::visit(
-        [](const auto& d) { return ThresholdFraction(d); }, level_[i]);
+    threshold_fraction_[i] =
+        result->fired
+            ? 0.0
+            : std::visit([](const auto& d) { return ThresholdFraction(d); }, level_[i]);
   }
   int agreeing = 0;
   int best = -1;
@@ -585,7 +619,8 @@ void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma, bool
   }
   if (agreeing < profile.agree) return;
 
-  const Alarm alarm = firings_[best].alarm;  // a copy: ResetLevelDetectors clears firings_
+  const Alarm alarm =
+      firings_[best].alarm;  // a copy: ResetLevelDetectors clears firings_
   SeriesEvent e;
   e.kind = AlertKind::kLevel;
   e.direction = alarm.direction;
@@ -645,13 +680,15 @@ double CappedChiSquareVariance(double cap) {
   const double a = std::sqrt(cap);
   const double phi = std::exp(-0.5 * cap) / std::sqrt(2.0 * std::numbers::pi);
   const double tail = std::erfc(a / std::numbers::sqrt2);  // P(|Z| > a)
-  const double fourth = 3.0 * (1.0 - tail) - 2.0 * phi * (a * a * a + 3.0 * a) + cap * cap * tail;
+  const double fourth =
+      3.0 * (1.0 - tail) - 2.0 * phi * (a * a * a + 3.0 * a) + cap * cap * tail;
   const double mean = ResidualScale::ClippedSecondMoment(a);
   return fourth - mean * mean;
 }
 
 // Variance of min(X, cap) for X ~ Exp(1): E[min(X, c)^2] = 2 - e^-c (2c + 2),
-// E[min(X, c)] = 1 - e^-c (0.970249 at c = 6, agreeing with scipy.stats.expon.expect; COMP).
+// E[min(X, c)] = 1 - e^-c (0.970249 at c = 6, agreeing with scipy.stats.expon.expect;
+// COMP).
 double CappedExponentialVariance(double cap) {
   const double tail = std::exp(-cap);
   const double mean = 1.0 - tail;
@@ -683,9 +720,10 @@ double Refit(std::vector<double> increments, double arl0, double design, double 
 // Re-fits both sides of a CUSUM pair on a score s (upper side: increments
 // s - k_upper; lower side: k_lower - s) from a sample of s. A sample that
 // behaves like the model keeps the design.
-std::pair<double, double> RefitSides(const std::vector<double>& scores, double model_variance,
-                                     double k_upper, double k_lower, double upper_h,
-                                     double lower_h, double side_arl0, double ceiling) {
+std::pair<double, double> RefitSides(const std::vector<double>& scores,
+                                     double model_variance, double k_upper,
+                                     double k_lower, double upper_h, double lower_h,
+                                     double side_arl0, double ceiling) {
   if (!NeedsRefit(scores, model_variance)) return {upper_h, lower_h};
   std::vector<double> upper(scores), lower(scores);
   for (double& x : upper) x -= k_upper;
@@ -705,8 +743,8 @@ void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
     if (variance_sample_.size() == kRefitSample) {
       const VarianceCusumOptions& o = design_->variance;
       const auto [up_h, down_h] =
-          RefitSides(variance_sample_, CappedChiSquareVariance(o.cap), o.k_up(), o.k_down(),
-                     o.up_h, o.down_h, side_arl0, kRefitCeiling);
+          RefitSides(variance_sample_, CappedChiSquareVariance(o.cap), o.k_up(),
+                     o.k_down(), o.up_h, o.down_h, side_arl0, kRefitCeiling);
       variance_.SetDecisionIntervals(up_h, down_h);
       variance_refitted_ = true;
       std::vector<double>().swap(variance_sample_);
@@ -717,8 +755,9 @@ void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
     if (arrival_sample_.size() == kRefitSample) {
       const ArrivalModelOptions& o = design_->arrival;
       const auto [slower_h, faster_h] = RefitSides(
-          arrival_sample_, CappedExponentialVariance(o.gap_cap), ArrivalModelOptions::kSlowerReference,
-          ArrivalModelOptions::kFasterReference, o.slower_h, o.faster_h, side_arl0, kRefitCeiling);
+          arrival_sample_, CappedExponentialVariance(o.gap_cap),
+          ArrivalModelOptions::kSlowerReference, ArrivalModelOptions::kFasterReference,
+          o.slower_h, o.faster_h, side_arl0, kRefitCeiling);
       arrival_.SetDecisionIntervals(slower_h, faster_h);
       arrival_refitted_ = true;
       std::vector<double>().swap(arrival_sample_);
@@ -733,10 +772,18 @@ void SeriesMonitor::Retune(const ProfileDesign* design) {
   const DetectorDesign& d = design->level;
   for (DetectorKind kind : d.detectors) {
     switch (kind) {
-      case DetectorKind::kCusum: level_.emplace_back(Cusum(d.cusum)); break;
-      case DetectorKind::kPageHinkley: level_.emplace_back(PageHinkley(d.page_hinkley)); break;
-      case DetectorKind::kBocpd: level_.emplace_back(Bocpd(d.bocpd)); break;
-      case DetectorKind::kEwma: level_.emplace_back(Ewma(d.ewma)); break;
+      case DetectorKind::kCusum:
+        level_.emplace_back(Cusum(d.cusum));
+        break;
+      case DetectorKind::kPageHinkley:
+        level_.emplace_back(PageHinkley(d.page_hinkley));
+        break;
+      case DetectorKind::kBocpd:
+        level_.emplace_back(Bocpd(d.bocpd));
+        break;
+      case DetectorKind::kEwma:
+        level_.emplace_back(Ewma(d.ewma));
+        break;
     }
     level_kinds_.push_back(kind);
   }
@@ -812,8 +859,10 @@ std::vector<SeriesMonitor::DetectorSnapshot> SeriesMonitor::DetectorSnapshots() 
   std::vector<DetectorSnapshot> out;
   out.reserve(level_.size() + 2);
   // Of two sides, the one with the larger fraction of its decision interval.
-  const auto nearer = [](std::string_view name, double a, double a_h, double b, double b_h) {
-    return a / a_h >= b / b_h ? DetectorSnapshot{name, a, a_h} : DetectorSnapshot{name, b, b_h};
+  const auto nearer = [](std::string_view name, double a, double a_h, double b,
+                         double b_h) {
+    return a / a_h >= b / b_h ? DetectorSnapshot{name, a, a_h}
+                              : DetectorSnapshot{name, b, b_h};
   };
   for (std::size_t i = 0; i < level_.size(); ++i) {
     const std::string_view name = ToString(level_kinds_[i]);
@@ -824,10 +873,12 @@ std::vector<SeriesMonitor::DetectorSnapshot> SeriesMonitor::DetectorSnapshots() 
             out.push_back({name, std::max(detector.upper(), detector.lower()),
                            detector.options().h});
           } else if constexpr (std::is_same_v<T, PageHinkley>) {
-            out.push_back({name, std::max(detector.up_statistic(), detector.down_statistic()),
+            out.push_back({name,
+                           std::max(detector.up_statistic(), detector.down_statistic()),
                            detector.options().lambda});
           } else if constexpr (std::is_same_v<T, Bocpd>) {
-            out.push_back({name, detector.change_probability(), detector.options().threshold});
+            out.push_back(
+                {name, detector.change_probability(), detector.options().threshold});
           } else {
             out.push_back({name, std::abs(detector.value()), detector.limit()});
           }

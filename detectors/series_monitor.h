@@ -132,11 +132,12 @@ struct SeriesEvent {
   EventType type = EventType::kAlert;
   AlertKind kind = AlertKind::kLevel;
   Direction direction = Direction::kNone;
-  EventTime detected_at = 0;  // time of the reading at which it fired (silence: when it began)
-  EventTime change_at = 0;    // estimated start of the change (retrain: window start)
-  EventTime window_to = 0;    // retrain: window end
+  EventTime detected_at =
+      0;  // time of the reading at which it fired (silence: when it began)
+  EventTime change_at = 0;      // estimated start of the change (retrain: window start)
+  EventTime window_to = 0;      // retrain: window end
   std::uint32_t detectors = 0;  // bit (1 << DetectorKind) per level detector that fired
-  double magnitude = 0.0;     // level: shift in units; variance: sd ratio; rate: gap ratio
+  double magnitude = 0.0;  // level: shift in units; variance: sd ratio; rate: gap ratio
   double magnitude_sd = 0.0;  // level: shift in residual standard deviations
   double before = 0.0;        // level: forecast at detection; rate: mean gap (s) before
   double after = 0.0;         // level: before + magnitude; rate: mean gap (s) after
@@ -208,7 +209,7 @@ class SeriesMonitor {
   // What one detector shows now (for the HTTP API and metrics). A two-sided
   // detector reports the side nearer its decision interval.
   struct DetectorSnapshot {
-    std::string_view name;  // cusum | page-hinkley | bocpd | ewma | variance | rate
+    std::string_view name;   // cusum | page-hinkley | bocpd | ewma | variance | rate
     double statistic = 0.0;  // cusum, page-hinkley, variance, rate: the CUSUM sum;
                              // bocpd: P(change within its window); ewma: |z|
     double threshold = 0.0;  // the value at which it fires
@@ -237,8 +238,9 @@ class SeriesMonitor {
   // Annotations.
   void ApplyPlannedChange(const Annotation& change);
   void Annotate(std::vector<SeriesEvent>* events, std::size_t first) const;
-  bool Unlearned(EventTime t) const;  // in a maintenance window that does not teach the model
-  std::vector<Annotation> planned_;      // by `at`
+  bool Unlearned(
+      EventTime t) const;  // in a maintenance window that does not teach the model
+  std::vector<Annotation> planned_;  // by `at`
   std::vector<Annotation> maintenance_;
   std::size_t next_planned_ = 0;
   // Coefficient variance added at a planned change (in noise variances): the
@@ -268,7 +270,8 @@ class SeriesMonitor {
   // Residuals the scale must have seen before the detectors arm.
   static constexpr int kMinScaleResiduals = 10;
   static constexpr int kMaxPhaseBins = 48;
-  static constexpr int kMaxLongPhaseBins = 168;  // a week of hours; the longer profile is skipped beyond it
+  static constexpr int kMaxLongPhaseBins =
+      168;  // a week of hours; the longer profile is skipped beyond it
   std::optional<SeasonalForecaster> forecaster_;
   // Level-noise selection (see the header comment): until the detectors arm,
   // forecasters that differ only in level_noise run beside forecaster_, each
@@ -289,7 +292,8 @@ class SeriesMonitor {
     ForecastScore score;
   };
   static constexpr double kLevelNoisePenalty = 2.71;
-  static constexpr std::array<double, 6> kLevelNoiseGrid = {0.0, 0.01, 0.03, 0.1, 0.3, 1.0};
+  static constexpr std::array<double, 6> kLevelNoiseGrid = {0.0, 0.01, 0.03,
+                                                            0.1, 0.3,  1.0};
   // Forecasts are scored once a forecaster has seen this many times as many
   // observations as it has coefficients (before that, its errors mostly tell
   // how far from identified it still is), and a choice needs kMinScores of them.
@@ -321,9 +325,9 @@ class SeriesMonitor {
   std::vector<MeterReset> resets_scratch_;
 
   long long observations_ = 0;
-  long long level_hold_until_ = 0;     // observation index before which level alerts wait
+  long long level_hold_until_ = 0;  // observation index before which level alerts wait
   long long variance_hold_until_ = 0;
-  long long rate_hold_until_ = 0;      // in arrivals
+  long long rate_hold_until_ = 0;  // in arrivals
   double last_z_ = 0.0;
   // AR(1) whitening state.
   static constexpr int kAutocorrelationWindow = 300;  // pairs in the running estimate
@@ -334,8 +338,8 @@ class SeriesMonitor {
   long long pairs_ = 0;
   double rho_ = 0.0;
   std::vector<double> threshold_fraction_;  // per level detector, at its last update
-  std::vector<double> variance_sample_;      // capped z^2, until re-fitted
-  std::vector<double> arrival_sample_;       // arrival scores X, until re-fitted
+  std::vector<double> variance_sample_;     // capped z^2, until re-fitted
+  std::vector<double> arrival_sample_;      // arrival scores X, until re-fitted
   bool variance_refitted_ = false, arrival_refitted_ = false;
   bool silent_ = false;
   bool has_reading_ = false;

@@ -534,7 +534,8 @@ namespace plumbline {
 namespace {
 
 TEST(ConfigLevelNoiseTest, TakesOffAutoOrANumberAndNamesTheChoicesOtherwise) {
-  const Config automatic = MustLoad("series:\n  - match: \"a/*\"\n    level_noise: auto\n");
+  const Config automatic =
+      MustLoad("series:\n  - match: \"a/*\"\n    level_noise: auto\n");
   EXPECT_TRUE(automatic.series[0].level_noise_auto);
   const Config off = MustLoad("series:\n  - match: \"a/*\"\n    level_noise: off\n");
   EXPECT_FALSE(off.series[0].level_noise_auto);
@@ -589,18 +590,20 @@ TEST(ConfigAnnotationTest, MistakesAreReportedWithTheirPositionAndChoices) {
                  {"kind: expected planned-change or maintenance", "someday"});
   ExpectOneError("annotations:\n  - kind: planned-change\n    at: soon\n", 3, 9,
                  {"at: expected a time", "soon"});
-  ExpectOneError("annotations:\n  - kind: maintenance\n    from: 2026-04-02T00:00:00Z\n", 2, 5,
-                 {"missing 'to'"});
+  ExpectOneError("annotations:\n  - kind: maintenance\n    from: 2026-04-02T00:00:00Z\n",
+                 2, 5, {"missing 'to'"});
   ExpectOneError(
       "annotations:\n  - kind: maintenance\n    from: 2026-04-02T00:00:00Z\n"
       "    to: 2026-04-01T00:00:00Z\n",
       4, 9, {"to must come after from"});
-  ExpectOneError("annotations:\n  - kind: planned-change\n    at: 2026-04-01T00:00:00Z\n"
-                 "    direction: sideways\n",
-                 4, 16, {"direction: expected up, down or any", "sideways"});
-  ExpectOneError("annotations:\n  - kind: planned-change\n    at: 2026-04-01T00:00:00Z\n"
-                 "    wen: 1h\n",
-                 4, 5, {"wen", "within"});
+  ExpectOneError(
+      "annotations:\n  - kind: planned-change\n    at: 2026-04-01T00:00:00Z\n"
+      "    direction: sideways\n",
+      4, 16, {"direction: expected up, down or any", "sideways"});
+  ExpectOneError(
+      "annotations:\n  - kind: planned-change\n    at: 2026-04-01T00:00:00Z\n"
+      "    wen: 1h\n",
+      4, 5, {"wen", "within"});
 }
 
 }  // namespace

@@ -277,7 +277,8 @@ TEST(ArrivalShapeTest, WeeklyBinsPooledByHourOfDayLearnQuietHoursFromEveryNight)
     // Thinning (Lewis & Shedler 1979, "Simulation of nonhomogeneous Poisson
     // processes by thinning"; MEM) at the day rate.
     while (t < 8 * kMicrosPerDay) {
-      t += static_cast<EventTime>(random.Exponential(static_cast<double>(kMicrosPerHour) / 8.0));
+      t += static_cast<EventTime>(
+          random.Exponential(static_cast<double>(kMicrosPerHour) / 8.0));
       if (random.Uniform() * 8.0 < rate_at(t)) {
         shape.Record(last, t);
         last = t;
@@ -294,9 +295,10 @@ TEST(ArrivalShapeTest, WeeklyBinsPooledByHourOfDayLearnQuietHoursFromEveryNight)
     }
     (fold ? error_pooled : error_plain) = error / bins;
   }
-  std::printf("[figures] night-hour relative intensity after 8 days: mean relative error "
-              "%.2f pooled by hour of day, %.2f without\n",
-              error_pooled, error_plain);
+  std::printf(
+      "[figures] night-hour relative intensity after 8 days: mean relative error "
+      "%.2f pooled by hour of day, %.2f without\n",
+      error_pooled, error_plain);
   // Measured: 0.77 against 3.05. The shrinkage toward the mean rate (two
   // pseudo-events) still lifts the night a little after only eight nights.
   EXPECT_LT(error_pooled, 1.0);

@@ -37,7 +37,8 @@ ResidualProfile Learn(int fold_bins, int bins, EventTime period, int weeks) {
   return profile;
 }
 
-TEST(ResidualProfileTest, TwoLevelsLearnTheSharedHourFromEveryDayAndTheOddDayFromItsOwnBins) {
+TEST(ResidualProfileTest,
+     TwoLevelsLearnTheSharedHourFromEveryDayAndTheOddDayFromItsOwnBins) {
   const EventTime week = 7 * kMicrosPerDay;
   const ResidualProfile daily = Learn(0, 24, kMicrosPerDay, 3);
   const ResidualProfile weekly = Learn(24, kHoursPerWeek, week, 3);
@@ -60,8 +61,9 @@ TEST(ResidualProfileTest, TwoLevelsLearnTheSharedHourFromEveryDayAndTheOddDayFro
   const double odd_weekly = weekly.Mean(weekly.Bin(at(3, 10)));
   const double odd_daily = daily.Mean(daily.Bin(at(3, 10)));
   const double other_day_weekly = weekly.Mean(weekly.Bin(at(4, 10)));
-  EXPECT_LT(odd_weekly, 2.0 * odd_daily);       // more than twice as deep
-  EXPECT_GT(other_day_weekly, 0.5 * odd_weekly);  // the other days dip less than half as much
+  EXPECT_LT(odd_weekly, 2.0 * odd_daily);  // more than twice as deep
+  EXPECT_GT(other_day_weekly,
+            0.5 * odd_weekly);  // the other days dip less than half as much
   // Spreads are shrunk toward the phase's pooled spread, all finite and positive.
   for (int b = 0; b < weekly.bins(); ++b) {
     const double s = weekly.Sigma(b, 1.0);

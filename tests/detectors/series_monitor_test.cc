@@ -900,9 +900,10 @@ TEST(SeriesMonitorLevelNoiseTest, AutoFindsAWanderingLevelAndStopsItsFalseAlarms
     alerts_auto += a.level_alerts;
     alerts_off += o.level_alerts;
   }
-  std::printf("[figures] level_noise auto on a local level stream (q 0.3): q in [0.1, 1] in "
-              "%d/%d; level alerts %d with auto, %d with off, over %d x 3000 readings\n",
-              chosen_near, kTrials, alerts_auto, alerts_off, kTrials);
+  std::printf(
+      "[figures] level_noise auto on a local level stream (q 0.3): q in [0.1, 1] in "
+      "%d/%d; level alerts %d with auto, %d with off, over %d x 3000 readings\n",
+      chosen_near, kTrials, alerts_auto, alerts_off, kTrials);
   EXPECT_GE(chosen_near, 18);
   EXPECT_LE(alerts_auto * 3, alerts_off);  // at least three times fewer (measured: 4x)
   EXPECT_LE(alerts_auto, kTrials);         // ~1 false alarm per stream at most
@@ -916,8 +917,8 @@ TEST(SeriesMonitorLevelNoiseTest, AutoKeepsTheFixedLevelOnWhiteNoise) {
     const auto readings = LocalLevelStream(0.0, 400, 1900 + trial);
     if (RunLevelNoise(automatic, readings).chosen_q == 0.0) ++plain;
   }
-  std::printf("[figures] level_noise auto on white noise: plain level kept in %d/%d\n", plain,
-              kTrials);
+  std::printf("[figures] level_noise auto on white noise: plain level kept in %d/%d\n",
+              plain, kTrials);
   // The test is at the 5% level, a little more with six candidates.
   EXPECT_GE(plain, 34);
 }
@@ -931,7 +932,8 @@ namespace {
 // Annotations (series_monitor.h): a step the staff announced re-baselines the
 // series and does not raise unexplained alerts; a maintenance window holds
 // alerts back as suppressed events. Common practice, no source.
-TEST(SeriesMonitorAnnotationTest, APlannedStepRaisesNoUnexplainedAlertAndRetrainsFromItsTime) {
+TEST(SeriesMonitorAnnotationTest,
+     APlannedStepRaisesNoUnexplainedAlertAndRetrainsFromItsTime) {
   const ProfileDesign design = MakeDesign(ProfileOptions{});
   int explained = 0, unexplained = 0, retrains_from_t = 0;
   for (int trial = 0; trial < 10; ++trial) {
@@ -955,11 +957,13 @@ TEST(SeriesMonitorAnnotationTest, APlannedStepRaisesNoUnexplainedAlertAndRetrain
       (e.annotation == "new-schedule" ? explained : unexplained) += 1;
     }
   }
-  std::printf("[figures] planned 3-sd steps: %d explained alerts, %d unexplained, %d/10 retrain "
-              "events from the planned time\n",
-              explained, unexplained, retrains_from_t);
+  std::printf(
+      "[figures] planned 3-sd steps: %d explained alerts, %d unexplained, %d/10 retrain "
+      "events from the planned time\n",
+      explained, unexplained, retrains_from_t);
   EXPECT_EQ(retrains_from_t, 10);
-  EXPECT_LE(unexplained, 2);  // the re-baselined model may still meet an ordinary false alarm
+  EXPECT_LE(unexplained,
+            2);  // the re-baselined model may still meet an ordinary false alarm
 }
 
 TEST(SeriesMonitorAnnotationTest, AStepThatComesBeforeItsAnnouncedTimeIsMarkedExplained) {
@@ -984,8 +988,10 @@ TEST(SeriesMonitorAnnotationTest, AStepThatComesBeforeItsAnnouncedTimeIsMarkedEx
       (e.annotation == "new-schedule" ? explained : unexplained) += 1;
     }
   }
-  std::printf("[figures] steps ten readings before their announced time: %d alerts explained, "
-              "%d not\n", explained, unexplained);
+  std::printf(
+      "[figures] steps ten readings before their announced time: %d alerts explained, "
+      "%d not\n",
+      explained, unexplained);
   EXPECT_GE(explained, 9);
   EXPECT_LE(unexplained, 2);
 }
