@@ -288,4 +288,72 @@ void ArrivalModel::Rebaseline() {
   theta_ = 0.0;
 }
 
+void ArrivalShape::Save(SnapshotWriter& w) const {
+  w.Tag("SHAP");
+  w.DoubleVector(events_);
+  w.DoubleVector(exposure_);
+  w.DoubleVector(p_);
+  w.F64(exposure_total_);
+  w.I64(anchor_);
+  w.F64(weight_);
+  w.I64(records_since_refresh_);
+  w.Bool(refreshed_once_);
+  w.Bool(anchored_);
+}
+
+Status ArrivalShape::Load(SnapshotReader& r) {
+  r.Tag("SHAP");
+  const std::size_t bins = p_.size();
+  events_ = r.DoubleVector();
+  exposure_ = r.DoubleVector();
+  p_ = r.DoubleVector();
+  if (r.ok() && (events_.size() != bins || exposure_.size() != bins || p_.size() != bins)) {
+    return r.Fail("arrival shape bins differ");
+  }
+  exposure_total_ = r.F64();
+  anchor_ = r.I64();
+  weight_ = r.F64();
+  records_since_refresh_ = static_cast<int>(r.I64());
+  refreshed_once_ = r.Bool();
+  anchored_ = r.Bool();
+  return r.status();
+}
+
+void ArrivalModel::Save(SnapshotWriter& w) const {
+  w.Tag("ARRV");
+  w.F64(options_.slower_h);
+  w.F64(options_.faster_h);
+  w.F64(theta_);
+  w.I64(gaps_);
+  w.I64(used_);
+  w.I64(arrivals_);
+  w.I64(last_);
+  w.F64(slower_);
+  w.F64(faster_);
+  w.I64(slower_start_);
+  w.I64(faster_start_);
+  w.F64(last_score_);
+  w.Bool(shape_.has_value());
+  if (shape_) shape_->Save(w);
+}
+
+Status ArrivalModel::Load(SnapshotReader& r) {
+  r.Tag("ARRV");
+  options_.slower_h = r.F64();
+  options_.faster_h = r.F64();
+  theta_ = r.F64();
+  gaps_ = r.I64();
+  used_ = r.I64();
+  arrivals_ = r.I64();
+  last_ = r.I64();
+  slower_ = r.F64();
+  faster_ = r.F64();
+  slower_start_ = r.I64();
+  faster_start_ = r.I64();
+  last_score_ = r.F64();
+  if (r.Bool() != shape_.has_value()) return r.Fail("arrival season differs");
+  if (shape_) return shape_->Load(r);
+  return r.status();
+}
+
 }  // namespace plumbline

@@ -88,6 +88,7 @@
 
 #include "detectors/detection.h"
 #include "detectors/event_time.h"
+#include "detectors/snapshot.h"
 #include "detectors/status.h"
 
 namespace plumbline {
@@ -134,6 +135,10 @@ class ArrivalShape {
   EventTime WallTimeAfter(EventTime from, double operational) const;
   bool learned() const { return exposure_total_ >= static_cast<double>(period_); }
   double relative_intensity(int bin) const { return learned() ? p_[bin] : 1.0; }
+  // Checkpoints (detectors/snapshot.h): Load expects an object built from the
+  // same options and overwrites its state; Corruption on a mismatch.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
 
  private:
   static constexpr int kMaxPeriods = 8;
@@ -188,6 +193,10 @@ class ArrivalModel {
   double faster_statistic() const { return faster_; }
   // Restarts the CUSUMs and re-learns the baseline from the next gaps.
   void Rebaseline();
+  // Checkpoints (detectors/snapshot.h): Load expects an object built from the
+  // same options and overwrites its state; Corruption on a mismatch.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
 
  private:
   ArrivalModelOptions options_;

@@ -1074,4 +1074,96 @@ RunLengthSummary Bocpd::Summary() const {
   return summary;
 }
 
+// Only the live slots [begin_, end_) are written (the rest is scratch or
+// stale), which keeps a capped posterior's state near its live size.
+void RunLengthPosterior::Save(SnapshotWriter& w) const {
+  w.Tag("RUNL");
+  w.U64(slots_);
+  w.U64(begin_);
+  w.U64(end_);
+  for (const auto* v : {&mu_, &beta_, &log_mass_, &weight_}) {
+    w.Doubles(v->data() + begin_, end_ - begin_);
+  }
+  for (std::size_t i = begin_; i < end_; ++i) w.I64(birth_[i]);
+  w.U64(map_slot_);
+  w.F64(scale_);
+  w.F64(log_shift_);
+  w.DoubleVector(recent_);
+  w.U64(recent_at_);
+  w.I64(readings_);
+  w.F64(log_evidence_);
+  w.F64(last_log_predictive_);
+}
+
+Status RunLengthPosterior::Load(SnapshotReader& r) {
+  r.Tag("RUNL");
+  const std::uint64_t slots = r.U64();
+  const std::uint64_t begin = r.U64();
+  const std::uint64_t end = r.U64();
+  if (!r.ok()) return r.status();
+  if (slots != slots_ || begin > end || end > slots_) {
+    return r.Fail("run-length posterior does not fit this cap");
+  }
+  if ((end - begin) * 40 > r.remaining()) return r.Fail("run-length states run past the end");
+  begin_ = static_cast<std::size_t>(begin);
+  end_ = static_cast<std::size_t>(end);
+  for (auto* v : {&mu_, &beta_, &log_mass_, &weight_}) {
+    std::fill(v->begin(), v->end(), 0.0);
+    r.Doubles(v->data() + begin_, end_ - begin_);
+  }
+  std::fill(birth_.begin(), birth_.end(), 0);
+  for (std::size_t i = begin_; i < end_; ++i) birth_[i] = r.I64();
+  map_slot_ = static_cast<std::size_t>(r.U64());
+  scale_ = r.F64();
+  log_shift_ = r.F64();
+  const std::size_t states = recent_.size();
+  recent_ = r.DoubleVector();
+  recent_at_ = static_cast<std::size_t>(r.U64());
+  readings_ = r.I64();
+  log_evidence_ = r.F64();
+  last_log_predictive_ = r.F64();
+  if (r.ok() && (recent_.size() != states || recent_at_ >= states || map_slot_ >= slots_)) {
+    return r.Fail("run-length posterior does not fit this cap");
+  }
+  return r.status();
+}
+
+void Bocpd::Save(SnapshotWriter& w) const {
+  w.Tag("BOCP");
+  posterior_.Save(w);
+  w.I64Vector(times_);
+  w.U64(snapshots_.size());
+  for (const Snapshot& s : snapshots_) {
+    w.F64(s.mean);
+    w.F64(s.variance);
+  }
+  w.U64(time_at_);
+  w.U64(snapshot_at_);
+  w.F64(change_probability_);
+  w.Bool(above_);
+  w.I64(alarms_);
+}
+
+Status Bocpd::Load(SnapshotReader& r) {
+  r.Tag("BOCP");
+  if (Status status = posterior_.Load(r); !status.ok()) return status;
+  const std::size_t window = times_.size();
+  times_ = r.I64Vector();
+  if (r.ok() && times_.size() != window) return r.Fail("BOCPD window differs");
+  if (r.Count(16) != snapshots_.size()) return r.Fail("BOCPD window differs");
+  for (Snapshot& s : snapshots_) {
+    s.mean = r.F64();
+    s.variance = r.F64();
+  }
+  time_at_ = static_cast<std::size_t>(r.U64());
+  snapshot_at_ = static_cast<std::size_t>(r.U64());
+  change_probability_ = r.F64();
+  above_ = r.Bool();
+  alarms_ = r.I64();
+  if (r.ok() && (time_at_ >= times_.size() || snapshot_at_ >= snapshots_.size())) {
+    return r.Fail("BOCPD ring position out of range");
+  }
+  return r.status();
+}
+
 }  // namespace plumbline

@@ -148,6 +148,7 @@
 
 #include "detectors/detection.h"
 #include "detectors/event_time.h"
+#include "detectors/snapshot.h"
 #include "detectors/status.h"
 
 namespace plumbline {
@@ -235,6 +236,10 @@ class RunLengthPosterior {
 
   // Back to P(r = 0) = 1, no readings.
   void Reset();
+  // Checkpoints (detectors/snapshot.h): Load expects an object built from the
+  // same options and overwrites its state; Corruption on a mismatch.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
 
   std::int64_t readings() const { return readings_; }  // since construction or Reset
   // States held, r = 0 included.
@@ -366,6 +371,10 @@ class Bocpd {
 
   // Back to the prior: P(r = 0) = 1, counters cleared, disarmed.
   void Reset();
+  // Checkpoints (detectors/snapshot.h): Load expects an object built from the
+  // same options and overwrites its state; Corruption on a mismatch.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
 
   double change_probability() const { return change_probability_; }  // C_t
   int map_run_length() const { return posterior_.MapRunLength(); }

@@ -122,4 +122,36 @@ StatusOr<Alarm> OneSidedCusum::Update(double x, EventTime time) {
   return alarm;
 }
 
+namespace {
+void SaveSide(const cusum_internal::Side& s, SnapshotWriter& w) {
+  w.F64(s.value);
+  w.F64(s.origin);
+  w.I64(s.length);
+  w.I64(s.start);
+}
+void LoadSide(cusum_internal::Side* s, SnapshotReader& r) {
+  s->value = r.F64();
+  s->origin = r.F64();
+  s->length = r.I64();
+  s->start = r.I64();
+}
+}  // namespace
+
+void Cusum::Save(SnapshotWriter& w) const {
+  w.Tag("CUSM");
+  SaveSide(upper_, w);
+  SaveSide(lower_, w);
+  w.I64(readings_);
+  w.I64(alarms_);
+}
+
+Status Cusum::Load(SnapshotReader& r) {
+  r.Tag("CUSM");
+  LoadSide(&upper_, r);
+  LoadSide(&lower_, r);
+  readings_ = r.I64();
+  alarms_ = r.I64();
+  return r.status();
+}
+
 }  // namespace plumbline

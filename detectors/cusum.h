@@ -69,6 +69,7 @@
 
 #include "detectors/detection.h"
 #include "detectors/event_time.h"
+#include "detectors/snapshot.h"
 #include "detectors/status.h"
 
 namespace plumbline {
@@ -142,6 +143,10 @@ class Cusum {
 
   // Back to the start state: both sides at the headstart, counters cleared.
   void Reset();
+  // Checkpoints (detectors/snapshot.h): Load expects an object built from the
+  // same options and overwrites its state; Corruption on a mismatch.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
 
   double upper() const { return upper_.value; }  // C+
   double lower() const { return lower_.value; }  // C-

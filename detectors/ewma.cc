@@ -95,4 +95,33 @@ StatusOr<Alarm> Ewma::Update(double x, EventTime time) {
   return alarm;
 }
 
+void Ewma::Save(SnapshotWriter& w) const {
+  w.Tag("EWMA");
+  w.F64(z_);
+  w.F64(decay_power_);
+  w.F64(limit_sq_);
+  for (const Run* run : {&up_, &down_}) {
+    w.I64(run->start);
+    w.I64(run->length);
+    w.F64(run->sum_x);
+  }
+  w.I64(readings_);
+  w.I64(alarms_);
+}
+
+Status Ewma::Load(SnapshotReader& r) {
+  r.Tag("EWMA");
+  z_ = r.F64();
+  decay_power_ = r.F64();
+  limit_sq_ = r.F64();
+  for (Run* run : {&up_, &down_}) {
+    run->start = r.I64();
+    run->length = r.I64();
+    run->sum_x = r.F64();
+  }
+  readings_ = r.I64();
+  alarms_ = r.I64();
+  return r.status();
+}
+
 }  // namespace plumbline

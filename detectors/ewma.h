@@ -57,6 +57,7 @@
 
 #include "detectors/detection.h"
 #include "detectors/event_time.h"
+#include "detectors/snapshot.h"
 #include "detectors/status.h"
 
 namespace plumbline {
@@ -90,6 +91,10 @@ class Ewma {
 
   // Back to the start state (as after construction).
   void Reset();
+  // Checkpoints (detectors/snapshot.h): Load expects an object built from the
+  // same options and overwrites its state; Corruption on a mismatch.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
 
   double value() const { return z_; }  // z_t (0 right after a restart)
   // The limit the latest reading was judged against (0 before the first

@@ -191,4 +191,37 @@ void Intake::AddMeterBucketed(EventTime from, EventTime to, double consumption,
   if (BucketStart(to) != bucket_) CloseBucketsBefore(BucketStart(to), out);
 }
 
+void Intake::Save(SnapshotWriter& w) const {
+  w.Tag("INTK");
+  w.Bool(has_reading_);
+  w.I64(last_time_);
+  w.F64(last_value_);
+  w.Bool(bucket_open_);
+  w.I64(bucket_);
+  w.F64(sum_);
+  w.F64(covered_);
+  w.Bool(partial_);
+  w.Bool(has_emitted_);
+  w.I64(last_emitted_bucket_);
+  w.F64(last_emitted_value_);
+  w.I64(unfilled_);
+}
+
+Status Intake::Load(SnapshotReader& r) {
+  r.Tag("INTK");
+  has_reading_ = r.Bool();
+  last_time_ = r.I64();
+  last_value_ = r.F64();
+  bucket_open_ = r.Bool();
+  bucket_ = r.I64();
+  sum_ = r.F64();
+  covered_ = r.F64();
+  partial_ = r.Bool();
+  has_emitted_ = r.Bool();
+  last_emitted_bucket_ = r.I64();
+  last_emitted_value_ = r.F64();
+  unfilled_ = r.I64();
+  return r.status();
+}
+
 }  // namespace plumbline

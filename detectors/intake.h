@@ -37,6 +37,7 @@
 #include <vector>
 
 #include "detectors/event_time.h"
+#include "detectors/snapshot.h"
 #include "detectors/profile.h"
 
 namespace plumbline {
@@ -67,6 +68,10 @@ class Intake {
 
   // Empty buckets skipped because a gap was longer than kMaxFilledBuckets.
   std::int64_t unfilled_buckets() const { return unfilled_; }
+  // Checkpoints (detectors/snapshot.h): Load expects an object built from the
+  // same options and overwrites its state; Corruption on a mismatch.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
 
  private:
   EventTime BucketStart(EventTime t) const;

@@ -94,4 +94,37 @@ StatusOr<Alarm> PageHinkley::Update(double x, EventTime time) {
   return alarm;
 }
 
+void PageHinkley::Save(SnapshotWriter& w) const {
+  w.Tag("PAGE");
+  for (const Side* s : {&up_, &down_}) {
+    w.F64(s->sum);
+    w.F64(s->statistic);
+    w.I64(s->length);
+    w.I64(s->start);
+    w.F64(s->sum_x_before);
+    w.I64(s->count_before);
+  }
+  w.F64(sum_x_);
+  w.F64(reference_mean_);
+  w.I64(readings_);
+  w.I64(alarms_);
+}
+
+Status PageHinkley::Load(SnapshotReader& r) {
+  r.Tag("PAGE");
+  for (Side* s : {&up_, &down_}) {
+    s->sum = r.F64();
+    s->statistic = r.F64();
+    s->length = r.I64();
+    s->start = r.I64();
+    s->sum_x_before = r.F64();
+    s->count_before = r.I64();
+  }
+  sum_x_ = r.F64();
+  reference_mean_ = r.F64();
+  readings_ = r.I64();
+  alarms_ = r.I64();
+  return r.status();
+}
+
 }  // namespace plumbline

@@ -84,6 +84,7 @@
 
 #include "detectors/detection.h"
 #include "detectors/event_time.h"
+#include "detectors/snapshot.h"
 #include "detectors/status.h"
 
 namespace plumbline {
@@ -119,6 +120,10 @@ class PageHinkley {
 
   // Back to the start state (as after construction).
   void Reset();
+  // Checkpoints (detectors/snapshot.h): Load expects an object built from the
+  // same options and overwrites its state; Corruption on a mismatch.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
 
   double up_sum() const { return up_.sum; }                            // m_T
   double up_minimum() const { return up_.sum - up_.statistic; }        // M_T

@@ -81,4 +81,29 @@ void ResidualProfile::Update(int bin, double r, double a, double sigma_all) {
   Fold(&bins_[static_cast<size_t>(bin)], r, a, sigma, clip_, correction_, kWindow);
 }
 
+void ResidualProfile::Save(SnapshotWriter& w) const {
+  w.Tag("PROF");
+  for (const std::vector<Bin_>* bins : {&bins_, &folded_}) {
+    w.U64(bins->size());
+    for (const Bin_& b : *bins) {
+      w.F64(b.n);
+      w.F64(b.mean);
+      w.F64(b.s2);
+    }
+  }
+}
+
+Status ResidualProfile::Load(SnapshotReader& r) {
+  r.Tag("PROF");
+  for (std::vector<Bin_>* bins : {&bins_, &folded_}) {
+    if (r.Count(24) != bins->size()) return r.Fail("phase profile bins differ");
+    for (Bin_& b : *bins) {
+      b.n = r.F64();
+      b.mean = r.F64();
+      b.s2 = r.F64();
+    }
+  }
+  return r.status();
+}
+
 }  // namespace plumbline

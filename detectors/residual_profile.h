@@ -37,6 +37,7 @@
 #include <vector>
 
 #include "detectors/event_time.h"
+#include "detectors/snapshot.h"
 
 namespace plumbline {
 
@@ -59,8 +60,13 @@ class ResidualProfile {
   void Update(int bin, double r, double a, double sigma_all);
   // Forgets everything learned (a planned change).
   void Reset();
+  // Checkpoints (detectors/snapshot.h): Load expects an object built from the
+  // same options and overwrites its state; Corruption on a mismatch.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
   int bins() const { return static_cast<int>(bins_.size()); }
   int fold_bins() const { return static_cast<int>(folded_.size()); }
+  EventTime period() const { return period_; }
 
  private:
   struct Bin_ {

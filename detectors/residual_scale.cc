@@ -60,4 +60,23 @@ void ResidualScale::Restart(int effective_count) {
   effective_ = std::clamp(effective_count, 1, options_.window);
 }
 
+void ResidualScale::Save(SnapshotWriter& w) const {
+  w.Tag("SCAL");
+  w.F64(s2_);
+  w.F64(sigma_);
+  w.I64(count_);
+  w.I64(effective_);
+  w.Doubles(first_.data(), first_.size());
+}
+
+Status ResidualScale::Load(SnapshotReader& r) {
+  r.Tag("SCAL");
+  s2_ = r.F64();
+  sigma_ = r.F64();
+  count_ = r.I64();
+  effective_ = static_cast<int>(r.I64());
+  r.Doubles(first_.data(), first_.size());
+  return r.status();
+}
+
 }  // namespace plumbline

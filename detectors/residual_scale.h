@@ -30,6 +30,8 @@
 #include <array>
 #include <string>
 
+#include "detectors/snapshot.h"
+
 namespace plumbline {
 
 struct ResidualScaleOptions {
@@ -52,6 +54,10 @@ class ResidualScale {
   // Restarts the running mean so the scale re-learns quickly (after a variance
   // change), keeping the current value as the starting point.
   void Restart(int effective_count);
+  // Checkpoints (detectors/snapshot.h): Load expects an object built from the
+  // same options and overwrites its state; Corruption on a mismatch.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
 
   // m(c) above.
   static double ClippedSecondMoment(double clip);

@@ -279,4 +279,49 @@ void SeasonalForecaster::ShiftLevel(double delta, double level_variance) {
   p_(0, 0) += std::clamp(level_variance, 0.0, std::max(room, 0.0));
 }
 
+void SeasonalForecaster::Save(SnapshotWriter& w) const {
+  w.Tag("FCST");
+  w.I64(options_.memory);
+  w.F64(options_.level_noise);
+  w.I64(options_.level_noise_unit);
+  w.U64(static_cast<std::uint64_t>(theta_.size()));
+  w.Doubles(theta_.data(), static_cast<std::size_t>(theta_.size()));
+  w.Doubles(p_.data(), static_cast<std::size_t>(p_.size()));
+  w.I64(t_ref_);
+  w.I64(t_first_);
+  w.I64(updates_);
+  w.Bool(pending_.active);
+  w.I64(pending_.from);
+  w.I64(pending_.to);
+  w.F64(pending_.forecast);
+  w.F64(pending_.xpx);
+}
+
+Status SeasonalForecaster::Load(SnapshotReader& r) {
+  r.Tag("FCST");
+  options_.memory = r.I64();
+  options_.level_noise = r.F64();
+  options_.level_noise_unit = r.I64();
+  const std::uint64_t n = r.U64();
+  if (!r.ok()) return r.status();
+  if (n != static_cast<std::uint64_t>(theta_.size())) {
+    return r.Fail("forecaster has " + std::to_string(n) + " coefficients, this one " +
+                  std::to_string(theta_.size()));
+  }
+  if (options_.memory <= 0 || options_.level_noise_unit <= 0) {
+    return r.Fail("forecaster memory or level noise unit not positive");
+  }
+  r.Doubles(theta_.data(), static_cast<std::size_t>(theta_.size()));
+  r.Doubles(p_.data(), static_cast<std::size_t>(p_.size()));
+  t_ref_ = r.I64();
+  t_first_ = r.I64();
+  updates_ = r.I64();
+  pending_.active = r.Bool();
+  pending_.from = r.I64();
+  pending_.to = r.I64();
+  pending_.forecast = r.F64();
+  pending_.xpx = r.F64();
+  return r.status();
+}
+
 }  // namespace plumbline

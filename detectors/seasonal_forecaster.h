@@ -85,6 +85,7 @@
 
 #include "detectors/eigen_types.h"
 #include "detectors/event_time.h"
+#include "detectors/snapshot.h"
 #include "detectors/status.h"
 
 namespace plumbline {
@@ -167,6 +168,11 @@ class SeasonalForecaster {
   void SetLevelNoiseUnit(EventTime unit) {
     if (unit > 0) options_.level_noise_unit = unit;
   }
+  // Checkpoints (detectors/snapshot.h): the state and the options a series
+  // derives at run time (memory, level_noise, level_noise_unit). Load expects
+  // a forecaster built with the same seasons, harmonics and trend.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
 
   const Vector& coefficients() const { return theta_; }
   const Matrix& covariance() const { return p_; }

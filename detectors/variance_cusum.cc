@@ -133,4 +133,39 @@ void VarianceCusum::Reset() {
   has_spike_ = false;
 }
 
+void VarianceCusum::Save(SnapshotWriter& w) const {
+  w.Tag("VARC");
+  w.F64(options_.up_h);
+  w.F64(options_.down_h);
+  for (const Side* s : {&up_, &down_}) {
+    w.F64(s->statistic);
+    w.I64(s->start);
+    w.F64(s->n);
+    w.F64(s->sum);
+    w.F64(s->sum_sq);
+  }
+  w.DoubleVector(excursion_);
+  w.Bool(has_spike_);
+  w.F64(spike_z_);
+  w.I64(spike_time_);
+}
+
+Status VarianceCusum::Load(SnapshotReader& r) {
+  r.Tag("VARC");
+  options_.up_h = r.F64();
+  options_.down_h = r.F64();
+  for (Side* s : {&up_, &down_}) {
+    s->statistic = r.F64();
+    s->start = r.I64();
+    s->n = r.F64();
+    s->sum = r.F64();
+    s->sum_sq = r.F64();
+  }
+  excursion_ = r.DoubleVector();
+  has_spike_ = r.Bool();
+  spike_z_ = r.F64();
+  spike_time_ = r.I64();
+  return r.status();
+}
+
 }  // namespace plumbline

@@ -54,6 +54,7 @@
 
 #include "detectors/detection.h"
 #include "detectors/event_time.h"
+#include "detectors/snapshot.h"
 #include "detectors/status.h"
 
 namespace plumbline {
@@ -80,6 +81,10 @@ class VarianceCusum {
   // standard deviations (new / old) over the excursion. Non-finite z is ignored.
   Alarm Update(double z, EventTime time);
   void Reset();
+  // Checkpoints (detectors/snapshot.h): Load expects an object built from the
+  // same options and overwrites its state; Corruption on a mismatch.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
   // Replaces the decision intervals (after an empirical re-fit); both > 0.
   void SetDecisionIntervals(double up_h, double down_h);
   const VarianceCusumOptions& options() const { return options_; }

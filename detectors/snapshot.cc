@@ -1,0 +1,167 @@
+#include "detectors/snapshot.h"
+
+#include <array>
+#include <bit>
+#include <cstring>
+
+namespace plumbline {
+namespace {
+
+constexpr std::array<std::uint32_t, 256> MakeCrc32cTable() {
+  std::array<std::uint32_t, 256> table{};
+  for (std::uint32_t i = 0; i < 256; ++i) {
+    std::uint32_t c = i;
+    for (int k = 0; k < 8; ++k) c = (c & 1u) ? (c >> 1) ^ 0x82F63B78u : c >> 1;
+    table[i] = c;
+  }
+  return table;
+}
+
+constexpr std::array<std::uint32_t, 256> kCrc32cTable = MakeCrc32cTable();
+
+}  // namespace
+
+std::uint32_t Crc32c(std::string_view bytes, std::uint32_t crc) {
+  crc = ~crc;
+  for (unsigned char b : bytes) crc = kCrc32cTable[(crc ^ b) & 0xFFu] ^ (crc >> 8);
+  return ~crc;
+}
+
+void SnapshotWriter::Tag(std::string_view four_letters) {
+  bytes_.append(four_letters.substr(0, 4));
+}
+
+void SnapshotWriter::U32(std::uint32_t v) {
+  for (int i = 0; i < 4; ++i) U8(static_cast<std::uint8_t>(v >> (8 * i)));
+}
+
+void SnapshotWriter::U64(std::uint64_t v) {
+  for (int i = 0; i < 8; ++i) U8(static_cast<std::uint8_t>(v >> (8 * i)));
+}
+
+void SnapshotWriter::F64(double v) { U64(std::bit_cast<std::uint64_t>(v)); }
+
+void SnapshotWriter::String(std::string_view v) {
+  U64(v.size());
+  bytes_.append(v);
+}
+
+void SnapshotWriter::Doubles(const double* values, std::size_t count) {
+  for (std::size_t i = 0; i < count; ++i) F64(values[i]);
+}
+
+void SnapshotWriter::DoubleVector(const std::vector<double>& v) {
+  U64(v.size());
+  Doubles(v.data(), v.size());
+}
+
+void SnapshotWriter::I64Vector(const std::vector<std::int64_t>& v) {
+  U64(v.size());
+  for (std::int64_t x : v) I64(x);
+}
+
+void SnapshotWriter::OptionalI64(const std::optional<std::int64_t>& v) {
+  Bool(v.has_value());
+  if (v) I64(*v);
+}
+
+Status SnapshotReader::Fail(std::string why) {
+  if (status_.ok()) {
+    status_ = Status::Corruption(why + " (at byte " + std::to_string(at_) + ")");
+  }
+  at_ = bytes_.size();
+  return status_;
+}
+
+bool SnapshotReader::Take(std::size_t n, const char** out) {
+  if (!status_.ok()) return false;
+  if (bytes_.size() - at_ < n) {
+    Fail("state ends early");
+    return false;
+  }
+  *out = bytes_.data() + at_;
+  at_ += n;
+  return true;
+}
+
+bool SnapshotReader::Tag(std::string_view four_letters) {
+  const char* p = nullptr;
+  if (!Take(4, &p)) return false;
+  if (std::string_view(p, 4) != four_letters.substr(0, 4)) {
+    Fail("expected state '" + std::string(four_letters) + "', found '" +
+         std::string(p, 4) + "'");
+    return false;
+  }
+  return true;
+}
+
+std::uint8_t SnapshotReader::U8() {
+  const char* p = nullptr;
+  return Take(1, &p) ? static_cast<std::uint8_t>(*p) : 0;
+}
+
+bool SnapshotReader::Bool() {
+  const std::uint8_t v = U8();
+  if (v > 1) Fail("a flag is neither 0 nor 1");
+  return v == 1;
+}
+
+std::uint32_t SnapshotReader::U32() {
+  const char* p = nullptr;
+  if (!Take(4, &p)) return 0;
+  std::uint32_t v = 0;
+  for (int i = 0; i < 4; ++i)
+    v |= std::uint32_t{static_cast<std::uint8_t>(p[i])} << (8 * i);
+  return v;
+}
+
+std::uint64_t SnapshotReader::U64() {
+  const char* p = nullptr;
+  if (!Take(8, &p)) return 0;
+  std::uint64_t v = 0;
+  for (int i = 0; i < 8; ++i)
+    v |= std::uint64_t{static_cast<std::uint8_t>(p[i])} << (8 * i);
+  return v;
+}
+
+double SnapshotReader::F64() { return std::bit_cast<double>(U64()); }
+
+std::size_t SnapshotReader::Count(std::size_t item_bytes) {
+  const std::uint64_t n = U64();
+  if (!ok()) return 0;
+  if (item_bytes > 0 && n > remaining() / item_bytes) {
+    Fail("a length of " + std::to_string(n) + " runs past the end");
+    return 0;
+  }
+  return static_cast<std::size_t>(n);
+}
+
+std::string SnapshotReader::String() {
+  const std::size_t n = Count(1);
+  const char* p = nullptr;
+  if (!Take(n, &p)) return {};
+  return std::string(p, n);
+}
+
+void SnapshotReader::Doubles(double* values, std::size_t count) {
+  for (std::size_t i = 0; i < count; ++i) values[i] = F64();
+}
+
+std::vector<double> SnapshotReader::DoubleVector() {
+  std::vector<double> v(Count(8));
+  Doubles(v.data(), v.size());
+  return v;
+}
+
+std::vector<std::int64_t> SnapshotReader::I64Vector() {
+  std::vector<std::int64_t> v(Count(8));
+  for (auto& x : v) x = I64();
+  return v;
+}
+
+std::optional<std::int64_t> SnapshotReader::OptionalI64() {
+  if (!Bool()) return std::nullopt;
+  return I64();
+}
+
+}  // namespace plumbline

@@ -1,0 +1,92 @@
+// SnapshotWriter and SnapshotReader: the byte encoding of a series' state in
+// a checkpoint, and Crc32c, the checksum that guards it. Each stateful class
+// writes its own state beside its code (`void Save(SnapshotWriter&) const`,
+// `Status Load(SnapshotReader&)`); a class's Load runs on an object built from
+// the same options (the profile's design) and overwrites its state only.
+//
+// Encoding: little-endian fixed-width integers, doubles as their IEEE-754 bit
+// patterns (so a restored series computes exactly what the saved one would
+// have), strings and arrays as a u64 length then the items. A class opens its
+// part with a four-letter tag, so a reader that has lost its place (a format
+// mismatch) fails at once with the tag it expected instead of reading
+// nonsense. The reader never reads past its end, and its first failure is
+// sticky: later reads return zeros and status() keeps the first reason.
+//
+// Not thread-safe; one writer or reader per thread.
+#pragma once
+
+#include <cstddef>
+#include <cstdint>
+#include <optional>
+#include <string>
+#include <string_view>
+#include <vector>
+
+#include "detectors/status.h"
+
+namespace plumbline {
+
+// CRC-32C (Castagnoli, reflected polynomial 0x82F63B78), as iSCSI and ext4
+// use it. Chain calls by passing the previous result as `crc`.
+std::uint32_t Crc32c(std::string_view bytes, std::uint32_t crc = 0);
+
+class SnapshotWriter {
+ public:
+  void Tag(std::string_view four_letters);
+  void U8(std::uint8_t v) { bytes_.push_back(static_cast<char>(v)); }
+  void Bool(bool v) { U8(v ? 1 : 0); }
+  void U32(std::uint32_t v);
+  void U64(std::uint64_t v);
+  void I64(std::int64_t v) { U64(static_cast<std::uint64_t>(v)); }
+  void F64(double v);
+  void String(std::string_view v);
+  void Doubles(const double* values, std::size_t count);  // count itself not written
+  void DoubleVector(const std::vector<double>& v);
+  void I64Vector(const std::vector<std::int64_t>& v);
+  void OptionalI64(const std::optional<std::int64_t>& v);
+
+  const std::string& bytes() const { return bytes_; }
+  std::string Take() { return std::move(bytes_); }
+
+ private:
+  std::string bytes_;
+};
+
+class SnapshotReader {
+ public:
+  explicit SnapshotReader(std::string_view bytes) : bytes_(bytes) {}
+
+  // Reads a tag; a different one is a failure naming both.
+  bool Tag(std::string_view four_letters);
+  std::uint8_t U8();
+  bool Bool();
+  std::uint32_t U32();
+  std::uint64_t U64();
+  std::int64_t I64() { return static_cast<std::int64_t>(U64()); }
+  double F64();
+  std::string String();
+  void Doubles(double* values, std::size_t count);
+  std::vector<double> DoubleVector();
+  std::vector<std::int64_t> I64Vector();
+  std::optional<std::int64_t> OptionalI64();
+  // A length read before `count` items of `item_bytes` each: fails (and
+  // returns 0) when fewer bytes than that are left, so a corrupted length
+  // cannot make a reader allocate without bound.
+  std::size_t Count(std::size_t item_bytes);
+
+  // Records a failure (the first one stays); returns it for `return r.Fail(...)`.
+  Status Fail(std::string why);
+  bool ok() const { return status_.ok(); }
+  const Status& status() const { return status_; }
+  bool AtEnd() const { return at_ == bytes_.size(); }
+  std::size_t remaining() const { return bytes_.size() - at_; }
+
+ private:
+  bool Take(std::size_t n, const char** out);
+
+  std::string_view bytes_;
+  std::size_t at_ = 0;
+  Status status_;
+};
+
+}  // namespace plumbline
