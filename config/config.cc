@@ -47,9 +47,11 @@ constexpr std::string_view kStorageKeys[] = {"directory"};
 constexpr std::string_view kInputKeys[] = {"files"};
 constexpr std::string_view kFileKeys[] = {"path", "start_at", "poll_interval"};
 constexpr std::string_view kSinkKeys[] = {"alert_log", "webhook", "stdout", "events"};
-constexpr std::string_view kAlertLogKeys[] = {"enabled", "path"};
-constexpr std::string_view kWebhookKeys[] = {
-    "url", "attempts", "backoff", "backoff_max", "timeout", "queue", "dead_letter"};
+constexpr std::string_view kAlertLogKeys[] = {"enabled", "path", "min_severity"};
+constexpr std::string_view kWebhookKeys[] = {"url",     "attempts",    "backoff",
+                                             "backoff_max", "timeout", "queue",
+                                             "dead_letter", "min_severity"};
+constexpr std::string_view kStdoutKeys[] = {"enabled", "min_severity"};
 constexpr std::string_view kMetricsKeys[] = {"series_limit"};
 
 constexpr std::string_view kProfileKeys[] = {
@@ -743,6 +745,8 @@ class Loader {
               Bool(e, &o->alert_log.enabled);
             } else if (e.key == "path") {
               ScalarText(e, "a file path", &o->alert_log.path);
+            } else if (e.key == "min_severity") {
+              Enum(e, SeverityFromString, SeverityChoices(), &o->alert_log.min_severity);
             } else {
               return false;
             }
@@ -769,6 +773,8 @@ class Loader {
               WholeNumber(e, "a whole number of alerts", &w.queue);
             } else if (key == "dead_letter") {
               ScalarText(e, "a file path", &w.dead_letter);
+            } else if (key == "min_severity") {
+              Enum(e, SeverityFromString, SeverityChoices(), &w.min_severity);
             } else {
               return false;
             }
@@ -776,7 +782,21 @@ class Loader {
           },
           [&](std::string* why) { return w.IsValid(why); });
     } else if (k == "stdout") {
-      Bool(f, &o->to_stdout);
+      // true | false, or a mapping with enabled and min_severity.
+      if (!f.value.IsMap()) {
+        Bool(f, &o->to_stdout);
+        return true;
+      }
+      Section(f, "sinks.stdout", kStdoutKeys, [&](const Field& e) {
+        if (e.key == "enabled") {
+          Bool(e, &o->to_stdout);
+        } else if (e.key == "min_severity") {
+          Enum(e, SeverityFromString, SeverityChoices(), &o->stdout_min_severity);
+        } else {
+          return false;
+        }
+        return true;
+      });
     } else if (k == "events") {
       Bool(f, &o->events);
     } else {

@@ -192,15 +192,23 @@ std::vector<std::string> DescribeService(const ServiceOptions& o) {
   }
   lines.push_back(inputs);
   std::string sinks = "sinks:";
+  // " (notify and up)" for a sink that drops the less urgent alerts.
+  const auto from = [](Severity minimum) {
+    return minimum == Severity::kRecord
+               ? std::string()
+               : " (" + std::string(ToString(minimum)) + " and up)";
+  };
   if (o.sinks.alert_log.enabled) {
-    sinks += " alert log " + o.InStateDirectory(o.sinks.alert_log.path) + ";";
+    sinks += " alert log " + o.InStateDirectory(o.sinks.alert_log.path) +
+             from(o.sinks.alert_log.min_severity) + ";";
   }
   if (o.sinks.webhook.enabled()) {
     sinks += " webhook " + o.sinks.webhook.url + " (" +
              std::to_string(o.sinks.webhook.attempts) + " attempts, then " +
-             o.InStateDirectory(o.sinks.webhook.dead_letter) + ");";
+             o.InStateDirectory(o.sinks.webhook.dead_letter) + ")" +
+             from(o.sinks.webhook.min_severity) + ";";
   }
-  if (o.sinks.to_stdout) sinks += " stdout;";
+  if (o.sinks.to_stdout) sinks += " stdout" + from(o.sinks.stdout_min_severity) + ";";
   if (sinks.back() == ';') sinks.pop_back();
   if (sinks == "sinks:") sinks += " none";
   if (o.sinks.events) sinks += " (with events)";

@@ -23,8 +23,11 @@
 //     alert_log: {path: alerts.jsonl, enabled: true}   # default <directory>/alerts.jsonl
 //     webhook: {url: http://127.0.0.1:9000/alerts, attempts: 8, backoff: 500ms,
 //               backoff_max: 30s, timeout: 5s, queue: 1000,
-//               dead_letter: webhook-dead-letter.jsonl}
-//     stdout: true                 # one readable line per alert
+//               dead_letter: webhook-dead-letter.jsonl, min_severity: page}
+//     stdout: true                 # one readable line per alert; or
+//                                  # {enabled: true, min_severity: notify}
+//     (each sink's min_severity: record | notify | page, default record = all;
+//      see detectors/severity.h)
 //     events: false                # also send resume, retrain and meter-reset events
 //   metrics:
 //     series_limit: 100            # per-series detector gauges for at most this many
@@ -42,6 +45,7 @@
 #include <vector>
 
 #include "detectors/event_time.h"
+#include "detectors/severity.h"
 
 namespace plumbline {
 
@@ -92,6 +96,7 @@ struct FileInputOptions {
 struct AlertLogOptions {
   bool enabled = true;
   std::string path = "alerts.jsonl";     // relative: inside the state directory
+  Severity min_severity = Severity::kRecord;  // less urgent alerts are not written
   bool IsValid(std::string* why) const;  // path non-empty when enabled
 };
 
@@ -104,6 +109,7 @@ struct WebhookOptions {
   EventTime timeout = 5 * kMicrosPerSecond;       // per try: connect, send, answer
   int queue = 1000;  // alerts waiting; beyond, straight to dead letter
   std::string dead_letter = "webhook-dead-letter.jsonl";  // relative: state directory
+  Severity min_severity = Severity::kRecord;  // less urgent alerts are not sent
 
   bool enabled() const { return !url.empty(); }
   // Rules: url empty or http://host[:port][/path]; attempts in [1, 100];
@@ -123,7 +129,8 @@ bool ParseHttpUrl(std::string_view url, HttpUrl* out, std::string* why = nullptr
 struct SinkOptions {
   AlertLogOptions alert_log;
   WebhookOptions webhook;
-  bool to_stdout = true;  // key `stdout`
+  bool to_stdout = true;  // key `stdout` (or stdout.enabled)
+  Severity stdout_min_severity = Severity::kRecord;  // key stdout.min_severity
   bool events = false;    // also send resume, retrain and meter-reset events
   bool IsValid(std::string* why) const;
 };

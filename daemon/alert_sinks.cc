@@ -335,8 +335,8 @@ AlertDispatcher::~AlertDispatcher() {
   if (thread_.joinable()) thread_.join();
 }
 
-void AlertDispatcher::AddSink(std::unique_ptr<AlertSink> sink) {
-  sinks_.push_back(std::move(sink));
+void AlertDispatcher::AddSink(std::unique_ptr<AlertSink> sink, Severity min_severity) {
+  sinks_.push_back({std::move(sink), min_severity});
 }
 
 void AlertDispatcher::Start() {
@@ -390,7 +390,18 @@ void AlertDispatcher::Run() {
       if (Wanted(alert, options_.events)) wanted.push_back(std::move(alert));
     }
     if (!wanted.empty()) {
-      for (auto& sink : sinks_) sink->Deliver(wanted);
+      std::vector<Alert> urgent;
+      for (RoutedSink& routed : sinks_) {
+        if (routed.min_severity == Severity::kRecord) {
+          routed.sink->Deliver(wanted);
+          continue;
+        }
+        urgent.clear();
+        for (const Alert& alert : wanted) {
+          if (alert.severity >= routed.min_severity) urgent.push_back(alert);
+        }
+        if (!urgent.empty()) routed.sink->Deliver(urgent);
+      }
       delivered_.fetch_add(wanted.size());
     }
 
@@ -410,7 +421,7 @@ void AlertDispatcher::Stop(std::chrono::steady_clock::time_point deadline) {
   not_empty_.notify_all();
   not_full_.notify_all();
   if (thread_.joinable()) thread_.join();
-  for (auto& sink : sinks_) sink->Drain(deadline);
+  for (auto& routed : sinks_) routed.sink->Drain(deadline);
 }
 
 std::vector<Alert> AlertDispatcher::Recent(EventTime since, std::size_t limit) const {
@@ -430,8 +441,8 @@ std::vector<Alert> AlertDispatcher::Recent(EventTime since, std::size_t limit) c
 }
 
 bool AlertDispatcher::Healthy(std::string* why) const {
-  for (const auto& sink : sinks_) {
-    if (!sink->Healthy(why)) return false;
+  for (const RoutedSink& routed : sinks_) {
+    if (!routed.sink->Healthy(why)) return false;
   }
   return true;
 }

@@ -15,6 +15,9 @@
 //                 that finds the queue full. Alerts leave in order: the head
 //                 of the queue is retried before the next is sent.
 //
+// Routing: each sink may take only alerts of at least a minimum severity
+// (config sinks.*.min_severity), so the webhook can page while the log keeps all.
+//
 // Thread-safety: AlertDispatcher::Publish, Recent and Healthy may be called from
 // any thread; sinks' Deliver is called on the dispatcher thread only;
 // Healthy may be called from any thread.
@@ -161,7 +164,9 @@ class AlertDispatcher : public AlertPublisher {
   // `observer` may be null. Sinks are added before Start.
   AlertDispatcher(Options options, PipelineObserver* observer);
   ~AlertDispatcher() override;
-  void AddSink(std::unique_ptr<AlertSink> sink);
+  // The sink gets only events of at least `min_severity` (detectors/severity.h).
+  void AddSink(std::unique_ptr<AlertSink> sink,
+               Severity min_severity = Severity::kRecord);
   void Start();
 
   void Publish(std::size_t shard, std::vector<Alert>* alerts) override;
@@ -182,7 +187,11 @@ class AlertDispatcher : public AlertPublisher {
 
   const Options options_;
   PipelineObserver* const observer_;
-  std::vector<std::unique_ptr<AlertSink>> sinks_;
+  struct RoutedSink {
+    std::unique_ptr<AlertSink> sink;
+    Severity min_severity;
+  };
+  std::vector<RoutedSink> sinks_;
 
   std::mutex mutex_;  // guards queue_ and stopping_
   std::condition_variable not_empty_, not_full_, drained_;

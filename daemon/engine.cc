@@ -122,6 +122,8 @@ std::string AlertToJson(const Alert& a) {
         a.event == EventType::kSuppressed ? ",\"suppressed_by\":" : ",\"explained_by\":";
     AppendJsonString(a.annotation, &out);
   }
+  out += ",\"severity\":";
+  AppendJsonString(ToString(a.severity), &out);
   out += ",\"advisory\":true}";
   return out;
 }
@@ -389,6 +391,7 @@ void Engine::Emit(const Series& series, const std::vector<SeriesEvent>& events,
     a.before = e.before;
     a.after = e.after;
     a.annotation = e.annotation;
+    a.severity = SeverityOf(e);
     // Fields joined by a NUL byte (which no field contains), so no two
     // different field lists hash the same text.
     const std::string fields = a.series + '\0' + std::string(ToString(a.event)) + '\0' +

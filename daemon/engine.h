@@ -17,6 +17,7 @@
 
 #include "config/config.h"
 #include "detectors/series_monitor.h"
+#include "detectors/severity.h"
 #include "detectors/status.h"
 
 namespace plumbline {
@@ -39,11 +40,14 @@ struct Alert {
   // The annotation (config `annotations`) that explains this alert, or for a
   // suppressed event the maintenance window that held it back; else empty.
   std::string annotation;
+  // How urgent (detectors/severity.h): from the detectors that agreed, the
+  // magnitude and any explanation. Sinks may drop those below their minimum.
+  Severity severity = Severity::kRecord;
 };
 
 // One JSON object, no trailing newline. Guaranteed fields (DESIGN.md): series,
 // detected_at, change_at, kind, direction, detectors; plus id, event, and the
-// magnitudes that apply to the kind.
+// magnitudes that apply to the kind, severity, and explained_by / suppressed_by.
 std::string AlertToJson(const Alert& alert);
 // One readable line: "2026-03-19T14:02:00Z  level ↑  coldstore/... change began ...".
 std::string AlertToText(const Alert& alert);

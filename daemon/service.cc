@@ -104,17 +104,19 @@ Status Service::Start() {
                                    deps_.file_system, deps_.observer);
     std::string failure;
     if (!log->Healthy(&failure)) return Status::IoError(failure);
-    dispatcher_->AddSink(std::move(log));
+    dispatcher_->AddSink(std::move(log), options.sinks.alert_log.min_severity);
   }
-  if (options.sinks.to_stdout)
-    dispatcher_->AddSink(std::make_unique<StdoutSink>(deps_.text_out));
+  if (options.sinks.to_stdout) {
+    dispatcher_->AddSink(std::make_unique<StdoutSink>(deps_.text_out),
+                         options.sinks.stdout_min_severity);
+  }
   if (options.sinks.webhook.enabled()) {
     auto webhook = std::make_unique<WebhookSink>(
         options.sinks.webhook,
         options.InStateDirectory(options.sinks.webhook.dead_letter), deps_.file_system,
         deps_.observer);
     webhook->Start();
-    dispatcher_->AddSink(std::move(webhook));
+    dispatcher_->AddSink(std::move(webhook), options.sinks.webhook.min_severity);
   }
   dispatcher_->Start();
 

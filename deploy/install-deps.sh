@@ -10,6 +10,8 @@ packages=(
   # deploy checks and the scrape test: promtool and a Prometheus server, and
   # systemd-analyze to verify the unit (so that check runs rather than skips)
   prometheus systemd
+  # fuzz targets (tests/fuzz): clang and its runtime (libFuzzer, ASan, UBSan)
+  clang libclang-rt-14-dev
   # HTTP load figures (tests/benchmarks/http/http_load.sh)
   wrk curl
   # reference checks: numpy/scipy/statsmodels oracles and R's data sets

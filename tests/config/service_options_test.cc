@@ -135,6 +135,27 @@ TEST(ServiceOptionsTest, WebhookUrlMustBePlainHttp) {
                  {"sinks.webhook: url must start with http://"});
 }
 
+TEST(ServiceOptionsTest, EachSinkTakesAMinimumSeverity) {
+  const Config plain = MustLoad("series:\n  - match: \"**\"\n");
+  EXPECT_EQ(plain.service.sinks.alert_log.min_severity, Severity::kRecord);
+  EXPECT_EQ(plain.service.sinks.webhook.min_severity, Severity::kRecord);
+  EXPECT_EQ(plain.service.sinks.stdout_min_severity, Severity::kRecord);
+  const Config config = MustLoad(
+      "series:\n  - match: \"**\"\nsinks:\n"
+      "  alert_log: {min_severity: notify}\n"
+      "  webhook: {url: \"http://127.0.0.1:9000/hook\", min_severity: page}\n"
+      "  stdout: {enabled: true, min_severity: notify}\n");
+  const SinkOptions& sinks = config.service.sinks;
+  EXPECT_EQ(sinks.alert_log.min_severity, Severity::kNotify);
+  EXPECT_EQ(sinks.webhook.min_severity, Severity::kPage);
+  EXPECT_TRUE(sinks.to_stdout);
+  EXPECT_EQ(sinks.stdout_min_severity, Severity::kNotify);
+  EXPECT_FALSE(MustLoad("series:\n  - match: \"**\"\nsinks:\n  stdout: false\n")
+                   .service.sinks.to_stdout);
+  ExpectOneError("sinks:\n  webhook:\n    min_severity: urgent\n", 3, 19,
+                 {"record | notify | page", "urgent"});
+}
+
 TEST(ServiceOptionsTest, BackoffMaxBelowBackoffIsRefusedAtBackoffMax) {
   ExpectOneError("sinks:\n  webhook:\n    backoff: 2s\n    backoff_max: 1s\n", 4, 18,
                  {"backoff_max must be at least backoff"});

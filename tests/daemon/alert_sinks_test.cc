@@ -345,5 +345,32 @@ TEST(AlertDispatcherTest, FansOutAlertsAndKeepsEventsForTheApiOnly) {
   EXPECT_EQ(dispatcher.Recent(0, 1)[0].id, "id5");  // the newest when limited
 }
 
+TEST(AlertDispatcherTest, EachSinkGetsOnlyAlertsAtOrAboveItsMinimumSeverity) {
+  const std::string dir = TempDir("routing");
+  AlertDispatcher dispatcher({}, nullptr);
+  dispatcher.AddSink(
+      std::make_unique<AlertLog>(dir + "/all.jsonl", FileSystem::Default(), nullptr));
+  dispatcher.AddSink(
+      std::make_unique<AlertLog>(dir + "/notify.jsonl", FileSystem::Default(), nullptr),
+      Severity::kNotify);
+  dispatcher.AddSink(
+      std::make_unique<AlertLog>(dir + "/page.jsonl", FileSystem::Default(), nullptr),
+      Severity::kPage);
+  dispatcher.Start();
+  std::vector<Alert> batch = {MakeAlert(1), MakeAlert(2), MakeAlert(3)};
+  batch[0].severity = Severity::kRecord;
+  batch[1].severity = Severity::kNotify;
+  batch[2].severity = Severity::kPage;
+  dispatcher.Publish(0, &batch);
+  dispatcher.Stop(std::chrono::steady_clock::now() + std::chrono::seconds(5));
+  EXPECT_EQ(Lines(dir + "/all.jsonl").size(), 3u);
+  EXPECT_EQ(Lines(dir + "/notify.jsonl").size(), 2u);
+  const auto paged = Lines(dir + "/page.jsonl");
+  ASSERT_EQ(paged.size(), 1u);
+  EXPECT_NE(paged[0].find("\"id\":\"id3\""), std::string::npos) << paged[0];
+  EXPECT_NE(paged[0].find("\"severity\":\"page\""), std::string::npos) << paged[0];
+  EXPECT_EQ(dispatcher.Recent(0, 100).size(), 3u);  // the API keeps every alert
+}
+
 }  // namespace
 }  // namespace plumbline

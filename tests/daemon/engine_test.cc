@@ -291,6 +291,7 @@ JsonObject ParseAlertLine(const std::string& line, const Alert& alert) {
                 std::string(name) == "detected_at" ? alert.detected_at : alert.change_at);
     }
   }
+  EXPECT_EQ(string_field("severity"), ToString(alert.severity));
   auto it = object->find("detectors");
   if (it == object->end() || !std::holds_alternative<JsonArray>(it->second.value)) {
     ADD_FAILURE() << "missing detectors array: " << line;
@@ -577,7 +578,8 @@ TEST(EngineAlertTest, AlertToJsonMatchesTheExpectedLineAndEscapesControlCharacte
       "\xc3\xa9"
       R"(","kind":"level","direction":"up","detected_at":"2026-03-01T12:00:00Z",)"
       R"("change_at":"2026-03-01T11:00:00.250Z","detectors":["cusum","page-hinkley"],)"
-      R"("magnitude":1.5,"magnitude_sd":3,"before":20,"after":21.5,"advisory":true})";
+      R"("magnitude":1.5,"magnitude_sd":3,"before":20,"after":21.5,"severity":"record",)"
+      R"("advisory":true})";
   EXPECT_EQ(AlertToJson(a), expected);
   ParseAlertLine(AlertToJson(a), a);  // the name reads back
   // Every control character 0x00-0x1f is escaped, so the line stays one valid line.

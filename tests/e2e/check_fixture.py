@@ -57,6 +57,8 @@ SCHEMA = "plumbline.replay-fixture/1"
 ALERT_KINDS = ("level", "variance", "rate", "silence")
 DIRECTIONS = ("up", "down", "none")
 EVENT_TYPES = ("alert", "resume", "retrain", "meter-reset")
+# The alert's urgency, least to most (detectors/severity.h).
+SEVERITIES = ("record", "notify", "page")
 # Kinds that count for `first` (README: silence alerts are not counted).
 FIRST_KINDS = ("level", "variance", "rate")
 # Optional numeric fields written for some kinds (daemon/engine.cc).
@@ -302,6 +304,10 @@ def check_alert(obj, where, series_names):
         bad("detectors missing or not a list of non-empty strings")
     elif not detectors:
         bad("detectors is empty (it names the detectors that fired)")
+    if obj.get("severity") not in SEVERITIES:
+        bad(f"severity {obj.get('severity')!r} is not one of {'|'.join(SEVERITIES)}")
+    elif "explained_by" in obj and obj["severity"] != "record":
+        bad(f"an explained alert has severity {obj['severity']!r}, expected 'record'")
     for key in MAGNITUDE_FIELDS:
         if key in obj:
             value = obj[key]

@@ -38,7 +38,8 @@ Outcome Parse(std::string_view input, const std::vector<std::size_t>& cuts,
                             std::string(reading.series) + " " +
                             std::to_string(reading.value));
       },
-      [&out](std::uint64_t line, plumbline::ReadingError reason, std::string_view detail) {
+      [&out](std::uint64_t line, plumbline::ReadingError reason,
+             std::string_view detail) {
         Require(detail.size() <= 200);
         out.lines.push_back("E " + std::to_string(line) + " " +
                             std::string(plumbline::ToString(reason)));

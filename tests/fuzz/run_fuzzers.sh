@@ -23,7 +23,7 @@ while (($#)); do
     *) targets+=("$1"); shift ;;
   esac
 done
-((${#targets[@]})) || targets=(reading_parser_fuzzer config_loader_fuzzer)
+((${#targets[@]})) || targets=(reading_parser_fuzzer config_loader_fuzzer snapshot_decoder_fuzzer)
 
 launcher=()
 command -v ccache >/dev/null && launcher=(-DCMAKE_CXX_COMPILER_LAUNCHER=ccache)
