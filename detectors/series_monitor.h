@@ -198,6 +198,8 @@ class SeriesMonitor {
     return forecaster_ ? &*forecaster_ : nullptr;
   }
   const ResidualScale& scale() const { return scale_; }
+  // The phase profile; null until the forecaster starts (forecasts, prediction.h).
+  const ResidualProfile* residual_profile() const { return profile_ ? &*profile_ : nullptr; }
   const ArrivalModel& arrivals() const { return arrival_; }
   long long observations() const { return observations_; }
   bool armed() const { return observations_ > design_->profile.warmup; }
