@@ -128,8 +128,23 @@ bool SinkOptions::IsValid(std::string* why) const {
   return alert_log.IsValid(why) && webhook.IsValid(why);
 }
 
+bool AccessOptions::IsValid(std::string* why) const {
+  if (!token_file.empty() && !token_env.empty()) {
+    return Fail(why, "token_file and token_env cannot both be set");
+  }
+  return true;
+}
+
 bool ServiceOptions::IsValid(std::string* why) const {
   if (!tcp.IsValid(why) || !http.IsValid(why) || !sinks.IsValid(why)) return false;
+  if (!access.IsValid(why)) return false;
+  if (max_time_ahead < kMicrosPerSecond || max_time_ahead > 366 * kMicrosPerDay) {
+    return Fail(why, "max_time_ahead must be in [1s, 366d]");
+  }
+  if (ingest_memory_bytes < (std::size_t{1} << 20) ||
+      ingest_memory_bytes > (std::size_t{1} << 40)) {
+    return Fail(why, "ingest_memory_bytes must be in [1048576, 1099511627776]");
+  }
   if (shards < 0 || shards > 256)
     return Fail(why, "shards must be in [0, 256] (0: one per core)");
   if (queue_batches < 1 || queue_batches > 65536) {

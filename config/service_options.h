@@ -32,6 +32,10 @@
 //   metrics:
 //     series_limit: 100            # per-series detector gauges for at most this many
 //   shutdown_timeout: 10s
+//   max_time_ahead: 1d             # readings later than the clock plus this are refused
+//   ingest_memory_bytes: 67108864  # readings in flight to the shards; beyond, inputs wait
+//   access:                        # bearer token for HTTP and TCP ingest (off if unset)
+//     token_file: /etc/plumbline/token   # or token_env: PLUMBLINE_TOKEN
 //
 // Relative paths are relative to the daemon's working directory, except the
 // sink files (`alert_log.path`, `webhook.dead_letter`), which are relative to
@@ -135,6 +139,18 @@ struct SinkOptions {
   bool IsValid(std::string* why) const;
 };
 
+// Who may talk to the daemon: with a token set, every HTTP request but
+// /healthz needs `Authorization: Bearer <token>` (else 401), and every TCP
+// connection must send `token <token>` as its first line (else it is closed).
+struct AccessOptions {
+  std::string token_file;  // a file whose first line is the token
+  std::string token_env;   // or the environment variable holding it
+
+  bool enabled() const { return !token_file.empty() || !token_env.empty(); }
+  // Rules: not both token_file and token_env.
+  bool IsValid(std::string* why) const;
+};
+
 struct ServiceOptions {
   TcpListenerOptions tcp;
   HttpListenerOptions http;
@@ -146,6 +162,15 @@ struct ServiceOptions {
   SinkOptions sinks;
   int metrics_series_limit = 100;  // key metrics.series_limit
   EventTime shutdown_timeout = 10 * kMicrosPerSecond;
+  // TCP and HTTP readings stamped more than this after the wall clock are
+  // refused (time_in_future): one would make every later reading of its
+  // series look late.
+  EventTime max_time_ahead = kMicrosPerDay;
+  // Bytes of readings in flight between the inputs and the shards (queued
+  // batches, HTTP bodies being ingested). At the bound, TCP and file reads
+  // pause and HTTP ingest answers 503 with Retry-After.
+  std::size_t ingest_memory_bytes = 64u << 20;
+  AccessOptions access;
 
   // Rules: each part valid; shards in [0, 256]; queue_batches in [1, 65536];
   // max_series >= 1; state_directory non-empty; metrics_series_limit in

@@ -34,6 +34,15 @@ class SteadyClock : public Clock {
   }
 };
 
+// The wall clock (std::chrono::system_clock) as event time. Only for judging
+// readings' own stamps against the present (a reading far in the future);
+// elapsed time is measured on a Clock.
+inline EventTime WallClockNow() {
+  return std::chrono::duration_cast<std::chrono::microseconds>(
+             std::chrono::system_clock::now().time_since_epoch())
+      .count();
+}
+
 // A clock that moves only when told. For tests.
 class ManualClock : public Clock {
  public:

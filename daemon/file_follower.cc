@@ -92,7 +92,7 @@ void FileFollower::Start() {
         "cannot read follow position; reading the file from its start",
         {{"input", "file"}, {"path", options_.path}, {"error", text.status().message()}});
   }
-  router_ = std::make_unique<ShardRouter>(shards_);
+  router_ = std::make_unique<ShardRouter>(shards_, nullptr, nullptr, "file");
   NewParser();
   thread_ = std::thread([this] { Run(); });
 }

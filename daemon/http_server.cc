@@ -19,6 +19,7 @@
 #include <unordered_map>
 #include <vector>
 
+#include "daemon/access.h"
 #include "plumbline_version.h"
 
 namespace plumbline {
@@ -214,6 +215,10 @@ class Session : public std::enable_shared_from_this<Session> {
     if (ec) return OnReadError(ec);
     phase_ = Phase::kReading;
     const auto& request = parser_->get();
+    if (!state_->options.token.empty() && Std(request.target()) != "/healthz" &&
+        !BearerMatches(Std(request[http::field::authorization]), state_->options.token)) {
+      return RespondError(401, "missing or wrong bearer token");
+    }
     if (beast::iequals(request[http::field::expect], "100-continue") && !parser_->is_done()) {
       // The client waits for our go-ahead before sending the body.
       continue_.emplace(http::status::continue_, request.version());
@@ -253,6 +258,9 @@ class Session : public std::enable_shared_from_this<Session> {
     }
     if (!IsExpectedEnd(ec) && ec != http::error::partial_message) {
       state_->Log(HttpLogLevel::kWarning, "http: read failed: " + ec.message());
+    }
+    if (ec == beast::error::timeout && state_->metrics != nullptr) {
+      state_->metrics->CountConnectionDropped("http", "read_timeout");
     }
     Close();
   }
@@ -322,6 +330,7 @@ class Session : public std::enable_shared_from_this<Session> {
     response_.set(http::field::content_type, answer.content_type);
     if (!answer.allow.empty()) response_.set(http::field::allow, answer.allow);
     if (answer.status == 503) response_.set(http::field::retry_after, "5");
+    if (answer.status == 401) response_.set(http::field::www_authenticate, "Bearer");
     response_.keep_alive(!close && keep_alive_ && !shutting_down_ && !state_->stopping);
     const std::size_t length = answer.body.size();
     response_.body() = std::move(answer.body);

@@ -4,7 +4,9 @@
 // One session per connection, kept alive by shared_from_this in its pending
 // handlers, on its own strand, with keep-alive. Every socket has a read
 // deadline (a whole request, or the idle wait between requests) and a write
-// deadline; request headers and bodies have size limits (431 and 413). At most
+// deadline (a client too slow to send its request in time is counted in
+// plumbline_connections_dropped_total{input="http",reason="read_timeout"});
+// request headers and bodies have size limits (431 and 413). At most
 // max_connections are open: at the limit the server stops accepting and
 // resumes when one closes (waiting clients queue in the kernel's backlog).
 // Routes run on small pools of handler threads, never on the I/O threads,
@@ -57,6 +59,10 @@ struct HttpServerOptions {
   std::size_t ingest_threads = 2;
   std::size_t query_threads = 2;
   HttpApiOptions api{};
+  // Non-empty: every request but GET /healthz must carry `Authorization:
+  // Bearer <token>` (access.h); others are answered 401 as soon as their
+  // header is read, before any body. Never logged.
+  std::string token;
 
   // Rules: max_body_bytes in [1024, 1 GiB]; max_header_bytes in [1024, 1 MiB];
   // timeouts positive; max_connections in [1, 100000]; ingest_threads and

@@ -174,6 +174,27 @@ ServiceMetrics::ServiceMetrics(ServiceMetricsOptions options)
                            .Help("Open HTTP connections.")
                            .Register(r)
                            .Add({});
+  connections_dropped_family_ =
+      &prometheus::BuildCounter()
+           .Name("plumbline_connections_dropped_total")
+           .Help("Connections closed or refused by the daemon, by input and reason.")
+           .Register(r);
+  ingest_memory_ = &prometheus::BuildGauge()
+                        .Name("plumbline_ingest_memory_bytes")
+                        .Help("Bytes of readings and HTTP bodies between the inputs and the "
+                              "shards.")
+                        .Register(r)
+                        .Add({});
+  ingest_memory_budget_ = &prometheus::BuildGauge()
+                               .Name("plumbline_ingest_memory_budget_bytes")
+                               .Help("Bound on plumbline_ingest_memory_bytes (ingest_memory).")
+                               .Register(r)
+                               .Add({});
+  overloaded_family_ = &prometheus::BuildCounter()
+                            .Name("plumbline_ingest_overloaded_total")
+                            .Help("Times an input met a full ingest memory budget: TCP and "
+                                  "file reads paused, HTTP answered 503.")
+                            .Register(r);
   ready_ = &prometheus::BuildGauge()
                 .Name("plumbline_ready")
                 .Help("1 when the service is ready (GET /readyz answers 200), else 0.")
@@ -276,6 +297,24 @@ std::vector<std::pair<std::string, SeriesGauges*>> ServiceMetrics::AdmittedSerie
 void ServiceMetrics::CountHttpRequest(std::string_view route, unsigned status) {
   http_requests_family_->Add({{"route", std::string(route)}, {"code", std::to_string(status)}})
       .Increment();
+}
+
+void ServiceMetrics::CountConnectionDropped(std::string_view input, std::string_view reason) {
+  connections_dropped_family_
+      ->Add({{"input", std::string(input)}, {"reason", std::string(reason)}})
+      .Increment();
+}
+
+void ServiceMetrics::SetIngestMemory(std::size_t bytes) {
+  ingest_memory_->Set(static_cast<double>(bytes));
+}
+
+void ServiceMetrics::SetIngestMemoryBudget(std::size_t bytes) {
+  ingest_memory_budget_->Set(static_cast<double>(bytes));
+}
+
+void ServiceMetrics::CountOverloaded(std::string_view input) {
+  overloaded_family_->Add({{"input", std::string(input)}}).Increment();
 }
 
 void ServiceMetrics::SetHttpConnections(std::size_t open) {

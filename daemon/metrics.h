@@ -33,6 +33,15 @@
 //   plumbline_ready                                 1 when /readyz answers 200, else 0
 //   plumbline_http_requests_total{route,code}       HTTP API requests by route and status
 //   plumbline_http_connections                      open HTTP connections
+//   plumbline_connections_dropped_total{input,reason}  connections the daemon closed or
+//                                                   refused: idle_timeout, read_timeout,
+//                                                   too_many_connections, unauthorized,
+//                                                   tls_handshake
+//   plumbline_ingest_memory_bytes                   readings (and HTTP bodies) in flight
+//                                                   between the inputs and the shards
+//   plumbline_ingest_memory_budget_bytes            its bound (config: ingest_memory)
+//   plumbline_ingest_overloaded_total{input}        times an input met a full budget: tcp
+//                                                   and file reads paused, HTTP answered 503
 //   plumbline_build_info{version}                   always 1
 #pragma once
 
@@ -151,6 +160,13 @@ class ServiceMetrics {
   // pointers stay valid as long as this object).
   std::vector<std::pair<std::string, SeriesGauges*>> AdmittedSeries() const;
 
+  // ---- connections and overload ----
+  // `input` is tcp or http; `reason` one of the small fixed set above.
+  void CountConnectionDropped(std::string_view input, std::string_view reason);
+  void SetIngestMemory(std::size_t bytes);
+  void SetIngestMemoryBudget(std::size_t bytes);
+  void CountOverloaded(std::string_view input);
+
   // ---- HTTP ----
   void CountHttpRequest(std::string_view route, unsigned status);
   void SetHttpConnections(std::size_t open);
@@ -188,6 +204,10 @@ class ServiceMetrics {
   prometheus::Counter* detector_series_refused_;
   prometheus::Family<prometheus::Counter>* http_requests_family_;
   prometheus::Gauge* http_connections_;
+  prometheus::Family<prometheus::Counter>* connections_dropped_family_;
+  prometheus::Gauge* ingest_memory_;
+  prometheus::Gauge* ingest_memory_budget_;
+  prometheus::Family<prometheus::Counter>* overloaded_family_;
   prometheus::Gauge* ready_;
 
   mutable std::mutex series_mutex_;  // guards admitted_

@@ -34,6 +34,13 @@ class PipelineObserver {
   // A failed write or delivery by sink name (alert_log, webhook, dead_letter, stdout).
   virtual void OnSinkFailure(std::string_view /*sink*/) {}
   virtual void OnReady(bool /*ready*/) {}
+  // A connection closed or refused by the daemon: `input` tcp or http,
+  // `reason` idle_timeout, too_many_connections, unauthorized, tls_handshake...
+  virtual void OnConnectionDropped(std::string_view /*input*/, std::string_view /*reason*/) {}
+  // Bytes held by the ingest memory budget now, and its bound.
+  virtual void OnIngestMemory(std::size_t /*bytes*/, std::size_t /*budget*/) {}
+  // An input met a full budget (tcp and file paused; http answered 503).
+  virtual void OnOverloaded(std::string_view /*input*/) {}
 };
 
 }  // namespace plumbline

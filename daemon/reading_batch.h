@@ -16,6 +16,7 @@
 #include <string_view>
 #include <vector>
 
+#include "daemon/ingest_budget.h"
 #include "daemon/reading_parser.h"
 
 namespace plumbline {
@@ -103,6 +104,7 @@ struct ReadingBatch {
   std::string names;  // the series names, back to back
   std::vector<Entry> entries;
   std::shared_ptr<IngestTicket> ticket;               // null: nobody waits for verdicts
+  std::shared_ptr<IngestLease> lease;  // its bytes of the ingest budget (null: none)
   std::chrono::steady_clock::time_point handed_at{};  // set when pushed, for latency
 
   void Add(const Reading& reading, std::uint64_t line) {
@@ -115,6 +117,10 @@ struct ReadingBatch {
     return std::string_view(names).substr(entry.name_begin, entry.name_size);
   }
   bool full() const { return entries.size() >= kMaxBatchReadings; }
+  // What the batch holds in memory, for the ingest budget.
+  std::size_t MemoryBytes() const {
+    return sizeof(ReadingBatch) + names.capacity() + entries.capacity() * sizeof(Entry);
+  }
   bool empty() const { return entries.empty(); }
   std::size_t size() const { return entries.size(); }
 };

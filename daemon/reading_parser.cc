@@ -400,6 +400,8 @@ std::string_view ToString(ReadingError reason) {
       return "series_name_too_long";
     case ReadingError::kLineTooLong:
       return "line_too_long";
+    case ReadingError::kTimeInFuture:
+      return "time_in_future";
   }
   return "unknown";
 }
@@ -772,6 +774,12 @@ void ReadingParser::Deliver(EventTime time, std::string_view series,
   }
   if (const char* why = CheckUtf8WithoutControls(series); why != nullptr) {
     Report(ReadingError::kBadSeriesName, std::string(why) + " in series name", series);
+    return;
+  }
+  if (time > latest_time_) {
+    std::string text;
+    AppendRfc3339(time, &text);
+    Report(ReadingError::kTimeInFuture, "time " + text + " is too far ahead of the clock");
     return;
   }
   double value = 0.0;

@@ -51,6 +51,7 @@
 #include <cstddef>
 #include <cstdint>
 #include <functional>
+#include <limits>
 #include <optional>
 #include <string>
 #include <string_view>
@@ -82,12 +83,14 @@ enum class ReadingError {
   kBadSeriesName,      // empty, invalid UTF-8, or a control character
   kSeriesNameTooLong,  // more than kMaxSeriesNameBytes bytes
   kLineTooLong,        // longer than ReadingParserOptions::max_line_bytes
+  kTimeInFuture,       // later than the parser's latest_time (set_latest_time)
 };
-inline constexpr std::size_t kReadingErrorCount = 11;
+inline constexpr std::size_t kReadingErrorCount = 12;
 
 // "malformed", "wrong_field_count", "missing_field", "duplicate_field",
 // "bad_time", "time_out_of_range", "bad_value", "non_finite_value",
-// "bad_series_name", "series_name_too_long", "line_too_long"; and back
+// "bad_series_name", "series_name_too_long", "line_too_long",
+// "time_in_future"; and back
 // (nullopt for unknown text).
 std::string_view ToString(ReadingError reason);
 std::optional<ReadingError> ReadingErrorFromString(std::string_view text);
@@ -148,6 +151,12 @@ class ReadingParser {
   // (counters keep accumulating).
   void Finish();
 
+  // Readings stamped later than `latest` are refused from now on
+  // (kTimeInFuture): a reading far ahead of the clock would otherwise make
+  // every later reading of its series look late. Inputs of `serve` set it to
+  // the wall clock plus the allowed lead before each Feed. Default: no limit.
+  void set_latest_time(EventTime latest) { latest_time_ = latest; }
+
   // Lines ended so far in the current stream.
   std::uint64_t line_number() const { return line_number_; }
   // Bytes of an unterminated line held since the last Feed (0 while skipping
@@ -175,6 +184,7 @@ class ReadingParser {
   Reporter reporter_;
   ReadingParserCounters counters_;
   std::uint64_t line_number_ = 0;
+  EventTime latest_time_ = std::numeric_limits<EventTime>::max();  // later: refused
   std::string pending_;    // an unterminated line carried between Feed calls
   bool skipping_ = false;  // discarding the rest of an over-long line
   std::string unescaped_;  // a series name after CSV unquoting / JSON unescaping

@@ -82,6 +82,14 @@ class MetricsObserver : public PipelineObserver {
   }
   void OnSinkFailure(std::string_view sink) override { metrics_->CountSinkFailure(sink); }
   void OnReady(bool ready) override { metrics_->SetReady(ready); }
+  void OnConnectionDropped(std::string_view input, std::string_view reason) override {
+    metrics_->CountConnectionDropped(input, reason);
+  }
+  void OnIngestMemory(std::size_t bytes, std::size_t budget) override {
+    metrics_->SetIngestMemory(bytes);
+    metrics_->SetIngestMemoryBudget(budget);
+  }
+  void OnOverloaded(std::string_view input) override { metrics_->CountOverloaded(input); }
 
  private:
   ServiceMetrics* metrics_;
@@ -239,6 +247,7 @@ int RunServe(const Args& args) {
     }
     HttpServerOptions http_options;
     http_options.max_body_bytes = options.http.max_body_bytes;
+    http_options.token = service.access_token();
     http.emplace(http_io,
                  boost::asio::ip::tcp::endpoint(
                      address, static_cast<unsigned short>(options.http.port)),

@@ -324,8 +324,13 @@ void ShardSet::CloseAndJoin(
   for (auto& shard : shards_) shard->Join();
 }
 
-ShardRouter::ShardRouter(ShardSet* shards, std::shared_ptr<IngestTicket> ticket)
-    : shards_(shards), ticket_(std::move(ticket)), batches_(shards->size()) {}
+ShardRouter::ShardRouter(ShardSet* shards, std::shared_ptr<IngestTicket> ticket,
+                         std::shared_ptr<IngestLease> prepaid, std::string_view input)
+    : shards_(shards),
+      ticket_(std::move(ticket)),
+      prepaid_(std::move(prepaid)),
+      input_(input),
+      batches_(shards->size()) {}
 
 ShardRouter::~ShardRouter() { Flush(); }
 
@@ -356,6 +361,13 @@ bool ShardRouter::PushBatch(std::size_t shard) {
   if (ticket_) {
     batch.ticket = ticket_;
     ticket_->AddBatch();
+  }
+  if (prepaid_) {
+    batch.lease = prepaid_;
+  } else if (IngestBudget* budget = shards_->budget()) {
+    const std::size_t bytes = batch.MemoryBytes();
+    budget->Acquire(bytes, input_);  // reads pause here while the budget is full
+    batch.lease = std::make_shared<IngestLease>(budget, bytes);
   }
   if (!shards_->shard(shard).Push(&batch)) {
     closed_ = true;

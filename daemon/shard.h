@@ -46,6 +46,7 @@
 #include "config/config.h"
 #include "daemon/clock.h"
 #include "daemon/engine.h"
+#include "daemon/ingest_budget.h"
 #include "daemon/pipeline_observer.h"
 #include "daemon/reading_batch.h"
 
@@ -249,8 +250,14 @@ class ShardSet {
   void CloseAndJoin(
       std::optional<std::chrono::steady_clock::time_point> deadline = std::nullopt);
 
+  // The ingest memory budget that routers take batch bytes from (null: none).
+  // Set before any input starts; it must outlive the routers' batches.
+  void set_budget(IngestBudget* budget) { budget_ = budget; }
+  IngestBudget* budget() const { return budget_; }
+
  private:
   std::vector<std::unique_ptr<Shard>> shards_;
+  IngestBudget* budget_ = nullptr;
 };
 
 // Batches one producer's readings per shard and pushes full batches (blocking
@@ -258,7 +265,13 @@ class ShardSet {
 class ShardRouter {
  public:
   // `ticket` (may be null) is attached to every batch and told of each one.
-  explicit ShardRouter(ShardSet* shards, std::shared_ptr<IngestTicket> ticket = nullptr);
+  // Each batch takes its bytes from the shards' budget before it is pushed
+  // (waiting while the budget is full; `input` names the waiter in the
+  // overload counter), unless `prepaid` holds them already: then every batch
+  // carries that lease instead.
+  explicit ShardRouter(ShardSet* shards, std::shared_ptr<IngestTicket> ticket = nullptr,
+                       std::shared_ptr<IngestLease> prepaid = nullptr,
+                       std::string_view input = "tcp");
   ~ShardRouter();  // flushes
 
   // Adds one reading; pushes its shard's batch when full. False once the
@@ -273,6 +286,8 @@ class ShardRouter {
 
   ShardSet* shards_;
   std::shared_ptr<IngestTicket> ticket_;
+  std::shared_ptr<IngestLease> prepaid_;
+  std::string_view input_;
   std::vector<ReadingBatch> batches_;  // index: shard
   std::uint64_t routed_ = 0;
   bool closed_ = false;

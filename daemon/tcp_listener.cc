@@ -6,6 +6,8 @@
 #include <chrono>
 #include <unordered_map>
 
+#include "daemon/access.h"
+#include "daemon/clock.h"
 #include "daemon/log.h"
 
 namespace plumbline {
@@ -16,6 +18,8 @@ using tcp = asio::ip::tcp;
 using SteadyTime = std::chrono::steady_clock::time_point;
 
 constexpr std::size_t kReadBytes = 64 * 1024;  // one read; also what a session pins
+// Longest token line accepted before the connection is refused as unauthorized.
+constexpr std::size_t kMaxTokenLineBytes = 1024;
 
 std::string Describe(const tcp::endpoint& endpoint) {
   const auto address = endpoint.address();
@@ -34,9 +38,10 @@ class Session;
 
 struct TcpListener::State : std::enable_shared_from_this<TcpListener::State> {
   State(asio::io_context& io_context, TcpListenerOptions o, ShardSet* s,
-        PipelineObserver* ob)
+        PipelineObserver* ob, TcpIngestRules r)
       : io(io_context),
         options(std::move(o)),
+        rules(std::move(r)),
         shards(s),
         observer(ob),
         acceptor(io_context) {}
@@ -47,6 +52,7 @@ struct TcpListener::State : std::enable_shared_from_this<TcpListener::State> {
 
   asio::io_context& io;
   const TcpListenerOptions options;
+  const TcpIngestRules rules;
   ShardSet* const shards;
   PipelineObserver* const observer;
   tcp::acceptor acceptor;
@@ -69,6 +75,7 @@ class Session : public std::enable_shared_from_this<Session> {
         timer_(state_->io),
         peer_(std::move(peer)),
         router_(state_->shards),
+        authenticated_(state_->rules.token.empty()),
         parser_(
             ReadingParserOptions{state_->options.max_line_bytes},
             [this](const Reading& reading) {
@@ -127,8 +134,15 @@ class Session : public std::enable_shared_from_this<Session> {
     if (closed_) return;
     if (bytes > 0) {
       last_activity_ = std::chrono::steady_clock::now();
-      parser_.Feed(std::string_view(buffer_.data(), bytes));
+      std::string_view data(buffer_.data(), bytes);
+      if (!authenticated_ && !Authenticate(&data, error)) return;
+      if (state_->rules.max_time_ahead > 0) {
+        parser_.set_latest_time(WallClockNow() + state_->rules.max_time_ahead);
+      }
+      parser_.Feed(data);
       router_.Flush();
+      // Time spent waiting for the shards (backpressure) is not the peer's idling.
+      last_activity_ = std::chrono::steady_clock::now();
     }
     if (error) {
       if (error == asio::error::eof) {
@@ -148,6 +162,43 @@ class Session : public std::enable_shared_from_this<Session> {
     DoRead();
   }
 
+  // Gathers the token line; once it is complete and right, leaves in *data
+  // what follows it and returns true. Otherwise false: the connection was
+  // closed (wrong token, no line end in time, end of stream), or the line is
+  // still incomplete and the next read was started.
+  bool Authenticate(std::string_view* data, const boost::system::error_code& error) {
+    const std::size_t end = data->find('\n');
+    token_line_.append(data->substr(0, end));
+    if (end == std::string_view::npos) {
+      if (token_line_.size() > kMaxTokenLineBytes || error) {
+        Refuse("no token line");
+      } else {
+        DoRead();
+      }
+      return false;
+    }
+    data->remove_prefix(end + 1);
+    std::string_view line = token_line_;
+    if (!line.empty() && line.back() == '\r') line.remove_suffix(1);
+    const bool prefixed = line.substr(0, kTcpTokenPrefix.size()) == kTcpTokenPrefix;
+    if (!prefixed || !TokenMatches(line.substr(kTcpTokenPrefix.size()), state_->rules.token)) {
+      Refuse(prefixed ? "wrong token" : "first line is not a token line");
+      return false;
+    }
+    authenticated_ = true;
+    token_line_.clear();
+    token_line_.shrink_to_fit();
+    return true;
+  }
+
+  // Closes an unauthenticated connection (the token itself is never logged).
+  void Refuse(std::string_view why) {
+    if (state_->observer) state_->observer->OnConnectionDropped("tcp", "unauthorized");
+    LogWarning("connection refused: unauthorized",
+               {{"input", "tcp"}, {"peer", peer_}, {"why", why}});
+    Close("unauthorized");
+  }
+
   void DoWaitIdle(std::chrono::steady_clock::duration wait) {
     timer_.expires_after(wait);
     timer_.async_wait(
@@ -165,6 +216,7 @@ class Session : public std::enable_shared_from_this<Session> {
               {{"input", "tcp"},
                {"peer", peer_},
                {"idle_seconds", std::chrono::duration<double>(idle).count()}});
+      if (state_->observer) state_->observer->OnConnectionDropped("tcp", "idle_timeout");
       Close("idle timeout");
       return;
     }
@@ -180,6 +232,8 @@ class Session : public std::enable_shared_from_this<Session> {
   std::array<char, kReadBytes> buffer_;
   SteadyTime last_activity_;
   std::uint64_t rejected_ = 0;
+  bool authenticated_;      // no token is asked for, or it was given
+  std::string token_line_;  // the first line while it arrives (with a token only)
   bool shards_closed_ = false;
   bool closed_ = false;
 };
@@ -214,6 +268,7 @@ void TcpListener::State::OnAccept(const boost::system::error_code& error,
                   {"max_connections", options.max_connections},
                   {"refused_so_far", refused_over_limit}});
     }
+    if (observer) observer->OnConnectionDropped("tcp", "too_many_connections");
     boost::system::error_code ignored;
     socket.close(ignored);
     DoAccept();
@@ -239,8 +294,9 @@ void TcpListener::State::CloseAll() {
 }
 
 TcpListener::TcpListener(asio::io_context& io, TcpListenerOptions options,
-                         ShardSet* shards, PipelineObserver* observer)
-    : state_(std::make_shared<State>(io, std::move(options), shards, observer)) {}
+                         ShardSet* shards, PipelineObserver* observer, TcpIngestRules rules)
+    : state_(std::make_shared<State>(io, std::move(options), shards, observer,
+                                     std::move(rules))) {}
 
 TcpListener::~TcpListener() = default;
 

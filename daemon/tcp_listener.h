@@ -5,7 +5,13 @@
 // - A line longer than max_line_bytes is refused (counted and logged), never
 //   the connection; so is any other bad line. Each connection logs its first
 //   kLoggedRejections bad lines with their line numbers, then only counts.
-// - A connection that sends nothing for idle_timeout is closed.
+// - A connection that sends nothing for idle_timeout is closed. A slow sender
+//   costs its own connection only (reads are asynchronous): at most one
+//   unfinished line of max_line_bytes and one read buffer.
+// - Readings stamped more than rules.max_time_ahead after the wall clock are
+//   refused (time_in_future).
+// - With rules.token set, the first line must be `token <token>` (access.h);
+//   otherwise the connection is closed before any reading is taken.
 // - At most max_connections are open; one more is accepted and closed at once,
 //   with a warning.
 // - Backpressure: when a shard's queue is full, the I/O thread waits in
@@ -25,6 +31,7 @@
 #include <cstddef>
 #include <cstdint>
 #include <memory>
+#include <string>
 #include <utility>  // before any Asio header (Boost 1.74 under C++20)
 
 #include "config/service_options.h"
@@ -34,13 +41,19 @@
 
 namespace plumbline {
 
+// What the service adds to the listener's own options.
+struct TcpIngestRules {
+  EventTime max_time_ahead = 0;  // 0: readings may be stamped any time ahead
+  std::string token;             // non-empty: connections must present it first
+};
+
 class TcpListener {
  public:
   static constexpr int kLoggedRejections = 5;  // bad lines logged per connection
 
   // `shards` and `observer` (may be null) must outlive the listener.
   TcpListener(boost::asio::io_context& io, TcpListenerOptions options, ShardSet* shards,
-              PipelineObserver* observer);
+              PipelineObserver* observer, TcpIngestRules rules = {});
   ~TcpListener();
 
   // Binds and listens on options.address:port, then accepts on the io_context.

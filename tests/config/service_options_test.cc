@@ -165,6 +165,28 @@ TEST(ServiceOptionsTest, ShardsOutOfRangeIsReportedAtTheKey) {
   ExpectOneError("series: []\nshards: 1000\n", 2, 9, {"shards must be in [0, 256]"});
 }
 
+TEST(ServiceOptionsTest, LimitsAndAccessMapOntoTheStructs) {
+  const Config config = MustLoad(
+      "series: []\nmax_time_ahead: 2h\ningest_memory_bytes: 8388608\n"
+      "access:\n  token_env: PLUMBLINE_TOKEN\n");
+  EXPECT_EQ(config.service.max_time_ahead, 2 * kMicrosPerHour);
+  EXPECT_EQ(config.service.ingest_memory_bytes, 8388608u);
+  EXPECT_EQ(config.service.access.token_env, "PLUMBLINE_TOKEN");
+  EXPECT_TRUE(config.service.access.enabled());
+  const Config defaults = MustLoad("series: []\n");
+  EXPECT_EQ(defaults.service.max_time_ahead, kMicrosPerDay);
+  EXPECT_EQ(defaults.service.ingest_memory_bytes, 64u << 20);
+  EXPECT_FALSE(defaults.service.access.enabled());
+}
+
+TEST(ServiceOptionsTest, LimitsAndAccessRulesAreReportedAtTheirKeys) {
+  ExpectOneError("series: []\ningest_memory_bytes: 1000\n", 2, 22,
+                 {"ingest_memory_bytes must be in [1048576"});
+  ExpectOneError("series: []\nmax_time_ahead: 400d\n", 2, 17, {"max_time_ahead must be in"});
+  ExpectOneError("access:\n  token_file: /etc/t\n  token_env: T\n", 2, 15,
+                 {"token_file and token_env cannot both be set"});
+}
+
 TEST(ServiceOptionsTest, AFileFollowedTwiceIsRefused) {
   ExpectOneError("inputs:\n  files: [a.csv, a.csv]\n", 2, 3,
                  {"path 'a.csv' is followed twice"});

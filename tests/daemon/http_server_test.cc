@@ -20,12 +20,16 @@
 #include <boost/asio/write.hpp>
 #include <boost/beast/core.hpp>
 #include <boost/beast/http.hpp>
+#include <cstdio>
+#include <cstdlib>
+#include <fstream>
 #include <future>
 #include <optional>
 #include <string>
 #include <thread>
 #include <vector>
 
+#include "daemon/access.h"
 #include "daemon/http_api.h"
 #include "daemon/metrics.h"
 #include "detectors/time_format.h"
@@ -46,6 +50,8 @@ struct Reply {
   std::string allow;
   std::string connection;
   std::string content_length;
+  std::string retry_after;
+  std::string www_authenticate;
   std::string body;
   bool keep_alive = false;
 };
@@ -57,6 +63,8 @@ Reply ToReply(http::response<http::string_body>& res) {
   reply.allow = std::string(res[http::field::allow]);
   reply.connection = std::string(res[http::field::connection]);
   reply.content_length = std::string(res[http::field::content_length]);
+  reply.retry_after = std::string(res[http::field::retry_after]);
+  reply.www_authenticate = std::string(res[http::field::www_authenticate]);
   reply.body = res.body();
   reply.keep_alive = res.keep_alive();
   return reply;
@@ -652,6 +660,84 @@ TEST_F(HttpServerTest, StartFailsWhenTheAddressIsTaken) {
   EXPECT_FALSE(status.ok());
   EXPECT_NE(status.message().find("bind"), std::string::npos) << status.message();
   second.Stop(std::chrono::milliseconds(0));
+}
+
+TEST_F(HttpServerTest, FullIngestBudgetIs503WithRetryAfterAndQueriesStillAnswer) {
+  StartServer();
+  view_->SetOverloaded(true);
+  const Reply refused = Post("/v1/readings", kReadings);
+  EXPECT_EQ(refused.status, 503u);
+  EXPECT_FALSE(refused.retry_after.empty());
+  EXPECT_NE(refused.body.find("overloaded"), std::string::npos) << refused.body;
+  EXPECT_EQ(Get("/v1/series").status, 200u);
+  view_->SetOverloaded(false);
+  EXPECT_EQ(Post("/v1/readings", kReadings).status, 200u);
+  EXPECT_NE(metrics_->Serialize().find(
+                "plumbline_http_requests_total{code=\"503\",route=\"readings\"} 1"),
+            std::string::npos);
+}
+
+TEST_F(HttpServerTest, WithATokenRequestsWithoutTheRightBearerAre401) {
+  HttpServerOptions options;
+  options.token = "harbourside-7f3a";
+  StartServer(options);
+  const Reply none = Get("/v1/series");
+  EXPECT_EQ(none.status, 401u);
+  EXPECT_EQ(none.www_authenticate, "Bearer");
+  EXPECT_EQ(none.body.find("harbourside-7f3a"), std::string::npos);
+  EXPECT_EQ(Client(port_)
+                .Send(http::verb::post, "/v1/readings", kReadings,
+                      {{http::field::authorization, "Bearer harbourside-7f3b"}})
+                .status,
+            401u);
+  EXPECT_EQ(Get("/metrics").status, 401u);
+  EXPECT_EQ(Get("/healthz").status, 200u);  // liveness asks nothing, needs nothing
+  const Reply good = Client(port_).Send(http::verb::post, "/v1/readings", kReadings,
+                                        {{http::field::authorization, "bearer harbourside-7f3a"}});
+  EXPECT_EQ(good.status, 200u);
+  EXPECT_EQ(Json(good.body)["accepted"].as<int>(), 4);
+}
+
+TEST(AccessTest, TokensCompareWholeAndBearerSchemeIsCaseInsensitive) {
+  EXPECT_TRUE(TokenMatches("s3cret", "s3cret"));
+  EXPECT_FALSE(TokenMatches("s3cre", "s3cret"));
+  EXPECT_FALSE(TokenMatches("s3cretx", "s3cret"));
+  EXPECT_FALSE(TokenMatches("t3cret", "s3cret"));
+  EXPECT_FALSE(TokenMatches("", ""));  // an empty expected token matches nothing
+  EXPECT_TRUE(BearerMatches("Bearer s3cret", "s3cret"));
+  EXPECT_TRUE(BearerMatches("BEARER  s3cret ", "s3cret"));
+  EXPECT_FALSE(BearerMatches("Basic s3cret", "s3cret"));
+  EXPECT_FALSE(BearerMatches("s3cret", "s3cret"));
+}
+
+TEST(AccessTest, TokenComesFromAFileOrTheEnvironmentAndIsNeverEchoed) {
+  const std::string path = ::testing::TempDir() + "/plumbline_token_test";
+  {
+    std::ofstream file(path);
+    file << "harbourside-7f3a\r\nsecond line ignored\n";
+  }
+  AccessOptions options;
+  options.token_file = path;
+  auto token = LoadAccessToken(options);
+  ASSERT_TRUE(token.ok()) << token.status().message();
+  EXPECT_EQ(*token, "harbourside-7f3a");
+  {
+    std::ofstream file(path);
+    file << "two words\n";
+  }
+  token = LoadAccessToken(options);
+  ASSERT_FALSE(token.ok());
+  EXPECT_EQ(token.status().message().find("two words"), std::string::npos);
+  options.token_file.clear();
+  options.token_env = "PLUMBLINE_TOKEN_TEST_VARIABLE";
+  ::setenv("PLUMBLINE_TOKEN_TEST_VARIABLE", "from-env", 1);
+  token = LoadAccessToken(options);
+  ASSERT_TRUE(token.ok());
+  EXPECT_EQ(*token, "from-env");
+  ::unsetenv("PLUMBLINE_TOKEN_TEST_VARIABLE");
+  EXPECT_FALSE(LoadAccessToken(options).ok());
+  EXPECT_EQ(*LoadAccessToken(AccessOptions{}), "");  // off
+  std::remove(path.c_str());
 }
 
 TEST(HttpServerOptionsTest, Rules) {

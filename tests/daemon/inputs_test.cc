@@ -66,10 +66,28 @@ class CountingObserver : public PipelineObserver {
     std::lock_guard<std::mutex> lock(mutex_);
     return refused_[reason];
   }
+  void OnConnectionDropped(std::string_view input, std::string_view reason) override {
+    std::lock_guard<std::mutex> lock(mutex_);
+    dropped_[std::string(input) + "/" + std::string(reason)] += 1;
+  }
+  std::uint64_t Dropped(const std::string& input_and_reason) {
+    std::lock_guard<std::mutex> lock(mutex_);
+    return dropped_[input_and_reason];
+  }
+  void OnOverloaded(std::string_view input) override {
+    std::lock_guard<std::mutex> lock(mutex_);
+    overloaded_[std::string(input)] += 1;
+  }
+  std::uint64_t Overloaded(const std::string& input) {
+    std::lock_guard<std::mutex> lock(mutex_);
+    return overloaded_[input];
+  }
 
  private:
   std::mutex mutex_;
   std::map<std::string, std::uint64_t> refused_;
+  std::map<std::string, std::uint64_t> dropped_;
+  std::map<std::string, std::uint64_t> overloaded_;
 };
 
 // Shards that accept any series; the test reads what reached them.
@@ -259,14 +277,53 @@ TEST(FileFollowerTest, WaitsForAFileThatDoesNotExistYet) {
   follower.Stop();
 }
 
+// ---- the ingest budget ----
+
+TEST(IngestBudgetTest, TryAcquireRefusesBeyondTheBoundAndCountsTheOverload) {
+  CountingObserver observer;
+  IngestBudget budget(1000, &observer);
+  EXPECT_TRUE(budget.TryAcquire(600, "http"));
+  EXPECT_FALSE(budget.TryAcquire(600, "http"));
+  EXPECT_EQ(observer.Overloaded("http"), 1u);
+  {
+    IngestLease lease(&budget, 400);  // what TryAcquire took is given back by a lease
+    EXPECT_TRUE(budget.TryAcquire(400, "http"));
+  }
+  EXPECT_EQ(budget.used(), 600u);
+  budget.Release(600);
+  EXPECT_EQ(budget.used(), 0u);
+  // A request larger than the whole budget takes all of it, and only then.
+  EXPECT_TRUE(budget.TryAcquire(5000, "http"));
+  EXPECT_EQ(budget.used(), 1000u);
+  budget.Release(5000);
+  EXPECT_EQ(budget.used(), 0u);
+}
+
+TEST(IngestBudgetTest, AcquireWaitsUntilBytesAreGivenBack) {
+  CountingObserver observer;
+  IngestBudget budget(100, &observer);
+  budget.Acquire(100, "tcp");
+  std::atomic<bool> taken{false};
+  std::thread waiter([&] {
+    budget.Acquire(50, "tcp");
+    taken = true;
+  });
+  ASSERT_TRUE(WaitFor([&] { return observer.Overloaded("tcp") == 1; }));
+  EXPECT_FALSE(taken.load());
+  budget.Release(100);
+  waiter.join();
+  EXPECT_TRUE(taken.load());
+  EXPECT_EQ(budget.used(), 50u);
+}
+
 // ---- TCP ----
 
 class TcpFixture : public testing::Test {
  protected:
-  void StartListener(TcpListenerOptions options) {
+  void StartListener(TcpListenerOptions options, TcpIngestRules rules = {}) {
     options.port = 0;
     listener_ = std::make_unique<TcpListener>(io_, options, pipeline_.shards(),
-                                              pipeline_.observer());
+                                              pipeline_.observer(), rules);
     ASSERT_TRUE(listener_->Start().ok());
     work_.emplace(asio::make_work_guard(io_));
     thread_ = std::thread([this] { io_.run(); });
@@ -363,6 +420,86 @@ TEST_F(TcpFixture, ConnectionsBeyondTheLimitAreClosedAtOnce) {
   EXPECT_TRUE(error == asio::error::eof || error == asio::error::connection_reset)
       << error.message();
   EXPECT_EQ(listener_->open_connections(), 2u);
+  EXPECT_EQ(pipeline_.observer()->Dropped("tcp/too_many_connections"), 1u);
+}
+
+// Reads until the server closes the connection; true when it did.
+bool ServerCloses(tcp::socket& socket) {
+  char byte;
+  boost::system::error_code error;
+  asio::read(socket, asio::buffer(&byte, 1), error);
+  return error == asio::error::eof || error == asio::error::connection_reset;
+}
+
+TEST_F(TcpFixture, IdleConnectionsAreCountedWhenClosed) {
+  TcpListenerOptions options;
+  options.idle_timeout = 50 * 1000;  // 50 ms
+  StartListener(options);
+  tcp::socket socket = Connect();
+  EXPECT_TRUE(ServerCloses(socket));
+  EXPECT_TRUE(WaitFor([&] { return pipeline_.observer()->Dropped("tcp/idle_timeout") == 1; }));
+}
+
+TEST_F(TcpFixture, ASlowSenderHoldingHalfALineDoesNotHoldUpAnotherConnection) {
+  StartListener({});
+  tcp::socket slow = Connect();
+  const std::string line = Lines("slow", 0, 1);
+  asio::write(slow, asio::buffer(line.substr(0, 10)));  // and then nothing for a while
+  tcp::socket fast = Connect();
+  asio::write(fast, asio::buffer(Lines("fast", 0, 50)));
+  ASSERT_TRUE(WaitFor([&] { return pipeline_.Processed() == 50; }));
+  asio::write(slow, asio::buffer(line.substr(10)));
+  ASSERT_TRUE(WaitFor([&] { return pipeline_.Processed() == 51; }));
+  EXPECT_EQ(pipeline_.Readings("slow"), 1);
+  EXPECT_EQ(listener_->open_connections(), 2u);
+}
+
+TEST_F(TcpFixture, ReadingsFarAheadOfTheClockAreRefusedAndTheSeriesKeepsWorking) {
+  StartListener({}, TcpIngestRules{.max_time_ahead = kMicrosPerDay});
+  tcp::socket socket = Connect();
+  // Lines() stamps 2026-03-01 onwards: in the past. Year 2100 is not.
+  const std::string text =
+      Lines("a", 0, 3) + "4102444800,a,1\n2100-01-01T00:00:00Z,b,1\n" + Lines("a", 3, 3);
+  asio::write(socket, asio::buffer(text));
+  ASSERT_TRUE(WaitFor([&] { return pipeline_.Processed() == 6; }));
+  EXPECT_EQ(pipeline_.observer()->Refused("time_in_future"), 2u);
+  EXPECT_EQ(pipeline_.Readings("a"), 6);
+}
+
+TEST_F(TcpFixture, WithATokenTheFirstLineMustPresentIt) {
+  StartListener({}, TcpIngestRules{.token = "harbourside-7f3a"});
+  tcp::socket good = Connect();
+  // The token line may arrive in pieces, and readings may follow in the same read.
+  asio::write(good, asio::buffer(std::string("tok")));
+  asio::write(good, asio::buffer("en harbourside-7f3a\r\n" + Lines("a", 0, 4)));
+  ASSERT_TRUE(WaitFor([&] { return pipeline_.Processed() == 4; }));
+
+  tcp::socket wrong = Connect();
+  asio::write(wrong, asio::buffer("token harbourside-7f3b\n" + Lines("b", 0, 4)));
+  EXPECT_TRUE(ServerCloses(wrong));
+  tcp::socket missing = Connect();
+  asio::write(missing, asio::buffer(Lines("c", 0, 4)));
+  EXPECT_TRUE(ServerCloses(missing));
+  EXPECT_TRUE(WaitFor([&] { return pipeline_.observer()->Dropped("tcp/unauthorized") == 2; }));
+  EXPECT_EQ(pipeline_.Readings("b"), 0);
+  EXPECT_EQ(pipeline_.Readings("c"), 0);
+  asio::write(good, asio::buffer(Lines("a", 4, 1)));  // the good one still works
+  ASSERT_TRUE(WaitFor([&] { return pipeline_.Processed() == 5; }));
+}
+
+TEST_F(TcpFixture, AFullIngestBudgetPausesReadsUntilTheShardsCatchUp) {
+  // Room for one batch at a time: every connection waits its turn.
+  IngestBudget budget(1, pipeline_.observer());
+  pipeline_.shards()->set_budget(&budget);
+  StartListener({});
+  tcp::socket socket = Connect();
+  asio::write(socket, asio::buffer(Lines("a", 0, 5000)));
+  ASSERT_TRUE(WaitFor([&] { return pipeline_.Processed() == 5000; }));
+  EXPECT_EQ(pipeline_.Readings("a"), 5000);
+  EXPECT_TRUE(WaitFor([&] { return budget.used() == 0; }));
+  listener_->Stop();
+  ASSERT_TRUE(WaitFor([&] { return listener_->open_connections() == 0; }));
+  pipeline_.shards()->set_budget(nullptr);
 }
 
 TEST_F(TcpFixture, AddressInUseIsReportedNotThrown) {

@@ -231,6 +231,26 @@ TEST(ServiceMetricsTest, ConcurrentUpdatesFromManyThreadsAreAllCounted) {
   EXPECT_EQ(SampleValue(text, "plumbline_detector_series_refused_total"), "2000");
 }
 
+TEST(ServiceMetricsTest, DroppedConnectionsAndOverloadCountByInputAndReason) {
+  ServiceMetrics metrics;
+  metrics.CountConnectionDropped("tcp", "idle_timeout");
+  metrics.CountConnectionDropped("tcp", "idle_timeout");
+  metrics.CountConnectionDropped("http", "read_timeout");
+  metrics.CountOverloaded("http");
+  metrics.SetIngestMemoryBudget(1 << 20);
+  metrics.SetIngestMemory(4096);
+  const std::string text = metrics.Serialize();
+  EXPECT_EQ(SampleValue(text, "plumbline_connections_dropped_total{input=\"tcp\","
+                              "reason=\"idle_timeout\"}"),
+            "2");
+  EXPECT_EQ(SampleValue(text, "plumbline_connections_dropped_total{input=\"http\","
+                              "reason=\"read_timeout\"}"),
+            "1");
+  EXPECT_EQ(SampleValue(text, "plumbline_ingest_overloaded_total{input=\"http\"}"), "1");
+  EXPECT_EQ(SampleValue(text, "plumbline_ingest_memory_budget_bytes"), "1048576");
+  EXPECT_EQ(SampleValue(text, "plumbline_ingest_memory_bytes"), "4096");
+}
+
 TEST(ServiceMetricsTest, ReadyAndBuildInfo) {
   ServiceMetrics metrics;
   metrics.SetReady(true);

@@ -390,12 +390,33 @@ TEST(ReadingParserTest, ReportsEveryReasonForTheFirstProblemOfALine) {
     EXPECT_EQ(*reason, c.reason) << "line: " << c.line << " gave " << ToString(*reason);
     covered[static_cast<std::size_t>(c.reason)] = true;
   }
+  // Needs a latest time: TimeAheadOfTheLatestTimeIsRefusedAndTheNextLineTaken.
+  covered[static_cast<std::size_t>(ReadingError::kTimeInFuture)] = true;
   // A NUL byte cannot go through CsvLine's C-string argument; built by hand.
   const std::string with_nul = std::string(kTime) + ",a" + std::string(1, '\0') + "b,1";
   EXPECT_EQ(ReasonFor(with_nul), ReadingError::kBadSeriesName);
   for (std::size_t i = 0; i < kReadingErrorCount; ++i) {
     EXPECT_TRUE(covered[i]) << "no case for " << ToString(static_cast<ReadingError>(i));
   }
+}
+
+TEST(ReadingParserTest, TimeAheadOfTheLatestTimeIsRefusedAndTheNextLineTaken) {
+  std::vector<ReadingError> reasons;
+  std::vector<EventTime> times;
+  ReadingParser parser(
+      ReadingParserOptions{}, [&](const Reading& r) { times.push_back(r.time); },
+      [&](std::uint64_t, ReadingError reason, std::string_view) { reasons.push_back(reason); });
+  const EventTime latest = 1772366400LL * kMicrosPerSecond;  // 2026-03-01T12:00:00Z
+  parser.set_latest_time(latest);
+  parser.Feed(CsvLine("a") + "\n");  // exactly at the latest time: taken
+  parser.Feed("2026-03-01T12:00:00.000001Z,a,1\n");
+  parser.Feed("{\"time\": 4102444800, \"series\": \"a\", \"value\": 1}\n");  // 2100
+  parser.Feed("2026-03-01T11:00:00Z,a,2\n");
+  EXPECT_EQ(times, (std::vector<EventTime>{latest, latest - kMicrosPerHour}));
+  EXPECT_EQ(reasons,
+            (std::vector<ReadingError>{ReadingError::kTimeInFuture, ReadingError::kTimeInFuture}));
+  EXPECT_EQ(parser.counters().Rejected(ReadingError::kTimeInFuture), 2u);
+  EXPECT_EQ(ToString(ReadingError::kTimeInFuture), "time_in_future");
 }
 
 TEST(ReadingParserTest, ABadLineNeverAffectsTheNextLine) {

@@ -8,6 +8,7 @@
 #pragma once
 
 #include <algorithm>
+#include <atomic>
 #include <condition_variable>
 #include <deque>
 #include <map>
@@ -36,6 +37,10 @@ class FakeServiceView : public ServiceView {
       --waiting_;
     }
     IngestReceipt receipt;
+    if (overloaded_) {
+      receipt.overloaded = true;  // as the service answers at a full ingest budget
+      return receipt;
+    }
     std::vector<std::pair<std::string, Reading>> readings;
     ReadingParser parser(
         ReadingParserOptions{},
@@ -166,6 +171,10 @@ class FakeServiceView : public ServiceView {
     return total_accepted_;
   }
 
+ public:
+  // From now on IngestLines takes nothing and says the budget is full.
+  void SetOverloaded(bool overloaded) { overloaded_ = overloaded; }
+
  private:
   struct Series {
     SeriesSummary summary;
@@ -179,6 +188,7 @@ class FakeServiceView : public ServiceView {
   bool ready_ = true;
   std::string not_ready_reason_;
   bool gate_closed_ = false;
+  std::atomic<bool> overloaded_{false};
   int waiting_ = 0;
   bool query_gate_closed_ = false;
   int query_waiting_ = 0;
