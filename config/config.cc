@@ -31,8 +31,7 @@ constexpr std::string_view kEverySeries = "**";
 
 constexpr std::string_view kTopLevelKeys[] = {
     "series", "listeners", "shards",  "queue_batches",    "max_series", "storage",
-    "inputs", "sinks",     "metrics", "shutdown_timeout", "annotations",
-    "access", "max_time_ahead", "ingest_memory_bytes"};
+    "inputs", "sinks",     "metrics", "shutdown_timeout", "annotations"};
 // Sections that later versions add; named so the error says "not yet" rather
 // than "unknown".
 constexpr std::string_view kPlannedTopLevelKeys[] = {"covariates"};
@@ -54,7 +53,6 @@ constexpr std::string_view kWebhookKeys[] = {"url",     "attempts",    "backoff"
                                              "dead_letter", "min_severity"};
 constexpr std::string_view kStdoutKeys[] = {"enabled", "min_severity"};
 constexpr std::string_view kMetricsKeys[] = {"series_limit"};
-constexpr std::string_view kAccessKeys[] = {"token_file", "token_env"};
 
 constexpr std::string_view kProfileKeys[] = {
     "match",  "kind",      "seasons",  "gaps",          "warmup",    "arl0",
@@ -265,6 +263,31 @@ class Loader {
       // Not expected: every access below checks the node type first.
       Error(e.mark, "cannot read the YAML structure: " + e.msg);
     }
+  }
+
+  // Annotations alone (ParseAnnotationsText): one mapping or a list of them.
+  void LoadAnnotationsOnly(std::string_view text, std::size_t first_number,
+                           std::vector<Annotation>* out) {
+    YAML::Node root;
+    try {
+      root = YAML::Load(std::string(text));
+    } catch (const YAML::Exception& e) {
+      SyntaxError(e);
+      return;
+    }
+    // A mapping alone is a list of one. (Not by assigning to a copy of root:
+    // yaml-cpp's assignment writes through to the node the copy shares.)
+    YAML::Node one(YAML::NodeType::Sequence);
+    if (root.IsMap()) one.push_back(root);
+    const YAML::Node& list = root.IsMap() ? one : root;
+    Config config;
+    annotation_number_offset_ = first_number - 1;
+    try {
+      LoadAnnotations(Field{"annotations", root.Mark(), list}, &config);
+    } catch (const YAML::Exception& e) {
+      Error(e.mark, "cannot read the YAML structure: " + e.msg);
+    }
+    *out = std::move(config.annotations);
   }
 
   std::vector<ConfigError> TakeErrors() {
@@ -515,7 +538,7 @@ class Loader {
       if (!complete) continue;
       if (a.id.empty())
         a.id = std::string(ToString(a.kind)) + "-" +
-               std::to_string(config->annotations.size() + 1);
+               std::to_string(annotation_number_offset_ + config->annotations.size() + 1);
       std::string why;
       if (!a.IsValid(&why)) {
         const std::string_view key = std::string_view(why).substr(0, why.find(' '));
@@ -695,19 +718,6 @@ class Loader {
       });
     } else if (k == "shutdown_timeout") {
       Duration(f, false, &o->shutdown_timeout);
-    } else if (k == "max_time_ahead") {
-      Duration(f, false, &o->max_time_ahead);
-    } else if (k == "ingest_memory_bytes") {
-      Size(f, "a whole number of bytes", &o->ingest_memory_bytes);
-    } else if (k == "access") {
-      Section(
-          f, "access", kAccessKeys,
-          [&](const Field& e) {
-            ScalarText(e, e.key == "token_file" ? "a file path" : "a variable name",
-                       e.key == "token_file" ? &o->access.token_file : &o->access.token_env);
-            return true;
-          },
-          [&](std::string* why) { return o->access.IsValid(why); });
     } else {
       return false;
     }
@@ -1087,6 +1097,8 @@ class Loader {
 
   std::string source_;
   std::vector<ConfigError> errors_;
+  // Added to the numbers of default annotation ids (ParseAnnotationsText).
+  std::size_t annotation_number_offset_ = 0;
 };
 
 std::string JoinErrors(const std::vector<ConfigError>& errors) {
@@ -1135,6 +1147,16 @@ std::vector<ConfigError> ParseConfigText(std::string_view text,
   *config = Config();
   Loader loader(source_name);
   loader.Load(text, config);
+  return loader.TakeErrors();
+}
+
+std::vector<ConfigError> ParseAnnotationsText(std::string_view text,
+                                              std::string_view source_name,
+                                              std::size_t first_number,
+                                              std::vector<Annotation>* out) {
+  out->clear();
+  Loader loader(source_name);
+  loader.LoadAnnotationsOnly(text, std::max<std::size_t>(first_number, 1), out);
   return loader.TakeErrors();
 }
 

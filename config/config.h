@@ -93,6 +93,16 @@ std::vector<ConfigError> ParseConfigFile(const std::string& path, Config* config
 StatusOr<Config> LoadConfigText(std::string_view text, std::string_view source_name);
 StatusOr<Config> LoadConfigFile(const std::string& path);
 
+// Parses annotations given outside the config file (the HTTP API's POST
+// body, the state directory's annotations.json): one mapping or a list of
+// them, in JSON or YAML, with the keys and rules of the config's
+// `annotations:` entries. One without an id gets "<kind>-<n>", n counting
+// from first_number. On success fills *out and returns no error.
+std::vector<ConfigError> ParseAnnotationsText(std::string_view text,
+                                              std::string_view source_name,
+                                              std::size_t first_number,
+                                              std::vector<Annotation>* out);
+
 // The profile that governs `series`: the first whose glob matches, or nullptr
 // when none does (the caller then refuses the series). The pointer is into
 // config.series and lives as long as config is unchanged.

@@ -11,6 +11,11 @@ namespace plumbline {
 namespace {
 
 constexpr std::string_view kSeriesPrefix = "/v1/series/";
+constexpr std::string_view kForecastSuffix = "/forecast";
+constexpr std::string_view kAnnotationsPath = "/v1/annotations";
+constexpr std::string_view kAnnotationPrefix = "/v1/annotations/";
+// Times one forecast request may ask for (each costs one O(n^2) prediction).
+constexpr std::size_t kMaxForecastTimes = 1000;
 
 int HexDigit(char c) {
   if (c >= '0' && c <= '9') return c - '0';
@@ -203,6 +208,96 @@ std::string IngestReceiptToJson(const IngestReceipt& receipt) {
   return out;
 }
 
+std::string SeriesForecastToJson(const SeriesForecast& f) {
+  std::string out = "{\"series\":";
+  AppendJsonString(f.name, &out);
+  out += ",\"forecasts\":[";
+  for (std::size_t i = 0; i < f.readings.size(); ++i) {
+    const ReadingForecast& r = f.readings[i];
+    if (i) out += ',';
+    out += "{\"at\":";
+    AppendTime(r.at, &out);
+    const auto number = [&out](std::string_view key, double value) {
+      out += ',';
+      AppendKey(key, &out);
+      AppendJsonNumber(value, &out);
+    };
+    number("value", r.value);
+    number("sd", r.sd);
+    number("level", r.level);
+    number("low", r.low);
+    number("high", r.high);
+    number("horizon_seconds", ToSeconds(r.horizon));
+    out += '}';
+  }
+  out += "],\"next_reading\":";
+  if (f.next) {
+    out += "{\"last\":";
+    AppendTime(f.next->last, &out);
+    out += ",\"expected\":";
+    AppendTime(f.next->expected, &out);
+    out += ",\"quantiles\":[";
+    for (std::size_t i = 0; i < f.next->quantiles.size(); ++i) {
+      if (i) out += ',';
+      out += "{\"probability\":";
+      AppendJsonNumber(f.next->quantiles[i].probability, &out);
+      out += ",\"at\":";
+      AppendTime(f.next->quantiles[i].time, &out);
+      out += '}';
+    }
+    out += "]}";
+  } else {
+    out += "null,\"next_reading_unknown\":";
+    AppendJsonString(f.next_unknown, &out);
+  }
+  out += '}';
+  return out;
+}
+
+StatusOr<SeriesForecast> MakeSeriesForecast(const SeriesMonitor& monitor,
+                                            std::string name,
+                                            const std::vector<EventTime>& at,
+                                            double level) {
+  SeriesForecast out;
+  out.name = std::move(name);
+  StatusOr<NextReadingForecast> next = ForecastNextReading(monitor);
+  if (next.ok()) {
+    out.next = *next;
+  } else {
+    out.next_unknown = next.status().message();
+  }
+  std::vector<EventTime> times = at;
+  if (times.empty()) {
+    // Without a time: the next reading's expected time.
+    if (!out.next) {
+      return Status::FailedPrecondition("no time given (at=...) and " + out.next_unknown);
+    }
+    times.push_back(out.next->expected);
+  }
+  for (EventTime t : times) {
+    StatusOr<ReadingForecast> reading = ForecastReading(monitor, t, level);
+    if (!reading.ok()) return reading.status();
+    out.readings.push_back(*reading);
+  }
+  return out;
+}
+
+unsigned HttpStatusFor(const Status& status) {
+  switch (status.code()) {
+    case Status::Code::kInvalidArgument:
+    case Status::Code::kOutOfRange:
+      return 400;
+    case Status::Code::kNotFound:
+      return 404;
+    case Status::Code::kFailedPrecondition:
+      return 409;
+    case Status::Code::kUnavailable:
+      return 503;
+    default:
+      return 500;
+  }
+}
+
 // ---- routes ----
 
 bool HttpApiOptions::IsValid(std::string* why) const {
@@ -234,6 +329,14 @@ ApiResponse HttpApi::Handle(std::string_view method, std::string_view target,
     if (!get) return MethodNotAllowed("series", kGetHead);
     return ListSeries(query);
   }
+  if (path.starts_with(kSeriesPrefix) && path.ends_with(kForecastSuffix) &&
+      path.size() > kSeriesPrefix.size() + kForecastSuffix.size()) {
+    if (!get) return MethodNotAllowed("series_forecast", kGetHead);
+    return GetForecast(
+        path.substr(kSeriesPrefix.size(),
+                    path.size() - kSeriesPrefix.size() - kForecastSuffix.size()),
+        query);
+  }
   if (path.starts_with(kSeriesPrefix)) {
     if (!get) return MethodNotAllowed("series_detail", kGetHead);
     return GetSeries(path.substr(kSeriesPrefix.size()));
@@ -241,6 +344,15 @@ ApiResponse HttpApi::Handle(std::string_view method, std::string_view target,
   if (path == "/v1/alerts") {
     if (!get) return MethodNotAllowed("alerts", kGetHead);
     return ListAlerts(query);
+  }
+  if (path == kAnnotationsPath) {
+    if (method == "POST") return CreateAnnotation(body);
+    if (!get) return MethodNotAllowed("annotations", "GET, HEAD, POST");
+    return ListAnnotations();
+  }
+  if (path.starts_with(kAnnotationPrefix)) {
+    if (method != "DELETE") return MethodNotAllowed("annotation", "DELETE");
+    return DeleteAnnotation(path.substr(kAnnotationPrefix.size()));
   }
   if (path == "/healthz") {
     if (!get) return MethodNotAllowed("healthz", kGetHead);
@@ -259,11 +371,6 @@ ApiResponse HttpApi::Handle(std::string_view method, std::string_view target,
 
 ApiResponse HttpApi::PostReadings(std::string_view body) const {
   const IngestReceipt receipt = view_.IngestLines(body);
-  if (receipt.overloaded) {
-    return JsonError(503, "readings",
-                     "overloaded: readings in flight fill the ingest memory budget; nothing "
-                     "was taken, send the body again after Retry-After");
-  }
   ApiResponse response;
   response.route = "readings";
   response.body = IngestReceiptToJson(receipt) + "\n";
@@ -345,6 +452,102 @@ ApiResponse HttpApi::ListAlerts(std::string_view query) const {
     out += AlertToJson(alerts[i]);
   }
   out += "]}\n";
+  return response;
+}
+
+ApiResponse HttpApi::GetForecast(std::string_view encoded_name,
+                                 std::string_view query) const {
+  constexpr std::string_view kRoute = "series_forecast";
+  const std::optional<std::string> name = PercentDecode(encoded_name, false);
+  if (!name) return JsonError(400, kRoute, "bad percent-encoding in the series name");
+  bool malformed = false;
+  double level = 0.95;
+  if (auto text = QueryParameter(query, "level", &malformed)) {
+    const auto [end, error] =
+        std::from_chars(text->data(), text->data() + text->size(), level);
+    if (error != std::errc() || end != text->data() + text->size() ||
+        !(level > 0.0 && level < 1.0)) {
+      return JsonError(400, kRoute, "level must be a number in (0, 1), such as 0.95");
+    }
+  } else if (malformed) {
+    return JsonError(400, kRoute, "bad percent-encoding in level");
+  }
+  std::vector<EventTime> at;
+  if (auto text = QueryParameter(query, "at", &malformed)) {
+    std::string_view rest = *text;
+    while (true) {
+      const std::size_t comma = rest.find(',');
+      const std::string_view item = rest.substr(0, comma);
+      StatusOr<EventTime> parsed = ParseTime(item);
+      if (!parsed.ok()) {
+        return JsonError(
+            400, kRoute,
+            "at must be RFC 3339 or epoch seconds (several: comma-separated): " +
+                parsed.status().message());
+      }
+      at.push_back(*parsed);
+      if (comma == std::string_view::npos) break;
+      rest.remove_prefix(comma + 1);
+    }
+    if (at.size() > kMaxForecastTimes) {
+      return JsonError(
+          400, kRoute,
+          "at names more than " + std::to_string(kMaxForecastTimes) + " times");
+    }
+  } else if (malformed) {
+    return JsonError(400, kRoute, "bad percent-encoding in at");
+  }
+  StatusOr<SeriesForecast> forecast = view_.ForecastSeries(*name, at, level);
+  if (!forecast.ok()) {
+    return JsonError(HttpStatusFor(forecast.status()), kRoute,
+                     forecast.status().message());
+  }
+  ApiResponse response;
+  response.route = kRoute;
+  response.body = SeriesForecastToJson(*forecast) + "\n";
+  return response;
+}
+
+ApiResponse HttpApi::ListAnnotations() const {
+  const std::vector<AnnotationEntry> entries = view_.ListAnnotations();
+  ApiResponse response;
+  response.route = "annotations";
+  std::string& out = response.body;
+  out = "{\"count\":" + std::to_string(entries.size()) + ",\"annotations\":[";
+  for (std::size_t i = 0; i < entries.size(); ++i) {
+    if (i) out += ',';
+    out += AnnotationToJson(entries[i].annotation,
+                            entries[i].from_config ? "config" : "api");
+  }
+  out += "]}\n";
+  return response;
+}
+
+ApiResponse HttpApi::CreateAnnotation(std::string_view body) const {
+  StatusOr<Annotation> created = view_.CreateAnnotation(body);
+  if (!created.ok()) {
+    return JsonError(HttpStatusFor(created.status()), "annotations",
+                     created.status().message());
+  }
+  ApiResponse response;
+  response.status = 201;
+  response.route = "annotations";
+  response.body = AnnotationToJson(*created, "api") + "\n";
+  return response;
+}
+
+ApiResponse HttpApi::DeleteAnnotation(std::string_view encoded_id) const {
+  const std::optional<std::string> id = PercentDecode(encoded_id, false);
+  if (!id)
+    return JsonError(400, "annotation", "bad percent-encoding in the annotation id");
+  const Status status = view_.DeleteAnnotation(*id);
+  if (!status.ok())
+    return JsonError(HttpStatusFor(status), "annotation", status.message());
+  ApiResponse response;
+  response.route = "annotation";
+  response.body = "{\"deleted\":";
+  AppendJsonString(*id, &response.body);
+  response.body += "}\n";
   return response;
 }
 

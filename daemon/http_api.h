@@ -3,12 +3,31 @@
 // is testable without a network. HttpServer (http_server.h) carries requests
 // to it and responses back.
 //
-//   POST /v1/readings            body of reading lines -> accepted, rejected, first errors
-//   GET  /v1/series?match=GLOB   series whose names match (all without match), sorted;
+//   POST /v1/readings            body of reading lines -> accepted, rejected, first
+//   errors GET  /v1/series?match=GLOB   series whose names match (all without match),
+//   sorted;
 //                                &limit=N caps the rows (default 1000, at most 100000)
 //   GET  /v1/series/{name}       one series in detail; {name} is the rest of the path,
 //                                percent-decoded ('/' is part of series names)
-//   GET  /v1/alerts?since=T      alerts and events at or after T (RFC 3339 or epoch seconds)
+//   GET  /v1/series/{name}/forecast?at=T[,T...]&level=0.95
+//                                predicted reading and prediction interval at each T
+//                                (default: the expected time of the next reading),
+//                                and the next reading's expected time and 10/50/90%
+//                                quantiles (detectors/prediction.h); 400 for a T
+//                                before the model's last observation, 409 while the
+//                                model has not started. A series whose name ends in
+//                                "/forecast" is reached through GET /v1/series/{name}.
+//   GET  /v1/alerts?since=T      alerts and events at or after T (RFC 3339 or epoch
+//   seconds) GET  /v1/annotations         planned changes and maintenance windows in
+//   force, each
+//                                with "source": "config" or "api"
+//   POST /v1/annotations         body: one JSON object with the config's annotation keys
+//                                (kind, match, at, within, direction, from, to, learn,
+//                                note, id); 201 with the annotation as stored (id given
+//                                when absent), 400 with every problem, 409 for a taken id
+//   DELETE /v1/annotations/{id}  removes one made through the API; 404 unknown, 409 for
+//   one
+//                                declared in the config file (edit the file and reload)
 //   GET  /healthz                200 while the process serves requests
 //   GET  /readyz                 200, or 503 with the reason
 //   GET  /metrics                Prometheus text exposition (ServiceMetrics); first
@@ -27,6 +46,7 @@
 #include <string>
 #include <string_view>
 
+#include "daemon/annotation_store.h"
 #include "daemon/metrics.h"
 #include "daemon/service_view.h"
 #include "daemon/text.h"
@@ -65,6 +85,10 @@ class HttpApi {
   ApiResponse ListSeries(std::string_view query) const;
   ApiResponse GetSeries(std::string_view encoded_name) const;
   ApiResponse ListAlerts(std::string_view query) const;
+  ApiResponse GetForecast(std::string_view encoded_name, std::string_view query) const;
+  ApiResponse ListAnnotations() const;
+  ApiResponse CreateAnnotation(std::string_view body) const;
+  ApiResponse DeleteAnnotation(std::string_view encoded_id) const;
   ApiResponse Ready() const;
   ApiResponse Metrics() const;
 
@@ -89,5 +113,20 @@ std::optional<std::string> QueryParameter(std::string_view query, std::string_vi
 std::string SeriesSummaryToJson(const SeriesSummary& summary);
 std::string SeriesDetailToJson(const SeriesDetail& detail);
 std::string IngestReceiptToJson(const IngestReceipt& receipt);
+// {"series":..., "forecasts":[{"at", "value", "sd", "level", "low", "high",
+// "horizon_seconds"}...], "next_reading": {"last", "expected", "quantiles":
+// [{"probability", "at"}...]} or null, with "next_reading_unknown": why}.
+std::string SeriesForecastToJson(const SeriesForecast& forecast);
+
+// The forecasts of one series' monitor at `at` (see ServiceView::ForecastSeries),
+// shared by the service and `plumbline forecast`.
+StatusOr<SeriesForecast> MakeSeriesForecast(const SeriesMonitor& monitor,
+                                            std::string name,
+                                            const std::vector<EventTime>& at,
+                                            double level);
+
+// The HTTP status for a failed Status: 400 InvalidArgument and OutOfRange,
+// 404 NotFound, 409 FailedPrecondition, 503 Unavailable, else 500.
+unsigned HttpStatusFor(const Status& status);
 
 }  // namespace plumbline

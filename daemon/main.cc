@@ -23,6 +23,8 @@ constexpr Subcommand kSubcommands[] = {
     {"replay", "replay --config FILE --input FILE [--input FILE ...] --alerts FILE",
      "run the pipeline over reading files and write alerts", RunReplay},
     {"check", "check --config FILE", "validate a config file", RunCheck},
+    {"forecast", "forecast --config FILE --input FILE ... --series NAME [--at TIME ...]",
+     "replay reading files, then forecast one series", RunForecast},
     {"calibrate", "calibrate --arl0 N --shift D",
      "print detector thresholds for a target false-alarm rate", RunCalibrate},
 };

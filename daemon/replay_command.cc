@@ -1,20 +1,25 @@
 // plumbline replay: the same pipeline as serve, over files, on event time, as
 // fast as possible. Inputs are merged by reading time; alerts go to --alerts
 // as JSON lines; a readable table goes to stdout and a summary to stderr.
+//
+// plumbline forecast: the same replay, then one series' forecasts at the times
+// asked (GET /v1/series/{name}/forecast over a replayed state).
+#include <sys/stat.h>
 #include <unistd.h>
 
 #include <algorithm>
 #include <chrono>
 #include <cstdio>
+#include <cstdlib>
 #include <deque>
 #include <fstream>
 #include <map>
 #include <memory>
-#include <sys/stat.h>
 
 #include "config/config.h"
 #include "daemon/command_line.h"
 #include "daemon/engine.h"
+#include "daemon/http_api.h"
 #include "daemon/reading_parser.h"
 #include "daemon/subcommands.h"
 #include "detectors/time_format.h"
@@ -26,9 +31,22 @@ const std::vector<OptionSpec> kReplayOptions = {
     {"config", true, false, "profiles and detector settings (YAML)", "FILE"},
     {"input", true, true, "reading file: CSV or JSON lines", "FILE"},
     {"alerts", true, false, "write alerts here, one JSON object per line", "FILE"},
-    {"events", true, false, "also write every event (alerts, resumes, retrain, meter resets)",
-     "FILE"},
+    {"events", true, false,
+     "also write every event (alerts, resumes, retrain, meter resets)", "FILE"},
     {"quiet", false, false, "print no alert table, only the summary"},
+};
+
+const std::vector<OptionSpec> kForecastOptions = {
+    {"config", true, false, "profiles and detector settings (YAML)", "FILE"},
+    {"input", true, true, "reading file: CSV or JSON lines", "FILE"},
+    {"series", true, false, "the series to forecast", "NAME"},
+    {"at", true, true,
+     "a time to forecast (RFC 3339 or epoch seconds); default: the next reading's "
+     "expected time",
+     "TIME"},
+    {"level", true, false,
+     "coverage of the prediction intervals, in (0, 1); default 0.95", "P"},
+    {"json", false, false, "print the HTTP API's JSON object instead of a table"},
 };
 
 struct OwnedReading {
@@ -261,6 +279,120 @@ int RunReplay(const Args& args) {
   std::fprintf(stderr, "  throughput %.0f readings/s (%.2f s)\n",
                seconds > 0 ? static_cast<double>(readings) / seconds : 0.0, seconds);
   std::fprintf(stderr, "  alerts are advisory: Plumbline is not a safety system.\n");
+  return 0;
+}
+
+int RunForecast(const Args& args) {
+  auto parsed = ParseArgs(args, kForecastOptions);
+  if (!parsed.ok()) {
+    std::fprintf(stderr, "plumbline forecast: %s\n", parsed.status().message().c_str());
+    return 2;
+  }
+  if (parsed->Has("help")) {
+    std::printf(
+        "usage: plumbline forecast --config FILE --input FILE [--input FILE ...] "
+        "--series "
+        "NAME\n                          [--at TIME ...] [--level P] [--json]\n\n"
+        "Replays the reading files as `replay` does, then prints one series' predicted\n"
+        "reading and prediction interval at each TIME, and when its next reading should\n"
+        "come (GET /v1/series/{name}/forecast of a running daemon).\n\n%s",
+        FormatOptions(kForecastOptions).c_str());
+    return 0;
+  }
+  const auto config_path = parsed->Get("config");
+  const auto series = parsed->Get("series");
+  const auto& inputs = parsed->GetAll("input");
+  if (!config_path || !series || inputs.empty()) {
+    std::fprintf(stderr,
+                 "plumbline forecast: --config, --input and --series are required\n");
+    return 2;
+  }
+  std::vector<EventTime> at;
+  for (const std::string& text : parsed->GetAll("at")) {
+    StatusOr<EventTime> t = ParseTime(text);
+    if (!t.ok()) {
+      std::fprintf(stderr, "plumbline forecast: --at %s: %s\n", text.c_str(),
+                   t.status().message().c_str());
+      return 2;
+    }
+    at.push_back(*t);
+  }
+  double level = 0.95;
+  if (auto text = parsed->Get("level")) {
+    char* end = nullptr;
+    level = std::strtod(text->c_str(), &end);
+    if (end != text->c_str() + text->size() || !(level > 0.0 && level < 1.0)) {
+      std::fprintf(stderr, "plumbline forecast: --level must be a number in (0, 1)\n");
+      return 2;
+    }
+  }
+  auto config = LoadConfigFile(*config_path);
+  if (!config.ok()) {
+    std::fprintf(stderr, "%s\n", config.status().message().c_str());
+    return 1;
+  }
+  std::vector<RejectedLine> first_errors;
+  std::map<std::string, std::uint64_t> rejected;
+  std::vector<std::unique_ptr<InputStream>> streams;
+  for (const std::string& path : inputs) {
+    streams.push_back(std::make_unique<InputStream>(path, &first_errors, &rejected));
+    if (!streams.back()->is_open()) {
+      std::fprintf(stderr, "plumbline forecast: cannot open input %s\n", path.c_str());
+      return 1;
+    }
+  }
+  Engine engine(std::move(config).value());
+  std::vector<Alert> out;  // the replay's alerts: not printed
+  while (true) {
+    InputStream* next = nullptr;
+    const OwnedReading* head = nullptr;
+    for (auto& stream : streams) {  // earliest head wins, as in replay
+      const OwnedReading* candidate = stream->Head();
+      if (candidate && (!head || candidate->time < head->time)) {
+        head = candidate;
+        next = stream.get();
+      }
+    }
+    if (!head) break;
+    engine.AdvanceClock(head->time, &out);
+    engine.Ingest(head->series, head->time, head->value, &out);
+    next->Pop();
+    out.clear();
+  }
+  engine.Finish(&out);
+  const SeriesMonitor* monitor = engine.Find(*series);
+  if (!monitor) {
+    std::fprintf(stderr,
+                 "plumbline forecast: no readings of series \"%s\" were accepted\n",
+                 series->c_str());
+    return 1;
+  }
+  StatusOr<SeriesForecast> forecast = MakeSeriesForecast(*monitor, *series, at, level);
+  if (!forecast.ok()) {
+    std::fprintf(stderr, "plumbline forecast: %s\n", forecast.status().message().c_str());
+    return 1;
+  }
+  if (parsed->Has("json")) {
+    std::printf("%s\n", SeriesForecastToJson(*forecast).c_str());
+    return 0;
+  }
+  std::printf("%-24s %12s %12s %12s %12s\n", "at", "value", "low", "high", "sd");
+  for (const ReadingForecast& r : forecast->readings) {
+    std::printf("%-24s %12.6g %12.6g %12.6g %12.6g\n", FormatRfc3339(r.at).c_str(),
+                r.value, r.low, r.high, r.sd);
+  }
+  std::printf("(intervals of %.3g%% coverage)\n", 100.0 * level);
+  if (forecast->next) {
+    std::printf("next reading: expected %s (last %s)",
+                FormatRfc3339(forecast->next->expected).c_str(),
+                FormatRfc3339(forecast->next->last).c_str());
+    for (const NextReadingForecast::Quantile& q : forecast->next->quantiles) {
+      std::printf(", %.0f%% by %s", 100.0 * q.probability, FormatRfc3339(q.time).c_str());
+    }
+    std::printf("\n");
+  } else {
+    std::printf("next reading: unknown (%s)\n", forecast->next_unknown.c_str());
+  }
   return 0;
 }
 

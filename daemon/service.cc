@@ -1,10 +1,9 @@
-#include "daemon/service.h"
-
 #include <algorithm>
 #include <cmath>
 
-#include "daemon/access.h"
+#include "daemon/http_api.h"
 #include "daemon/log.h"
+#include "daemon/service.h"
 #include "detectors/glob.h"
 
 namespace plumbline {
@@ -80,7 +79,7 @@ Service::Service(Config config, ServiceDependencies dependencies)
     : config_(std::move(config)),
       deps_(dependencies),
       max_line_bytes_(config_.service.tcp.max_line_bytes),
-      max_time_ahead_(config_.service.max_time_ahead),
+      annotation_file_(config_.service.InStateDirectory(kAnnotationFileName)),
       designs_(std::make_shared<DesignCache>()) {}
 
 Service::~Service() { Shutdown(); }
@@ -89,13 +88,21 @@ Status Service::Start() {
   const ServiceOptions& options = config_.service;
   std::string why;
   if (!options.IsValid(&why)) return Status::InvalidArgument("service settings: " + why);
-  auto token = LoadAccessToken(options.access);
-  if (!token.ok()) return token.status();
-  access_token_ = std::move(*token);
   if (Status status = CheckProfiles(config_, designs_.get()); !status.ok()) return status;
   if (Status status = deps_.file_system->CreateDirectories(options.state_directory);
       !status.ok()) {
     return status;
+  }
+  Config initial;  // the profiles with the config's and the API's annotations
+  {
+    StatusOr<std::vector<Annotation>> saved =
+        LoadAnnotationFile(deps_.file_system, annotation_file_);
+    if (!saved.ok()) return saved.status();
+    std::lock_guard<std::mutex> lock(annotations_mutex_);
+    file_config_ = config_;
+    api_annotations_ = std::move(saved).value();
+    next_annotation_number_ = api_annotations_.size() + 1;
+    initial = WithApiAnnotations();
   }
 
   AlertDispatcher::Options dispatch;
@@ -132,15 +139,12 @@ Status Service::Start() {
     return designs->Make(profile);
   };
   shards_ = std::make_unique<ShardSet>(
-      static_cast<std::size_t>(options.EffectiveShards()), config_, shard_options,
+      static_cast<std::size_t>(options.EffectiveShards()), initial, shard_options,
       deps_.clock, dispatcher_.get(), deps_.observer);
-  budget_ = std::make_unique<IngestBudget>(options.ingest_memory_bytes, deps_.observer);
-  shards_->set_budget(budget_.get());
   shards_->Start();
 
   if (options.tcp.enabled) {
-    tcp_ = std::make_unique<TcpListener>(io_, options.tcp, shards_.get(), deps_.observer,
-                                         TcpIngestRules{options.max_time_ahead, access_token_});
+    tcp_ = std::make_unique<TcpListener>(io_, options.tcp, shards_.get(), deps_.observer);
     if (Status status = tcp_->Start(); !status.ok()) {
       tcp_.reset();
       started_ = true;
@@ -214,7 +218,10 @@ StatusOr<ReloadReport> Service::Reload(const Config& config) {
     if (i >= before.size() || before[i] != after[i]) report.ignored.push_back(after[i]);
   }
   // Shared, not referenced: a task that outlives a timed-out wait still has it.
-  auto shared = std::make_shared<const Config>(config);
+  // The annotations made through the API stay.
+  std::lock_guard<std::mutex> lock(annotations_mutex_);
+  file_config_ = config;
+  auto shared = std::make_shared<const Config>(WithApiAnnotations());
   for (std::size_t i = 0; i < shards_->size(); ++i) {
     auto result = shards_->shard(i).Ask<ReconfigureReport>(
         [shared, dispatcher = dispatcher_.get()](ShardState& state) {
@@ -247,19 +254,10 @@ IngestReceipt Service::IngestLines(std::string_view body) {
     receipt.first_rejections.push_back({1, started_ ? "shutting_down" : "starting"});
     return receipt;
   }
-  // The body and, at worst, a batch entry and a name as long as the line for
-  // every line, taken from the budget at once or not at all (503).
-  const std::size_t lines = static_cast<std::size_t>(std::count(body.begin(), body.end(), '\n'));
-  const std::size_t bytes = 2 * body.size() + (lines + 1) * sizeof(ReadingBatch::Entry);
-  if (!budget_->TryAcquire(bytes, "http")) {
-    receipt.overloaded = true;
-    return receipt;
-  }
-  auto lease = std::make_shared<IngestLease>(budget_.get(), bytes);
   auto ticket = std::make_shared<IngestTicket>();
   std::uint64_t routed = 0, parse_refused = 0;
   {
-    ShardRouter router(shards_.get(), ticket, std::move(lease), "http");
+    ShardRouter router(shards_.get(), ticket);
     ReadingParserOptions parser_options;
     parser_options.max_line_bytes = max_line_bytes_;
     ReadingParser* parser_ptr = nullptr;
@@ -272,7 +270,6 @@ IngestReceipt Service::IngestLines(std::string_view body) {
           ticket->Refuse(line, std::string(ToString(reason)));
         });
     parser_ptr = &parser;
-    parser.set_latest_time(WallClockNow() + max_time_ahead_);
     parser.Feed(body);
     parser.Finish();
     router.Flush();
@@ -389,6 +386,142 @@ bool Service::Ready(std::string* why) {
     return false;
   }
   return dispatcher_->Healthy(why);
+}
+
+StatusOr<SeriesForecast> Service::ForecastSeries(std::string_view name,
+                                                 const std::vector<EventTime>& at,
+                                                 double level) {
+  if (!shards_) return Status::Unavailable("not running");
+  const std::string wanted(name);
+  auto answer =
+      shards_->shard(shards_->ShardFor(wanted))
+          .Ask<StatusOr<SeriesForecast>>(
+              [wanted, at, level](ShardState& state) -> StatusOr<SeriesForecast> {
+                const SeriesMonitor* monitor = state.engine().Find(wanted);
+                if (!monitor) return Status::NotFound("no series named " + wanted);
+                return MakeSeriesForecast(*monitor, wanted, at, level);
+              },
+              kAskTimeout);
+  if (!answer) return Status::Unavailable("the series' shard did not answer in time");
+  return *answer;
+}
+
+Config Service::WithApiAnnotations() const {
+  Config merged = file_config_;
+  merged.annotations.insert(merged.annotations.end(), api_annotations_.begin(),
+                            api_annotations_.end());
+  return merged;
+}
+
+Status Service::PushAnnotations() {
+  auto shared = std::make_shared<const Config>(WithApiAnnotations());
+  for (std::size_t i = 0; i < shards_->size(); ++i) {
+    auto result = shards_->shard(i).Ask<bool>(
+        [shared, dispatcher = dispatcher_.get()](ShardState& state) {
+          std::vector<Alert> released;  // none: the profiles are unchanged
+          state.Reconfigure(*shared, &released);
+          dispatcher->Publish(state.index(), &released);
+          return true;
+        },
+        std::chrono::seconds(60));
+    if (!result) {
+      return Status::Unavailable("saved, but shard " + std::to_string(i) +
+                                 " did not answer; it applies the change when it does");
+    }
+  }
+  return Status::Ok();
+}
+
+std::vector<AnnotationEntry> Service::ListAnnotations() {
+  std::lock_guard<std::mutex> lock(annotations_mutex_);
+  std::vector<AnnotationEntry> out;
+  for (const Annotation& a : file_config_.annotations) out.push_back({a, true});
+  for (const Annotation& a : api_annotations_) out.push_back({a, false});
+  return out;
+}
+
+StatusOr<Annotation> Service::CreateAnnotation(std::string_view body) {
+  if (!started_ || stopping_ || !shards_) return Status::Unavailable("not running");
+  std::lock_guard<std::mutex> lock(annotations_mutex_);
+  const auto in_config = [this](const std::string& id) {
+    return std::any_of(file_config_.annotations.begin(), file_config_.annotations.end(),
+                       [&](const Annotation& a) { return a.id == id; });
+  };
+  const auto taken = [&](const std::string& id) {
+    return in_config(id) || std::any_of(api_annotations_.begin(), api_annotations_.end(),
+                                        [&](const Annotation& a) { return a.id == id; });
+  };
+  // Ids made up for entries without one: <kind>-<n>, n unused by either kind.
+  std::size_t number = next_annotation_number_;
+  while (taken(std::string(ToString(AnnotationKind::kPlannedChange)) + "-" +
+               std::to_string(number)) ||
+         taken(std::string(ToString(AnnotationKind::kMaintenance)) + "-" +
+               std::to_string(number))) {
+    ++number;
+  }
+  std::vector<Annotation> parsed;
+  const std::vector<ConfigError> errors =
+      ParseAnnotationsText(body, "request body", number, &parsed);
+  if (!errors.empty()) {
+    std::string message;
+    for (const ConfigError& e : errors)
+      message += (message.empty() ? "" : "\n") + e.ToString();
+    return Status::InvalidArgument(message);
+  }
+  if (parsed.size() != 1) {
+    return Status::InvalidArgument(
+        "the body must hold one annotation, a JSON object such as {\"kind\": "
+        "\"maintenance\", \"match\": \"coldstore/**\", \"from\": ..., \"to\": ...}");
+  }
+  const Annotation& created = parsed.front();
+  if (taken(created.id)) {
+    return Status::FailedPrecondition(
+        "an annotation with id \"" + created.id + "\" exists already" +
+        (in_config(created.id) ? " (declared in the config file)" : ""));
+  }
+  std::vector<Annotation> updated = api_annotations_;
+  updated.push_back(created);
+  if (Status saved = SaveAnnotationFile(deps_.file_system, annotation_file_, updated);
+      !saved.ok()) {
+    LogError("annotation not saved", {{"id", created.id}, {"error", saved.ToString()}});
+    return saved;
+  }
+  api_annotations_ = std::move(updated);
+  next_annotation_number_ = number + 1;
+  LogInfo("annotation created", {{"id", created.id},
+                                 {"kind", std::string(ToString(created.kind))},
+                                 {"match", created.match}});
+  if (Status pushed = PushAnnotations(); !pushed.ok()) return pushed;
+  return created;
+}
+
+Status Service::DeleteAnnotation(std::string_view id) {
+  if (!started_ || stopping_ || !shards_) return Status::Unavailable("not running");
+  std::lock_guard<std::mutex> lock(annotations_mutex_);
+  for (const Annotation& a : file_config_.annotations) {
+    if (a.id == id) {
+      return Status::FailedPrecondition(
+          "annotation \"" + std::string(id) +
+          "\" is declared in the config file, which the API does not change: remove it "
+          "there and reload the config (SIGHUP)");
+    }
+  }
+  std::vector<Annotation> updated;
+  for (const Annotation& a : api_annotations_) {
+    if (a.id != id) updated.push_back(a);
+  }
+  if (updated.size() == api_annotations_.size()) {
+    return Status::NotFound("no annotation with id \"" + std::string(id) + "\"");
+  }
+  if (Status saved = SaveAnnotationFile(deps_.file_system, annotation_file_, updated);
+      !saved.ok()) {
+    LogError("annotation deletion not saved",
+             {{"id", std::string(id)}, {"error", saved.ToString()}});
+    return saved;
+  }
+  api_annotations_ = std::move(updated);
+  LogInfo("annotation deleted", {{"id", std::string(id)}});
+  return PushAnnotations();
 }
 
 std::string Service::tcp_address() const {

@@ -14,7 +14,9 @@
 // the dispatcher deliver what they raised, and drain the sinks (the webhook
 // until the deadline, then its dead-letter file), all within
 // `shutdown_timeout`. Reload (SIGHUP) swaps the profiles on every shard,
-// keeping the state of series whose settings did not change.
+// keeping the state of series whose settings did not change. Annotations made
+// through the API are kept in the state directory and applied like the
+// config's (a reload keeps them).
 //
 // Thread-safety: the ServiceView methods may be called from any thread once
 // Start has returned Ok, until Shutdown returns. Start, Reload and Shutdown
@@ -36,6 +38,7 @@
 
 #include "config/config.h"
 #include "daemon/alert_sinks.h"
+#include "daemon/annotation_store.h"
 #include "daemon/clock.h"
 #include "daemon/file_follower.h"
 #include "daemon/file_system.h"
@@ -90,13 +93,16 @@ class Service : public ServiceView {
   std::optional<SeriesDetail> GetSeries(std::string_view name) override;
   std::vector<Alert> AlertsSince(EventTime since) override;
   bool Ready(std::string* why) override;
+  StatusOr<SeriesForecast> ForecastSeries(std::string_view name,
+                                          const std::vector<EventTime>& at,
+                                          double level) override;
+  std::vector<AnnotationEntry> ListAnnotations() override;
+  StatusOr<Annotation> CreateAnnotation(std::string_view body) override;
+  Status DeleteAnnotation(std::string_view id) override;
 
   // The TCP listener's bound address ("" when it is off).
   std::string tcp_address() const;
   int tcp_port() const;
-  // The bearer token of the HTTP API and TCP ingest ("" when access control
-  // is off), loaded by Start. Never log it.
-  const std::string& access_token() const { return access_token_; }
   // The config in force (controlling thread only: Reload replaces it).
   const Config& config() const { return config_; }
   std::size_t shard_count() const { return shards_ ? shards_->size() : 0; }
@@ -111,14 +117,12 @@ class Service : public ServiceView {
   // HTTP ingest's line limit (the TCP listener's), fixed at construction: the
   // API threads read it while Reload may replace config_.
   const std::size_t max_line_bytes_;
-  const EventTime max_time_ahead_;  // likewise: the lead allowed over the wall clock
-  std::string access_token_;        // set by Start, then read-only
+  // The API's annotations file (kAnnotationFileName in the state directory).
+  const std::string annotation_file_;
   // Calibrates each distinct profile once, for every shard and reload.
   std::shared_ptr<class DesignCache> designs_;
 
   std::unique_ptr<AlertDispatcher> dispatcher_;
-  // Declared before the shards: batches hold leases on it until destroyed.
-  std::unique_ptr<IngestBudget> budget_;
   std::unique_ptr<ShardSet> shards_;
   boost::asio::io_context io_;  // the TCP listener's
   std::optional<boost::asio::executor_work_guard<boost::asio::io_context::executor_type>>
@@ -126,6 +130,18 @@ class Service : public ServiceView {
   std::thread io_thread_;
   std::unique_ptr<TcpListener> tcp_;
   std::vector<std::unique_ptr<FileFollower>> followers_;
+
+  // Annotations made through the API (kept in the state directory's
+  // kAnnotationFileName) join the config file's: every shard runs the config
+  // file's profiles with both sets (Engine::Reconfigure applies a change to
+  // the live series). The mutex also serialises those pushes, so the shards
+  // see the changes in order.
+  Config WithApiAnnotations() const;  // holds annotations_mutex_
+  Status PushAnnotations();           // holds annotations_mutex_
+  mutable std::mutex annotations_mutex_;
+  Config file_config_;                       // profiles and config annotations in force
+  std::vector<Annotation> api_annotations_;  // in creation order
+  std::size_t next_annotation_number_ = 1;   // for ids the API makes up
 
   std::atomic<bool> started_{false};
   std::atomic<bool> stopping_{false};

@@ -14,7 +14,10 @@
 #include <vector>
 
 #include "daemon/engine.h"
+#include "detectors/annotation.h"
 #include "detectors/event_time.h"
+#include "detectors/prediction.h"
+#include "detectors/status.h"
 
 namespace plumbline {
 
@@ -28,9 +31,6 @@ struct IngestReceipt {
   std::size_t accepted = 0;
   std::size_t rejected = 0;
   std::vector<Rejection> first_rejections;  // at most kMaxReportedRejections
-  // The ingest memory budget was full: nothing was taken (HTTP 503), send
-  // the whole body again later.
-  bool overloaded = false;
   static constexpr std::size_t kMaxReportedRejections = 10;
 };
 
@@ -73,6 +73,21 @@ struct SeriesDetail {
   std::vector<Alert> recent_alerts;  // oldest first, bounded
 };
 
+// `GET /v1/series/{name}/forecast`: the model's readings at the times asked,
+// and when its next reading should come (detectors/prediction.h).
+struct SeriesForecast {
+  std::string name;
+  std::vector<ReadingForecast> readings;    // one per time asked, in order
+  std::optional<NextReadingForecast> next;  // absent while the arrival model cannot say
+  std::string next_unknown;                 // then: why
+};
+
+// One row of `GET /v1/annotations`.
+struct AnnotationEntry {
+  Annotation annotation;
+  bool from_config = false;  // declared in the config file (not deletable by the API)
+};
+
 class ServiceView {
  public:
   virtual ~ServiceView() = default;
@@ -87,6 +102,32 @@ class ServiceView {
   // Ready once config is loaded and state restored, and while every durable
   // sink works; otherwise false with the reason in *why.
   virtual bool Ready(std::string* why) = 0;
+
+  // Forecasts of one series at `at` (each no earlier than its model's last
+  // observation) with intervals of `level`. NotFound for an unknown series;
+  // else ForecastReading's failures. The defaults answer Unavailable: a view
+  // without series models.
+  virtual StatusOr<SeriesForecast> ForecastSeries(std::string_view /*name*/,
+                                                  const std::vector<EventTime>& /*at*/,
+                                                  double /*level*/) {
+    return Status::Unavailable("this server keeps no series models");
+  }
+  // The annotations in force: the config file's, then those made through the API.
+  virtual std::vector<AnnotationEntry> ListAnnotations() { return {}; }
+  // Adds one annotation given as a JSON object (the config's annotation keys),
+  // applies it to every series it matches (new and existing) and keeps it
+  // across restarts. InvalidArgument for a bad body (with every problem),
+  // FailedPrecondition when its id is taken, IoError when it could not be
+  // saved (nothing changed then), Unavailable when not running.
+  virtual StatusOr<Annotation> CreateAnnotation(std::string_view /*body*/) {
+    return Status::Unavailable("this server keeps no annotations");
+  }
+  // Removes an annotation made through the API. NotFound for an unknown id;
+  // FailedPrecondition for one declared in the config file (with the reason);
+  // IoError when the change could not be saved (nothing changed then).
+  virtual Status DeleteAnnotation(std::string_view /*id*/) {
+    return Status::Unavailable("this server keeps no annotations");
+  }
 };
 
 }  // namespace plumbline

@@ -12,6 +12,7 @@ using Args = std::vector<std::string>;
 
 int RunCalibrate(const Args& args);
 int RunCheck(const Args& args);
+int RunForecast(const Args& args);
 int RunReplay(const Args& args);
 int RunServe(const Args& args);
 
