@@ -31,7 +31,8 @@ constexpr std::string_view kEverySeries = "**";
 
 constexpr std::string_view kTopLevelKeys[] = {
     "series", "listeners", "shards",  "queue_batches",    "max_series", "storage",
-    "inputs", "sinks",     "metrics", "shutdown_timeout", "annotations"};
+    "inputs", "sinks",     "metrics", "shutdown_timeout", "annotations",
+    "access", "max_time_ahead", "ingest_memory_bytes"};
 // Sections that later versions add; named so the error says "not yet" rather
 // than "unknown".
 constexpr std::string_view kPlannedTopLevelKeys[] = {"covariates"};
@@ -53,6 +54,7 @@ constexpr std::string_view kWebhookKeys[] = {"url",     "attempts",    "backoff"
                                              "dead_letter", "min_severity"};
 constexpr std::string_view kStdoutKeys[] = {"enabled", "min_severity"};
 constexpr std::string_view kMetricsKeys[] = {"series_limit"};
+constexpr std::string_view kAccessKeys[] = {"token_file", "token_env"};
 
 constexpr std::string_view kProfileKeys[] = {
     "match",  "kind",      "seasons",  "gaps",          "warmup",    "arl0",
@@ -718,6 +720,19 @@ class Loader {
       });
     } else if (k == "shutdown_timeout") {
       Duration(f, false, &o->shutdown_timeout);
+    } else if (k == "max_time_ahead") {
+      Duration(f, false, &o->max_time_ahead);
+    } else if (k == "ingest_memory_bytes") {
+      Size(f, "a whole number of bytes", &o->ingest_memory_bytes);
+    } else if (k == "access") {
+      Section(
+          f, "access", kAccessKeys,
+          [&](const Field& e) {
+            ScalarText(e, e.key == "token_file" ? "a file path" : "a variable name",
+                       e.key == "token_file" ? &o->access.token_file : &o->access.token_env);
+            return true;
+          },
+          [&](std::string* why) { return o->access.IsValid(why); });
     } else {
       return false;
     }

@@ -371,6 +371,11 @@ ApiResponse HttpApi::Handle(std::string_view method, std::string_view target,
 
 ApiResponse HttpApi::PostReadings(std::string_view body) const {
   const IngestReceipt receipt = view_.IngestLines(body);
+  if (receipt.overloaded) {
+    return JsonError(503, "readings",
+                     "overloaded: readings in flight fill the ingest memory budget; nothing "
+                     "was taken, send the body again after Retry-After");
+  }
   ApiResponse response;
   response.route = "readings";
   response.body = IngestReceiptToJson(receipt) + "\n";

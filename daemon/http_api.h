@@ -3,9 +3,8 @@
 // is testable without a network. HttpServer (http_server.h) carries requests
 // to it and responses back.
 //
-//   POST /v1/readings            body of reading lines -> accepted, rejected, first
-//   errors GET  /v1/series?match=GLOB   series whose names match (all without match),
-//   sorted;
+//   POST /v1/readings            body of reading lines -> accepted, rejected, first errors
+//   GET  /v1/series?match=GLOB   series whose names match (all without match), sorted;
 //                                &limit=N caps the rows (default 1000, at most 100000)
 //   GET  /v1/series/{name}       one series in detail; {name} is the rest of the path,
 //                                percent-decoded ('/' is part of series names)
@@ -17,17 +16,16 @@
 //                                before the model's last observation, 409 while the
 //                                model has not started. A series whose name ends in
 //                                "/forecast" is reached through GET /v1/series/{name}.
-//   GET  /v1/alerts?since=T      alerts and events at or after T (RFC 3339 or epoch
-//   seconds) GET  /v1/annotations         planned changes and maintenance windows in
-//   force, each
-//                                with "source": "config" or "api"
+//   GET  /v1/alerts?since=T      alerts and events at or after T (RFC 3339 or epoch seconds)
+//   GET  /v1/annotations         planned changes and maintenance windows in force,
+//                                each with "source": "config" or "api"
 //   POST /v1/annotations         body: one JSON object with the config's annotation keys
 //                                (kind, match, at, within, direction, from, to, learn,
 //                                note, id); 201 with the annotation as stored (id given
 //                                when absent), 400 with every problem, 409 for a taken id
-//   DELETE /v1/annotations/{id}  removes one made through the API; 404 unknown, 409 for
-//   one
-//                                declared in the config file (edit the file and reload)
+//   DELETE /v1/annotations/{id}  removes one made through the API; 404 unknown, 409
+//                                for one declared in the config file (edit the file
+//                                and reload)
 //   GET  /healthz                200 while the process serves requests
 //   GET  /readyz                 200, or 503 with the reason
 //   GET  /metrics                Prometheus text exposition (ServiceMetrics); first

@@ -4,7 +4,6 @@
 //
 // plumbline forecast: the same replay, then one series' forecasts at the times
 // asked (GET /v1/series/{name}/forecast over a replayed state).
-#include <sys/stat.h>
 #include <unistd.h>
 
 #include <algorithm>
@@ -15,6 +14,7 @@
 #include <fstream>
 #include <map>
 #include <memory>
+#include <sys/stat.h>
 
 #include "config/config.h"
 #include "daemon/command_line.h"
@@ -31,8 +31,8 @@ const std::vector<OptionSpec> kReplayOptions = {
     {"config", true, false, "profiles and detector settings (YAML)", "FILE"},
     {"input", true, true, "reading file: CSV or JSON lines", "FILE"},
     {"alerts", true, false, "write alerts here, one JSON object per line", "FILE"},
-    {"events", true, false,
-     "also write every event (alerts, resumes, retrain, meter resets)", "FILE"},
+    {"events", true, false, "also write every event (alerts, resumes, retrain, meter resets)",
+     "FILE"},
     {"quiet", false, false, "print no alert table, only the summary"},
 };
 

@@ -1,9 +1,11 @@
+#include "daemon/service.h"
+
 #include <algorithm>
 #include <cmath>
 
+#include "daemon/access.h"
 #include "daemon/http_api.h"
 #include "daemon/log.h"
-#include "daemon/service.h"
 #include "detectors/glob.h"
 
 namespace plumbline {
@@ -79,6 +81,7 @@ Service::Service(Config config, ServiceDependencies dependencies)
     : config_(std::move(config)),
       deps_(dependencies),
       max_line_bytes_(config_.service.tcp.max_line_bytes),
+      max_time_ahead_(config_.service.max_time_ahead),
       annotation_file_(config_.service.InStateDirectory(kAnnotationFileName)),
       designs_(std::make_shared<DesignCache>()) {}
 
@@ -88,6 +91,9 @@ Status Service::Start() {
   const ServiceOptions& options = config_.service;
   std::string why;
   if (!options.IsValid(&why)) return Status::InvalidArgument("service settings: " + why);
+  auto token = LoadAccessToken(options.access);
+  if (!token.ok()) return token.status();
+  access_token_ = std::move(*token);
   if (Status status = CheckProfiles(config_, designs_.get()); !status.ok()) return status;
   if (Status status = deps_.file_system->CreateDirectories(options.state_directory);
       !status.ok()) {
@@ -141,10 +147,13 @@ Status Service::Start() {
   shards_ = std::make_unique<ShardSet>(
       static_cast<std::size_t>(options.EffectiveShards()), initial, shard_options,
       deps_.clock, dispatcher_.get(), deps_.observer);
+  budget_ = std::make_unique<IngestBudget>(options.ingest_memory_bytes, deps_.observer);
+  shards_->set_budget(budget_.get());
   shards_->Start();
 
   if (options.tcp.enabled) {
-    tcp_ = std::make_unique<TcpListener>(io_, options.tcp, shards_.get(), deps_.observer);
+    tcp_ = std::make_unique<TcpListener>(io_, options.tcp, shards_.get(), deps_.observer,
+                                         TcpIngestRules{options.max_time_ahead, access_token_});
     if (Status status = tcp_->Start(); !status.ok()) {
       tcp_.reset();
       started_ = true;
@@ -254,10 +263,19 @@ IngestReceipt Service::IngestLines(std::string_view body) {
     receipt.first_rejections.push_back({1, started_ ? "shutting_down" : "starting"});
     return receipt;
   }
+  // The body and, at worst, a batch entry and a name as long as the line for
+  // every line, taken from the budget at once or not at all (503).
+  const std::size_t lines = static_cast<std::size_t>(std::count(body.begin(), body.end(), '\n'));
+  const std::size_t bytes = 2 * body.size() + (lines + 1) * sizeof(ReadingBatch::Entry);
+  if (!budget_->TryAcquire(bytes, "http")) {
+    receipt.overloaded = true;
+    return receipt;
+  }
+  auto lease = std::make_shared<IngestLease>(budget_.get(), bytes);
   auto ticket = std::make_shared<IngestTicket>();
   std::uint64_t routed = 0, parse_refused = 0;
   {
-    ShardRouter router(shards_.get(), ticket);
+    ShardRouter router(shards_.get(), ticket, std::move(lease), "http");
     ReadingParserOptions parser_options;
     parser_options.max_line_bytes = max_line_bytes_;
     ReadingParser* parser_ptr = nullptr;
@@ -270,6 +288,7 @@ IngestReceipt Service::IngestLines(std::string_view body) {
           ticket->Refuse(line, std::string(ToString(reason)));
         });
     parser_ptr = &parser;
+    parser.set_latest_time(WallClockNow() + max_time_ahead_);
     parser.Feed(body);
     parser.Finish();
     router.Flush();

@@ -103,6 +103,9 @@ class Service : public ServiceView {
   // The TCP listener's bound address ("" when it is off).
   std::string tcp_address() const;
   int tcp_port() const;
+  // The bearer token of the HTTP API and TCP ingest ("" when access control
+  // is off), loaded by Start. Never log it.
+  const std::string& access_token() const { return access_token_; }
   // The config in force (controlling thread only: Reload replaces it).
   const Config& config() const { return config_; }
   std::size_t shard_count() const { return shards_ ? shards_->size() : 0; }
@@ -117,12 +120,16 @@ class Service : public ServiceView {
   // HTTP ingest's line limit (the TCP listener's), fixed at construction: the
   // API threads read it while Reload may replace config_.
   const std::size_t max_line_bytes_;
+  const EventTime max_time_ahead_;  // likewise: the lead allowed over the wall clock
+  std::string access_token_;        // set by Start, then read-only
   // The API's annotations file (kAnnotationFileName in the state directory).
   const std::string annotation_file_;
   // Calibrates each distinct profile once, for every shard and reload.
   std::shared_ptr<class DesignCache> designs_;
 
   std::unique_ptr<AlertDispatcher> dispatcher_;
+  // Declared before the shards: batches hold leases on it until destroyed.
+  std::unique_ptr<IngestBudget> budget_;
   std::unique_ptr<ShardSet> shards_;
   boost::asio::io_context io_;  // the TCP listener's
   std::optional<boost::asio::executor_work_guard<boost::asio::io_context::executor_type>>

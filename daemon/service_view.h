@@ -31,6 +31,9 @@ struct IngestReceipt {
   std::size_t accepted = 0;
   std::size_t rejected = 0;
   std::vector<Rejection> first_rejections;  // at most kMaxReportedRejections
+  // The ingest memory budget was full: nothing was taken (HTTP 503), send
+  // the whole body again later.
+  bool overloaded = false;
   static constexpr std::size_t kMaxReportedRejections = 10;
 };
 
