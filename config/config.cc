@@ -32,7 +32,7 @@ constexpr std::string_view kEverySeries = "**";
 constexpr std::string_view kTopLevelKeys[] = {
     "series", "listeners", "shards",  "queue_batches",    "max_series", "storage",
     "inputs", "sinks",     "metrics", "shutdown_timeout", "annotations",
-    "access", "max_time_ahead", "ingest_memory_bytes"};
+    "access", "max_time_ahead", "ingest_memory_bytes", "recent_points"};
 // Sections that later versions add; named so the error says "not yet" rather
 // than "unknown".
 constexpr std::string_view kPlannedTopLevelKeys[] = {"covariates"};
@@ -694,6 +694,8 @@ class Loader {
       WholeNumber(f, "a whole number of batches", &o->queue_batches);
     } else if (k == "max_series") {
       Size(f, "a whole number of series", &o->max_series);
+    } else if (k == "recent_points") {
+      Size(f, "a whole number of readings (0: none)", &o->recent_points);
     } else if (k == "storage") {
       Section(f, "storage", kStorageKeys, [&](const Field& e) {
         if (e.key != "directory") return false;

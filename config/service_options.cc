@@ -151,6 +151,7 @@ bool ServiceOptions::IsValid(std::string* why) const {
     return Fail(why, "queue_batches must be in [1, 65536]");
   }
   if (max_series < 1) return Fail(why, "max_series must be at least 1");
+  if (recent_points > 4096) return Fail(why, "recent_points must be in [0, 4096]");
   if (state_directory.empty())
     return Fail(why, "directory must name the state directory");
   if (metrics_series_limit < 0 || metrics_series_limit > 100000) {

@@ -13,6 +13,7 @@
 //   shards: 0                      # 0 = one per core
 //   queue_batches: 64              # per shard; a full queue slows the inputs
 //   max_series: 1000000            # new series beyond this are refused
+//   recent_points: 240             # per series, for the status page (0: none)
 //   storage:
 //     directory: plumbline-state   # offsets and default sink files live here
 //   inputs:
@@ -157,6 +158,9 @@ struct ServiceOptions {
   int shards = 0;          // 0: std::thread::hardware_concurrency()
   int queue_batches = 64;  // per shard; each batch holds at most 1024 readings
   std::size_t max_series = 1'000'000;
+  // Readings (with their forecasts) kept per series for the status page and
+  // GET /v1/series/{name}: 24 bytes each; 0 keeps none.
+  std::size_t recent_points = 240;
   std::string state_directory = "plumbline-state";
   std::vector<FileInputOptions> files;
   SinkOptions sinks;
@@ -173,8 +177,9 @@ struct ServiceOptions {
   AccessOptions access;
 
   // Rules: each part valid; shards in [0, 256]; queue_batches in [1, 65536];
-  // max_series >= 1; state_directory non-empty; metrics_series_limit in
-  // [0, 100000]; shutdown_timeout in (0, 10m]; no file path given twice.
+  // max_series >= 1; recent_points in [0, 4096]; state_directory non-empty;
+  // metrics_series_limit in [0, 100000]; shutdown_timeout in (0, 10m]; no file
+  // path given twice.
   bool IsValid(std::string* why) const;
   // The shard count to run: `shards`, or the number of cores when 0.
   int EffectiveShards() const;

@@ -10,6 +10,7 @@
 #include <utility>  // before any Asio header (Boost 1.74 under C++20)
 
 #include "daemon/log.h"
+#include "daemon/terminal.h"
 #include "plumbline_version.h"
 
 namespace plumbline {
@@ -77,7 +78,7 @@ bool AlertLog::Healthy(std::string* why) const {
 
 void StdoutSink::Deliver(const std::vector<Alert>& alerts) {
   for (const Alert& alert : alerts) {
-    const std::string line = AlertToText(alert);
+    const std::string line = json_ ? AlertToJson(alert) : AlertLine(alert, colour_);
     std::fprintf(out_, "%s\n", line.c_str());
   }
   std::fflush(out_);

@@ -83,13 +83,17 @@ class AlertLog : public AlertSink {
 
 class StdoutSink : public AlertSink {
  public:
-  // Writes to `out` (default stdout).
-  explicit StdoutSink(std::FILE* out = stdout) : out_(out) {}
+  // Writes to `out` (default stdout) one readable line per alert (AlertLine,
+  // in colour when `colour`), or with `json` the alert log's JSON line.
+  explicit StdoutSink(std::FILE* out = stdout, bool json = false, bool colour = false)
+      : out_(out), json_(json), colour_(colour) {}
   std::string_view name() const override { return "stdout"; }
   void Deliver(const std::vector<Alert>& alerts) override;
 
  private:
   std::FILE* out_;
+  bool json_;
+  bool colour_;
 };
 
 // How long the webhook waits before try n+1 (n >= 1): the base doubles per try

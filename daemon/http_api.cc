@@ -4,6 +4,7 @@
 #include <cmath>
 #include <limits>
 
+#include "daemon/ui_pages.h"
 #include "detectors/glob.h"
 #include "detectors/time_format.h"
 
@@ -65,6 +66,19 @@ void AppendSummaryFields(const SeriesSummary& s, std::string* out) {
   *out += ',';
   AppendKey("silent", out);
   *out += s.silent ? "true" : "false";
+  *out += ',';
+  AppendKey("state", out);
+  AppendJsonString(ToString(s.state), out);
+  *out += ',';
+  AppendKey("alert_count", out);
+  *out += std::to_string(s.alert_count);
+  *out += ',';
+  AppendKey("last_change_at", out);
+  if (s.last_change_at) {
+    AppendTime(*s.last_change_at, out);
+  } else {
+    *out += "null";
+  }
 }
 
 ApiResponse JsonError(unsigned status, std::string_view route, std::string_view message) {
@@ -93,6 +107,20 @@ ApiResponse PlainText(unsigned status, std::string_view route, std::string body)
 }
 
 }  // namespace
+
+constexpr std::string_view kSeriesStateNames[] = {"settling", "steady", "shifted",
+                                                  "quiet", "held"};
+
+std::string_view ToString(SeriesState state) {
+  return kSeriesStateNames[static_cast<int>(state)];
+}
+
+std::optional<SeriesState> SeriesStateFromString(std::string_view text) {
+  for (int i = 0; i < 5; ++i) {
+    if (kSeriesStateNames[i] == text) return static_cast<SeriesState>(i);
+  }
+  return std::nullopt;
+}
 
 // ---- helpers ----
 
@@ -184,6 +212,26 @@ std::string SeriesDetailToJson(const SeriesDetail& d) {
     AppendJsonNumber(d.recent_points[i].value, &out);
     out += ",\"forecast\":";
     AppendJsonNumber(d.recent_points[i].forecast, &out);
+    out += ",\"band_low\":";
+    AppendJsonNumber(d.recent_points[i].band_low, &out);
+    out += ",\"band_high\":";
+    AppendJsonNumber(d.recent_points[i].band_high, &out);
+    out += '}';
+  }
+  out += "],\"annotations\":[";
+  for (std::size_t i = 0; i < d.annotations.size(); ++i) {
+    const SeriesDetail::Span& span = d.annotations[i];
+    if (i) out += ',';
+    out += "{\"id\":";
+    AppendJsonString(span.id, &out);
+    out += ",\"kind\":";
+    AppendJsonString(span.kind, &out);
+    out += ",\"from\":";
+    AppendTime(span.from, &out);
+    out += ",\"to\":";
+    AppendTime(span.to, &out);
+    out += ",\"note\":";
+    AppendJsonString(span.note, &out);
     out += '}';
   }
   out += "],\"recent_alerts\":[";
@@ -353,6 +401,14 @@ ApiResponse HttpApi::Handle(std::string_view method, std::string_view target,
   if (path.starts_with(kAnnotationPrefix)) {
     if (method != "DELETE") return MethodNotAllowed("annotation", "DELETE");
     return DeleteAnnotation(path.substr(kAnnotationPrefix.size()));
+  }
+  if (path == "/") {
+    if (!get) return MethodNotAllowed("status_page", kGetHead);
+    ApiResponse response;
+    response.route = "status_page";
+    response.content_type = "text/html; charset=utf-8";
+    response.body = StatusPageHtml();
+    return response;
   }
   if (path == "/healthz") {
     if (!get) return MethodNotAllowed("healthz", kGetHead);

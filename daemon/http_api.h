@@ -6,8 +6,12 @@
 //   POST /v1/readings            body of reading lines -> accepted, rejected, first errors
 //   GET  /v1/series?match=GLOB   series whose names match (all without match), sorted;
 //                                &limit=N caps the rows (default 1000, at most 100000)
+//   GET  /                       the status page (ui_pages.h), reading the routes below
 //   GET  /v1/series/{name}       one series in detail; {name} is the rest of the path,
-//                                percent-decoded ('/' is part of series names)
+//                                percent-decoded ('/' is part of series names); with
+//                                its recent readings, forecasts and bands
+//                                (`recent_points`), recent alerts and the annotations
+//                                that apply to it
 //   GET  /v1/series/{name}/forecast?at=T[,T...]&level=0.95
 //                                predicted reading and prediction interval at each T
 //                                (default: the expected time of the next reading),
@@ -56,8 +60,9 @@ struct ApiResponse {
   std::string content_type = "application/json";
   std::string body;
   std::string allow;  // the Allow header of a 405
-  // The route label for metrics: "readings", "series", "series_detail", "alerts",
-  // "healthz", "readyz", "metrics", or "other" (unknown paths).
+  // The route label for metrics: "status_page", "readings", "series",
+  // "series_detail", "alerts", "healthz", "readyz", "metrics", or "other"
+  // (unknown paths).
   std::string_view route = "other";
 };
 

@@ -12,8 +12,10 @@
 #include <cstdlib>
 #include <deque>
 #include <fstream>
+#include <iterator>
 #include <map>
 #include <memory>
+#include <optional>
 #include <sys/stat.h>
 
 #include "config/config.h"
@@ -21,7 +23,10 @@
 #include "daemon/engine.h"
 #include "daemon/http_api.h"
 #include "daemon/reading_parser.h"
+#include "daemon/replay_report.h"
 #include "daemon/subcommands.h"
+#include "daemon/terminal.h"
+#include "daemon/ui_pages.h"
 #include "detectors/time_format.h"
 
 namespace plumbline {
@@ -33,7 +38,14 @@ const std::vector<OptionSpec> kReplayOptions = {
     {"alerts", true, false, "write alerts here, one JSON object per line", "FILE"},
     {"events", true, false, "also write every event (alerts, resumes, retrain, meter resets)",
      "FILE"},
-    {"quiet", false, false, "print no alert table, only the summary"},
+    {"quiet", false, false, "print no alert lines, only the summary"},
+    {"json", false, false,
+     "print alerts on stdout as JSON lines instead of readable lines"},
+    {"report", true, false, "write a self-contained HTML report: a chart per series",
+     "FILE"},
+    {"truth", true, false,
+     "labelled changes (CSV: series,kind,at,from,to,label) to score the alerts against",
+     "FILE"},
 };
 
 const std::vector<OptionSpec> kForecastOptions = {
@@ -136,7 +148,10 @@ int RunReplay(const Args& args) {
     std::printf(
         "usage: plumbline replay --config FILE --input FILE [--input FILE ...] --alerts FILE\n\n"
         "Runs the same pipeline as `serve` over reading files, merged by reading time, as\n"
-        "fast as possible, and writes alerts as JSON lines. Same input, same alerts.\n\n%s",
+        "fast as possible, and writes alerts as JSON lines. Same input, same alerts.\n"
+        "Prints one line per alert (coloured on a terminal unless NO_COLOR is set)\n"
+        "and a summary; --truth scores the alerts against labelled changes, --report\n"
+        "draws them.\n\n%s",
         FormatOptions(kReplayOptions).c_str());
     return 0;
   }
@@ -152,6 +167,24 @@ int RunReplay(const Args& args) {
     std::fprintf(stderr, "%s\n", config.status().message().c_str());
     return 1;
   }
+  const auto truth_path = parsed->Get("truth");
+  std::optional<std::vector<TruthLabel>> truth;
+  if (truth_path) {
+    std::ifstream file(*truth_path, std::ios::binary);
+    const std::string text((std::istreambuf_iterator<char>(file)),
+                           std::istreambuf_iterator<char>());
+    StatusOr<std::vector<TruthLabel>> labels = ParseTruth(text);
+    if (!file.is_open() || !labels.ok()) {
+      std::fprintf(stderr, "plumbline replay: %s:%s\n", truth_path->c_str(),
+                   file.is_open() ? labels.status().message().c_str() : " cannot read");
+      return 1;
+    }
+    truth = std::move(labels).value();
+  }
+  const auto report_path = parsed->Get("report");
+  const Config report_config = *config;  // the engine takes the config
+  ReplayRecorder recorder;
+  std::vector<Alert> raised;  // for --truth
 
   std::vector<RejectedLine> first_errors;
   std::map<std::string, std::uint64_t> rejected;
@@ -183,6 +216,8 @@ int RunReplay(const Args& args) {
   }
 
   const bool quiet = parsed->Has("quiet");
+  const bool json = parsed->Has("json");
+  const bool colour = !json && WantsColour(stdout);
   const bool progress = ::isatty(STDERR_FILENO) != 0;
   Engine engine(std::move(config).value());
   std::vector<Alert> out;
@@ -192,21 +227,23 @@ int RunReplay(const Args& args) {
 
   auto publish = [&]() {
     for (const Alert& a : out) {
-      const std::string json = AlertToJson(a);
-      if (events_file) std::fprintf(events_file, "%s\n", json.c_str());
+      const std::string line = AlertToJson(a);
+      if (events_file) std::fprintf(events_file, "%s\n", line.c_str());
       ++events_by_type[std::string(ToString(a.event))];
       if (a.event != EventType::kAlert) continue;
-      std::fprintf(alerts_file, "%s\n", json.c_str());
+      std::fprintf(alerts_file, "%s\n", line.c_str());
       ++alerts_by_kind[std::string(ToString(a.kind))];
+      if (report_path) recorder.AddAlert(a);
+      if (truth) raised.push_back(a);
       if (!quiet) {
         if (progress) std::fprintf(stderr, "\r\033[K");
-        std::printf("%s\n", AlertToText(a).c_str());
+        std::printf("%s\n", json ? line.c_str() : AlertLine(a, colour).c_str());
       }
     }
     out.clear();
   };
 
-  if (!quiet) {
+  if (!quiet && !json) {
     std::printf("%-20s  %-13s %s\n", "detected_at", "kind", "series, change and size");
   }
   while (true) {
@@ -221,9 +258,14 @@ int RunReplay(const Args& args) {
     }
     if (!head) break;
     engine.AdvanceClock(head->time, &out);
+    // The forecast for the report is made before the model sees the reading.
+    const TracePoint point =
+        report_path ? TracePointBefore(engine.Find(head->series), head->time, head->value)
+                    : TracePoint{};
     const IngestOutcome outcome = engine.Ingest(head->series, head->time, head->value, &out);
     if (outcome == IngestOutcome::kAccepted) {
       ++readings;
+      if (report_path) recorder.AddPoint(head->series, point);
     } else {
       ++rejected[std::string(ToString(outcome))];
       if (first_errors.size() < 10) {
@@ -275,6 +317,30 @@ int RunReplay(const Args& args) {
   for (const RejectedLine& e : first_errors) {
     std::fprintf(stderr, "    %s:%llu: %s: %s\n", e.file.c_str(),
                  static_cast<unsigned long long>(e.line), e.reason.c_str(), e.detail.c_str());
+  }
+  std::optional<TruthOutcome> scored;
+  if (truth) {
+    scored = ScoreTruth(*truth, raised);
+    std::fprintf(
+        stderr,
+        "  truth      %zu labelled changes: %zu hit, %zu missed; %zu false alarms\n",
+        scored->labels.size(), scored->hits(), scored->labels.size() - scored->hits(),
+        scored->false_alarms.size());
+  }
+  if (report_path) {
+    const std::string page = ReportPageHtml(
+        recorder.ToJson(report_config, inputs, *config_path, readings,
+                        scored ? &*scored : nullptr, truth_path.value_or("")));
+    std::FILE* report = std::fopen(report_path->c_str(), "w");
+    bool written = report != nullptr &&
+                   std::fwrite(page.data(), 1, page.size(), report) == page.size();
+    if (report != nullptr) written = std::fclose(report) == 0 && written;
+    if (!written) {
+      std::fprintf(stderr, "plumbline replay: cannot write the report to %s\n",
+                   report_path->c_str());
+      return 1;
+    }
+    std::fprintf(stderr, "  report     %s\n", report_path->c_str());
   }
   std::fprintf(stderr, "  throughput %.0f readings/s (%.2f s)\n",
                seconds > 0 ? static_cast<double>(readings) / seconds : 0.0, seconds);

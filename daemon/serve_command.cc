@@ -36,6 +36,7 @@
 #include "daemon/metrics.h"
 #include "daemon/service.h"
 #include "daemon/subcommands.h"
+#include "daemon/terminal.h"
 #include "plumbline_version.h"
 
 namespace plumbline {
@@ -52,6 +53,10 @@ const std::vector<OptionSpec> kServeOptions = {
     {"config", true, false,
      "profiles, listeners, inputs and sinks (YAML); default: built in", "FILE"},
     {"log-level", true, false, "debug | info | warning | error (default info)", "LEVEL"},
+    {"quiet", false, false,
+     "print no alert lines on stdout (config sinks.stdout: false)"},
+    {"json", false, false,
+     "print alerts on stdout as JSON lines instead of readable lines"},
 };
 
 // Forwards the pipeline's reports to the Prometheus registry.
@@ -226,6 +231,9 @@ int RunServe(const Args& args) {
   MetricsObserver observer(&metrics);
   ServiceDependencies dependencies;
   dependencies.observer = &observer;
+  if (parsed->Has("quiet")) config->service.sinks.to_stdout = false;
+  dependencies.text_json = parsed->Has("json");
+  dependencies.text_colour = !dependencies.text_json && WantsColour(stdout);
   Service service(*config, dependencies);
   if (Status status = service.Start(); !status.ok()) {
     LogError("cannot start", {{"error", status.message()}});

@@ -17,8 +17,6 @@ using SteadyTime = std::chrono::steady_clock::time_point;
 constexpr std::size_t kDispatcherQueueBatches = 1024;
 // Alerts and events kept for GET /v1/alerts.
 constexpr std::size_t kRecentAlerts = 10000;
-// Two-sided 95% normal quantile, for the forecast band.
-constexpr double kBandZ = 1.959963984540054;
 
 }  // namespace
 
@@ -58,6 +56,16 @@ Status CheckProfiles(const Config& config, DesignCache* designs) {
   return Status::Ok();
 }
 
+bool InMaintenance(const Config& config, const std::string& name, EventTime time) {
+  for (const Annotation& a : config.annotations) {
+    if (a.kind == AnnotationKind::kMaintenance && a.from <= time && time < a.to &&
+        GlobMatch(a.match, name)) {
+      return true;
+    }
+  }
+  return false;
+}
+
 SeriesSummary Summarise(const ShardState& state, const std::string& name,
                         const SeriesExtras& extras) {
   SeriesSummary summary;
@@ -68,11 +76,39 @@ SeriesSummary Summarise(const ShardState& state, const std::string& name,
   summary.last_time = extras.last_time;
   summary.last_value = extras.last_value;
   summary.readings = extras.readings;
+  summary.alert_count = extras.alert_count;
+  summary.last_change_at = extras.last_change_at;
   if (const SeriesMonitor* monitor = state.engine().Find(name)) {
     summary.armed = monitor->armed();
     summary.silent = monitor->silent();
   }
+  if (summary.silent) {
+    summary.state = SeriesState::kQuiet;
+  } else if (InMaintenance(state.config(), name, extras.last_time)) {
+    summary.state = SeriesState::kHeld;
+  } else if (!summary.armed) {
+    summary.state = SeriesState::kSettling;
+  } else if (extras.shifted) {
+    summary.state = SeriesState::kShifted;
+  } else {
+    summary.state = SeriesState::kSteady;
+  }
   return summary;
+}
+
+std::vector<SeriesDetail::Span> AnnotationSpans(const Config& config,
+                                                const std::string& name) {
+  std::vector<SeriesDetail::Span> spans;
+  for (const Annotation& a : config.annotations) {
+    if (!GlobMatch(a.match, name)) continue;
+    SeriesDetail::Span span{a.id, std::string(ToString(a.kind)), a.from, a.to, a.note};
+    if (a.kind == AnnotationKind::kPlannedChange) {
+      span.from = a.at - a.within;
+      span.to = a.at + a.within;
+    }
+    spans.push_back(std::move(span));
+  }
+  return spans;
 }
 
 }  // namespace
@@ -125,8 +161,9 @@ Status Service::Start() {
     dispatcher_->AddSink(std::move(log), options.sinks.alert_log.min_severity);
   }
   if (options.sinks.to_stdout) {
-    dispatcher_->AddSink(std::make_unique<StdoutSink>(deps_.text_out),
-                         options.sinks.stdout_min_severity);
+    dispatcher_->AddSink(
+        std::make_unique<StdoutSink>(deps_.text_out, deps_.text_json, deps_.text_colour),
+        options.sinks.stdout_min_severity);
   }
   if (options.sinks.webhook.enabled()) {
     auto webhook = std::make_unique<WebhookSink>(
@@ -141,6 +178,7 @@ Status Service::Start() {
   ShardOptions shard_options;
   shard_options.queue_batches = static_cast<std::size_t>(options.queue_batches);
   shard_options.engine.max_series = options.max_series;
+  shard_options.recent_points = options.recent_points;
   shard_options.engine.make_design = [designs = designs_](const ProfileOptions& profile) {
     return designs->Make(profile);
   };
@@ -376,13 +414,17 @@ std::optional<SeriesDetail> Service::GetSeries(std::string_view name) {
                   detail.band_low = f.value - half;
                   detail.band_high = f.value + half;
                 }
-                for (const SeriesExtras::Point& p : extras->RecentPoints()) {
-                  SeriesDetail::Point point{p.time, p.value, 0.0};
-                  if (forecaster && forecaster->has_data())
-                    point.forecast = forecaster->Predict(p.time).value;
+                for (const TracePoint& p : extras->points.Points()) {
+                  SeriesDetail::Point point{p.time, p.value};
+                  if (p.has_forecast()) {
+                    point.forecast = p.forecast;
+                    point.band_low = p.forecast - p.band;
+                    point.band_high = p.forecast + p.band;
+                  }
                   detail.recent_points.push_back(point);
                 }
                 detail.recent_alerts = extras->alerts;
+                detail.annotations = AnnotationSpans(state.config(), wanted);
                 return detail;
               },
               kAskTimeout);

@@ -54,6 +54,8 @@ struct ServiceDependencies {
   FileSystem* file_system = FileSystem::Default();
   PipelineObserver* observer = nullptr;  // may stay null
   std::FILE* text_out = stdout;          // the stdout sink's stream
+  bool text_json = false;                // the stdout sink writes JSON lines
+  bool text_colour = false;              // ... or readable lines in colour
 };
 
 // What Reload did.

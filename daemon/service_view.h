@@ -8,6 +8,7 @@
 #pragma once
 
 #include <cstddef>
+#include <limits>
 #include <optional>
 #include <string>
 #include <string_view>
@@ -37,6 +38,18 @@ struct IngestReceipt {
   static constexpr std::size_t kMaxReportedRejections = 10;
 };
 
+// What a series is doing, in one word, as the API and the status page name it
+// (first that applies):
+//   quiet     silent: no reading for longer than its silence span
+//   held      its last reading fell in a maintenance window
+//   settling  still learning (before warmup)
+//   shifted   a level, variance or rate alert came and the model is still
+//             learning the new regime (its retrain event has not come yet)
+//   steady    none of the above
+enum class SeriesState { kSettling, kSteady, kShifted, kQuiet, kHeld };
+std::string_view ToString(SeriesState state);
+std::optional<SeriesState> SeriesStateFromString(std::string_view text);
+
 // One row of `GET /v1/series`.
 struct SeriesSummary {
   std::string name;
@@ -46,6 +59,9 @@ struct SeriesSummary {
   long long readings = 0;
   bool armed = false;               // past warmup
   bool silent = false;
+  SeriesState state = SeriesState::kSettling;
+  long long alert_count = 0;                // alerts raised since the daemon started
+  std::optional<EventTime> last_change_at;  // change_at of the latest alert
 };
 
 // `GET /v1/series/{name}`: the summary plus what the model and detectors think.
@@ -70,9 +86,23 @@ struct SeriesDetail {
   struct Point {
     EventTime time = 0;
     double value = 0.0;
-    double forecast = 0.0;
+    // The one-step-ahead forecast and its band; NaN (JSON null) where the
+    // series has none (series_trace.h).
+    double forecast = std::numeric_limits<double>::quiet_NaN();
+    double band_low = std::numeric_limits<double>::quiet_NaN();
+    double band_high = std::numeric_limits<double>::quiet_NaN();
   };
-  std::vector<Point> recent_points;  // oldest first, bounded
+  std::vector<Point> recent_points;  // oldest first, bounded (`recent_points`)
+  // Config annotations that apply to this series: a planned change spans
+  // [at - within, at + within], a maintenance window [from, to).
+  struct Span {
+    std::string id;
+    std::string kind;  // planned-change | maintenance
+    EventTime from = 0;
+    EventTime to = 0;
+    std::string note;
+  };
+  std::vector<Span> annotations;
   std::vector<Alert> recent_alerts;  // oldest first, bounded
 };
 

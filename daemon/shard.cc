@@ -30,14 +30,15 @@ bool ShardOptions::IsValid(std::string* why) const {
   return engine.IsValid(why);
 }
 
-std::vector<SeriesExtras::Point> SeriesExtras::RecentPoints() const {
-  std::vector<Point> out;
-  out.reserve(points.size());
-  // Once the ring is full, `next` is the oldest point.
-  for (std::size_t i = 0; i < points.size(); ++i) {
-    out.push_back(points[(next + i) % points.size()]);
+void SeriesExtras::Note(const Alert& alert) {
+  if (alert.event == EventType::kRetrain) {
+    shifted = false;
+    return;
   }
-  return out;
+  if (alert.event != EventType::kAlert) return;
+  ++alert_count;
+  last_change_at = alert.change_at;
+  if (alert.kind != AlertKind::kSilence) shifted = true;
 }
 
 ShardState::ShardState(std::size_t index, const Config& config,
@@ -231,6 +232,11 @@ void Shard::Process(ReadingBatch& batch) {
   const std::size_t series_before = engine.series_count();
   for (const ReadingBatch::Entry& entry : batch.entries) {
     const std::string_view name = batch.name(entry);
+    // The forecast for this reading, made before the model sees it.
+    const TracePoint point =
+        options_.recent_points > 0
+            ? TracePointBefore(engine.Find(name), entry.time, entry.value)
+            : TracePoint{};
     const IngestOutcome outcome = engine.Ingest(name, entry.time, entry.value, &out_);
     ++counts[static_cast<int>(outcome)];
     if (outcome != IngestOutcome::kAccepted) {
@@ -251,15 +257,7 @@ void Shard::Process(ReadingBatch& batch) {
     if (extras.readings == 1 || entry.time > extras.newest) extras.newest = entry.time;
     extras.arrived = arrived;
     state_.ScheduleSilence(it->first, &extras);
-    if (options_.recent_points > 0) {
-      if (extras.points.size() < options_.recent_points) {
-        extras.points.push_back({entry.time, entry.value});
-        extras.next = extras.points.size() % options_.recent_points;
-      } else {
-        extras.points[extras.next] = {entry.time, entry.value};
-        extras.next = (extras.next + 1) % options_.recent_points;
-      }
-    }
+    extras.points.Push(point, options_.recent_points);
   }
   processed_.fetch_add(batch.size());
   if (observer_) {
@@ -290,7 +288,9 @@ void Shard::Publish() {
   if (out_.empty()) return;
   for (const Alert& alert : out_) {
     auto it = state_.extras_.find(alert.series);
-    if (it == state_.extras_.end() || options_.recent_alerts == 0) continue;
+    if (it == state_.extras_.end()) continue;
+    it->second.Note(alert);
+    if (options_.recent_alerts == 0) continue;
     std::vector<Alert>& recent = it->second.alerts;
     if (recent.size() >= options_.recent_alerts) recent.erase(recent.begin());
     recent.push_back(alert);

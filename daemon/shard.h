@@ -49,14 +49,17 @@
 #include "daemon/ingest_budget.h"
 #include "daemon/pipeline_observer.h"
 #include "daemon/reading_batch.h"
+#include "daemon/series_trace.h"
 
 namespace plumbline {
 
 struct ShardOptions {
   std::size_t queue_batches = 64;     // bound of the input queue, in batches
   EventTime tick = kMicrosPerSecond;  // how often the wall clock is looked at (silence)
-  std::size_t recent_points = 32;     // kept per series for the API (oldest dropped)
-  std::size_t recent_alerts = 8;      // kept per series for the API
+  // Readings kept per series, with their forecasts, for the status page
+  // (oldest dropped; 0: none, and no forecast is computed per reading).
+  std::size_t recent_points = 240;
+  std::size_t recent_alerts = 32;  // alerts and events kept per series for the API
   EngineOptions engine;
 
   // Rules: queue_batches >= 1; tick positive; recent_points and recent_alerts
@@ -74,24 +77,25 @@ class AlertPublisher {
   virtual void Publish(std::size_t shard, std::vector<Alert>* alerts) = 0;
 };
 
-// What the shard keeps per series beside its monitor, for the API.
+// What the shard keeps per series beside its monitor, for the API and the
+// status page.
 struct SeriesExtras {
-  struct Point {
-    EventTime time;
-    double value;
-  };
-  std::vector<Point> points;  // ring of at most recent_points
-  std::size_t next = 0;       // ring position of the next point
+  PointRing points;           // the last recent_points readings with forecasts
   std::vector<Alert> alerts;  // oldest first, at most recent_alerts
   long long readings = 0;     // accepted
+  long long alert_count = 0;  // alerts raised (events of type alert), ever
+  std::optional<EventTime> last_change_at;  // change_at of the latest alert
+  // A level, variance or rate alert came and its retrain event has not yet
+  // (the model is still learning the new regime).
+  bool shifted = false;
   EventTime last_time = 0;
   double last_value = 0.0;
   EventTime newest = 0;    // newest event time accepted
   EventTime arrived = 0;   // clock time when the last reading was accepted
   bool scheduled = false;  // holds an entry in the silence queue
 
-  // Points oldest first.
-  std::vector<Point> RecentPoints() const;
+  // Counts an alert or event of this series into the fields above.
+  void Note(const Alert& alert);
 };
 
 // Heterogeneous lookup by string_view: no string is built per reading.

@@ -14,6 +14,8 @@ packages=(
   clang libclang-rt-14-dev
   # HTTP load figures (tests/benchmarks/http/http_load.sh)
   wrk curl
+  # the status page and replay report in a real browser (tests/e2e/check_ui.py)
+  chromium
   # reference checks: numpy/scipy/statsmodels oracles and R's data sets
   python3 python3-numpy python3-scipy python3-statsmodels r-base-core r-cran-boot
 )

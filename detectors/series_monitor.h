@@ -198,6 +198,7 @@ class SeriesMonitor {
     return forecaster_ ? &*forecaster_ : nullptr;
   }
   const ResidualScale& scale() const { return scale_; }
+  const ProfileOptions& profile() const { return design_->profile; }
   // The phase profile; null until the forecaster starts (forecasts, prediction.h).
   const ResidualProfile* residual_profile() const { return profile_ ? &*profile_ : nullptr; }
   const ArrivalModel& arrivals() const { return arrival_; }

@@ -824,7 +824,8 @@ TEST(JsonTest, SeriesWithoutReadingsHasNullLastReading) {
   summary.kind = "meter";
   EXPECT_EQ(SeriesSummaryToJson(summary),
             "{\"name\":\"coldstore/main/energy_kwh\",\"kind\":\"meter\",\"readings\":0,"
-            "\"last_time\":null,\"last_value\":null,\"armed\":false,\"silent\":false}");
+            "\"last_time\":null,\"last_value\":null,\"armed\":false,\"silent\":false,"
+            "\"state\":\"settling\",\"alert_count\":0,\"last_change_at\":null}");
 }
 
 }  // namespace

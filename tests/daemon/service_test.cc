@@ -9,6 +9,7 @@
 #include <unistd.h>
 
 #include <atomic>
+#include <cmath>
 #include <filesystem>
 #include <string>
 #include <thread>
@@ -127,7 +128,9 @@ TEST(ServiceTest, SeriesViewsFilterByGlobAndDescribeOneSeries) {
   ManualClock clock;
   ServiceDependencies deps;
   deps.clock = &clock;
-  Service service(MakeConfig(TempDir("views")), deps);
+  Config config = MakeConfig(TempDir("views"));
+  config.service.recent_points = 32;  // fewer than the readings: the ring is full
+  Service service(config, deps);
   {
     const Status started = service.Start();
     ASSERT_TRUE(started.ok()) << started.message();
@@ -152,6 +155,13 @@ TEST(ServiceTest, SeriesViewsFilterByGlobAndDescribeOneSeries) {
   ASSERT_EQ(detail->recent_points.size(), 32u);  // the newest, oldest first
   EXPECT_EQ(detail->recent_points.back().time, detail->summary.last_time);
   EXPECT_LT(detail->recent_points.front().time, detail->recent_points.back().time);
+  // Armed after warmup: each point carries the forecast made before it, and a band.
+  EXPECT_EQ(detail->summary.state, SeriesState::kSteady);
+  for (const SeriesDetail::Point& p : detail->recent_points) {
+    ASSERT_TRUE(std::isfinite(p.forecast));
+    EXPECT_LT(p.band_low, p.forecast);
+    EXPECT_GT(p.band_high, p.forecast);
+  }
   EXPECT_FALSE(service.GetSeries("coldstore/nothing"));
   service.Shutdown();
 }

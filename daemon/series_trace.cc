@@ -1,0 +1,74 @@
+#include "daemon/series_trace.h"
+
+#include <algorithm>
+
+namespace plumbline {
+
+TracePoint TracePointBefore(const SeriesMonitor* monitor, EventTime time, double value) {
+  TracePoint point;
+  point.time = time;
+  point.value = value;
+  if (monitor == nullptr) return point;
+  const ProfileOptions& profile = monitor->profile();
+  const bool on_reading_scale = profile.kind != SeriesKind::kMeter && !profile.every;
+  const SeasonalForecaster* forecaster = monitor->forecaster();
+  if (!on_reading_scale || forecaster == nullptr || !forecaster->has_data()) return point;
+  const Forecast forecast = forecaster->Predict(time);
+  const double sigma = monitor->scale().sigma();
+  point.forecast = static_cast<float>(forecast.value);
+  point.band = static_cast<float>(
+      kBandZ * sigma *
+      std::sqrt(1.0 + std::max(0.0, forecast.parameter_variance_factor)));
+  return point;
+}
+
+void PointRing::Push(const TracePoint& point, std::size_t capacity) {
+  if (capacity == 0) return;
+  if (points_.size() < capacity) {
+    points_.push_back(point);
+    next_ = points_.size() % capacity;
+    return;
+  }
+  points_[next_] = point;
+  next_ = (next_ + 1) % points_.size();
+}
+
+std::vector<TracePoint> PointRing::Points() const {
+  std::vector<TracePoint> out;
+  out.reserve(points_.size());
+  for (std::size_t i = 0; i < points_.size(); ++i) {
+    out.push_back(points_[(next_ + i) % points_.size()]);
+  }
+  return out;
+}
+
+std::vector<TracePoint> Decimate(const std::vector<TracePoint>& points,
+                                 std::size_t max_points) {
+  if (points.size() <= max_points || max_points < 2) return points;
+  const std::size_t runs = max_points / 2;
+  std::vector<TracePoint> out;
+  out.reserve(runs * 2);
+  for (std::size_t r = 0; r < runs; ++r) {
+    const std::size_t begin = points.size() * r / runs;
+    const std::size_t end = points.size() * (r + 1) / runs;
+    if (begin == end) continue;
+    auto low = points.begin() + static_cast<std::ptrdiff_t>(begin);
+    auto high = low;
+    for (auto it = low; it != points.begin() + static_cast<std::ptrdiff_t>(end); ++it) {
+      if (it->value < low->value) low = it;
+      if (it->value > high->value) high = it;
+    }
+    if (low == high) {
+      out.push_back(*low);
+    } else if (low < high) {
+      out.push_back(*low);
+      out.push_back(*high);
+    } else {
+      out.push_back(*high);
+      out.push_back(*low);
+    }
+  }
+  return out;
+}
+
+}  // namespace plumbline

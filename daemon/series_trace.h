@@ -1,0 +1,67 @@
+// Series traces: what the status page and the replay report draw for a
+// series. A TracePoint is one accepted reading with the forecast the model
+// made for it just before it arrived (one step ahead) and the half-width of
+// the band around that forecast (about 95%: 1.96 residual sd, widened by the
+// forecaster's parameter uncertainty). PointRing keeps the last N of them.
+//
+// Only gauges and counts read without `every` get a forecast: for them the
+// model forecasts the reading itself. A meter's model forecasts a rate, and a
+// bucketed series a bucket, neither of which is on the reading's scale, so
+// their points carry the reading alone.
+//
+// Pure computation; not thread-safe (a ring belongs to the shard that owns
+// its series).
+#pragma once
+
+#include <cmath>
+#include <cstddef>
+#include <limits>
+#include <string>
+#include <vector>
+
+#include "detectors/event_time.h"
+#include "detectors/series_monitor.h"
+
+namespace plumbline {
+
+// Two-sided 95% normal quantile, for the forecast band.
+inline constexpr double kBandZ = 1.959963984540054;
+
+struct TracePoint {
+  EventTime time = 0;
+  double value = 0.0;
+  // Single precision: a forecast is only good to a fraction of its sd, and a
+  // point stays at 24 bytes. NaN: no forecast (learning, or not on the
+  // reading's scale).
+  float forecast = std::numeric_limits<float>::quiet_NaN();
+  float band = std::numeric_limits<float>::quiet_NaN();  // half-width, >= 0
+
+  bool has_forecast() const { return std::isfinite(forecast); }
+};
+
+// The point for a reading (time, value) about to be fed to `monitor` (null:
+// a series not seen yet), with the monitor's forecast for it when there is one.
+TracePoint TracePointBefore(const SeriesMonitor* monitor, EventTime time, double value);
+
+// The last `capacity` points of a series, oldest dropped. Capacity 0 keeps
+// nothing. Memory: capacity x sizeof(TracePoint) once full.
+class PointRing {
+ public:
+  void Push(const TracePoint& point, std::size_t capacity);
+  // Oldest first.
+  std::vector<TracePoint> Points() const;
+  std::size_t size() const { return points_.size(); }
+
+ private:
+  std::vector<TracePoint> points_;
+  std::size_t next_ = 0;  // where the next point goes once full (= the oldest)
+};
+
+// At most about `max_points` points that still show the shape of `points`
+// (time-ordered): the points are cut into max_points / 2 runs of equal count
+// and each run keeps its lowest and highest reading, in time order, so spikes
+// survive. Fewer points than max_points are returned as they are.
+std::vector<TracePoint> Decimate(const std::vector<TracePoint>& points,
+                                 std::size_t max_points);
+
+}  // namespace plumbline
