@@ -62,7 +62,7 @@ struct HttpServerOptions {
   // Non-empty: every request but GET /healthz must carry `Authorization:
   // Bearer <token>` (access.h); others are answered 401 as soon as their
   // header is read, before any body. Never logged.
-  std::string token;
+  std::string token{};
 
   // Rules: max_body_bytes in [1024, 1 GiB]; max_header_bytes in [1024, 1 MiB];
   // timeouts positive; max_connections in [1, 100000]; ingest_threads and

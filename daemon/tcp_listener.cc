@@ -63,6 +63,9 @@ struct TcpListener::State : std::enable_shared_from_this<TcpListener::State> {
   bool stopped = false;
   std::unordered_map<Session*, std::weak_ptr<Session>> sessions;
   std::uint64_t refused_over_limit = 0;
+  // Time the I/O thread spent in the parsers and routers (mostly waiting on
+  // backpressure), when no connection could be read.
+  std::chrono::steady_clock::duration stalled{};
 };
 
 namespace {
@@ -75,7 +78,6 @@ class Session : public std::enable_shared_from_this<Session> {
         timer_(state_->io),
         peer_(std::move(peer)),
         router_(state_->shards),
-        authenticated_(state_->rules.token.empty()),
         parser_(
             ReadingParserOptions{state_->options.max_line_bytes},
             [this](const Reading& reading) {
@@ -139,10 +141,15 @@ class Session : public std::enable_shared_from_this<Session> {
       if (state_->rules.max_time_ahead > 0) {
         parser_.set_latest_time(WallClockNow() + state_->rules.max_time_ahead);
       }
+      const SteadyTime fed_at = std::chrono::steady_clock::now();
       parser_.Feed(data);
       router_.Flush();
-      // Time spent waiting for the shards (backpressure) is not the peer's idling.
-      last_activity_ = std::chrono::steady_clock::now();
+      // Time spent waiting for the shards (backpressure) is not the peers'
+      // idling: no connection was read meanwhile.
+      const SteadyTime done_at = std::chrono::steady_clock::now();
+      state_->stalled += done_at - fed_at;
+      last_activity_ = done_at;
+      stalled_at_activity_ = state_->stalled;
     }
     if (error) {
       if (error == asio::error::eof) {
@@ -210,7 +217,9 @@ class Session : public std::enable_shared_from_this<Session> {
   void OnIdleTimer(const boost::system::error_code& error) {
     if (closed_ || error == asio::error::operation_aborted) return;
     const auto idle_limit = std::chrono::microseconds(state_->options.idle_timeout);
-    const auto idle = std::chrono::steady_clock::now() - last_activity_;
+    // Not counting the time the I/O thread spent feeding the shards since.
+    const auto idle = std::chrono::steady_clock::now() - last_activity_ -
+                      (state_->stalled - stalled_at_activity_);
     if (idle >= idle_limit) {
       LogInfo("idle connection closed",
               {{"input", "tcp"},
@@ -231,8 +240,9 @@ class Session : public std::enable_shared_from_this<Session> {
   ReadingParser parser_;
   std::array<char, kReadBytes> buffer_;
   SteadyTime last_activity_;
+  std::chrono::steady_clock::duration stalled_at_activity_{};  // state_->stalled then
   std::uint64_t rejected_ = 0;
-  bool authenticated_;      // no token is asked for, or it was given
+  bool authenticated_ = state_->rules.token.empty();  // no token asked, or given
   std::string token_line_;  // the first line while it arrives (with a token only)
   bool shards_closed_ = false;
   bool closed_ = false;
