@@ -166,7 +166,16 @@ def scenario_annotations(args, tmp):
 
     # The rest of the readings, over the windows and the change.
     ingest(daemon, readings(2 * day, 4 * day, shifts, 2))
-    events = get_json(daemon, "/v1/alerts?since=2026-03-01T00:00:00Z")["alerts"]
+    # Alerts reach /v1/alerts through the dispatcher after the readings were
+    # judged: wait (bounded) for the ones expected, A's and C's.
+    deadline = time.time() + 60
+    while True:
+        events = get_json(daemon, "/v1/alerts?since=2026-03-01T00:00:00Z")["alerts"]
+        if (any(e["series"] == C and e["event"] == "retrain" for e in events) and
+                any(e["series"] == A and e["event"] == "suppressed" for e in events)) or \
+                time.time() > deadline:
+            break
+        time.sleep(0.1)
     suppressed = [e for e in events if e["event"] == "suppressed" and e["series"] == A]
     check(suppressed and all(e["suppressed_by"] == held_by for e in suppressed),
           "A's step inside its window was not held back: %s" % events)
