@@ -41,7 +41,7 @@ if os.path.exists(os.path.join(here, "vary")):
         f.write("x")
     lines += '{"id":"v%d","event":"alert","series":"s/a","kind":"level","direction":"up",' \
              '"detected_at":"2000-01-01T00:00:00Z","change_at":"2000-01-01T00:00:00Z",' \
-             '"detectors":["cusum"]}\n' % n
+             '"detectors":["cusum"],"severity":"notify"}\n' % n
 with open(alerts, "w") as f:
     f.write(lines)
 extra = ""
@@ -85,7 +85,7 @@ def alert(series="s/a", kind="level", direction="up", detected="2000-01-10T00:00
           change="2000-01-05T00:00:00Z", ident=None, **extra):
     obj = {"id": ident or f"{series}-{kind}-{direction}-{detected}-{change}", "event": "alert",
            "series": series, "kind": kind, "direction": direction, "detected_at": detected,
-           "change_at": change, "detectors": ["cusum"]}
+           "change_at": change, "detectors": ["cusum"], "severity": "notify"}
     obj.update(extra)
     return obj
 
