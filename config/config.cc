@@ -44,7 +44,7 @@ constexpr std::string_view kListenerKeys[] = {"tcp", "http"};
 constexpr std::string_view kTcpKeys[] = {
     "enabled", "address", "port", "idle_timeout", "max_connections", "max_line_bytes"};
 constexpr std::string_view kHttpKeys[] = {"enabled", "address", "port", "max_body_bytes"};
-constexpr std::string_view kStorageKeys[] = {"directory"};
+constexpr std::string_view kStorageKeys[] = {"directory", "checkpoint_every", "http_ingest"};
 constexpr std::string_view kInputKeys[] = {"files"};
 constexpr std::string_view kFileKeys[] = {"path", "start_at", "poll_interval"};
 constexpr std::string_view kSinkKeys[] = {"alert_log", "webhook", "stdout", "events"};
@@ -698,6 +698,14 @@ class Loader {
       Size(f, "a whole number of readings (0: none)", &o->recent_points);
     } else if (k == "storage") {
       Section(f, "storage", kStorageKeys, [&](const Field& e) {
+        if (e.key == "checkpoint_every") {
+          Duration(e, true, &o->checkpoint_every);
+          return true;
+        }
+        if (e.key == "http_ingest") {
+          Enum(e, IngestAckFromString, IngestAckChoices(), &o->http_ingest);
+          return true;
+        }
         if (e.key != "directory") return false;
         ScalarText(e, "a directory path", &o->state_directory);
         return true;

@@ -41,6 +41,18 @@ bool HttpListenerOptions::IsValid(std::string* why) const {
   return true;
 }
 
+std::string_view ToString(IngestAck ack) {
+  return ack == IngestAck::kFast ? "fast" : "durable";
+}
+
+std::optional<IngestAck> IngestAckFromString(std::string_view text) {
+  if (text == "durable") return IngestAck::kDurable;
+  if (text == "fast") return IngestAck::kFast;
+  return std::nullopt;
+}
+
+std::string_view IngestAckChoices() { return "durable | fast"; }
+
 std::string_view ToString(StartAt start_at) {
   return start_at == StartAt::kEnd ? "end" : "beginning";
 }
@@ -154,6 +166,9 @@ bool ServiceOptions::IsValid(std::string* why) const {
   if (recent_points > 4096) return Fail(why, "recent_points must be in [0, 4096]");
   if (state_directory.empty())
     return Fail(why, "directory must name the state directory");
+  if (checkpoint_every < 0 || checkpoint_every > 24 * kMicrosPerHour) {
+    return Fail(why, "checkpoint_every must be in [0, 24h] (0: never)");
+  }
   if (metrics_series_limit < 0 || metrics_series_limit > 100000) {
     return Fail(why, "series_limit must be in [0, 100000]");
   }

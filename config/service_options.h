@@ -16,6 +16,10 @@
 //   recent_points: 240             # per series, for the status page (0: none)
 //   storage:
 //     directory: plumbline-state   # offsets and default sink files live here
+//     checkpoint_every: 5m         # series state saved this often and at shutdown (0: never,
+//                                  # and no write-ahead log either)
+//     http_ingest: durable         # durable: POST /v1/readings answers once its readings
+//                                  # are in the fsynced write-ahead log; fast: at once
 //   inputs:
 //     files:                       # followed like `tail -F`
 //       - path: /var/log/coldstore/readings.csv
@@ -79,6 +83,12 @@ struct HttpListenerOptions {
   // [1024, 1073741824].
   bool IsValid(std::string* why) const;
 };
+
+// When HTTP ingest answers: after the write-ahead log's fsync, or at once.
+enum class IngestAck { kDurable, kFast };
+std::string_view ToString(IngestAck ack);
+std::optional<IngestAck> IngestAckFromString(std::string_view text);
+std::string_view IngestAckChoices();  // "durable | fast"
 
 enum class StartAt { kBeginning, kEnd };
 std::string_view ToString(StartAt start_at);
@@ -162,6 +172,10 @@ struct ServiceOptions {
   // GET /v1/series/{name}: 24 bytes each; 0 keeps none.
   std::size_t recent_points = 240;
   std::string state_directory = "plumbline-state";
+  // Series state is checkpointed this often and at shutdown, and restored
+  // at start (daemon/checkpoint.h); 0: never (every restart relearns).
+  EventTime checkpoint_every = 5 * kMicrosPerMinute;
+  IngestAck http_ingest = IngestAck::kDurable;  // key storage.http_ingest
   std::vector<FileInputOptions> files;
   SinkOptions sinks;
   int metrics_series_limit = 100;  // key metrics.series_limit

@@ -112,6 +112,20 @@ class Engine {
   // appended to *out.
   ReconfigureReport Reconfigure(Config config, std::vector<Alert>* out);
 
+  // Checkpoints (daemon/checkpoint.h). Calls `each(name, state)` for every
+  // series; `state` holds the profile settings it runs under and its monitor
+  // (detectors/snapshot.h encoding).
+  void SaveSeries(
+      const std::function<void(const std::string& name, std::string state)>& each) const;
+  // Restores one series saved by SaveSeries, judged against the profile that
+  // matches its name now as Reconfigure judges a reload: same settings, kept;
+  // same model settings, retuned; otherwise restarted (it learns afresh from
+  // its next reading); no profile, dropped. The outcome is counted in
+  // *report. Corruption when the state does not parse or fit (the series is
+  // then left out).
+  Status RestoreSeries(std::string_view name, std::string_view state,
+                       ReconfigureReport* report);
+
   std::size_t series_count() const { return series_.size(); }
   const SeriesMonitor* Find(std::string_view series) const;
   // The first profile-design failure, if any (a profile that cannot be calibrated).

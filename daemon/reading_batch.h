@@ -106,6 +106,13 @@ struct ReadingBatch {
   std::shared_ptr<IngestTicket> ticket;               // null: nobody waits for verdicts
   std::shared_ptr<IngestLease> lease;  // its bytes of the ingest budget (null: none)
   std::chrono::steady_clock::time_point handed_at{};  // set when pushed, for latency
+  // Write-ahead log (daemon/write_ahead_log.h): the producer's stream in
+  // acknowledged mode ("" otherwise); the record's sequence, set by
+  // Shard::Push (0: not logged); replayed batches come from the log and are
+  // not logged again.
+  std::string stream;
+  std::uint64_t wal_sequence = 0;
+  bool replayed = false;
 
   void Add(const Reading& reading, std::uint64_t line) {
     entries.push_back({reading.time, reading.value, line,

@@ -179,19 +179,35 @@ Status Service::Start() {
   shard_options.queue_batches = static_cast<std::size_t>(options.queue_batches);
   shard_options.engine.max_series = options.max_series;
   shard_options.recent_points = options.recent_points;
+  if (options.checkpoint_every > 0) {  // checkpoints and the log go together
+    wal_ = std::make_unique<WriteAheadLog>(options.state_directory, deps_.file_system);
+    shard_options.wal = wal_.get();
+  }
   shard_options.engine.make_design = [designs = designs_](const ProfileOptions& profile) {
     return designs->Make(profile);
   };
+  AlertPublisher* publisher = dispatcher_.get();
+  if (wal_ && options.sinks.alert_log.enabled) {  // a restart replays the log's tail
+    known_alerts_ = MakeKnownAlertFilter(
+        options.InStateDirectory(options.sinks.alert_log.path), publisher, nullptr);
+    publisher = known_alerts_.get();
+  }
   shards_ = std::make_unique<ShardSet>(
       static_cast<std::size_t>(options.EffectiveShards()), initial, shard_options,
-      deps_.clock, dispatcher_.get(), deps_.observer);
+      deps_.clock, publisher, deps_.observer);
   budget_ = std::make_unique<IngestBudget>(options.ingest_memory_bytes, deps_.observer);
   shards_->set_budget(budget_.get());
   shards_->Start();
+  if (Status status = StartCheckpoints(); !status.ok()) {
+    started_ = true;
+    Shutdown();
+    return status;
+  }
 
   if (options.tcp.enabled) {
     tcp_ = std::make_unique<TcpListener>(io_, options.tcp, shards_.get(), deps_.observer,
                                          TcpIngestRules{options.max_time_ahead, access_token_});
+    tcp_->set_write_ahead_log(wal_.get());
     if (Status status = tcp_->Start(); !status.ok()) {
       tcp_.reset();
       started_ = true;
@@ -243,6 +259,7 @@ void Service::Shutdown() {
   const SteadyTime deadline = begun + timeout;
   LogInfo("shutting down: stopping inputs");
   StopInputs(drain_deadline);
+  StopCheckpoints(drain_deadline);
   LogInfo("shutting down: draining shard queues");
   if (shards_) shards_->CloseAndJoin(drain_deadline);
   LogInfo("shutting down: flushing sinks");
@@ -311,6 +328,7 @@ IngestReceipt Service::IngestLines(std::string_view body) {
   }
   auto lease = std::make_shared<IngestLease>(budget_.get(), bytes);
   auto ticket = std::make_shared<IngestTicket>();
+  std::uint64_t wal_sequence = 0;
   std::uint64_t routed = 0, parse_refused = 0;
   {
     ShardRouter router(shards_.get(), ticket, std::move(lease), "http");
@@ -331,8 +349,17 @@ IngestReceipt Service::IngestLines(std::string_view body) {
     parser.Finish();
     router.Flush();
     routed = router.routed();
+    wal_sequence = router.last_wal_sequence();
   }
   const bool judged = ticket->Wait(kIngestWait);
+  // Durable mode: answered once the readings are in the fsynced log.
+  if (wal_ && config_.service.http_ingest == IngestAck::kDurable && wal_sequence > 0 &&
+      !wal_->WaitDurable(wal_sequence, kIngestWait)) {
+    receipt.rejected = routed + parse_refused;
+    receipt.first_rejections.push_back({1, "not_durable"});
+    LogWarning("ingest not made durable", {{"input", "http"}});
+    return receipt;
+  }
   receipt.accepted = ticket->accepted();
   receipt.rejected = ticket->refused();
   if (!judged) {
@@ -445,6 +472,17 @@ bool Service::Ready(std::string* why) {
   if (stopping_) {
     if (why) *why = "shutting down";
     return false;
+  }
+  {
+    std::lock_guard<std::mutex> lock(checkpoint_mutex_);
+    if (!checkpoint_failure_.ok()) {
+      if (why) *why = "checkpoint failed: " + checkpoint_failure_.message();
+      return false;
+    }
+    if (wal_ && !wal_->failure().ok()) {
+      if (why) *why = "write-ahead log failed: " + wal_->failure().message();
+      return false;
+    }
   }
   return dispatcher_->Healthy(why);
 }

@@ -27,6 +27,7 @@
 #include <boost/asio/executor_work_guard.hpp>
 #include <boost/asio/io_context.hpp>
 #include <chrono>
+#include <condition_variable>
 #include <cstdio>
 #include <memory>
 #include <mutex>
@@ -38,6 +39,7 @@
 
 #include "config/config.h"
 #include "daemon/alert_sinks.h"
+#include "daemon/checkpoint.h"
 #include "daemon/annotation_store.h"
 #include "daemon/clock.h"
 #include "daemon/file_follower.h"
@@ -46,6 +48,7 @@
 #include "daemon/service_view.h"
 #include "daemon/shard.h"
 #include "daemon/tcp_listener.h"
+#include "daemon/write_ahead_log.h"
 
 namespace plumbline {
 
@@ -155,6 +158,24 @@ class Service : public ServiceView {
   std::atomic<bool> started_{false};
   std::atomic<bool> stopping_{false};
   bool stopped_ = false;
+
+  // Checkpoints (daemon/checkpoint.h, daemon/service_checkpoint.cc); off
+  // while storage.checkpoint_every is 0. StartCheckpoints restores the
+  // newest good checkpoint into the shards (before any input runs) and starts
+  // the thread that saves one every checkpoint_every; StopCheckpoints stops
+  // it and, once the shard queues are drained, saves the last one.
+  Status StartCheckpoints();
+  void StopCheckpoints(std::chrono::steady_clock::time_point deadline);
+  Status SaveCheckpoint();
+  std::unique_ptr<CheckpointStore> checkpoints_;
+  std::unique_ptr<WriteAheadLog> wal_;  // made before the shards, which log into it
+  std::uint64_t older_wal_done_ = 0;    // wal_done of the older checkpoint on disk
+  std::unique_ptr<AlertPublisher> known_alerts_;  // in front of the dispatcher
+  std::thread checkpoint_thread_;
+  std::mutex checkpoint_mutex_;  // guards checkpoint_stop_ and checkpoint_failure_
+  std::condition_variable checkpoint_wake_;
+  bool checkpoint_stop_ = false;
+  Status checkpoint_failure_;  // the first failed save (sticky; shown on /readyz)
 };
 
 }  // namespace plumbline

@@ -3,6 +3,7 @@
 #include <algorithm>
 
 #include "daemon/log.h"
+#include "daemon/write_ahead_log.h"
 
 namespace plumbline {
 namespace {
@@ -128,6 +129,10 @@ bool Shard::Push(ReadingBatch* batch) {
     });
     if (input_closed_) return false;
     batch->handed_at = std::chrono::steady_clock::now();
+    // Logged under the queue's lock: the log's order is this queue's order.
+    if (options_.wal && !batch->replayed) {
+      batch->wal_sequence = options_.wal->AppendBatch(*batch, batch->stream);
+    }
     batches_.push_back(std::move(*batch));
     depth = batches_.size();
   }
@@ -164,6 +169,17 @@ void Shard::Join() {
   if (thread_.joinable()) thread_.join();
 }
 
+std::uint64_t Shard::WalDoneThrough() const {
+  std::lock_guard<std::mutex> lock(mutex_);
+  if (in_hand_ != 0) return in_hand_ - 1;
+  if (!batches_.empty() && batches_.front().wal_sequence != 0) {
+    return batches_.front().wal_sequence - 1;
+  }
+  // Nothing queued: every batch logged so far is in the state (a later
+  // batch for this shard is logged under this lock, after this answer).
+  return options_.wal ? options_.wal->next_sequence() - 1 : 0;
+}
+
 std::size_t Shard::queue_depth() const {
   std::lock_guard<std::mutex> lock(mutex_);
   return batches_.size();
@@ -183,12 +199,14 @@ void Shard::Run() {
         return !tasks_.empty() || !batches_.empty() || input_closed_;
       });
       tasks.swap(tasks_);
+      in_hand_ = 0;
       if (input_closed_ && drain_deadline_ && !batches_.empty() &&
           std::chrono::steady_clock::now() >= *drain_deadline_) {
         dropped.swap(batches_);
       }
       if (!batches_.empty()) {
         batch.emplace(std::move(batches_.front()));
+        in_hand_ = batch->wal_sequence;
         batches_.pop_front();
       }
       depth = batches_.size();
@@ -369,12 +387,14 @@ bool ShardRouter::PushBatch(std::size_t shard) {
     budget->Acquire(bytes, input_);  // reads pause here while the budget is full
     batch.lease = std::make_shared<IngestLease>(budget, bytes);
   }
+  batch.stream = stream_;
   if (!shards_->shard(shard).Push(&batch)) {
     closed_ = true;
     if (ticket_) ticket_->BatchDone(0, batch.size(), {});
     batch = ReadingBatch();
     return false;
   }
+  last_wal_sequence_ = std::max(last_wal_sequence_, batch.wal_sequence);
   // Push moved the batch out; reuse nothing from it (its buffers went along).
   batch = ReadingBatch();
   batch.entries.reserve(kMaxBatchReadings);

@@ -61,6 +61,8 @@ struct ShardOptions {
   std::size_t recent_points = 240;
   std::size_t recent_alerts = 32;  // alerts and events kept per series for the API
   EngineOptions engine;
+  // Where Push logs each batch (daemon/write_ahead_log.h); null: no log.
+  class WriteAheadLog* wal = nullptr;
 
   // Rules: queue_batches >= 1; tick positive; recent_points and recent_alerts
   // in [0, 4096]; engine valid.
@@ -124,6 +126,14 @@ class ShardState {
   // profile settings did not change (Engine::Reconfigure). Events released
   // by restarted series are appended to *out.
   ReconfigureReport Reconfigure(const Config& config, std::vector<Alert>* out);
+
+  // Checkpoints (daemon/checkpoint.h): appends a record per series to *w
+  // and counts them in *count; `wal_done` is Shard::WalDoneThrough.
+  void SaveSeries(std::uint64_t wal_done, SnapshotWriter* w, std::uint64_t* count) const;
+  // Restores one saved series (Engine::RestoreSeries) and what the shard kept
+  // beside it; its silence clock restarts at clock time `now`.
+  Status RestoreSeries(const struct CheckpointSeries& series, EventTime now,
+                       ReconfigureReport* report);
 
  private:
   friend class Shard;
@@ -205,6 +215,10 @@ class Shard {
   std::size_t series_count() const { return series_count_.load(); }
   // Readings processed (any verdict), for tests and logs.
   std::uint64_t processed() const { return processed_.load(); }
+  // The write-ahead log sequence through which every batch this shard was
+  // handed is in its state (its queue holds none at or before it). For
+  // checkpoint tasks, on the shard thread.
+  std::uint64_t WalDoneThrough() const;
 
  private:
   void Run();
@@ -227,6 +241,7 @@ class Shard {
   bool input_closed_ = false;
   std::optional<std::chrono::steady_clock::time_point> drain_deadline_;
   bool stopped_ = false;
+  std::uint64_t in_hand_ = 0;  // wal_sequence of the batch taken and not yet processed
 
   std::thread thread_;
   std::atomic<std::size_t> series_count_{0};
@@ -284,6 +299,10 @@ class ShardRouter {
   // Pushes every non-empty batch. False if any shard refused.
   bool Flush();
   std::uint64_t routed() const { return routed_; }
+  // Acknowledged mode: batches carry this stream name into the write-ahead log.
+  void set_stream(std::string stream) { stream_ = std::move(stream); }
+  // The highest write-ahead log sequence of the batches pushed so far.
+  std::uint64_t last_wal_sequence() const { return last_wal_sequence_; }
 
  private:
   bool PushBatch(std::size_t shard);
@@ -293,6 +312,8 @@ class ShardRouter {
   std::shared_ptr<IngestLease> prepaid_;
   std::string_view input_;
   std::vector<ReadingBatch> batches_;  // index: shard
+  std::string stream_;
+  std::uint64_t last_wal_sequence_ = 0;
   std::uint64_t routed_ = 0;
   bool closed_ = false;
 };

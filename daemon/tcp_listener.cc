@@ -1,14 +1,19 @@
 #include "daemon/tcp_listener.h"
 
+#include <algorithm>
 #include <array>
 #include <boost/asio/post.hpp>
 #include <boost/asio/steady_timer.hpp>
+#include <boost/asio/write.hpp>
 #include <chrono>
+#include <optional>
+#include <shared_mutex>
 #include <unordered_map>
 
 #include "daemon/access.h"
 #include "daemon/clock.h"
 #include "daemon/log.h"
+#include "daemon/write_ahead_log.h"
 
 namespace plumbline {
 namespace {
@@ -18,6 +23,26 @@ using tcp = asio::ip::tcp;
 using SteadyTime = std::chrono::steady_clock::time_point;
 
 constexpr std::size_t kReadBytes = 64 * 1024;  // one read; also what a session pins
+
+// Acknowledged mode (with a write-ahead log). A sender that must not lose or
+// repeat a reading opens with the line
+//
+//   ack <stream name>
+//
+// naming its stream (one connection per stream at a time; names up to
+// kMaxStreamLineBytes). The server answers `durable <n>`: n complete lines
+// of that stream are durable (in the fsynced log or a checkpoint), counted
+// over every connection and restart since the stream began. The sender sends
+// its lines from line n + 1 on; as they become durable the server writes
+// `durable <n>` again (cumulative; several may be folded into one). After a
+// broken connection or a restart the sender reconnects, reads n and resends
+// from there: nothing is lost, nothing is taken twice. Every line counts
+// (refused ones too) and must end with a newline; the `ack` line itself does
+// not count. Without a first `ack` line a connection is unacknowledged, as
+// before.
+constexpr std::size_t kMaxStreamLineBytes = 300;
+constexpr std::string_view kStreamPrefix = "ack ";
+
 // Longest token line accepted before the connection is refused as unauthorized.
 constexpr std::size_t kMaxTokenLineBytes = 1024;
 
@@ -55,6 +80,7 @@ struct TcpListener::State : std::enable_shared_from_this<TcpListener::State> {
   const TcpIngestRules rules;
   ShardSet* const shards;
   PipelineObserver* const observer;
+  WriteAheadLog* wal = nullptr;  // acknowledged mode when set
   tcp::acceptor acceptor;
   tcp::endpoint endpoint;
   std::atomic<std::size_t> open{0};
@@ -138,12 +164,18 @@ class Session : public std::enable_shared_from_this<Session> {
       last_activity_ = std::chrono::steady_clock::now();
       std::string_view data(buffer_.data(), bytes);
       if (!authenticated_ && !Authenticate(&data, error)) return;
+      if (!stream_checked_ && state_->wal && !TakeStreamLine(&data, error)) return;
       if (state_->rules.max_time_ahead > 0) {
         parser_.set_latest_time(WallClockNow() + state_->rules.max_time_ahead);
       }
       const SteadyTime fed_at = std::chrono::steady_clock::now();
-      parser_.Feed(data);
-      router_.Flush();
+      {
+        std::shared_lock<std::shared_mutex> gate;  // acknowledged: pushes and mark together
+        if (!stream_.empty()) gate = std::shared_lock(state_->wal->stream_gate());
+        parser_.Feed(data);
+        router_.Flush();
+        if (!stream_.empty()) MarkDurable(data);
+      }
       // Time spent waiting for the shards (backpressure) is not the peers'
       // idling: no connection was read meanwhile.
       const SteadyTime done_at = std::chrono::steady_clock::now();
@@ -206,6 +238,88 @@ class Session : public std::enable_shared_from_this<Session> {
     Close("unauthorized");
   }
 
+  // Gathers the first line. An `ack` line starts acknowledged mode and is
+  // consumed; any other first line is fed as readings. False while the line
+  // is incomplete (the next read was started) or the connection closed.
+  bool TakeStreamLine(std::string_view* data, const boost::system::error_code& error) {
+    const std::size_t end = data->find('\n');
+    stream_line_.append(data->substr(0, end));
+    if (end == std::string_view::npos && stream_line_.size() <= kMaxStreamLineBytes &&
+        !error) {
+      DoRead();
+      return false;
+    }
+    stream_checked_ = true;
+    std::string_view line = stream_line_;
+    if (!line.empty() && line.back() == '\r') line.remove_suffix(1);
+    if (end == std::string_view::npos || line.substr(0, kStreamPrefix.size()) != kStreamPrefix) {
+      if (end != std::string_view::npos) {
+        stream_line_ += '\n';
+        data->remove_prefix(end + 1);
+      } else {
+        *data = {};  // all of it is in stream_line_
+      }
+      parser_.Feed(stream_line_);  // a reading, not a stream line
+      stream_line_.clear();
+      return true;
+    }
+    data->remove_prefix(end + 1);
+    stream_ = std::string(line.substr(kStreamPrefix.size()));
+    stream_line_.clear();
+    if (stream_.empty()) {
+      LogWarning("connection refused: empty stream name", {{"input", "tcp"}, {"peer", peer_}});
+      Close("empty stream name");
+      return false;
+    }
+    router_.set_stream(stream_);
+    std::uint64_t through = 0;
+    const auto streams = state_->wal->Streams(&through);
+    const auto known = streams.find(stream_);
+    lines_ = known == streams.end() ? 0 : known->second;
+    LogDebug("acknowledged stream", {{"input", "tcp"}, {"peer", peer_}, {"stream", stream_},
+                                     {"durable_lines", lines_}});
+    AcknowledgeWhenDurable(through, lines_);
+    return true;
+  }
+
+  // After a read in acknowledged mode: logs how many lines the stream has
+  // sent, and acknowledges them once that mark is durable.
+  void MarkDurable(std::string_view data) {
+    const auto complete = static_cast<std::uint64_t>(std::count(data.begin(), data.end(), '\n'));
+    if (complete == 0) return;
+    lines_ += complete;
+    AcknowledgeWhenDurable(state_->wal->AppendMark(stream_, lines_), lines_);
+  }
+
+  void AcknowledgeWhenDurable(std::uint64_t sequence, std::uint64_t lines) {
+    state_->wal->OnDurable(sequence, [weak = weak_from_this(), &io = state_->io, lines] {
+      asio::post(io, [weak, lines] {
+        if (auto self = weak.lock()) self->Acknowledge(lines);
+      });
+    });
+  }
+
+  void Acknowledge(std::uint64_t lines) {
+    if (closed_) return;
+    if (!ack_target_ || lines > *ack_target_) ack_target_ = lines;
+    if (!writing_ack_) DoWriteAck();
+  }
+
+  void DoWriteAck() {
+    writing_ack_ = true;
+    ack_written_ = ack_target_;
+    ack_text_ = "durable " + std::to_string(*ack_target_) + "\n";
+    asio::async_write(socket_, asio::buffer(ack_text_),
+                      [self = shared_from_this()](const boost::system::error_code& error,
+                                                  std::size_t) { self->OnWriteAck(error); });
+  }
+
+  void OnWriteAck(const boost::system::error_code& error) {
+    writing_ack_ = false;
+    if (error || closed_) return;  // the read side sees the broken connection
+    if (ack_target_ != ack_written_) DoWriteAck();
+  }
+
   void DoWaitIdle(std::chrono::steady_clock::duration wait) {
     timer_.expires_after(wait);
     timer_.async_wait(
@@ -244,6 +358,14 @@ class Session : public std::enable_shared_from_this<Session> {
   std::uint64_t rejected_ = 0;
   bool authenticated_ = state_->rules.token.empty();  // no token asked, or given
   std::string token_line_;  // the first line while it arrives (with a token only)
+  // Acknowledged mode (with a write-ahead log only).
+  bool stream_checked_ = false;
+  std::string stream_line_;  // the first line while it arrives
+  std::string stream_;       // empty: not acknowledged
+  std::uint64_t lines_ = 0;  // complete lines of the stream so far
+  std::optional<std::uint64_t> ack_target_, ack_written_;
+  bool writing_ack_ = false;
+  std::string ack_text_;
   bool shards_closed_ = false;
   bool closed_ = false;
 };
@@ -337,6 +459,8 @@ Status TcpListener::Start() {
 boost::asio::ip::tcp::endpoint TcpListener::local_endpoint() const {
   return state_->endpoint;
 }
+
+void TcpListener::set_write_ahead_log(WriteAheadLog* wal) { state_->wal = wal; }
 
 void TcpListener::Stop() {
   asio::post(state_->io, [state = state_] { state->CloseAll(); });

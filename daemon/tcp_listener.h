@@ -59,6 +59,9 @@ class TcpListener {
   // Binds and listens on options.address:port, then accepts on the io_context.
   // Unavailable with the address and the system's reason when it cannot bind.
   Status Start();
+  // Enables acknowledged mode (see tcp_listener.cc, "Acknowledged mode");
+  // `wal` must be started and outlive the listener. Call before Start.
+  void set_write_ahead_log(class WriteAheadLog* wal);
   // The bound address (the real port when port 0 was asked for).
   boost::asio::ip::tcp::endpoint local_endpoint() const;
   // Stops accepting and closes every connection after its current read

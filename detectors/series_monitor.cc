@@ -903,4 +903,191 @@ std::optional<SeriesMonitor::RunLengthSnapshot> SeriesMonitor::RunLength() const
   return std::nullopt;
 }
 
+namespace {
+
+void SaveScore(const auto& score, SnapshotWriter& w) {
+  w.F64(score.scaled_squares);
+  w.F64(score.log_spreads);
+  w.I64(score.count);
+  w.F64(score.previous);
+  w.F64(score.cross);
+  w.F64(score.square);
+}
+
+void LoadScore(auto* score, SnapshotReader& r) {
+  score->scaled_squares = r.F64();
+  score->log_spreads = r.F64();
+  score->count = r.I64();
+  score->previous = r.F64();
+  score->cross = r.F64();
+  score->square = r.F64();
+}
+
+void SaveAlarm(const Alarm& a, SnapshotWriter& w) {
+  w.Bool(a.fired);
+  w.U8(static_cast<std::uint8_t>(a.direction));
+  w.I64(a.change_at);
+  w.F64(a.shift);
+  w.F64(a.statistic);
+}
+
+void LoadAlarm(Alarm* a, SnapshotReader& r) {
+  a->fired = r.Bool();
+  a->direction = static_cast<Direction>(r.U8());
+  a->change_at = r.I64();
+  a->shift = r.F64();
+  a->statistic = r.F64();
+}
+
+}  // namespace
+
+void SeriesMonitor::Save(SnapshotWriter& w) const {
+  w.Tag("SMON");
+  w.Bool(forecaster_.has_value());
+  if (forecaster_) {
+    forecaster_->Save(w);
+    SaveScore(forecaster_score_, w);
+    w.U64(rivals_.size());
+    for (const RivalForecaster& rival : rivals_) {
+      rival.forecaster.Save(w);
+      SaveScore(rival.score, w);
+    }
+  }
+  w.U64(probe_.size());
+  for (const HeldObservation& h : probe_) {
+    w.I64(h.from);
+    w.I64(h.to);
+    w.F64(h.y);
+  }
+  scale_.Save(w);
+  w.Bool(profile_.has_value());
+  if (profile_) {
+    w.I64(profile_->period());
+    w.I64(profile_->bins());
+    w.I64(profile_->fold_bins());
+    profile_->Save(w);
+  }
+  arrival_.Save(w);
+  variance_.Save(w);
+  w.U64(level_.size());
+  for (std::size_t i = 0; i < level_.size(); ++i) {
+    w.U8(static_cast<std::uint8_t>(level_kinds_[i]));
+    std::visit([&w](const auto& d) { d.Save(w); }, level_[i]);
+    w.I64(firings_[i].observation);
+    SaveAlarm(firings_[i].alarm, w);
+    w.F64(threshold_fraction_[i]);
+  }
+  w.U64(pending_.size());
+  for (const auto& [t, v] : pending_) {
+    w.I64(t);
+    w.F64(v);
+  }
+  w.I64(newest_);
+  w.I64(released_);
+  intake_.Save(w);
+  w.I64(observations_);
+  w.I64(level_hold_until_);
+  w.I64(variance_hold_until_);
+  w.I64(rate_hold_until_);
+  w.F64(last_z_);
+  w.Bool(has_previous_u_);
+  w.F64(previous_u_);
+  w.I64(previous_time_);
+  w.F64(cross_);
+  w.F64(square_);
+  w.I64(pairs_);
+  w.F64(rho_);
+  w.DoubleVector(variance_sample_);
+  w.DoubleVector(arrival_sample_);
+  w.Bool(variance_refitted_);
+  w.Bool(arrival_refitted_);
+  w.Bool(silent_);
+  w.Bool(has_reading_);
+  w.I64(last_reading_);
+  w.OptionalI64(regime_start_);
+  for (EventTime t : recent_times_) w.I64(t);
+  w.I64(regime_observations_);
+}
+
+Status SeriesMonitor::Load(SnapshotReader& r) {
+  r.Tag("SMON");
+  forecaster_.reset();
+  rivals_.clear();
+  if (r.Bool()) {
+    forecaster_.emplace(design_->forecaster);
+    if (Status s = forecaster_->Load(r); !s.ok()) return s;
+    LoadScore(&forecaster_score_, r);
+    const std::size_t rivals = r.Count(1);
+    for (std::size_t i = 0; i < rivals && r.ok(); ++i) {
+      rivals_.push_back({SeasonalForecaster(design_->forecaster), {}});
+      if (Status s = rivals_.back().forecaster.Load(r); !s.ok()) return s;
+      LoadScore(&rivals_.back().score, r);
+    }
+  }
+  probe_.resize(r.Count(24));
+  for (HeldObservation& h : probe_) {
+    h.from = r.I64();
+    h.to = r.I64();
+    h.y = r.F64();
+  }
+  if (Status s = scale_.Load(r); !s.ok()) return s;
+  profile_.reset();
+  if (r.Bool()) {
+    const EventTime period = r.I64();
+    const std::int64_t bins = r.I64();
+    const std::int64_t fold = r.I64();
+    if (r.ok() && (period <= 0 || bins < 1 || bins > kMaxLongPhaseBins || fold < 0 ||
+                   fold > bins)) {
+      return r.Fail("phase profile out of range");
+    }
+    profile_.emplace(period, static_cast<int>(bins), design_->scale.clip,
+                     static_cast<int>(fold));
+    if (Status s = profile_->Load(r); !s.ok()) return s;
+  }
+  if (Status s = arrival_.Load(r); !s.ok()) return s;
+  if (Status s = variance_.Load(r); !s.ok()) return s;
+  if (r.Count(1) != level_.size()) return r.Fail("level detectors differ");
+  for (std::size_t i = 0; i < level_.size(); ++i) {
+    if (r.U8() != static_cast<std::uint8_t>(level_kinds_[i])) {
+      return r.Fail("level detectors differ");
+    }
+    if (Status s = std::visit([&r](auto& d) { return d.Load(r); }, level_[i]); !s.ok())
+      return s;
+    firings_[i].observation = r.I64();
+    LoadAlarm(&firings_[i].alarm, r);
+    threshold_fraction_[i] = r.F64();
+  }
+  pending_.resize(r.Count(16));
+  for (auto& [t, v] : pending_) {
+    t = r.I64();
+    v = r.F64();
+  }
+  newest_ = r.I64();
+  released_ = r.I64();
+  if (Status s = intake_.Load(r); !s.ok()) return s;
+  observations_ = r.I64();
+  level_hold_until_ = r.I64();
+  variance_hold_until_ = r.I64();
+  rate_hold_until_ = r.I64();
+  last_z_ = r.F64();
+  has_previous_u_ = r.Bool();
+  previous_u_ = r.F64();
+  previous_time_ = r.I64();
+  cross_ = r.F64();
+  square_ = r.F64();
+  pairs_ = r.I64();
+  rho_ = r.F64();
+  variance_sample_ = r.DoubleVector();
+  arrival_sample_ = r.DoubleVector();
+  variance_refitted_ = r.Bool();
+  arrival_refitted_ = r.Bool();
+  silent_ = r.Bool();
+  has_reading_ = r.Bool();
+  last_reading_ = r.I64();
+  regime_start_ = r.OptionalI64();
+  for (EventTime& t : recent_times_) t = r.I64();
+  regime_observations_ = r.I64();
+  return r.status();
+}
+
 }  // namespace plumbline

@@ -192,6 +192,17 @@ class SeriesMonitor {
   // level_noise, lateness) equal the current design's.
   void Retune(const ProfileDesign* design);
 
+  // Checkpoints (detectors/snapshot.h). Save writes everything the monitor
+  // has learned and holds (model, detectors, reorder buffer, intake, silence
+  // and regime bookkeeping), so that a monitor restored by Load on the same
+  // design continues exactly as the saved one would have. Load expects a
+  // fresh monitor on a design with the same profile settings (the caller
+  // checks them) and returns Corruption when the state does not fit it; call
+  // SetAnnotations after it.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
+
+
   // Read-only views for APIs and tests.
   // Null until the first kProbe observations have set the forecaster's memory.
   const SeasonalForecaster* forecaster() const {

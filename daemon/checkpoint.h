@@ -1,0 +1,123 @@
+// Checkpoints: the state of every series, written so that a restarted daemon
+// carries on where the last one stopped instead of learning every series
+// again.
+//
+// On disk (in the state directory): two generations, `checkpoint-0.plc` and
+// `checkpoint-1.plc`, written alternately, each replaced atomically (write a
+// temporary file, fsync, rename, fsync the directory; FileSystem::ReplaceFile).
+// A file is
+//
+//   "PLUMBCKP"  u32 format version  u32 CRC-32C of the rest
+//   u64 generation  u64 payload length  payload
+//
+// (integers little-endian). Reading takes the valid file with the higher
+// generation; a file that is cut short, fails its checksum or is not a
+// checkpoint is reported and the other generation used. A file of another
+// format version is refused with a message naming both versions: this build
+// neither reads nor overwrites it, so a downgrade never destroys state.
+//
+// The payload (detectors/snapshot.h encoding): "PLCK"; the write-ahead log's
+// position (daemon/write_ahead_log.h: next sequence, the sequence through
+// which every shard's batches are in this checkpoint, and the acknowledged
+// streams' line counts); u64 series count, then per series its name, the
+// sequence through which its shard's batches are in its state, the engine's
+// state of it (Engine::SaveSeries: the profile settings it ran under and its
+// monitor) and what the shard keeps beside it. Series are stored by name, not by shard, so a restart with
+// another shard count routes each to its new shard.
+//
+// Thread-safety: CheckpointStore is used by one thread at a time.
+#pragma once
+
+#include <cstdint>
+#include <memory>
+#include <string>
+#include <string_view>
+#include <vector>
+
+#include "daemon/file_system.h"
+#include "detectors/event_time.h"
+#include "detectors/snapshot.h"
+#include "detectors/status.h"
+
+namespace plumbline {
+
+inline constexpr std::uint32_t kCheckpointFormatVersion = 1;
+
+// The payload's opening.
+struct CheckpointHead {
+  std::uint64_t wal_next = 1;       // the log's next sequence when it was taken
+  std::uint64_t wal_done = 0;       // every shard's batches through this are in it
+  std::vector<std::pair<std::string, std::uint64_t>> streams;  // lines per stream
+};
+
+// One series as the payload holds it.
+struct CheckpointSeries {
+  std::string name;
+  std::uint64_t wal_done = 0;  // its shard's batches through this are in its state
+  std::string engine_state;  // Engine::SaveSeries
+  long long readings = 0;    // SeriesExtras
+  EventTime last_time = 0;
+  double last_value = 0.0;
+  EventTime newest = 0;
+  bool has_extras = false;
+};
+
+// Appends one series record to a payload under construction.
+void WriteCheckpointSeries(const CheckpointSeries& series, SnapshotWriter& w);
+// The payload's opening: its tag, the head and the number of series records
+// after it.
+std::string CheckpointPayloadHead(const CheckpointHead& head, std::uint64_t series);
+// Parses a whole payload.
+struct Checkpoint {
+  CheckpointHead head;
+  std::vector<CheckpointSeries> series;
+};
+StatusOr<Checkpoint> ParseCheckpointPayload(std::string_view payload);
+
+// The frame around a payload, and its check (Corruption, or
+// FailedPrecondition for another format version).
+std::string FrameCheckpoint(std::string_view payload, std::uint64_t generation);
+struct UnframedCheckpoint {
+  std::uint64_t generation = 0;
+  std::string_view payload;  // into the framed bytes
+};
+StatusOr<UnframedCheckpoint> UnframeCheckpoint(std::string_view file);
+
+class AlertPublisher;
+
+// Restarts replay the log's tail, which raises again the alerts raised since
+// the last checkpoint. Alert ids are stable (a hash of series, event, kind,
+// detected_at and change_at; engine.h), so a filter in front of the sinks
+// drops every alert whose id the alert log at `alert_log_path` already holds
+// (its last kKnownAlertBytes are read; the replayed alerts are among the
+// newest). `next` must outlive the filter; *known is the count of ids read.
+inline constexpr std::size_t kKnownAlertBytes = 64u << 20;
+std::unique_ptr<AlertPublisher> MakeKnownAlertFilter(const std::string& alert_log_path,
+                                                     AlertPublisher* next,
+                                                     std::size_t* known);
+
+class CheckpointStore {
+ public:
+  // `file_system` must outlive the store.
+  CheckpointStore(std::string directory, FileSystem* file_system);
+
+  // Reads both generations; returns the newest good payload. NotFound when
+  // there is none (a first start), FailedPrecondition when the newest file
+  // is of another format version. Every file passed over is described in
+  // *skipped (path and reason), for the log.
+  StatusOr<std::string> Load(std::vector<std::string>* skipped);
+
+  // Writes `payload` as the next generation, over the older file.
+  Status Save(std::string_view payload);
+
+  std::string Path(int slot) const;
+  std::uint64_t generation() const { return generation_; }
+
+ private:
+  std::string directory_;
+  FileSystem* file_system_;
+  std::uint64_t generation_ = 0;  // of the newest good file
+  int newest_slot_ = 1;           // so that the first Save writes slot 0
+};
+
+}  // namespace plumbline

@@ -1,0 +1,266 @@
+// Service's durable state: restore at start (the newest good checkpoint, then
+// the write-ahead log's tail), a checkpoint every checkpoint_every, and a last
+// one at shutdown. daemon/checkpoint.h and daemon/write_ahead_log.h have the
+// formats.
+#include <algorithm>
+#include <chrono>
+#include <unordered_map>
+
+#include "daemon/log.h"
+#include "daemon/service.h"
+
+namespace plumbline {
+namespace {
+
+// A shard's answer to a checkpoint: its series records and their count.
+struct ShardPart {
+  std::string records;
+  std::uint64_t count = 0;
+  std::uint64_t wal_done = 0;
+};
+
+// How long one shard may take to write or restore its series, and the log
+// to make a checkpoint's claims durable.
+constexpr std::chrono::seconds kShardCheckpointWait{600};
+
+double SecondsSince(std::chrono::steady_clock::time_point begun) {
+  return std::chrono::duration<double>(std::chrono::steady_clock::now() - begun).count();
+}
+
+}  // namespace
+
+Status Service::StartCheckpoints() {
+  const ServiceOptions& options = config_.service;
+  if (options.checkpoint_every == 0) return Status::Ok();
+  auto store = std::make_unique<CheckpointStore>(options.state_directory, deps_.file_system);
+  const auto begun = std::chrono::steady_clock::now();
+  std::vector<std::string> skipped;
+  auto payload = store->Load(&skipped);
+  for (const std::string& why : skipped) LogWarning("checkpoint skipped", {{"reason", why}});
+  if (!payload.ok() && payload.status().code() != Status::Code::kNotFound) {
+    return payload.status();  // another format version: refused, never overwritten
+  }
+  Checkpoint checkpoint;
+  if (payload.ok()) {
+    auto parsed = ParseCheckpointPayload(*payload);
+    if (!parsed.ok()) {
+      // The checksum held, so this is a bug or a foreign writer, not a torn file.
+      return Status::Corruption("checkpoint in " + options.state_directory + ": " +
+                                parsed.status().message());
+    }
+    checkpoint = std::move(parsed).value();
+  }
+  // Series from the checkpoint, to their shards.
+  auto records = std::make_shared<std::vector<CheckpointSeries>>(std::move(checkpoint.series));
+  std::unordered_map<std::string_view, std::uint64_t> wal_done;  // per restored series
+  std::vector<std::vector<std::size_t>> by_shard(shards_->size());
+  for (std::size_t i = 0; i < records->size(); ++i) {
+    by_shard[shards_->ShardFor((*records)[i].name)].push_back(i);
+    wal_done[(*records)[i].name] = (*records)[i].wal_done;
+  }
+  ReconfigureReport total;
+  std::size_t refused = 0;
+  const EventTime now = deps_.clock->Now();
+  for (std::size_t shard = 0; shard < shards_->size() && !records->empty(); ++shard) {
+    auto part = shards_->shard(shard).Ask<std::pair<ReconfigureReport, std::size_t>>(
+        [records, indices = by_shard[shard], now](ShardState& state) {
+          ReconfigureReport report;
+          std::size_t bad = 0;
+          for (std::size_t i : indices) {
+            const Status status = state.RestoreSeries((*records)[i], now, &report);
+            if (!status.ok()) {
+              ++bad;
+              LogWarning("series not restored",
+                         {{"series", (*records)[i].name}, {"reason", status.message()}});
+            }
+          }
+          return std::make_pair(report, bad);
+        },
+        kShardCheckpointWait);
+    if (!part) return Status::Unavailable("a shard did not restore its series in time");
+    total.kept += part->first.kept;
+    total.retuned += part->first.retuned;
+    total.restarted += part->first.restarted;
+    total.dropped += part->first.dropped;
+    refused += part->second;
+  }
+  if (payload.ok()) {
+    LogInfo("checkpoint restored", {{"generation", store->generation()},
+                                    {"series", records->size()},
+                                    {"kept", total.kept},
+                                    {"retuned", total.retuned},
+                                    {"restarted", total.restarted},
+                                    {"dropped", total.dropped},
+                                    {"refused", refused},
+                                    {"bytes", payload->size()},
+                                    {"seconds", SecondsSince(begun)}});
+  }
+  // The log's tail: every record after the checkpoint, in order. A stream's
+  // batches after its last mark were never acknowledged (the sender sends
+  // them again), so they are left out.
+  const auto replay_begun = std::chrono::steady_clock::now();
+  std::unordered_map<std::string, std::uint64_t> streams(checkpoint.head.streams.begin(),
+                                                         checkpoint.head.streams.end());
+  wal_->SetStreams(streams);
+  std::vector<WalRecord> tail;
+  std::unordered_map<std::string, std::uint64_t> last_mark;
+  std::vector<std::string> problems;
+  if (Status status = wal_->Replay(
+          [&](const WalRecord& record) {
+            if (record.sequence <= checkpoint.head.wal_done) return;
+            if (record.type == WalRecord::Type::kMark) {
+              last_mark[record.stream] = record.sequence;
+            } else {
+              tail.push_back(record);
+            }
+          },
+          &problems);
+      !status.ok()) {
+    return status;
+  }
+  for (const std::string& why : problems) LogWarning("write-ahead log record skipped", {{"reason", why}});
+  std::uint64_t replayed = 0, skipped_readings = 0;
+  std::vector<ReadingBatch> batches(shards_->size());
+  auto push = [&](std::size_t shard) {
+    batches[shard].replayed = true;
+    shards_->shard(shard).Push(&batches[shard]);
+    batches[shard] = ReadingBatch();
+  };
+  for (const WalRecord& record : tail) {
+    if (!record.stream.empty()) {
+      auto mark = last_mark.find(record.stream);
+      if (mark == last_mark.end() || mark->second < record.sequence) {
+        skipped_readings += record.readings.size();
+        continue;
+      }
+    }
+    for (const WalRecord::Reading& r : record.readings) {
+      auto done = wal_done.find(r.series);
+      if (done != wal_done.end() && done->second >= record.sequence) continue;
+      const std::size_t shard = shards_->ShardFor(r.series);
+      batches[shard].Add(Reading{r.time, r.series, r.value}, 0);
+      ++replayed;
+      if (batches[shard].full()) push(shard);
+    }
+  }
+  for (std::size_t shard = 0; shard < batches.size(); ++shard) {
+    if (!batches[shard].empty()) push(shard);
+  }
+  // Wait until the shards hold all of it (a task runs after every batch
+  // queued before it once the queue is empty).
+  for (std::size_t shard = 0; shard < shards_->size(); ++shard) {
+    while (shards_->shard(shard).queue_depth() > 0) {
+      std::this_thread::sleep_for(std::chrono::milliseconds(2));
+    }
+    (void)shards_->shard(shard).Ask<bool>([](ShardState&) { return true; },
+                                         kShardCheckpointWait);
+  }
+  if (!tail.empty() || replayed > 0) {
+    LogInfo("write-ahead log replayed", {{"records", tail.size()},
+                                         {"readings", replayed},
+                                         {"unacknowledged_readings", skipped_readings},
+                                         {"seconds", SecondsSince(replay_begun)}});
+  }
+  if (Status status = wal_->Start(checkpoint.head.wal_next); !status.ok()) return status;
+  older_wal_done_ = checkpoint.head.wal_done;
+  checkpoints_ = std::move(store);
+  checkpoint_thread_ = std::thread([this, every = options.checkpoint_every] {
+    std::unique_lock<std::mutex> lock(checkpoint_mutex_);
+    while (!checkpoint_stop_) {
+      if (checkpoint_wake_.wait_for(lock, std::chrono::microseconds(every),
+                                    [this] { return checkpoint_stop_; })) {
+        break;
+      }
+      lock.unlock();
+      const Status status = SaveCheckpoint();
+      lock.lock();
+      if (!status.ok() && checkpoint_failure_.ok()) checkpoint_failure_ = status;
+    }
+  });
+  return Status::Ok();
+}
+
+Status Service::SaveCheckpoint() {
+  const auto begun = std::chrono::steady_clock::now();
+  wal_->Rotate();  // later records go to a new segment; older ones can be deleted
+  std::uint64_t series = 0;
+  CheckpointHead head;
+  head.wal_done = UINT64_MAX;
+  std::vector<std::string> parts;
+  std::unique_lock<std::shared_mutex> gate(wal_->stream_gate());
+  for (std::size_t i = 0; i < shards_->size(); ++i) {
+    Shard& shard = shards_->shard(i);
+    auto part = shard.Ask<ShardPart>(
+        [&shard](ShardState& state) {
+          ShardPart p;
+          p.wal_done = shard.WalDoneThrough();
+          SnapshotWriter w;
+          state.SaveSeries(p.wal_done, &w, &p.count);
+          p.records = w.Take();
+          return p;
+        },
+        kShardCheckpointWait);
+    if (!part) return Status::Unavailable("a shard did not write its series in time");
+    series += part->count;
+    head.wal_done = std::min(head.wal_done, part->wal_done);
+    parts.push_back(std::move(part->records));
+  }
+  // The stream table claims lines durable: everything it counts must be in
+  // the log on disk before the checkpoint says so.
+  std::uint64_t through = 0;
+  for (auto& entry : wal_->Streams(&through)) head.streams.emplace_back(entry);
+  gate.unlock();
+  head.wal_next = through + 1;
+  if (!wal_->WaitDurable(through, kShardCheckpointWait)) {
+    return Status::IoError("write-ahead log not durable: " + wal_->failure().message());
+  }
+  std::string payload = CheckpointPayloadHead(head, series);
+  for (const std::string& part : parts) payload += part;
+  const double snapshot_seconds = SecondsSince(begun);
+  Status status = checkpoints_->Save(payload);
+  if (!status.ok()) {
+    LogError("checkpoint failed", {{"reason", status.message()}});
+    return status;
+  }
+  // The older checkpoint on disk still needs the log after its position.
+  wal_->DeleteThrough(older_wal_done_);
+  older_wal_done_ = head.wal_done;
+  LogInfo("checkpoint saved", {{"generation", checkpoints_->generation()},
+                               {"series", series},
+                               {"bytes", payload.size()},
+                               {"snapshot_seconds", snapshot_seconds},
+                               {"seconds", SecondsSince(begun)},
+                               {"wal_bytes", wal_->bytes_written()},
+                               {"wal_syncs", wal_->syncs()}});
+  return Status::Ok();
+}
+
+void Service::StopCheckpoints(std::chrono::steady_clock::time_point deadline) {
+  if (!checkpoints_) return;
+  {
+    std::lock_guard<std::mutex> lock(checkpoint_mutex_);
+    checkpoint_stop_ = true;
+  }
+  checkpoint_wake_.notify_all();
+  if (checkpoint_thread_.joinable()) checkpoint_thread_.join();
+  // The inputs have stopped: once every queued batch is processed, the state
+  // is complete (and the log holds whatever is not).
+  for (std::size_t shard = 0; shard < shards_->size(); ++shard) {
+    while (shards_->shard(shard).queue_depth() > 0 &&
+           std::chrono::steady_clock::now() < deadline) {
+      std::this_thread::sleep_for(std::chrono::milliseconds(5));
+    }
+  }
+  if (std::chrono::steady_clock::now() < deadline) {
+    if (Status status = SaveCheckpoint(); !status.ok()) {
+      std::lock_guard<std::mutex> lock(checkpoint_mutex_);
+      if (checkpoint_failure_.ok()) checkpoint_failure_ = status;
+    }
+  } else {
+    LogWarning("no checkpoint at shutdown: the shard queues did not drain in time; the "
+               "write-ahead log keeps what the last checkpoint lacks");
+  }
+  wal_->Stop();
+}
+
+}  // namespace plumbline

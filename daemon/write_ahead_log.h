@@ -1,0 +1,138 @@
+// WriteAheadLog: the readings accepted since the last checkpoint, so that a
+// daemon killed at any moment loses none it acknowledged. Shards append each
+// batch as they queue it (Shard::Push), so the log's order is each shard's
+// processing order; TCP sessions in acknowledged mode append marks (how many
+// lines of a named stream are taken). One writer thread writes what has
+// gathered and fsyncs once for all of it (group commit): while one fsync
+// runs, the next group gathers.
+//
+// On disk (in the state directory): segments `wal-<first sequence, 20
+// digits>.log`, each a run of records
+//
+//   u32 payload length  u32 CRC-32C of the payload  payload
+//
+// payload (detectors/snapshot.h encoding): u64 sequence, u8 type (1 batch,
+// 2 mark), the stream name ("" for none); a batch: u64 count, then per reading
+// its series, time (i64 microseconds) and value (f64); a mark: u64 lines.
+// Sequences start at 1 and grow by one per record. A checkpoint starts a new
+// segment (Rotate); segments whose records every shard has in a checkpoint
+// that is not the newest are deleted (DeleteThrough). A record cut short or
+// failing its checksum ends the replay of its segment (a torn write).
+//
+// Thread-safety: every method may be called from any thread.
+#pragma once
+
+#include <chrono>
+#include <condition_variable>
+#include <cstdint>
+#include <functional>
+#include <memory>
+#include <mutex>
+#include <shared_mutex>
+#include <string>
+#include <string_view>
+#include <thread>
+#include <unordered_map>
+#include <vector>
+
+#include "daemon/file_system.h"
+#include "daemon/reading_batch.h"
+#include "detectors/status.h"
+
+namespace plumbline {
+
+struct WalRecord {
+  enum class Type : std::uint8_t { kBatch = 1, kMark = 2 };
+  std::uint64_t sequence = 0;
+  Type type = Type::kBatch;
+  std::string stream;
+  struct Reading {
+    std::string series;
+    EventTime time = 0;
+    double value = 0.0;
+  };
+  std::vector<Reading> readings;  // batch
+  std::uint64_t lines = 0;        // mark
+};
+
+class WriteAheadLog {
+ public:
+  // `file_system` must outlive the log. With `sync` false the log is written
+  // but not fsynced (it then survives a killed process, not a lost machine).
+  WriteAheadLog(std::string directory, FileSystem* file_system, bool sync = true);
+  ~WriteAheadLog();  // Stop
+
+  // Reads every segment in order and calls `each` per record. Torn or
+  // corrupted records end their segment and are described in *problems.
+  // Call before Start.
+  Status Replay(const std::function<void(const WalRecord&)>& each,
+                std::vector<std::string>* problems);
+  // Opens a new segment whose first sequence is at least `next_sequence` and
+  // past every record replayed, and starts the writer thread.
+  Status Start(std::uint64_t next_sequence);
+  // Stops the writer after it has written everything appended.
+  void Stop();
+
+  // Append a record; returns its sequence. Never blocks on the disk.
+  std::uint64_t AppendBatch(const ReadingBatch& batch, std::string_view stream);
+  std::uint64_t AppendMark(std::string_view stream, std::uint64_t lines);
+
+  // Waits until every record up to `sequence` is durable; false on timeout
+  // or after a write failure.
+  bool WaitDurable(std::uint64_t sequence, std::chrono::milliseconds timeout);
+  // Calls `done` (on the writer thread, or at once) when `sequence` is durable.
+  void OnDurable(std::uint64_t sequence, std::function<void()> done);
+  // Starts a new segment with the next record; returns that record's sequence.
+  std::uint64_t Rotate();
+  // Deletes the segments whose records all have sequences <= `sequence`.
+  void DeleteThrough(std::uint64_t sequence);
+
+  std::uint64_t next_sequence() const;
+  std::uint64_t durable_sequence() const;
+  // The first write or fsync failure (sticky); Ok while there is none.
+  Status failure() const;
+  // Lines taken per stream (marks), and the sequence the table is complete to.
+  std::unordered_map<std::string, std::uint64_t> Streams(std::uint64_t* through) const;
+  // Seeds the table (from a checkpoint) before Replay.
+  void SetStreams(std::unordered_map<std::string, std::uint64_t> streams);
+  // Bytes written and fsyncs done (group commit: many records per fsync).
+  std::uint64_t bytes_written() const;
+  std::uint64_t syncs() const;
+
+  // Held shared by an acknowledged session from its first push of a read to
+  // that read's mark, and exclusively by a checkpoint while it snapshots the
+  // shards and reads the stream table: the table then counts exactly lines
+  // whose batches are in the checkpoint or in the log after it.
+  std::shared_mutex& stream_gate() { return stream_gate_; }
+
+ private:
+  void Run();
+  std::uint64_t Append(std::string payload_tail, std::string_view stream,
+                       WalRecord::Type type);
+  std::string SegmentPath(std::uint64_t first) const;
+  std::vector<std::pair<std::uint64_t, std::string>> Segments() const;
+
+  const std::string directory_;
+  FileSystem* const file_system_;
+  const bool sync_;
+
+  mutable std::mutex mutex_;  // guards everything below
+  std::condition_variable work_;
+  std::condition_variable durable_changed_;
+  std::string buffer_;                   // records not yet handed to the writer
+  std::size_t rotate_offset_ = 0;        // buffer_ offset where a new segment starts
+  std::uint64_t rotate_first_ = 0;       // its first sequence; 0: no rotation asked
+  std::uint64_t next_ = 1;
+  std::uint64_t durable_ = 0;
+  std::unordered_map<std::string, std::uint64_t> streams_;
+  std::vector<std::pair<std::uint64_t, std::function<void()>>> waiting_;
+  Status failure_;
+  bool stop_ = false;
+  std::uint64_t bytes_ = 0, syncs_ = 0;
+
+  std::unique_ptr<WritableFile> file_;  // writer thread only (after Start)
+  std::thread writer_;
+  std::shared_mutex stream_gate_;
+};
+
+}  // namespace plumbline

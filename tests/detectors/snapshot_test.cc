@@ -1,0 +1,226 @@
+// Checkpoint state: the encoding (detectors/snapshot.h), its checksum, and
+// SeriesMonitor::Save / Load. The property that matters (common practice, no
+// source): a monitor restored from a snapshot taken at any point continues
+// exactly as the monitor that was never saved, event for event and bit for
+// bit; a snapshot that is cut short or made for another design is refused.
+#include "detectors/snapshot.h"
+
+#include <gtest/gtest.h>
+
+#include <string>
+#include <vector>
+
+#include "detectors/series_monitor.h"
+#include "tests/support/synthetic_stream.h"
+
+namespace plumbline {
+namespace {
+
+TEST(Crc32cTest, MatchesPublishedCheckValues) {
+  // CRC-32C of the ASCII digits "123456789": 0xE3069283 (the "check" value of
+  // CRC-32/ISCSI in Greg Cook's Catalogue of parametrised CRC algorithms; MEM).
+  EXPECT_EQ(Crc32c("123456789"), 0xE3069283u);
+  // 32 zero bytes: 0x8A9136AA (RFC 3720, appendix B.4, which lists the
+  // bytes as sent, aa 36 91 8a; MEM).
+  EXPECT_EQ(Crc32c(std::string(32, '\0')), 0x8A9136AAu);
+  // 32 bytes 0xFF: 0x62A8AB43 (same appendix, 43 ab a8 62; MEM).
+  EXPECT_EQ(Crc32c(std::string(32, '\xff')), 0x62A8AB43u);
+  // Chaining over pieces gives the checksum of the whole.
+  EXPECT_EQ(Crc32c("6789", Crc32c("12345")), 0xE3069283u);
+}
+
+TEST(SnapshotCodingTest, RoundTripsEveryFieldBitForBit) {
+  SnapshotWriter w;
+  w.Tag("TEST");
+  w.U8(7);
+  w.Bool(true);
+  w.U32(0xDEADBEEFu);
+  w.I64(-1234567890123LL);
+  w.F64(-0.0);
+  w.F64(1.0 / 3.0);
+  w.String("coldstore/freezer-1/temp_c");
+  w.DoubleVector({1.5, -2.5});
+  w.OptionalI64(std::nullopt);
+  w.OptionalI64(42);
+  const std::string bytes = w.Take();
+  SnapshotReader r(bytes);
+  EXPECT_TRUE(r.Tag("TEST"));
+  EXPECT_EQ(r.U8(), 7);
+  EXPECT_TRUE(r.Bool());
+  EXPECT_EQ(r.U32(), 0xDEADBEEFu);
+  EXPECT_EQ(r.I64(), -1234567890123LL);
+  const double zero = r.F64();
+  EXPECT_TRUE(zero == 0.0 && std::signbit(zero));
+  EXPECT_EQ(r.F64(), 1.0 / 3.0);
+  EXPECT_EQ(r.String(), "coldstore/freezer-1/temp_c");
+  EXPECT_EQ(r.DoubleVector(), (std::vector<double>{1.5, -2.5}));
+  EXPECT_FALSE(r.OptionalI64().has_value());
+  EXPECT_EQ(r.OptionalI64(), 42);
+  EXPECT_TRUE(r.ok());
+  EXPECT_TRUE(r.AtEnd());
+}
+
+TEST(SnapshotCodingTest, ReaderStopsAtTheEndAndAtAWrongTag) {
+  SnapshotWriter w;
+  w.Tag("AAAA");
+  w.U64(1000);  // a length with nothing after it
+  const std::string bytes = w.Take();
+  SnapshotReader wrong(bytes);
+  EXPECT_FALSE(wrong.Tag("BBBB"));
+  EXPECT_EQ(wrong.status().code(), Status::Code::kCorruption);
+  SnapshotReader r(bytes);
+  EXPECT_TRUE(r.Tag("AAAA"));
+  EXPECT_TRUE(r.DoubleVector().empty());  // 1000 doubles are not there
+  EXPECT_FALSE(r.ok());
+  EXPECT_EQ(r.U64(), 0u);  // sticky
+}
+
+struct Case {
+  const char* name;
+  ProfileOptions profile;
+  synthetic::SyntheticStreamOptions stream;
+};
+
+std::vector<Case> Cases() {
+  std::vector<Case> cases;
+  {
+    Case c{"all_level_detectors_with_a_shift", {}, {}};
+    c.profile.detectors = {DetectorKind::kCusum, DetectorKind::kPageHinkley,
+                           DetectorKind::kBocpd, DetectorKind::kEwma};
+    c.stream.change_index = 900;
+    c.stream.level_shift = 3.0;
+    cases.push_back(c);
+  }
+  {
+    Case c{"variance_change_and_a_stop", {}, {}};
+    c.stream.change_index = 700;
+    c.stream.sd_ratio = 2.5;
+    c.stream.stop_index = 1300;
+    c.profile.silence_after = 6 * kMicrosPerHour;
+    cases.push_back(c);
+  }
+  {
+    Case c{"counts_bucketed_with_lateness_and_auto_level_noise", {}, {}};
+    c.profile.kind = SeriesKind::kCount;
+    c.profile.every = kMicrosPerHour;
+    c.profile.gaps = GapPolicy::kZero;
+    c.profile.lateness = 5 * kMicrosPerMinute;
+    c.profile.level_noise_auto = true;
+    c.profile.detectors = {DetectorKind::kCusum, DetectorKind::kBocpd};
+    c.stream.level = 5.0;
+    cases.push_back(c);
+  }
+  {
+    Case c{"meter_without_seasons", {}, {}};
+    c.profile.kind = SeriesKind::kMeter;
+    c.profile.seasons = {};
+    c.stream.daily_amplitude = c.stream.weekly_amplitude = 0.0;
+    c.stream.level = 50.0;
+    cases.push_back(c);
+  }
+  return cases;
+}
+
+// Meter cases read a growing total.
+std::vector<synthetic::SyntheticReading> Stream(const Case& c, long long count) {
+  auto readings = synthetic::MakeSyntheticStream(c.stream, count, /*seed=*/11);
+  if (c.profile.kind == SeriesKind::kMeter) {
+    double total = 0.0;
+    for (auto& r : readings) r.value = (total += std::max(0.0, r.value));
+  } else if (c.profile.kind == SeriesKind::kCount) {
+    for (auto& r : readings) r.value = std::max(0.0, std::round(r.value));
+  }
+  return readings;
+}
+
+std::string Describe(const std::vector<SeriesEvent>& events) {
+  std::string out;
+  for (const SeriesEvent& e : events) {
+    out += std::string(ToString(e.type)) + " " + std::string(ToString(e.kind)) + " " +
+           std::to_string(e.detected_at) + " " + std::to_string(e.change_at) + " " +
+           std::to_string(e.magnitude) + "\n";
+  }
+  return out;
+}
+
+std::string Saved(const SeriesMonitor& monitor) {
+  SnapshotWriter w;
+  monitor.Save(w);
+  return w.Take();
+}
+
+TEST(SeriesMonitorCheckpointTest, RestoredMonitorContinuesExactlyAsTheOriginal) {
+  constexpr long long kReadings = 1600;
+  for (const Case& c : Cases()) {
+    SCOPED_TRACE(c.name);
+    auto design = ProfileDesign::Make(c.profile);
+    ASSERT_TRUE(design.ok()) << design.status().ToString();
+    const auto readings = Stream(c, kReadings);
+    // Saved before the forecaster starts, during warmup, armed, after alerts.
+    for (long long cut : {3LL, 30LL, 400LL, 1000LL, 1450LL}) {
+      SCOPED_TRACE(cut);
+      SeriesMonitor original(&*design);
+      std::vector<SeriesEvent> ignored;
+      for (long long i = 0; i < cut; ++i)
+        original.Observe(readings[i].time, readings[i].value, &ignored);
+      SeriesMonitor restored(&*design);
+      const std::string bytes = Saved(original);
+      SnapshotReader reader(bytes);
+      ASSERT_TRUE(restored.Load(reader).ok()) << reader.status().ToString();
+      EXPECT_TRUE(reader.AtEnd());
+      EXPECT_EQ(Saved(restored), bytes);
+      std::vector<SeriesEvent> a, b;
+      for (long long i = cut; i < kReadings; ++i) {
+        original.Observe(readings[i].time, readings[i].value, &a);
+        restored.Observe(readings[i].time, readings[i].value, &b);
+      }
+      const EventTime end = readings.back().time + 2 * kMicrosPerDay;
+      original.AdvanceClock(end, &a);
+      restored.AdvanceClock(end, &b);
+      original.Flush(&a);
+      restored.Flush(&b);
+      EXPECT_EQ(Describe(a), Describe(b));
+      EXPECT_EQ(Saved(original), Saved(restored));
+    }
+  }
+}
+
+TEST(SeriesMonitorCheckpointTest, TruncatedStateIsRefusedAtEveryLength) {
+  ProfileOptions profile;
+  profile.detectors = {DetectorKind::kCusum, DetectorKind::kBocpd};
+  auto design = ProfileDesign::Make(profile);
+  ASSERT_TRUE(design.ok());
+  SeriesMonitor original(&*design);
+  synthetic::SyntheticStreamOptions stream;
+  std::vector<SeriesEvent> ignored;
+  for (const auto& r : synthetic::MakeSyntheticStream(stream, 300, 5))
+    original.Observe(r.time, r.value, &ignored);
+  const std::string bytes = Saved(original);
+  for (std::size_t length = 0; length < bytes.size(); length += 1 + length / 7) {
+    SeriesMonitor restored(&*design);
+    SnapshotReader reader(std::string_view(bytes).substr(0, length));
+    EXPECT_FALSE(restored.Load(reader).ok()) << length;
+  }
+}
+
+TEST(SeriesMonitorCheckpointTest, StateOfAnotherDesignIsRefused) {
+  ProfileOptions saved_profile;
+  saved_profile.detectors = {DetectorKind::kCusum, DetectorKind::kPageHinkley};
+  ProfileOptions other = saved_profile;
+  other.seasons = {kMicrosPerDay};  // fewer coefficients
+  auto saved_design = ProfileDesign::Make(saved_profile);
+  auto other_design = ProfileDesign::Make(other);
+  ASSERT_TRUE(saved_design.ok() && other_design.ok());
+  SeriesMonitor original(&*saved_design);
+  std::vector<SeriesEvent> ignored;
+  for (const auto& r : synthetic::MakeSyntheticStream({}, 200, 5))
+    original.Observe(r.time, r.value, &ignored);
+  const std::string bytes = Saved(original);
+  SeriesMonitor restored(&*other_design);
+  SnapshotReader reader(bytes);
+  const Status status = restored.Load(reader);
+  EXPECT_EQ(status.code(), Status::Code::kCorruption) << status.ToString();
+}
+
+}  // namespace
+}  // namespace plumbline
