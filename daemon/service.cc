@@ -473,6 +473,8 @@ bool Service::Ready(std::string* why) {
     if (why) *why = "shutting down";
     return false;
   }
+  // The alert log first: its failure is the one an operator must act on.
+  if (!dispatcher_->Healthy(why)) return false;
   {
     std::lock_guard<std::mutex> lock(checkpoint_mutex_);
     if (!checkpoint_failure_.ok()) {
@@ -484,7 +486,7 @@ bool Service::Ready(std::string* why) {
       return false;
     }
   }
-  return dispatcher_->Healthy(why);
+  return true;
 }
 
 StatusOr<SeriesForecast> Service::ForecastSeries(std::string_view name,
