@@ -59,7 +59,8 @@ constexpr std::string_view kAccessKeys[] = {"token_file", "token_env"};
 constexpr std::string_view kProfileKeys[] = {
     "match",  "kind",      "seasons",  "gaps",          "warmup",    "arl0",
     "shift",  "detectors", "agree",    "silence_after", "harmonics", "every",
-    "memory", "trend",     "lateness", "agree_within",  "cooldown",  "level_noise"};
+    "memory", "trend",     "lateness", "agree_within",  "cooldown",  "level_noise",
+    "covariates", "covariate_max_age"};
 
 // Documents looked at after the first: enough to see a second document and a
 // parser that no longer advances.
@@ -660,6 +661,13 @@ class Loader {
       WholeNumber(f, "a whole number of readings", &p->agree_within);
     } else if (k == "cooldown") {
       WholeNumber(f, "a whole number of readings", &p->cooldown);
+    } else if (k == "covariates") {
+      List(f, "a list of series names such as [coldstore/orders/pallets_shipped]",
+           &p->covariates, [this](const Field& e, std::string* out) {
+             return ScalarText(e, "a series name", out);
+           });
+    } else if (k == "covariate_max_age") {
+      Duration(f, false, &p->covariate_max_age);
     } else {
       return false;
     }

@@ -231,6 +231,9 @@ void SaveProfile(const ProfileOptions& p, SnapshotWriter& w) {
   w.I64(p.lateness);
   w.I64(p.agree_within);
   w.I64(p.cooldown);
+  w.U64(p.covariates.size());
+  for (const std::string& name : p.covariates) w.String(name);
+  w.I64(p.covariate_max_age);
 }
 
 ProfileOptions LoadProfile(SnapshotReader& r) {
@@ -256,6 +259,9 @@ ProfileOptions LoadProfile(SnapshotReader& r) {
   p.lateness = r.I64();
   p.agree_within = static_cast<int>(r.I64());
   p.cooldown = static_cast<int>(r.I64());
+  p.covariates.resize(r.Count(8));
+  for (std::string& name : p.covariates) name = r.String();
+  p.covariate_max_age = r.I64();
   return p;
 }
 

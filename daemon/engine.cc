@@ -2,6 +2,7 @@
 
 #include <cmath>
 #include <cstdio>
+#include <mutex>
 
 #include "daemon/text.h"
 #include "detectors/glob.h"
@@ -170,9 +171,48 @@ std::string AlertToText(const Alert& a) {
   return out;
 }
 
+void SharedCovariateBoard::SetWanted(const Config& config) {
+  std::vector<std::string> wanted;
+  for (const ProfileOptions& profile : config.series) {
+    wanted.insert(wanted.end(), profile.covariates.begin(), profile.covariates.end());
+  }
+  std::unique_lock lock(mutex_);
+  board_.SetWanted(std::move(wanted));
+}
+
+bool SharedCovariateBoard::Wants(std::string_view series) const {
+  std::shared_lock lock(mutex_);
+  return board_.Wants(series);
+}
+
+void SharedCovariateBoard::Publish(std::string_view series, EventTime t, double value) {
+  std::unique_lock lock(mutex_);
+  board_.Publish(series, t, value);
+}
+
+std::optional<double> SharedCovariateBoard::ValueAsOf(std::string_view series, EventTime t,
+                                                      EventTime max_age) const {
+  std::shared_lock lock(mutex_);
+  return board_.ValueAsOf(series, t, max_age);
+}
+
 Engine::Engine(Config config, EngineOptions options)
-    : config_(std::move(config)), options_(options) {
+    : config_(std::move(config)), options_(std::move(options)) {
   designs_.resize(config_.series.size());
+  if (!options_.covariates) options_.covariates = std::make_shared<SharedCovariateBoard>();
+  options_.covariates->SetWanted(config_);
+}
+
+void Engine::StartMonitor(Series* series) {
+  series->monitor = std::make_unique<SeriesMonitor>(series->design);
+  Wire(series);
+}
+
+void Engine::Wire(Series* series) {
+  series->monitor->SetAnnotations(AnnotationsFor(config_, series->name));
+  SharedCovariateBoard* board = options_.covariates.get();
+  series->monitor->ConnectCovariates(board, board->Wants(series->name) ? board : nullptr,
+                                     series->name);
 }
 
 const ProfileDesign* Engine::DesignFor(const ProfileOptions* profile) {
@@ -202,8 +242,7 @@ IngestOutcome Engine::Ingest(std::string_view name, EventTime time, double value
     auto series = std::make_unique<Series>();
     series->name = std::string(name);
     series->design = design;
-    series->monitor = std::make_unique<SeriesMonitor>(design);
-    series->monitor->SetAnnotations(AnnotationsFor(config_, series->name));
+    StartMonitor(series.get());
     it = series_.emplace(series->name, std::move(series)).first;
   }
   Series* series = it->second.get();
@@ -273,9 +312,9 @@ void Engine::Finish(std::vector<Alert>* out) {
 // A key added to ProfileOptions must be compared here too; the
 // size check below trips when one is added (on the 64-bit Linux build), as a
 // reminder, after which update the size.
-static_assert(sizeof(void*) != 8 || sizeof(ProfileOptions) == 232,
+static_assert(sizeof(void*) != 8 || sizeof(ProfileOptions) == 264,
               "ProfileOptions changed: compare the new key in SameProfileSettings, then "
-              "update 232");
+              "update 264");
 bool SameProfileSettings(const ProfileOptions& a, const ProfileOptions& b) {
   return a.kind == b.kind && a.seasons == b.seasons && a.gaps == b.gaps &&
          a.warmup == b.warmup && a.arl0 == b.arl0 && a.shift == b.shift &&
@@ -284,14 +323,16 @@ bool SameProfileSettings(const ProfileOptions& a, const ProfileOptions& b) {
          a.every == b.every && a.memory == b.memory && a.trend == b.trend &&
          a.level_noise == b.level_noise && a.level_noise_auto == b.level_noise_auto &&
          a.lateness == b.lateness && a.agree_within == b.agree_within &&
-         a.cooldown == b.cooldown;
+         a.cooldown == b.cooldown && a.covariates == b.covariates &&
+         a.covariate_max_age == b.covariate_max_age;
 }
 
 bool SameModelSettings(const ProfileOptions& a, const ProfileOptions& b) {
   return a.kind == b.kind && a.seasons == b.seasons && a.harmonics == b.harmonics &&
          a.gaps == b.gaps && a.every == b.every && a.memory == b.memory &&
          a.trend == b.trend && a.level_noise == b.level_noise &&
-         a.level_noise_auto == b.level_noise_auto && a.lateness == b.lateness;
+         a.level_noise_auto == b.level_noise_auto && a.lateness == b.lateness &&
+         a.covariates == b.covariates && a.covariate_max_age == b.covariate_max_age;
 }
 
 ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
@@ -300,6 +341,7 @@ ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
     if (design) retired_designs_.push_back(std::move(design));
   }
   config_ = std::move(config);
+  options_.covariates->SetWanted(config_);
   designs_.clear();
   designs_.resize(config_.series.size());
   // Calibrated designs pass to new profiles with the same settings.
@@ -315,8 +357,7 @@ ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
     Series& series = *it->second;
     const ProfileOptions* profile = MatchProfile(config_, series.name);
     if (profile && SameProfileSettings(series.design->profile, *profile)) {
-      series.monitor->SetAnnotations(
-          AnnotationsFor(config_, series.name));  // may have changed
+      Wire(&series);  // annotations and covariate publishing may have changed
       ++report.kept;
       ++it;
       continue;
@@ -325,7 +366,7 @@ ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
       if (const ProfileDesign* design = DesignFor(profile)) {
         series.design = design;
         series.monitor->Retune(design);
-        series.monitor->SetAnnotations(AnnotationsFor(config_, series.name));
+        Wire(&series);
         ++report.retuned;
         ++it;
         continue;
@@ -341,8 +382,7 @@ ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
       continue;
     }
     series.design = design;
-    series.monitor = std::make_unique<SeriesMonitor>(design);
-    series.monitor->SetAnnotations(AnnotationsFor(config_, series.name));
+    StartMonitor(&series);
     ++report.restarted;
     ++it;
   }

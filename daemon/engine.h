@@ -10,12 +10,14 @@
 #include <memory>
 #include <optional>
 #include <queue>
+#include <shared_mutex>
 #include <string>
 #include <string_view>
 #include <unordered_map>
 #include <vector>
 
 #include "config/config.h"
+#include "detectors/covariate.h"
 #include "detectors/series_monitor.h"
 #include "detectors/severity.h"
 #include "detectors/status.h"
@@ -74,12 +76,31 @@ bool SameProfileSettings(const ProfileOptions& a, const ProfileOptions& b);
 // thresholds: a series can then be retuned instead of restarted.
 bool SameModelSettings(const ProfileOptions& a, const ProfileOptions& b);
 
+// Covariate values shared by every engine of a daemon (one per shard, so a
+// covariate may live in another shard than the series it explains): a
+// CovariateBoard behind a lock. Only series that some profile names as a
+// covariate publish to it. Thread-safe.
+class SharedCovariateBoard : public CovariateSource, public CovariateSink {
+ public:
+  void SetWanted(const Config& config);
+  bool Wants(std::string_view series) const;
+  void Publish(std::string_view series, EventTime t, double value) override;
+  std::optional<double> ValueAsOf(std::string_view series, EventTime t,
+                                  EventTime max_age) const override;
+
+ private:
+  mutable std::shared_mutex mutex_;
+  CovariateBoard board_;
+};
+
 struct EngineOptions {
   std::size_t max_series = 1'000'000;  // new series beyond this are refused
   // Empty: ProfileDesign::Make. serve shares one memoizing maker among its
   // shards, so each profile is calibrated once; a shared one must be
   // thread-safe.
   DesignMaker make_design;
+  // Shared with the daemon's other engines; empty: the engine keeps its own.
+  std::shared_ptr<SharedCovariateBoard> covariates;
   bool IsValid(std::string* why) const;
 };
 
@@ -142,6 +163,10 @@ class Engine {
   void Emit(const Series& series, const std::vector<SeriesEvent>& events,
             std::vector<Alert>* out);
   void Schedule(Series* series);
+  // A monitor for `series` under its design, with its annotations and covariates.
+  void StartMonitor(Series* series);
+  // Gives a series' monitor the annotations and covariates the config holds now.
+  void Wire(Series* series);
 
   Config config_;
   EngineOptions options_;

@@ -186,6 +186,8 @@ Status Service::Start() {
   shard_options.engine.make_design = [designs = designs_](const ProfileOptions& profile) {
     return designs->Make(profile);
   };
+  // One covariate board for all shards: a covariate may live in another shard.
+  shard_options.engine.covariates = std::make_shared<SharedCovariateBoard>();
   AlertPublisher* publisher = dispatcher_.get();
   if (wal_ && options.sinks.alert_log.enabled) {  // a restart replays the log's tail
     known_alerts_ = MakeKnownAlertFilter(
@@ -205,8 +207,9 @@ Status Service::Start() {
   }
 
   if (options.tcp.enabled) {
-    tcp_ = std::make_unique<TcpListener>(io_, options.tcp, shards_.get(), deps_.observer,
-                                         TcpIngestRules{options.max_time_ahead, access_token_});
+    tcp_ = std::make_unique<TcpListener>(
+        io_, options.tcp, shards_.get(), deps_.observer,
+        TcpIngestRules{options.max_time_ahead, access_token_});
     tcp_->set_write_ahead_log(wal_.get());
     if (Status status = tcp_->Start(); !status.ok()) {
       tcp_.reset();
@@ -320,7 +323,8 @@ IngestReceipt Service::IngestLines(std::string_view body) {
   }
   // The body and, at worst, a batch entry and a name as long as the line for
   // every line, taken from the budget at once or not at all (503).
-  const std::size_t lines = static_cast<std::size_t>(std::count(body.begin(), body.end(), '\n'));
+  const std::size_t lines =
+      static_cast<std::size_t>(std::count(body.begin(), body.end(), '\n'));
   const std::size_t bytes = 2 * body.size() + (lines + 1) * sizeof(ReadingBatch::Entry);
   if (!budget_->TryAcquire(bytes, "http")) {
     receipt.overloaded = true;

@@ -98,6 +98,17 @@ bool ProfileOptions::IsValid(std::string* why) const {
   if (lateness < 0) return fail("lateness must be zero or a positive duration");
   if (agree_within < 1 || agree_within > 1000) return fail("agree_within must be in [1, 1000] readings");
   if (cooldown < 0 || cooldown > 1000000) return fail("cooldown must be in [0, 1000000] readings");
+  if (covariates.size() > 16) return fail("covariates must name at most 16 series");
+  for (size_t i = 0; i < covariates.size(); ++i) {
+    const std::string& name = covariates[i];
+    if (name.empty() || name.size() > 256) {
+      return fail("covariates must be series names of 1 to 256 bytes");
+    }
+    for (size_t j = 0; j < i; ++j) {
+      if (covariates[j] == name) return fail("covariates must not repeat '" + name + "'");
+    }
+  }
+  if (covariate_max_age <= 0) return fail("covariate_max_age must be a positive duration");
   return true;
 }
 

@@ -66,6 +66,11 @@ struct ProfileOptions {
   EventTime lateness = 0;            // readings up to this much out of order are reordered
   int agree_within = 5;              // readings within which `agree` detectors must fire, [1, 1000]
   int cooldown = 0;                  // readings after an alert before the next; 0 = warmup
+  // Other series whose values are extra regressors (detectors/covariate.h),
+  // at most 16, each a series name; joined as of each observation's time when
+  // at most covariate_max_age old (> 0).
+  std::vector<std::string> covariates;
+  EventTime covariate_max_age = 6 * kMicrosPerHour;
 
   // One-line rules; on failure *why names the key and its valid range.
   bool IsValid(std::string* why) const;

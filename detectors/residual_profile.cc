@@ -28,11 +28,10 @@ double ResidualProfile::PriorMean(int bin) const {
   return j.n / (j.n + kPrior) * j.mean;
 }
 
-double ResidualProfile::PriorVariance(int bin, double sigma_all) const {
-  const double all = sigma_all * sigma_all;
-  if (folded_.empty()) return all;
+double ResidualProfile::PriorRatio(int bin) const {
+  if (folded_.empty()) return 1.0;
   const Bin_& j = folded_[static_cast<size_t>(bin) % folded_.size()];
-  return (j.n * j.s2 + kPrior * all) / (j.n + kPrior);
+  return (j.n * j.s2 + kPrior) / (j.n + kPrior);
 }
 
 int ResidualProfile::Bin(EventTime t) const {
@@ -48,19 +47,22 @@ double ResidualProfile::Mean(int bin) const {
   return (b.n * b.mean + kPrior * PriorMean(bin)) / (b.n + kPrior);
 }
 
-double ResidualProfile::Sigma(int bin, double sigma_all) const {
+double ResidualProfile::Ratio(int bin) const {
   const Bin_& b = bins_[static_cast<size_t>(bin)];
-  return std::sqrt((b.n * b.s2 + kPrior * PriorVariance(bin, sigma_all)) /
-                   (b.n + kPrior));
+  return (b.n * b.s2 + kPrior * PriorRatio(bin)) / (b.n + kPrior);
 }
 
-void ResidualProfile::Fold(Bin_* b, double r, double a, double sigma, double clip,
-                           double correction, double window) {
+double ResidualProfile::Sigma(int bin, double sigma_all) const {
+  return sigma_all * std::sqrt(Ratio(bin));
+}
+
+void ResidualProfile::Fold(Bin_* b, double r, double q, double sigma, double ratio,
+                           double clip, double correction, double window) {
   b->n += 1;
   const double weight = 1.0 / std::min(b->n, window);
   const double limit = 4.0 * sigma;
   b->mean += (std::clamp(r, b->mean - limit, b->mean + limit) - b->mean) * weight;
-  const double clipped = std::min(a * a, clip * clip * sigma * sigma) * correction;
+  const double clipped = std::min(q * q, clip * clip * ratio) * correction;
   if (b->n == 1) {
     b->s2 = clipped;
   } else {
@@ -70,15 +72,18 @@ void ResidualProfile::Fold(Bin_* b, double r, double a, double sigma, double cli
 
 void ResidualProfile::Update(int bin, double r, double a, double sigma_all) {
   if (!std::isfinite(r) || !std::isfinite(a) || !(sigma_all > 0)) return;
-  const double sigma = Sigma(bin, sigma_all);
+  const double q = a / sigma_all;
   if (!folded_.empty()) {
     // The pooled phase sees every repeat, so its window spans as many periods.
     const size_t j = static_cast<size_t>(bin) % folded_.size();
     const double repeats = static_cast<double>(bins_.size() / folded_.size());
-    const double phase_sigma = std::sqrt(PriorVariance(bin, sigma_all));
-    Fold(&folded_[j], r, a, phase_sigma, clip_, correction_, kWindow * repeats);
+    const double ratio = PriorRatio(bin);
+    Fold(&folded_[j], r, q, sigma_all * std::sqrt(ratio), ratio, clip_, correction_,
+         kWindow * repeats);
   }
-  Fold(&bins_[static_cast<size_t>(bin)], r, a, sigma, clip_, correction_, kWindow);
+  const double ratio = Ratio(bin);
+  Fold(&bins_[static_cast<size_t>(bin)], r, q, sigma_all * std::sqrt(ratio), ratio, clip_,
+       correction_, kWindow);
 }
 
 void ResidualProfile::Save(SnapshotWriter& w) const {

@@ -6,12 +6,16 @@
 // second moment s2_b of the residual, shrunk toward the whole series' values:
 //
 //   m_b   <- m_b  + (r - m_b) / min(n_b, window)            (r clipped at 4 sigma_b)
-//   s2_b  <- s2_b + (min(a^2, c^2 sigma_b^2) / m(c) - s2_b) / min(n_b, window)
+//   s2_b  <- s2_b + (min(q^2, c^2 k_b) / m(c) - s2_b) / min(n_b, window),  q = a / sigma_all
 //
 // where r is the residual and a the standardisation's input at that reading
 // (the residual after this mean is removed and after whitening).
+// s2_b is the phase's variance as a ratio k_b to the whole series' scale
+// sigma_all (ResidualScale, which follows the overall level of the noise within
+// a few hundred readings): the shape of the spread over the phases is learned
+// slowly, bin by bin, while its overall size follows the series at once.
 //   mean_b  = n_b / (n_b + n0) * m_b
-//   sigma_b = sqrt((n_b s2_b + n0 s2_all) / (n_b + n0))
+//   k_b     = (n_b s2_b + n0) / (n_b + n0),    sigma_b = sigma_all sqrt(k_b)
 //
 // with n0 = kPrior readings of shrinkage (empirical-Bayes style partial pooling,
 // common practice, no source) and m(c) the clipped second moment of N(0,1)
@@ -25,8 +29,7 @@
 //
 //   mean_b  = n_b / (n_b + n0) * m_b + n0 / (n_b + n0) * mean_j     (j = b mod fold_bins)
 //   mean_j  = N_j / (N_j + n0) * M_j                                (M_j, N_j over the
-//   repeats) sigma_b = sqrt((n_b s2_b + n0 sigma_j^2) / (n_b + n0)),  sigma_j likewise
-//   toward sigma_all
+//   repeats) k_b = (n_b s2_b + n0 k_j) / (n_b + n0),  k_j likewise toward 1
 //
 // So a shape shared by every day is learned from every day, while what sets one
 // day of the week apart (a Sunday with no orders, say: the smooth day and week
@@ -80,8 +83,11 @@ class ResidualProfile {
   // The prior each bin is shrunk toward: its phase's pooled values, or (one
   // level) zero mean and the whole series' spread.
   double PriorMean(int bin) const;
-  double PriorVariance(int bin, double sigma_all) const;
-  static void Fold(Bin_* b, double r, double a, double sigma, double clip,
+  // Variance ratios to the whole-series scale: the bin's (shrunk) and its prior.
+  double Ratio(int bin) const;
+  double PriorRatio(int bin) const;
+  // q = a / sigma_all; sigma and ratio: the bin's current spread, in units and as a ratio.
+  static void Fold(Bin_* b, double r, double q, double sigma, double ratio, double clip,
                    double correction, double window);
 };
 

@@ -30,6 +30,9 @@ bool SeasonalForecasterOptions::IsValid(std::string* why) const {
     return fail("level_noise must be in [0, 1000]");
   }
   if (level_noise_unit <= 0) return fail("level_noise_unit must be a positive duration");
+  if (covariates < 0 || covariates > kMaxCovariates) {
+    return fail("covariates must number at most 16");
+  }
   return true;
 }
 
@@ -46,6 +49,8 @@ SeasonalForecaster::SeasonalForecaster(const SeasonalForecasterOptions& options)
     : options_(options), periods_(options.seasons), harmonics_(options.harmonics) {
   int n = 2;
   for (int h : harmonics_) n += 2 * h;
+  n += options_.covariates;
+  covariate_values_ = Vector::Zero(options_.covariates);
   theta_ = Vector::Zero(n);
   p_ = Matrix::Identity(n, n) * options_.prior_variance;
   x_ = Vector::Zero(n);
@@ -74,6 +79,11 @@ void SeasonalForecaster::FillRegressors(EventTime t, Vector* x) const {
       c = next_c;
     }
   }
+  r.tail(options_.covariates) = covariate_values_;
+}
+
+void SeasonalForecaster::SetCovariates(const double* values) {
+  for (int k = 0; k < options_.covariates; ++k) covariate_values_[k] = values[k];
 }
 
 void SeasonalForecaster::FillIntervalRegressors(EventTime from, EventTime to,
@@ -109,6 +119,7 @@ void SeasonalForecaster::FillIntervalRegressors(EventTime from, EventTime to,
       r[i++] = std::sin(middle) * sinc;
     }
   }
+  r.tail(options_.covariates) = covariate_values_;
 }
 
 Forecast SeasonalForecaster::PredictInterval(EventTime from, EventTime to) const {

@@ -8,6 +8,8 @@
 //          + sum over seasons s, harmonics j = 1..J_s of
 //              a_sj * cos(2 pi j phase_s(t)) + c_sj * sin(2 pi j phase_s(t))   + noise
 //
+//          + sum over covariates k of g_k * x_k(t)   (optional; values supplied)
+//
 //   phase_s(t) = ((t mod P_s) / P_s), computed in integer microseconds so the
 //   phase of a timestamp in 2026 is exact; t_ref is the time of the last update
 //   (the level l is "now"); U is the trend unit (the memory duration).
@@ -101,6 +103,10 @@ struct SeasonalForecasterOptions {
   double level_noise = 0.0;
   EventTime level_noise_unit = kMicrosPerDay;  // > 0
   static constexpr double kMaxLevelNoise = 1000.0;
+  // Extra regressors whose values the caller supplies for each observation
+  // (covariates: detectors/covariate.h), [0, kMaxCovariates].
+  int covariates = 0;
+  static constexpr int kMaxCovariates = 16;
 
   bool IsValid(std::string* why) const;
   // Default harmonics for a season period: sharper shapes for short periods.
@@ -164,6 +170,10 @@ class SeasonalForecaster {
   // the level, trend and seasonal shape re-learn from the next readings (a
   // planned change). Bounded like ShiftLevel; P stays positive definite.
   void Reopen(double variance);
+  // The covariate regressors' values for the next Predict, BeginUpdate or
+  // Update (held constant over an interval); `values` has options().covariates
+  // entries. Until set they are 0.
+  void SetCovariates(const double* values);
   // Sets the time unit of level_noise (the series' mean spacing, say); > 0.
   void SetLevelNoiseUnit(EventTime unit) {
     if (unit > 0) options_.level_noise_unit = unit;
@@ -210,6 +220,7 @@ class SeasonalForecaster {
   SeasonalForecasterOptions options_;
   std::vector<EventTime> periods_;  // one entry per season
   std::vector<int> harmonics_;
+  Vector covariate_values_;
   Vector theta_;
   Matrix p_;
   mutable Vector x_;  // scratch regressor, sized once

@@ -134,6 +134,7 @@ StatusOr<ProfileDesign> ProfileDesign::Make(const ProfileOptions& profile) {
             : profile.harmonics[i]);
   }
   if (profile.memory) design.forecaster.memory = *profile.memory;
+  design.forecaster.covariates = static_cast<int>(profile.covariates.size());
   // Counts move in whole units: a residual spread below the spread of a
   // uniform rounding error (1/sqrt(12)) is not resolvable, so it is the floor.
   if (profile.kind == SeriesKind::kCount) design.scale.floor = 1.0 / std::sqrt(12.0);
@@ -319,8 +320,15 @@ void SeriesMonitor::Process(EventTime t, double value, std::vector<SeriesEvent>*
   const double gap_before = arrival_.mean_gap();
   const Alarm rate = arrival_.Observe(t);
   CollectForRefit(std::numeric_limits<double>::quiet_NaN(), arrival_.last_score());
+  // A count bucketed with gaps = zero carries its arrival rate in its values
+  // (events per bucket), where the level detectors, with any covariates, watch
+  // it: a rate alert would repeat a level alert, or contradict a covariate
+  // that explains it. Its arrivals still time its silence.
+  const ProfileOptions& profile = design_->profile;
+  const bool rate_in_values = profile.kind == SeriesKind::kCount && profile.every &&
+                              profile.gaps == GapPolicy::kZero;
   if (rate.fired) {
-    if (arrival_.arrivals() >= rate_hold_until_) {
+    if (!rate_in_values && arrival_.arrivals() >= rate_hold_until_) {
       SeriesEvent e;
       e.kind = AlertKind::kRate;
       e.direction = rate.direction;
@@ -345,6 +353,43 @@ void SeriesMonitor::Process(EventTime t, double value, std::vector<SeriesEvent>*
     events->push_back(e);
   }
   for (const Observation& o : observations_scratch_) Model(o.from, o.to, o.value, events);
+}
+
+void SeriesMonitor::ConnectCovariates(const CovariateSource* source, CovariateSink* sink,
+                                      std::string name) {
+  covariate_source_ = source;
+  covariate_sink_ = sink;
+  name_ = std::move(name);
+}
+
+void SeriesMonitor::JoinCovariates(EventTime t) {
+  const std::vector<std::string>& names = design_->profile.covariates;
+  covariate_values_.resize(names.size(), 0.0);
+  covariate_means_.resize(names.size(), 0.0);
+  covariate_counts_.resize(names.size(), 0);
+  for (std::size_t k = 0; k < names.size(); ++k) {
+    const std::optional<double> value =
+        covariate_source_ ? covariate_source_->ValueAsOf(names[k], t,
+                                                         design_->profile.covariate_max_age)
+                          : std::nullopt;
+    if (value && std::isfinite(*value)) {
+      // Running mean over the last ~kCovariateWindow joined values: what a
+      // stale covariate stands in with.
+      ++covariate_counts_[k];
+      covariate_means_[k] +=
+          (*value - covariate_means_[k]) /
+          static_cast<double>(std::min<long long>(covariate_counts_[k], kCovariateWindow));
+      covariate_values_[k] = *value;
+    } else {
+      covariate_values_[k] = covariate_means_[k];
+    }
+  }
+}
+
+void SeriesMonitor::SetCovariates(const double* values) {
+  if (design_->forecaster.covariates == 0) return;
+  if (forecaster_) forecaster_->SetCovariates(values);
+  for (RivalForecaster& rival : rivals_) rival.forecaster.SetCovariates(values);
 }
 
 void SeriesMonitor::StartForecaster() {
@@ -411,6 +456,7 @@ void SeriesMonitor::StartForecaster() {
   std::vector<HeldObservation> held;
   held.swap(probe_);
   for (const HeldObservation& h : held) {
+    SetCovariates(h.covariates.data());
     if (h.from < h.to) {
       (void)forecaster_->UpdateInterval(h.from, h.to, h.y);
     } else {
@@ -468,17 +514,20 @@ void SeriesMonitor::ScoreRivals(EventTime from, EventTime to, double y) {
 
 void SeriesMonitor::Model(EventTime from, EventTime to, double y,
                           std::vector<SeriesEvent>* events) {
+  if (covariate_sink_) covariate_sink_->Publish(name_, to, y);
   while (next_planned_ < planned_.size() && planned_[next_planned_].at <= to) {
     ApplyPlannedChange(planned_[next_planned_++]);
   }
   if (Unlearned(to)) return;
   ++observations_;
   recent_times_[observations_ % recent_times_.size()] = to;
+  JoinCovariates(to);
   if (!forecaster_) {
-    probe_.push_back({from, to, y});
+    probe_.push_back({from, to, y, covariate_values_});
     if (static_cast<int>(probe_.size()) >= kProbe) StartForecaster();
     return;
   }
+  SetCovariates(covariate_values_.data());
   // The forecast comes from the first half of a two-phase update, so the
   // regressors and P x are computed once per observation.
   const StatusOr<Forecast> begun = forecaster_->BeginUpdate(from, to);
@@ -495,10 +544,14 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   const bool identified = forecaster_->updates() >= forecaster_->dimension();
   const bool armed = identified && observations_ > design_->profile.warmup &&
                      scale_.count() >= kMinScaleResiduals && sigma > 0;
-  const bool suspicious = Suspicious(kBaselineFraction);
+  // The scale, phase profile and whitening hold still while a level detector
+  // or the variance CUSUM is on its way to a threshold, so a change in level
+  // or spread being tested for is not learned away first.
+  const bool suspicious = Suspicious(kBaselineFraction) || SpreadSuspicious(kBaselineFraction);
   const int bin = profile_->Bin(from + (to - from) / 2);
   const double v = u - profile_->Mean(bin);
-  const double a = identified ? Whiten(to, v, !suspicious) : v;
+  const double a =
+      identified ? whitener_.Whiten(to, v, arrival_.mean_gap(), sigma, !suspicious) : v;
   const double phase_sigma = profile_->Sigma(bin, sigma);
   const double z = armed && phase_sigma > 0 ? a / phase_sigma : 0.0;
   last_z_ = z;
@@ -635,7 +688,7 @@ void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma,
 
   // Re-baseline: move the level by the estimated shift and open its variance,
   // so the forecaster settles on the new regime within a few readings.
-  if (forecaster_) forecaster_->ShiftLevel(e.magnitude, e.magnitude * e.magnitude);
+  if (forecaster_) forecaster_->ShiftLevel(e.magnitude, e.magnitude_sd * e.magnitude_sd);
   ResetLevelDetectors();
   variance_.Reset();
   const long long hold = profile.cooldown > 0 ? profile.cooldown : profile.warmup;
@@ -802,45 +855,17 @@ void SeriesMonitor::ResetLevelDetectors() {
   std::fill(threshold_fraction_.begin(), threshold_fraction_.end(), 0.0);
 }
 
+bool SeriesMonitor::SpreadSuspicious(double fraction_of_threshold) const {
+  const VarianceCusumOptions& o = variance_.options();
+  return variance_.wider_statistic() > fraction_of_threshold * o.up_h ||
+         variance_.narrower_statistic() > fraction_of_threshold * o.down_h;
+}
+
 bool SeriesMonitor::Suspicious(double fraction_of_threshold) const {
   for (double fraction : threshold_fraction_) {
     if (fraction > fraction_of_threshold) return true;
   }
   return false;
-}
-
-double SeriesMonitor::Whiten(EventTime t, double u, bool learn) {
-  double a = u;
-  const double mean_gap = arrival_.mean_gap();
-  if (has_previous_u_ && mean_gap > 0) {
-    const double lags = static_cast<double>(t - previous_time_) / mean_gap;
-    if (lags <= 3.0) {  // only near neighbours inform (and are explained by) the AR term
-      a = u - std::pow(rho_, std::max(lags, 0.0)) * previous_u_;
-      const double sigma = scale_.sigma();
-      if (learn && sigma > 0) {
-        // Huber-clipped so one spike cannot fake a correlation.
-        const double limit = 3.0 * sigma;
-        const double x = std::clamp(previous_u_, -limit, limit);
-        const double y = std::clamp(u, -limit, limit);
-        ++pairs_;
-        const double weight = 1.0 / static_cast<double>(std::min<long long>(
-                                        pairs_, kAutocorrelationWindow));
-        cross_ += (x * y - cross_) * weight;
-        square_ += (x * x - square_) * weight;
-        // Shrunk toward zero while few pairs are in (n / (n + 20)), and kept in
-        // [0, 0.95]: an Ornstein-Uhlenbeck correlation rho^lags is positive, and
-        // a cap below 1 keeps the whitening from blinding the detectors.
-        if (square_ > 0) {
-          const double n = static_cast<double>(pairs_);
-          rho_ = std::clamp(cross_ / square_ * n / (n + 20.0), 0.0, 0.95);
-        }
-      }
-    }
-  }
-  has_previous_u_ = true;
-  previous_u_ = u;
-  previous_time_ = t;
-  return a;
 }
 
 void SeriesMonitor::StartRegime(EventTime change_at) {
@@ -958,7 +983,10 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
     w.I64(h.from);
     w.I64(h.to);
     w.F64(h.y);
+    w.DoubleVector(h.covariates);
   }
+  w.DoubleVector(covariate_means_);
+  w.I64Vector(std::vector<std::int64_t>(covariate_counts_.begin(), covariate_counts_.end()));
   scale_.Save(w);
   w.Bool(profile_.has_value());
   if (profile_) {
@@ -990,13 +1018,7 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
   w.I64(variance_hold_until_);
   w.I64(rate_hold_until_);
   w.F64(last_z_);
-  w.Bool(has_previous_u_);
-  w.F64(previous_u_);
-  w.I64(previous_time_);
-  w.F64(cross_);
-  w.F64(square_);
-  w.I64(pairs_);
-  w.F64(rho_);
+  whitener_.Save(w);
   w.DoubleVector(variance_sample_);
   w.DoubleVector(arrival_sample_);
   w.Bool(variance_refitted_);
@@ -1029,7 +1051,19 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
     h.from = r.I64();
     h.to = r.I64();
     h.y = r.F64();
+    h.covariates = r.DoubleVector();
+    if (h.covariates.size() != design_->profile.covariates.size()) {
+      return r.Fail("covariates differ");
+    }
   }
+  covariate_means_ = r.DoubleVector();
+  const std::vector<std::int64_t> counts = r.I64Vector();
+  covariate_counts_.assign(counts.begin(), counts.end());
+  if (covariate_means_.size() != design_->profile.covariates.size() ||
+      covariate_counts_.size() != covariate_means_.size()) {
+    return r.Fail("covariates differ");
+  }
+  covariate_values_.assign(covariate_means_.size(), 0.0);
   if (Status s = scale_.Load(r); !s.ok()) return s;
   profile_.reset();
   if (r.Bool()) {
@@ -1070,13 +1104,7 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
   variance_hold_until_ = r.I64();
   rate_hold_until_ = r.I64();
   last_z_ = r.F64();
-  has_previous_u_ = r.Bool();
-  previous_u_ = r.F64();
-  previous_time_ = r.I64();
-  cross_ = r.F64();
-  square_ = r.F64();
-  pairs_ = r.I64();
-  rho_ = r.F64();
+  if (Status s = whitener_.Load(r); !s.ok()) return s;
   variance_sample_ = r.DoubleVector();
   arrival_sample_ = r.DoubleVector();
   variance_refitted_ = r.Bool();

@@ -12,12 +12,10 @@
 //     -> phase profile (detectors/residual_profile.h): v = u - m(phase), the
 //        residual mean the smooth seasonal terms miss at this phase of the
 //        shortest season
-//     -> whitening: a = v - phi(gap) v_prev, an AR(1) in continuous time
-//        (Ornstein-Uhlenbeck: phi(gap) = rho ^ (gap / mean gap)), rho estimated
-//        online by weighted least squares on in-control pairs (Box, Jenkins &
-//        Reinsel, "Time Series Analysis", ch. 7, conditional least squares; the
-//        continuous-time form is Brockwell & Davis, "Introduction to Time Series
-//        and Forecasting", 2nd ed., section 11.5; MEM); sigma = the phase's
+//     -> whitening (detectors/residual_whitener.h): a = the innovation of an
+//        Ornstein-Uhlenbeck process plus white noise, fitted online from the
+//        residuals' correlations at one and two mean gaps (a plain AR(1) in
+//        continuous time when that fits); sigma = the phase's
 //        spread (ResidualProfile, shrunk toward ResidualScale on a); z = a / sigma
 //     -> after `warmup` observations: level detectors (profile's list, calibrated
 //        by DesignDetectors) on z winsorised at +/- kLevelClip, so one spike can
@@ -101,6 +99,7 @@
 #include "detectors/arrival_model.h"
 #include "detectors/bocpd.h"
 #include "detectors/calibration.h"
+#include "detectors/covariate.h"
 #include "detectors/cusum.h"
 #include "detectors/detection.h"
 #include "detectors/ewma.h"
@@ -109,6 +108,7 @@
 #include "detectors/profile.h"
 #include "detectors/residual_profile.h"
 #include "detectors/residual_scale.h"
+#include "detectors/residual_whitener.h"
 #include "detectors/seasonal_forecaster.h"
 #include "detectors/status.h"
 #include "detectors/variance_cusum.h"
@@ -172,6 +172,13 @@ class SeriesMonitor {
   // "Annotations" above); replaces any given before. Invalid ones are ignored.
   void SetAnnotations(std::vector<Annotation> annotations);
 
+  // Where this series reads the profile's covariates from (null: none yet;
+  // they then stand at their running means), and where it publishes its own
+  // observations, as `name`, for series that use it as a covariate (null: it
+  // does not). detectors/covariate.h. Both must outlive the monitor.
+  void ConnectCovariates(const CovariateSource* source, CovariateSink* sink,
+                         std::string name);
+
   // Feeds one reading; events (if any) are appended to *events.
   ReadingVerdict Observe(EventTime t, double value, std::vector<SeriesEvent>* events);
   // Releases readings held for reordering (end of input).
@@ -202,23 +209,23 @@ class SeriesMonitor {
   void Save(SnapshotWriter& w) const;
   Status Load(SnapshotReader& r);
 
-
   // Read-only views for APIs and tests.
   // Null until the first kProbe observations have set the forecaster's memory.
   const SeasonalForecaster* forecaster() const {
     return forecaster_ ? &*forecaster_ : nullptr;
   }
   const ResidualScale& scale() const { return scale_; }
-  const ProfileOptions& profile() const { return design_->profile; }
   // The phase profile; null until the forecaster starts (forecasts, prediction.h).
   const ResidualProfile* residual_profile() const { return profile_ ? &*profile_ : nullptr; }
+  const ProfileOptions& profile() const { return design_->profile; }
   const ArrivalModel& arrivals() const { return arrival_; }
   long long observations() const { return observations_; }
   bool armed() const { return observations_ > design_->profile.warmup; }
   bool silent() const { return silent_; }
   double last_z() const { return last_z_; }
   // Estimated lag-one autocorrelation of the residuals at the mean spacing.
-  double residual_autocorrelation() const { return rho_; }
+  double residual_autocorrelation() const { return whitener_.lag1(); }
+  const ResidualWhitener& whitener() const { return whitener_; }
 
   // What one detector shows now (for the HTTP API and metrics). A two-sided
   // detector reports the side nearer its decision interval.
@@ -264,6 +271,8 @@ class SeriesMonitor {
   // True while any level detector is past the given fraction of its threshold:
   // baselines then hold still rather than learn the change being tested for.
   bool Suspicious(double fraction_of_threshold) const;
+  // Likewise for the variance CUSUM's two sides.
+  bool SpreadSuspicious(double fraction_of_threshold) const;
   // The residual scale and autocorrelation stop learning past a quarter of the
   // way; the forecaster's steps are limited to 1 sigma past half way.
   static constexpr double kBaselineFraction = 0.25;
@@ -271,8 +280,16 @@ class SeriesMonitor {
   static constexpr double kLevelClip = 4.0;
   static constexpr size_t kRefitSample = 1000;
   static constexpr double kRefitCeiling = 3.0;
-  double Whiten(EventTime t, double u, bool learn);
   void StartForecaster();
+  // Covariates: the values as of t into covariate_values_, then into the forecasters.
+  void JoinCovariates(EventTime t);
+  void SetCovariates(const double* values);
+  static constexpr long long kCovariateWindow = 1000;
+  const CovariateSource* covariate_source_ = nullptr;
+  CovariateSink* covariate_sink_ = nullptr;
+  std::string name_;
+  std::vector<double> covariate_values_, covariate_means_;
+  std::vector<long long> covariate_counts_;
   void CollectForRefit(double variance_q, double arrival_score);
 
   const ProfileDesign* design_;
@@ -319,6 +336,7 @@ class SeriesMonitor {
   struct HeldObservation {
     EventTime from, to;
     double y;
+    std::vector<double> covariates;
   };
   std::vector<HeldObservation> probe_;
   ResidualScale scale_;
@@ -343,14 +361,7 @@ class SeriesMonitor {
   long long variance_hold_until_ = 0;
   long long rate_hold_until_ = 0;  // in arrivals
   double last_z_ = 0.0;
-  // AR(1) whitening state.
-  static constexpr int kAutocorrelationWindow = 300;  // pairs in the running estimate
-  bool has_previous_u_ = false;
-  double previous_u_ = 0.0;
-  EventTime previous_time_ = 0;
-  double cross_ = 0.0, square_ = 0.0;  // running means of u_t u_{t-1}, u_{t-1}^2
-  long long pairs_ = 0;
-  double rho_ = 0.0;
+  ResidualWhitener whitener_;
   std::vector<double> threshold_fraction_;  // per level detector, at its last update
   std::vector<double> variance_sample_;     // capped z^2, until re-fitted
   std::vector<double> arrival_sample_;      // arrival scores X, until re-fitted
