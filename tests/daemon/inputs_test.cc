@@ -455,7 +455,7 @@ TEST_F(TcpFixture, ASlowSenderHoldingHalfALineDoesNotHoldUpAnotherConnection) {
 }
 
 TEST_F(TcpFixture, ReadingsFarAheadOfTheClockAreRefusedAndTheSeriesKeepsWorking) {
-  StartListener({}, TcpIngestRules{.max_time_ahead = kMicrosPerDay});
+  StartListener({}, TcpIngestRules{.max_time_ahead = kMicrosPerDay, .token = {}});
   tcp::socket socket = Connect();
   // Lines() stamps 2026-03-01 onwards: in the past. Year 2100 is not.
   const std::string text =

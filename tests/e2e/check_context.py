@@ -21,21 +21,18 @@ Scenarios:
                over the same readings gives the same numbers.
 """
 
-import argparse
 import calendar
 import time
 import json
 import math
 import os
 import random
-import shutil
 import subprocess
 import sys
-import tempfile
 import urllib.parse
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
-from check_serve import Daemon, Failure, check, write_config  # noqa: E402
+from check_serve import Daemon, check, run_scenario, write_config  # noqa: E402
 
 START = 1772323200  # 2026-03-01T00:00:00Z
 STEP = 600          # one reading every 10 minutes
@@ -275,23 +272,7 @@ SCENARIOS = {"annotations": scenario_annotations, "forecast": scenario_forecast}
 
 
 def main(argv):
-    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    parser.add_argument("--plumbline", required=True)
-    parser.add_argument("--keep", action="store_true", help="keep the temporary folder")
-    parser.add_argument("scenario", choices=sorted(SCENARIOS))
-    args = parser.parse_args(argv)
-    tmp = tempfile.mkdtemp(prefix="plumbline-context-")
-    try:
-        SCENARIOS[args.scenario](args, tmp)
-    except Failure as failure:
-        print("check_context: %s: FAILED: %s" % (args.scenario, failure))
-        print("check_context: logs kept in %s" % tmp)
-        return 1
-    if args.keep:
-        print("check_context: kept %s" % tmp)
-    else:
-        shutil.rmtree(tmp, ignore_errors=True)
-    return 0
+    return run_scenario("context", __doc__.split("\n")[0], SCENARIOS, argv)
 
 
 if __name__ == "__main__":

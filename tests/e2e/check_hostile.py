@@ -23,20 +23,16 @@ Scenarios:
             token line is closed, the token never appears in the log
 """
 
-import argparse
 import http.client
 import os
 import re
-import shutil
 import socket
-import subprocess
 import sys
-import tempfile
 import threading
 import time
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
-from check_serve import Daemon, Failure, check  # noqa: E402
+from check_serve import Daemon, check, run_scenario  # noqa: E402
 
 TIMEOUT = 120
 TOKEN = "harbourside-e2e-5b1c"
@@ -342,23 +338,7 @@ SCENARIOS = {"hostile": scenario_hostile, "overload": scenario_overload,
 
 
 def main(argv):
-    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    parser.add_argument("--plumbline", required=True)
-    parser.add_argument("--keep", action="store_true", help="keep the temporary folder")
-    parser.add_argument("scenario", choices=sorted(SCENARIOS))
-    args = parser.parse_args(argv)
-    tmp = tempfile.mkdtemp(prefix="plumbline-hostile-")
-    try:
-        SCENARIOS[args.scenario](args, tmp)
-    except Failure as failure:
-        print("check_hostile: %s: FAILED: %s" % (args.scenario, failure))
-        print("check_hostile: logs kept in %s" % tmp)
-        return 1
-    if args.keep:
-        print("check_hostile: kept %s" % tmp)
-    else:
-        shutil.rmtree(tmp, ignore_errors=True)
-    return 0
+    return run_scenario("hostile", __doc__.split("\n")[0], SCENARIOS, argv)
 
 
 if __name__ == "__main__":

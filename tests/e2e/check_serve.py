@@ -92,6 +92,28 @@ def write_config(path, profiles, state, extra=""):
         f.write(extra)
 
 
+def run_scenario(tool, description, scenarios, argv):
+    """The main of a check script whose scenarios take (args, tmp): runs the one
+    named on the command line in a fresh temporary folder, kept when it fails or
+    with --keep. Returns the exit status."""
+    parser = argparse.ArgumentParser(description=description)
+    parser.add_argument("--plumbline", required=True)
+    parser.add_argument("--keep", action="store_true", help="keep the temporary folder")
+    parser.add_argument("scenario", choices=sorted(scenarios))
+    args = parser.parse_args(argv)
+    tmp = tempfile.mkdtemp(prefix="plumbline-%s-" % tool)
+    try:
+        scenarios[args.scenario](args, tmp)
+    except Failure as failure:
+        print("check_%s: %s: FAILED: %s" % (tool, args.scenario, failure))
+        print("check_%s: logs kept in %s" % (tool, tmp))
+        return 1
+    if args.keep:
+        print("check_%s: kept %s" % (tool, tmp))
+    else:
+        shutil.rmtree(tmp, ignore_errors=True)
+    return 0
+
 class Daemon:
     def __init__(self, plumbline, config, tmp, name="serve"):
         self.log_path = os.path.join(tmp, name + ".log")
