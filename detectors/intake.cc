@@ -92,7 +92,11 @@ void Intake::CloseBucketsBefore(EventTime t_bucket, std::vector<Observation>* ou
     const EventTime hold_from = std::max(last_time_, bucket_);
     sum_ += last_value_ * static_cast<double>(bucket_end - hold_from);
     covered_ += static_cast<double>(bucket_end - hold_from);
-    if (covered_ > 0) Emit(bucket_, sum_ / covered_, out);
+    // Only a bucket covered from its start: a mean over its last minutes
+    // would be compared with the forecast's mean over the whole bucket, and
+    // averages fewer readings than the others (the first bucket after a gap
+    // would look like a change).
+    if (covered_ >= static_cast<double>(width)) Emit(bucket_, sum_ / covered_, out);
   } else if (!partial_) {
     Emit(bucket_, sum_, out);
   }

@@ -24,9 +24,11 @@
 //           gaps = skip, or than kMaxFilledBuckets buckets under any policy, is
 //           one observation over its whole length instead, so a fortnight unread
 //           is not turned into flat, made-up buckets)
-// A count or meter bucket that the data do not cover from its start (the first
-// one, or the ones a meter reset interrupts) is incomplete and is dropped, never
-// reported as a low value; buckets across a meter reset are never filled.
+// A bucket that the data do not cover from its start (the first one; a gauge's
+// first after a gap, as its value does not hold across an empty bucket; a
+// meter's interrupted by a reset) is incomplete and is dropped, never reported
+// as a low value or as a mean of a few minutes; buckets across a meter reset
+// are never filled.
 // Empty buckets: skip emits nothing; zero emits 0; hold repeats the last
 // bucket's value (a gauge's: its last reading, which still holds). At most
 // kMaxFilledBuckets are filled per gap.

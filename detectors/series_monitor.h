@@ -271,8 +271,6 @@ class SeriesMonitor {
   // True while any level detector is past the given fraction of its threshold:
   // baselines then hold still rather than learn the change being tested for.
   bool Suspicious(double fraction_of_threshold) const;
-  // Likewise for the variance CUSUM's two sides.
-  bool SpreadSuspicious(double fraction_of_threshold) const;
   // The residual scale and autocorrelation stop learning past a quarter of the
   // way; the forecaster's steps are limited to 1 sigma past half way.
   static constexpr double kBaselineFraction = 0.25;

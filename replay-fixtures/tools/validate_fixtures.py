@@ -33,7 +33,7 @@ GUARANTEED_KEYS = {"match", "kind", "seasons", "gaps", "warmup", "arl0", "shift"
 REQUIRED_KEYS = GUARANTEED_KEYS - {"silence_after"}
 # Further profile keys Plumbline documents (README "Using it"); allowed, not required.
 OPTIONAL_KEYS = {"harmonics", "every", "memory", "trend", "lateness", "agree_within",
-                 "cooldown", "level_noise"}
+                 "cooldown", "level_noise", "covariates", "covariate_max_age"}
 KINDS = {"gauge", "count", "meter"}
 GAPS = {"skip", "zero", "hold"}
 DETECTORS = {"cusum", "page-hinkley", "bocpd", "ewma"}
@@ -260,7 +260,14 @@ def check_expect(fixture_dir, name):
             continue
         if profile["warmup"] != info["warmup"]:
             problem(where, f"{s}: warmup {info['warmup']} but config says {profile['warmup']}")
-        if info["warmup"] < len(rows) and parse_time(info["armed_at"]) != rows[info["warmup"]][0]:
+        if "every" in profile and rows:
+            # Bucketed: armed at the end of observation warmup + 1; the first
+            # bucket, not covered from its start, is dropped (detectors/intake.h).
+            width = parse_duration(profile["every"])
+            first_bucket = rows[0][0] - rows[0][0] % width
+            if parse_time(info["armed_at"]) != first_bucket + (info["warmup"] + 2) * width:
+                problem(where, f"{s}: armed_at must be the end of bucket number warmup + 2")
+        elif info["warmup"] < len(rows) and parse_time(info["armed_at"]) != rows[info["warmup"]][0]:
             problem(where, f"{s}: armed_at must be the time of reading number warmup + 1")
 
     ids = set()

@@ -188,31 +188,33 @@ TEST(IntakeBucketedTest, GaugeIsTimeWeightedWithTheLastValueCarriedIntoTheNextBu
                             });
 }
 
-TEST(IntakeBucketedTest, GaugeFirstBucketIsAveragedOverTheTimeItCoversAndKept) {
+// A mean over a bucket's last half hour is not the bucket's mean: dropped.
+TEST(IntakeBucketedTest, GaugeFirstBucketNotCoveredFromItsStartIsDropped) {
   Feeder f(SeriesKind::kGauge, GapPolicy::kSkip, kHour);
   f.Add(H(0.5), 10);
   f.Add(H(0.75), 20);
   f.Add(H(1.25), 0);
-  ExpectObservations(f.out, {{H(0), H(1), 15}});
+  f.Add(H(2), 7);
+  ExpectObservations(f.out, {{H(1), H(2), (20 * 15 + 0 * 45) / 60.0}});
 }
 
 TEST(IntakeBucketedTest, GaugeValueIsNotCarriedAcrossAnEmptyBucketUnderSkip) {
   Feeder f(SeriesKind::kGauge, GapPolicy::kSkip, kHour);
   f.Add(H(0), 10);
   f.Add(H(0.5), 30);
-  f.Add(H(2.5), 50);  // [1h, 2h) empty: 30 is not carried into [2h, 2.5h)
-  f.Add(H(3), 0);
-  ExpectObservations(f.out, {{H(0), H(1), 20}, {H(2), H(3), 50}});
+  f.Add(H(2.5), 50);  // [1h, 2h) empty: 30 is not carried into [2h, 2.5h),
+  f.Add(H(3), 0);     // so [2h, 3h) is not covered from its start: dropped
+  f.Add(H(4), 0);
+  ExpectObservations(f.out, {{H(0), H(1), 20}, {H(3), H(4), 0}});
 }
 
 TEST(IntakeBucketedTest, GaugeEmptyBucketsUnderZeroAreZeroAndNothingIsCarried) {
   Feeder f(SeriesKind::kGauge, GapPolicy::kZero, kHour);
   f.Add(H(0), 10);
   f.Add(H(0.5), 30);
-  f.Add(H(3.25), 50);
+  f.Add(H(3.25), 50);  // [3h, 4h) is covered from 3:15 only: dropped
   f.Add(H(4), 0);
-  ExpectObservations(
-      f.out, {{H(0), H(1), 20}, {H(1), H(2), 0}, {H(2), H(3), 0}, {H(3), H(4), 50}});
+  ExpectObservations(f.out, {{H(0), H(1), 20}, {H(1), H(2), 0}, {H(2), H(3), 0}});
 }
 
 // Under hold a gauge's last reading still holds: an empty bucket's time-weighted

@@ -368,7 +368,10 @@ def scenario_sighup(args, tmp, expected, accepted):
 
     # A valid one: the pallets profile gets a new arl0 (its series keeps its
     # model, with new detectors), the four others keep everything.
-    changed = re.sub(r"arl0: 10000\b", "arl0: 20000", args.profiles)
+    # (the pallets profile is the last with arl0 10000; door openings share it)
+    at = args.profiles.rfind("arl0: 10000 ")
+    changed = (args.profiles[:at] + "arl0: 20000" + args.profiles[at + len("arl0: 10000"):]
+               if at >= 0 else args.profiles)
     check(changed != args.profiles, "fixture config has no 'arl0: 10000' to change")
     write_config(config, changed, state)
     daemon.signal(signal.SIGHUP)
