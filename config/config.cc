@@ -45,9 +45,17 @@ constexpr std::string_view kTcpKeys[] = {
     "enabled", "address", "port", "idle_timeout", "max_connections", "max_line_bytes"};
 constexpr std::string_view kHttpKeys[] = {"enabled", "address", "port", "max_body_bytes"};
 constexpr std::string_view kStorageKeys[] = {"directory", "checkpoint_every", "http_ingest"};
-constexpr std::string_view kInputKeys[] = {"files"};
+constexpr std::string_view kInputKeys[] = {"files", "kafka", "mqtt"};
+constexpr std::string_view kKafkaInputKeys[] = {
+    "brokers",          "topic",    "group",          "state_topic",
+    "state_directory", "checkpoint_every", "start_at", "session_timeout"};
+constexpr std::string_view kMqttKeys[] = {"host",      "port",    "client_id",
+                                          "topics",    "series",  "keepalive",
+                                          "backoff",   "backoff_max"};
+constexpr std::string_view kKafkaSinkKeys[] = {"brokers", "topic", "min_severity"};
 constexpr std::string_view kFileKeys[] = {"path", "start_at", "poll_interval"};
-constexpr std::string_view kSinkKeys[] = {"alert_log", "webhook", "stdout", "events"};
+constexpr std::string_view kSinkKeys[] = {"alert_log", "webhook", "stdout", "events",
+                                          "kafka"};
 constexpr std::string_view kAlertLogKeys[] = {"enabled", "path", "min_severity"};
 constexpr std::string_view kWebhookKeys[] = {"url",     "attempts",    "backoff",
                                              "backoff_max", "timeout", "queue",
@@ -712,6 +720,8 @@ class Loader {
       });
     } else if (k == "inputs") {
       Section(f, "inputs", kInputKeys, [&](const Field& e) {
+        if (e.key == "kafka") return LoadKafkaInput(e, &o->kafka), true;
+        if (e.key == "mqtt") return LoadMqttInput(e, &o->mqtt), true;
         if (e.key != "files") return false;
         LoadFiles(e, &o->files);
         return true;
@@ -847,12 +857,92 @@ class Loader {
         }
         return true;
       });
+    } else if (k == "kafka") {
+      KafkaSinkOptions& s = o->kafka;
+      Section(
+          f, "sinks.kafka", kKafkaSinkKeys,
+          [&](const Field& e) {
+            if (e.key == "brokers") {
+              ScalarText(e, "bootstrap servers such as 127.0.0.1:9092", &s.brokers);
+            } else if (e.key == "topic") {
+              ScalarText(e, "a topic name", &s.topic);
+            } else if (e.key == "min_severity") {
+              Enum(e, SeverityFromString, SeverityChoices(), &s.min_severity);
+            } else {
+              return false;
+            }
+            return true;
+          },
+          [&](std::string* why) { return s.IsValid(why); });
     } else if (k == "events") {
       Bool(f, &o->events);
     } else {
       return false;
     }
     return true;
+  }
+
+  void LoadKafkaInput(const Field& f, KafkaInputOptions* o) {
+    Section(
+        f, "inputs.kafka", kKafkaInputKeys,
+        [&](const Field& e) {
+          const std::string_view key = e.key;
+          if (key == "brokers") {
+            ScalarText(e, "bootstrap servers such as 127.0.0.1:9092", &o->brokers);
+          } else if (key == "topic" || key == "group" || key == "state_topic") {
+            ScalarText(e, key == "group" ? "a consumer group name" : "a topic name",
+                       key == "topic"   ? &o->topic
+                       : key == "group" ? &o->group
+                                        : &o->state_topic);
+          } else if (key == "state_directory") {
+            ScalarText(e, "a directory path", &o->state_directory);
+          } else if (key == "checkpoint_every") {
+            Duration(e, false, &o->checkpoint_every);
+          } else if (key == "session_timeout") {
+            Duration(e, false, &o->session_timeout);
+          } else if (key == "start_at") {
+            StartAt start_at = StartAt::kBeginning;
+            if (Enum(e, StartAtFromString, StartAtChoices(), &start_at)) {
+              o->start_at_end = start_at == StartAt::kEnd;
+            }
+          } else {
+            return false;
+          }
+          return true;
+        },
+        [&](std::string* why) { return o->IsValid(why); });
+  }
+
+  void LoadMqttInput(const Field& f, MqttInputOptions* o) {
+    Section(
+        f, "inputs.mqtt", kMqttKeys,
+        [&](const Field& e) {
+          const std::string_view key = e.key;
+          if (key == "host") {
+            ScalarText(e, "a broker host such as 127.0.0.1", &o->host);
+          } else if (key == "port") {
+            WholeNumber(e, "a port number", &o->port);
+          } else if (key == "client_id") {
+            ScalarText(e, "a client id", &o->client_id);
+          } else if (key == "topics") {
+            List(e, "a list of topic filters such as [\"harbourside/+/temp_c\"]",
+                 &o->topics, [&](const Field& element, std::string* out) {
+                   return ScalarText(element, "a topic filter", out);
+                 });
+          } else if (key == "series") {
+            ScalarText(e, "a series name template such as coldstore/{2}/{3}", &o->series);
+          } else if (key == "keepalive") {
+            Duration(e, false, &o->keepalive);
+          } else if (key == "backoff") {
+            Duration(e, false, &o->backoff);
+          } else if (key == "backoff_max") {
+            Duration(e, false, &o->backoff_max);
+          } else {
+            return false;
+          }
+          return true;
+        },
+        [&](std::string* why) { return o->IsValid(why); });
   }
 
   // `files:` is a list whose elements are a path or a mapping with `path`.

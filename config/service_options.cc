@@ -137,7 +137,7 @@ bool WebhookOptions::IsValid(std::string* why) const {
 }
 
 bool SinkOptions::IsValid(std::string* why) const {
-  return alert_log.IsValid(why) && webhook.IsValid(why);
+  return alert_log.IsValid(why) && webhook.IsValid(why) && kafka.IsValid(why);
 }
 
 bool AccessOptions::IsValid(std::string* why) const {
@@ -174,6 +174,12 @@ bool ServiceOptions::IsValid(std::string* why) const {
   }
   if (shutdown_timeout <= 0 || shutdown_timeout > 10 * kMicrosPerMinute) {
     return Fail(why, "shutdown_timeout must be in (0, 10m]");
+  }
+  if (!kafka.IsValid(why) || !mqtt.IsValid(why)) return false;
+  if (kafka.enabled() && checkpoint_every != 0) {
+    return Fail(why,
+                "checkpoint_every must be 0 with inputs.kafka: a local checkpoint would bring "
+                "back series of partitions another instance owns now");
   }
   std::set<std::string> paths;
   for (const FileInputOptions& file : files) {
@@ -221,6 +227,17 @@ std::vector<std::string> DescribeService(const ServiceOptions& o) {
     inputs += ", file " + file.path + " (from the " +
               std::string(ToString(file.start_at)) + ")";
   }
+  if (o.kafka.enabled()) {
+    inputs += ", kafka " + o.kafka.topic + " on " + o.kafka.brokers + " (group " +
+              o.kafka.group + ", state in " +
+              (o.kafka.state_topic.empty() ? "directory " + o.kafka.state_directory
+                                           : "topic " + o.kafka.state_topic) +
+              ")";
+  }
+  if (o.mqtt.enabled()) {
+    inputs += ", mqtt " + o.mqtt.host + ":" + std::to_string(o.mqtt.port) + " (" +
+              std::to_string(o.mqtt.topics.size()) + " topic filters)";
+  }
   lines.push_back(inputs);
   std::string sinks = "sinks:";
   // " (notify and up)" for a sink that drops the less urgent alerts.
@@ -240,6 +257,10 @@ std::vector<std::string> DescribeService(const ServiceOptions& o) {
              from(o.sinks.webhook.min_severity) + ";";
   }
   if (o.sinks.to_stdout) sinks += " stdout" + from(o.sinks.stdout_min_severity) + ";";
+  if (o.sinks.kafka.enabled()) {
+    sinks += " kafka " + o.sinks.kafka.topic + " on " + o.sinks.kafka.brokers +
+             from(o.sinks.kafka.min_severity) + ";";
+  }
   if (sinks.back() == ';') sinks.pop_back();
   if (sinks == "sinks:") sinks += " none";
   if (o.sinks.events) sinks += " (with events)";

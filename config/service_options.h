@@ -24,6 +24,8 @@
 //     files:                       # followed like `tail -F`
 //       - path: /var/log/coldstore/readings.csv
 //         start_at: beginning      # beginning | end (first run only)
+//     kafka: {...}                 # a consumer group (config/stream_options.h)
+//     mqtt: {...}                  # an MQTT subscriber (config/stream_options.h)
 //   sinks:
 //     alert_log: {path: alerts.jsonl, enabled: true}   # default <directory>/alerts.jsonl
 //     webhook: {url: http://127.0.0.1:9000/alerts, attempts: 8, backoff: 500ms,
@@ -53,6 +55,7 @@
 #include <string_view>
 #include <vector>
 
+#include "config/stream_options.h"
 #include "detectors/event_time.h"
 #include "detectors/severity.h"
 
@@ -147,6 +150,7 @@ struct SinkOptions {
   bool to_stdout = true;  // key `stdout` (or stdout.enabled)
   Severity stdout_min_severity = Severity::kRecord;  // key stdout.min_severity
   bool events = false;    // also send resume, retrain and meter-reset events
+  KafkaSinkOptions kafka;  // key sinks.kafka
   bool IsValid(std::string* why) const;
 };
 
@@ -177,6 +181,8 @@ struct ServiceOptions {
   EventTime checkpoint_every = 5 * kMicrosPerMinute;
   IngestAck http_ingest = IngestAck::kDurable;  // key storage.http_ingest
   std::vector<FileInputOptions> files;
+  KafkaInputOptions kafka;  // key inputs.kafka
+  MqttInputOptions mqtt;    // key inputs.mqtt
   SinkOptions sinks;
   int metrics_series_limit = 100;  // key metrics.series_limit
   EventTime shutdown_timeout = 10 * kMicrosPerSecond;
@@ -193,7 +199,8 @@ struct ServiceOptions {
   // Rules: each part valid; shards in [0, 256]; queue_batches in [1, 65536];
   // max_series >= 1; recent_points in [0, 4096]; state_directory non-empty;
   // metrics_series_limit in [0, 100000]; shutdown_timeout in (0, 10m]; no file
-  // path given twice.
+  // path given twice; with inputs.kafka, checkpoint_every 0 (the input keeps
+  // each partition's state where every instance finds it).
   bool IsValid(std::string* why) const;
   // The shard count to run: `shards`, or the number of cores when 0.
   int EffectiveShards() const;

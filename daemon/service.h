@@ -9,6 +9,9 @@
 //                      bounded queues, blocking when full                         └
 //                      webhook ─ its own queue
 //
+// The Kafka and MQTT inputs (daemon/kafka_input.h, daemon/mqtt_input.h) route
+// like the others; alerts may also go to Kafka (daemon/kafka_alert_sink.h).
+//
 // Staged shutdown (Shutdown): stop the inputs (the caller stops the HTTP server
 // first), let the shards drain their queues and release held readings, let
 // the dispatcher deliver what they raised, and drain the sinks (the webhook
@@ -44,6 +47,8 @@
 #include "daemon/clock.h"
 #include "daemon/file_follower.h"
 #include "daemon/file_system.h"
+#include "daemon/kafka_input.h"
+#include "daemon/mqtt_input.h"
 #include "daemon/pipeline_observer.h"
 #include "daemon/service_view.h"
 #include "daemon/shard.h"
@@ -142,6 +147,8 @@ class Service : public ServiceView {
   std::thread io_thread_;
   std::unique_ptr<TcpListener> tcp_;
   std::vector<std::unique_ptr<FileFollower>> followers_;
+  std::unique_ptr<KafkaInput> kafka_;  // inputs.kafka (null: off)
+  std::unique_ptr<MqttInput> mqtt_;    // inputs.mqtt (null: off)
 
   // Annotations made through the API (kept in the state directory's
   // kAnnotationFileName) join the config file's: every shard runs the config

@@ -16,6 +16,9 @@ packages=(
   wrk curl
   # the status page and replay report in a real browser (tests/e2e/check_ui.py)
   chromium
+  # the Kafka and MQTT inputs and the Kafka sink (the tests run librdkafka's mock
+  # cluster and a mosquitto broker on loopback)
+  librdkafka-dev libmosquitto-dev mosquitto
   # reference checks: numpy/scipy/statsmodels oracles and R's data sets
   python3 python3-numpy python3-scipy python3-statsmodels r-base-core r-cran-boot
 )
