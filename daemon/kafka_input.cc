@@ -518,6 +518,7 @@ void KafkaInput::Run() {
       std::vector<std::int32_t> partitions;
       for (const auto& [partition, owned] : owned_) partitions.push_back(partition);
       if (Status status = SavePartitions(partitions); !status.ok()) Fail(status);
+      CommitOffsets();
       saved = std::chrono::steady_clock::now();
     }
   }
@@ -624,23 +625,25 @@ Status KafkaInput::SavePartitions(const std::vector<std::int32_t>& partitions) {
     series += counts[i];
   }
   if (Status status = store_->Save(encoded); !status.ok()) return status;
-  rd_kafka_topic_partition_list_t* offsets =
-      rd_kafka_topic_partition_list_new(static_cast<int>(due.size()));
-  for (std::int32_t p : due) {
-    Owned& owned = owned_[p];
-    owned.saved_offset = owned.next_offset;
-    rd_kafka_topic_partition_list_add(offsets, options_.topic.c_str(), p)->offset =
-        owned.next_offset;
-  }
-  // The group's committed offsets follow the records, for lag monitoring
-  // (consumption resumes from the records' offsets).
-  rd_kafka_commit(consumer_, offsets, 1);
-  rd_kafka_topic_partition_list_destroy(offsets);
+  for (std::int32_t p : due) owned_[p].saved_offset = owned_[p].next_offset;
   LogDebug("kafka partition state saved", {{"partitions", due.size()},
                                            {"series", series},
                                            {"bytes", bytes},
                                            {"seconds", SecondsSince(begun)}});
   return Status::Ok();
+}
+
+void KafkaInput::CommitOffsets() {
+  rd_kafka_topic_partition_list_t* offsets =
+      rd_kafka_topic_partition_list_new(static_cast<int>(owned_.size()));
+  for (const auto& [partition, owned] : owned_) {
+    if (owned.saved_offset < 0) continue;
+    rd_kafka_topic_partition_list_add(offsets, options_.topic.c_str(), partition)
+        ->offset = owned.saved_offset;
+  }
+  // Asynchronous; one refused during a rebalance is made again next time.
+  if (offsets->cnt > 0) rd_kafka_commit(consumer_, offsets, 1);
+  rd_kafka_topic_partition_list_destroy(offsets);
 }
 
 void KafkaInput::Assign(rd_kafka_topic_partition_list_t* partitions) {
@@ -741,6 +744,7 @@ void KafkaInput::Revoke(rd_kafka_topic_partition_list_t* partitions) {
     // are judged again (their alerts come again, with the same ids).
     Fail(status);
   }
+  CommitOffsets();
   std::vector<std::vector<std::string>> names(shards_->size());
   std::size_t series = 0;
   std::string list;

@@ -142,6 +142,9 @@ class KafkaInput {
   void Route(const ::rd_kafka_message_s& message);
   // Saves those of `partitions` whose offset moved since their last record.
   Status SavePartitions(const std::vector<std::int32_t>& partitions);
+  // Commits the offsets of the records saved to the group (for lag
+  // monitoring: consumption resumes from the records' offsets).
+  void CommitOffsets();
   void Fail(const Status& status);
   void Refuse(std::string_view reason, std::string_view detail);
 

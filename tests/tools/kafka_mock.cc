@@ -52,7 +52,7 @@ rd_kafka_t* Client(rd_kafka_type_t type,
 }
 
 int Cluster(const std::vector<std::string>& topics) {
-  rd_kafka_t* handle = Client(RD_KAFKA_PRODUCER, {});
+  rd_kafka_t* handle = Client(RD_KAFKA_PRODUCER, {{"log_level", "3"}});
   rd_kafka_mock_cluster_t* cluster = rd_kafka_mock_cluster_new(handle, 3);
   if (!cluster) Die("mock cluster not made");
   for (const std::string& spec : topics) {
