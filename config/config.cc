@@ -42,8 +42,11 @@ constexpr std::string_view kAnnotationKeys[] = {
 // The keys of the service sections (config/service_options.h).
 constexpr std::string_view kListenerKeys[] = {"tcp", "http"};
 constexpr std::string_view kTcpKeys[] = {
-    "enabled", "address", "port", "idle_timeout", "max_connections", "max_line_bytes"};
-constexpr std::string_view kHttpKeys[] = {"enabled", "address", "port", "max_body_bytes"};
+    "enabled",         "address",        "port", "idle_timeout",
+    "max_connections", "max_line_bytes", "tls"};
+constexpr std::string_view kHttpKeys[] = {"enabled", "address", "port", "max_body_bytes",
+                                          "tls"};
+constexpr std::string_view kTlsKeys[] = {"certificate_file", "key_file"};
 constexpr std::string_view kStorageKeys[] = {"directory", "checkpoint_every", "http_ingest"};
 constexpr std::string_view kInputKeys[] = {"files", "kafka", "mqtt"};
 constexpr std::string_view kKafkaInputKeys[] = {
@@ -684,12 +687,18 @@ class Loader {
         if (e.key == "tcp") {
           Section(
               e, "listeners.tcp", kTcpKeys,
-              [&](const Field& t) { return LoadTcpKey(t, &o->tcp); },
+              [&](const Field& t) {
+                return t.key == "tls" ? LoadTls(t, "listeners.tcp.tls", &o->tcp.tls)
+                                      : LoadTcpKey(t, &o->tcp);
+              },
               [&](std::string* why) { return o->tcp.IsValid(why); });
         } else if (e.key == "http") {
           Section(
               e, "listeners.http", kHttpKeys,
-              [&](const Field& h) { return LoadHttpKey(h, &o->http); },
+              [&](const Field& h) {
+                return h.key == "tls" ? LoadTls(h, "listeners.http.tls", &o->http.tls)
+                                      : LoadHttpKey(h, &o->http);
+              },
               [&](std::string* why) { return o->http.IsValid(why); });
         } else {
           return false;
@@ -756,6 +765,20 @@ class Loader {
     } else {
       return false;
     }
+    return true;
+  }
+
+  // A listener's `tls` section; always true (its errors are reported here).
+  bool LoadTls(const Field& f, std::string_view name, TlsOptions* o) {
+    Section(
+        f, name, kTlsKeys,
+        [&](const Field& e) {
+          if (e.key != "certificate_file" && e.key != "key_file") return false;
+          ScalarText(e, "a PEM file path",
+                     e.key == "certificate_file" ? &o->certificate_file : &o->key_file);
+          return true;
+        },
+        [&](std::string* why) { return o->IsValid(why); });
     return true;
   }
 

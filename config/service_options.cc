@@ -19,6 +19,13 @@ bool ValidPort(int port) { return port >= 0 && port <= 65535; }
 
 }  // namespace
 
+bool TlsOptions::IsValid(std::string* why) const {
+  if (certificate_file.empty() != key_file.empty()) {
+    return Fail(why, "tls needs both certificate_file and key_file");
+  }
+  return true;
+}
+
 bool TcpListenerOptions::IsValid(std::string* why) const {
   if (address.empty()) return Fail(why, "address must be a non-empty host address");
   if (!ValidPort(port)) return Fail(why, "port must be in [0, 65535] (0: any free port)");
@@ -29,7 +36,7 @@ bool TcpListenerOptions::IsValid(std::string* why) const {
   if (max_line_bytes < 64 || max_line_bytes > (16u << 20)) {
     return Fail(why, "max_line_bytes must be in [64, 16777216]");
   }
-  return true;
+  return tls.IsValid(why);
 }
 
 bool HttpListenerOptions::IsValid(std::string* why) const {
@@ -38,7 +45,7 @@ bool HttpListenerOptions::IsValid(std::string* why) const {
   if (max_body_bytes < 1024 || max_body_bytes > (1u << 30)) {
     return Fail(why, "max_body_bytes must be in [1024, 1073741824]");
   }
-  return true;
+  return tls.IsValid(why);
 }
 
 std::string_view ToString(IngestAck ack) {
@@ -205,17 +212,19 @@ std::string ServiceOptions::InStateDirectory(const std::string& path) const {
 
 std::vector<std::string> DescribeService(const ServiceOptions& o) {
   auto listener = [](std::string_view name, bool enabled, const std::string& address,
-                     int port) {
+                     int port, const TlsOptions& tls) {
     std::string out(name);
     if (!enabled) return out + " off";
     const bool v6 = address.find(':') != std::string::npos;
     return out + " " + (v6 ? "[" + address + "]" : address) + ":" +
-           (port == 0 ? std::string("any") : std::to_string(port));
+           (port == 0 ? std::string("any") : std::to_string(port)) +
+           (tls.enabled() ? " (tls)" : "");
   };
   std::vector<std::string> lines;
   lines.push_back(
-      "listeners: " + listener("tcp", o.tcp.enabled, o.tcp.address, o.tcp.port) + ", " +
-      listener("http", o.http.enabled, o.http.address, o.http.port));
+      "listeners: " +
+      listener("tcp", o.tcp.enabled, o.tcp.address, o.tcp.port, o.tcp.tls) + ", " +
+      listener("http", o.http.enabled, o.http.address, o.http.port, o.http.tls));
   lines.push_back("shards: " +
                   (o.shards == 0 ? std::string("one per core (") +
                                        std::to_string(o.EffectiveShards()) + ")"

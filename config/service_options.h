@@ -10,6 +10,7 @@
 //     tcp:  {address: 127.0.0.1, port: 7411, idle_timeout: 5m,
 //            max_connections: 1024, max_line_bytes: 4096, enabled: true}
 //     http: {address: 127.0.0.1, port: 7412, max_body_bytes: 16777216, enabled: true}
+//     (each may add tls: {certificate_file: server.pem, key_file: server.key})
 //   shards: 0                      # 0 = one per core
 //   queue_batches: 64              # per shard; a full queue slows the inputs
 //   max_series: 1000000            # new series beyond this are refused
@@ -61,6 +62,17 @@
 
 namespace plumbline {
 
+// A listener's TLS (daemon/tls.h): off while both files are unset. A
+// listener with TLS takes TLS connections only (1.2 or later).
+struct TlsOptions {
+  std::string certificate_file;  // PEM certificate chain
+  std::string key_file;          // PEM private key
+
+  bool enabled() const { return !certificate_file.empty() || !key_file.empty(); }
+  // Rules: certificate_file and key_file both set or both unset.
+  bool IsValid(std::string* why) const;
+};
+
 // The line listener: one reading per line (DESIGN.md "Readings").
 struct TcpListenerOptions {
   bool enabled = true;
@@ -69,9 +81,10 @@ struct TcpListenerOptions {
   EventTime idle_timeout = 5 * kMicrosPerMinute;  // a silent connection is closed
   int max_connections = 1024;                     // more are accepted and closed at once
   std::size_t max_line_bytes = 4096;  // a longer line is refused, not the connection
+  TlsOptions tls;
 
   // Rules: address non-empty; port in [0, 65535]; idle_timeout positive;
-  // max_connections in [1, 100000]; max_line_bytes in [64, 16777216].
+  // max_connections in [1, 100000]; max_line_bytes in [64, 16777216]; tls valid.
   bool IsValid(std::string* why) const;
 };
 
@@ -81,9 +94,10 @@ struct HttpListenerOptions {
   std::string address = "127.0.0.1";
   int port = 7412;                         // 0: any free port
   std::size_t max_body_bytes = 16u << 20;  // a larger request body is refused
+  TlsOptions tls;
 
   // Rules: address non-empty; port in [0, 65535]; max_body_bytes in
-  // [1024, 1073741824].
+  // [1024, 1073741824]; tls valid.
   bool IsValid(std::string* why) const;
 };
 

@@ -131,6 +131,12 @@ Status Service::Start() {
   auto token = LoadAccessToken(options.access);
   if (!token.ok()) return token.status();
   access_token_ = std::move(*token);
+  auto tcp_tls = MakeServerTlsContext(options.tcp.tls, "listeners.tcp");
+  if (!tcp_tls.ok()) return tcp_tls.status();
+  tcp_tls_ = std::move(*tcp_tls);
+  auto http_tls = MakeServerTlsContext(options.http.tls, "listeners.http");
+  if (!http_tls.ok()) return http_tls.status();
+  http_tls_ = std::move(*http_tls);
   if (Status status = CheckProfiles(config_, designs_.get()); !status.ok()) return status;
   if (Status status = deps_.file_system->CreateDirectories(options.state_directory);
       !status.ok()) {
@@ -211,8 +217,9 @@ Status Service::Start() {
   }
 
   if (options.tcp.enabled) {
-    tcp_ = std::make_unique<TcpListener>(io_, options.tcp, shards_.get(), deps_.observer,
-                                         TcpIngestRules{options.max_time_ahead, access_token_});
+    tcp_ = std::make_unique<TcpListener>(
+        io_, options.tcp, shards_.get(), deps_.observer,
+        TcpIngestRules{options.max_time_ahead, access_token_, tcp_tls_});
     tcp_->set_write_ahead_log(wal_.get());
     if (Status status = tcp_->Start(); !status.ok()) {
       tcp_.reset();

@@ -42,8 +42,8 @@
 
 #include "config/config.h"
 #include "daemon/alert_sinks.h"
-#include "daemon/checkpoint.h"
 #include "daemon/annotation_store.h"
+#include "daemon/checkpoint.h"
 #include "daemon/clock.h"
 #include "daemon/file_follower.h"
 #include "daemon/file_system.h"
@@ -53,6 +53,7 @@
 #include "daemon/service_view.h"
 #include "daemon/shard.h"
 #include "daemon/tcp_listener.h"
+#include "daemon/tls.h"
 #include "daemon/write_ahead_log.h"
 
 namespace plumbline {
@@ -116,6 +117,9 @@ class Service : public ServiceView {
   // The bearer token of the HTTP API and TCP ingest ("" when access control
   // is off), loaded by Start. Never log it.
   const std::string& access_token() const { return access_token_; }
+  // The HTTP listener's TLS context (null: plain HTTP), made by Start from
+  // listeners.http.tls; the TCP listener's is kept inside.
+  const std::shared_ptr<TlsContext>& http_tls() const { return http_tls_; }
   // The config in force (controlling thread only: Reload replaces it).
   const Config& config() const { return config_; }
   std::size_t shard_count() const { return shards_ ? shards_->size() : 0; }
@@ -132,6 +136,7 @@ class Service : public ServiceView {
   const std::size_t max_line_bytes_;
   const EventTime max_time_ahead_;  // likewise: the lead allowed over the wall clock
   std::string access_token_;        // set by Start, then read-only
+  std::shared_ptr<TlsContext> tcp_tls_, http_tls_;  // likewise (null: no TLS)
   // The API's annotations file (kAnnotationFileName in the state directory).
   const std::string annotation_file_;
   // Calibrates each distinct profile once, for every shard and reload.
