@@ -320,6 +320,9 @@ class Session : public std::enable_shared_from_this<Session> {
     lines_ = known == streams.end() ? 0 : known->second;
     LogDebug("acknowledged stream", {{"input", "tcp"}, {"peer", peer_}, {"stream", stream_},
                                      {"durable_lines", lines_}});
+    // Whatever an earlier connection of the stream sent after its last mark
+    // is sent again from line lines_ + 1 on; a restart must not take it too.
+    through = state_->wal->AppendResume(stream_, lines_);
     AcknowledgeWhenDurable(through, lines_);
     return true;
   }
