@@ -700,9 +700,12 @@ RunLengthPosterior::RunLengthPosterior(const BocpdOptions& options,
   // Slot buffers: 2 (R + 1) + 1 slots, and kLanePad more for the dummy lanes
   // after the last state.
   slots_ = 2 * states + 1;
-  for (auto* v : {&mu_, &beta_, &log_mass_, &weight_, &gather_step_, &gather_half_ratio_,
-                  &gather_log_ml_next_, &gather_minus_alpha_next_}) {
-    v->assign(slots_ + kLanePad, 0.0);
+  for (auto* v : {&mu_, &beta_, &log_mass_, &weight_}) v->assign(slots_ + kLanePad, 0.0);
+  // Scratch for the lanes of one update: at most R + 1 states and 2 kLanePad - 2
+  // dummies.
+  for (auto* v : {&gather_step_, &gather_half_ratio_, &gather_log_ml_next_,
+                  &gather_minus_alpha_next_}) {
+    v->assign(states + 2 * kLanePad, 0.0);
   }
   birth_.resize(slots_);
   recent_.resize(states);
@@ -791,15 +794,16 @@ void RunLengthPosterior::Update(double x) {
       if (slot >= b && slot < end_) {
         age = kLanePad + static_cast<std::size_t>(cap_ - (readings_ - birth_[slot]));
       }
-      gather_step_[slot] = step_by_age_[age];
-      gather_half_ratio_[slot] = half_ratio_by_age_[age];
-      gather_log_ml_next_[slot] = log_ml_next_by_age_[age];
-      gather_minus_alpha_next_[slot] = minus_alpha_next_by_age_[age];
+      const std::size_t lane = slot - lane0;
+      gather_step_[lane] = step_by_age_[age];
+      gather_half_ratio_[lane] = half_ratio_by_age_[age];
+      gather_log_ml_next_[lane] = log_ml_next_by_age_[age];
+      gather_minus_alpha_next_[lane] = minus_alpha_next_by_age_[age];
     }
-    arrays.step = &gather_step_[lane0];
-    arrays.half_ratio = &gather_half_ratio_[lane0];
-    arrays.log_ml_next = &gather_log_ml_next_[lane0];
-    arrays.minus_alpha_next = &gather_minus_alpha_next_[lane0];
+    arrays.step = gather_step_.data();
+    arrays.half_ratio = gather_half_ratio_.data();
+    arrays.log_ml_next = gather_log_ml_next_.data();
+    arrays.minus_alpha_next = gather_minus_alpha_next_.data();
   }
 
   // u_j = log P_{t-1}(j) + log pi_j(x) + s_{t-1}, and w_j = exp(u_j - max u).

@@ -312,7 +312,7 @@ class RunLengthPosterior {
   double scale_ = 1.0;      // P_t(j) = w_j scale_
   double log_shift_ = 0.0;  // s_t
 
-  // Scratch for one update, indexed by slot like the states: the
+  // Scratch for one update, indexed by lane (slot - lane0 of Update): the
   // per-run-length constants gathered when pruning has left gaps. (The u_j
   // of an update live in weight_ until they are weighed.)
   bocpd_internal::AlignedDoubles gather_step_, gather_half_ratio_, gather_log_ml_next_,
