@@ -42,12 +42,23 @@ constexpr std::string_view kAnnotationKeys[] = {
 // The keys of the service sections (config/service_options.h).
 constexpr std::string_view kListenerKeys[] = {"tcp", "http"};
 constexpr std::string_view kTcpKeys[] = {
-    "enabled", "address", "port", "idle_timeout", "max_connections", "max_line_bytes"};
-constexpr std::string_view kHttpKeys[] = {"enabled", "address", "port", "max_body_bytes"};
+    "enabled",         "address",        "port", "idle_timeout",
+    "max_connections", "max_line_bytes", "tls"};
+constexpr std::string_view kHttpKeys[] = {"enabled", "address", "port", "max_body_bytes",
+                                          "tls"};
+constexpr std::string_view kTlsKeys[] = {"certificate_file", "key_file"};
 constexpr std::string_view kStorageKeys[] = {"directory", "checkpoint_every", "http_ingest"};
-constexpr std::string_view kInputKeys[] = {"files"};
+constexpr std::string_view kInputKeys[] = {"files", "kafka", "mqtt"};
+constexpr std::string_view kKafkaInputKeys[] = {
+    "brokers",          "topic",    "group",          "state_topic",
+    "state_directory", "checkpoint_every", "start_at", "session_timeout"};
+constexpr std::string_view kMqttKeys[] = {"host",      "port",    "client_id",
+                                          "topics",    "series",  "keepalive",
+                                          "backoff",   "backoff_max"};
+constexpr std::string_view kKafkaSinkKeys[] = {"brokers", "topic", "min_severity"};
 constexpr std::string_view kFileKeys[] = {"path", "start_at", "poll_interval"};
-constexpr std::string_view kSinkKeys[] = {"alert_log", "webhook", "stdout", "events"};
+constexpr std::string_view kSinkKeys[] = {"alert_log", "webhook", "stdout", "events",
+                                          "kafka"};
 constexpr std::string_view kAlertLogKeys[] = {"enabled", "path", "min_severity"};
 constexpr std::string_view kWebhookKeys[] = {"url",     "attempts",    "backoff",
                                              "backoff_max", "timeout", "queue",
@@ -684,12 +695,18 @@ class Loader {
         if (e.key == "tcp") {
           Section(
               e, "listeners.tcp", kTcpKeys,
-              [&](const Field& t) { return LoadTcpKey(t, &o->tcp); },
+              [&](const Field& t) {
+                return t.key == "tls" ? LoadTls(t, "listeners.tcp.tls", &o->tcp.tls)
+                                      : LoadTcpKey(t, &o->tcp);
+              },
               [&](std::string* why) { return o->tcp.IsValid(why); });
         } else if (e.key == "http") {
           Section(
               e, "listeners.http", kHttpKeys,
-              [&](const Field& h) { return LoadHttpKey(h, &o->http); },
+              [&](const Field& h) {
+                return h.key == "tls" ? LoadTls(h, "listeners.http.tls", &o->http.tls)
+                                      : LoadHttpKey(h, &o->http);
+              },
               [&](std::string* why) { return o->http.IsValid(why); });
         } else {
           return false;
@@ -720,6 +737,8 @@ class Loader {
       });
     } else if (k == "inputs") {
       Section(f, "inputs", kInputKeys, [&](const Field& e) {
+        if (e.key == "kafka") return LoadKafkaInput(e, &o->kafka), true;
+        if (e.key == "mqtt") return LoadMqttInput(e, &o->mqtt), true;
         if (e.key != "files") return false;
         LoadFiles(e, &o->files);
         return true;
@@ -754,6 +773,20 @@ class Loader {
     } else {
       return false;
     }
+    return true;
+  }
+
+  // A listener's `tls` section; always true (its errors are reported here).
+  bool LoadTls(const Field& f, std::string_view name, TlsOptions* o) {
+    Section(
+        f, name, kTlsKeys,
+        [&](const Field& e) {
+          if (e.key != "certificate_file" && e.key != "key_file") return false;
+          ScalarText(e, "a PEM file path",
+                     e.key == "certificate_file" ? &o->certificate_file : &o->key_file);
+          return true;
+        },
+        [&](std::string* why) { return o->IsValid(why); });
     return true;
   }
 
@@ -855,12 +888,92 @@ class Loader {
         }
         return true;
       });
+    } else if (k == "kafka") {
+      KafkaSinkOptions& s = o->kafka;
+      Section(
+          f, "sinks.kafka", kKafkaSinkKeys,
+          [&](const Field& e) {
+            if (e.key == "brokers") {
+              ScalarText(e, "bootstrap servers such as 127.0.0.1:9092", &s.brokers);
+            } else if (e.key == "topic") {
+              ScalarText(e, "a topic name", &s.topic);
+            } else if (e.key == "min_severity") {
+              Enum(e, SeverityFromString, SeverityChoices(), &s.min_severity);
+            } else {
+              return false;
+            }
+            return true;
+          },
+          [&](std::string* why) { return s.IsValid(why); });
     } else if (k == "events") {
       Bool(f, &o->events);
     } else {
       return false;
     }
     return true;
+  }
+
+  void LoadKafkaInput(const Field& f, KafkaInputOptions* o) {
+    Section(
+        f, "inputs.kafka", kKafkaInputKeys,
+        [&](const Field& e) {
+          const std::string_view key = e.key;
+          if (key == "brokers") {
+            ScalarText(e, "bootstrap servers such as 127.0.0.1:9092", &o->brokers);
+          } else if (key == "topic" || key == "group" || key == "state_topic") {
+            ScalarText(e, key == "group" ? "a consumer group name" : "a topic name",
+                       key == "topic"   ? &o->topic
+                       : key == "group" ? &o->group
+                                        : &o->state_topic);
+          } else if (key == "state_directory") {
+            ScalarText(e, "a directory path", &o->state_directory);
+          } else if (key == "checkpoint_every") {
+            Duration(e, false, &o->checkpoint_every);
+          } else if (key == "session_timeout") {
+            Duration(e, false, &o->session_timeout);
+          } else if (key == "start_at") {
+            StartAt start_at = StartAt::kBeginning;
+            if (Enum(e, StartAtFromString, StartAtChoices(), &start_at)) {
+              o->start_at_end = start_at == StartAt::kEnd;
+            }
+          } else {
+            return false;
+          }
+          return true;
+        },
+        [&](std::string* why) { return o->IsValid(why); });
+  }
+
+  void LoadMqttInput(const Field& f, MqttInputOptions* o) {
+    Section(
+        f, "inputs.mqtt", kMqttKeys,
+        [&](const Field& e) {
+          const std::string_view key = e.key;
+          if (key == "host") {
+            ScalarText(e, "a broker host such as 127.0.0.1", &o->host);
+          } else if (key == "port") {
+            WholeNumber(e, "a port number", &o->port);
+          } else if (key == "client_id") {
+            ScalarText(e, "a client id", &o->client_id);
+          } else if (key == "topics") {
+            List(e, "a list of topic filters such as [\"harbourside/+/temp_c\"]",
+                 &o->topics, [&](const Field& element, std::string* out) {
+                   return ScalarText(element, "a topic filter", out);
+                 });
+          } else if (key == "series") {
+            ScalarText(e, "a series name template such as coldstore/{2}/{3}", &o->series);
+          } else if (key == "keepalive") {
+            Duration(e, false, &o->keepalive);
+          } else if (key == "backoff") {
+            Duration(e, false, &o->backoff);
+          } else if (key == "backoff_max") {
+            Duration(e, false, &o->backoff_max);
+          } else {
+            return false;
+          }
+          return true;
+        },
+        [&](std::string* why) { return o->IsValid(why); });
   }
 
   // `files:` is a list whose elements are a path or a mapping with `path`.

@@ -19,6 +19,13 @@ bool ValidPort(int port) { return port >= 0 && port <= 65535; }
 
 }  // namespace
 
+bool TlsOptions::IsValid(std::string* why) const {
+  if (certificate_file.empty() != key_file.empty()) {
+    return Fail(why, "tls needs both certificate_file and key_file");
+  }
+  return true;
+}
+
 bool TcpListenerOptions::IsValid(std::string* why) const {
   if (address.empty()) return Fail(why, "address must be a non-empty host address");
   if (!ValidPort(port)) return Fail(why, "port must be in [0, 65535] (0: any free port)");
@@ -29,7 +36,7 @@ bool TcpListenerOptions::IsValid(std::string* why) const {
   if (max_line_bytes < 64 || max_line_bytes > (16u << 20)) {
     return Fail(why, "max_line_bytes must be in [64, 16777216]");
   }
-  return true;
+  return tls.IsValid(why);
 }
 
 bool HttpListenerOptions::IsValid(std::string* why) const {
@@ -38,7 +45,7 @@ bool HttpListenerOptions::IsValid(std::string* why) const {
   if (max_body_bytes < 1024 || max_body_bytes > (1u << 30)) {
     return Fail(why, "max_body_bytes must be in [1024, 1073741824]");
   }
-  return true;
+  return tls.IsValid(why);
 }
 
 std::string_view ToString(IngestAck ack) {
@@ -137,7 +144,7 @@ bool WebhookOptions::IsValid(std::string* why) const {
 }
 
 bool SinkOptions::IsValid(std::string* why) const {
-  return alert_log.IsValid(why) && webhook.IsValid(why);
+  return alert_log.IsValid(why) && webhook.IsValid(why) && kafka.IsValid(why);
 }
 
 bool AccessOptions::IsValid(std::string* why) const {
@@ -175,6 +182,12 @@ bool ServiceOptions::IsValid(std::string* why) const {
   if (shutdown_timeout <= 0 || shutdown_timeout > 10 * kMicrosPerMinute) {
     return Fail(why, "shutdown_timeout must be in (0, 10m]");
   }
+  if (!kafka.IsValid(why) || !mqtt.IsValid(why)) return false;
+  if (kafka.enabled() && checkpoint_every != 0) {
+    return Fail(why,
+                "checkpoint_every must be 0 with inputs.kafka: a local checkpoint would bring "
+                "back series of partitions another instance owns now");
+  }
   std::set<std::string> paths;
   for (const FileInputOptions& file : files) {
     if (!file.IsValid(why)) return false;
@@ -199,17 +212,19 @@ std::string ServiceOptions::InStateDirectory(const std::string& path) const {
 
 std::vector<std::string> DescribeService(const ServiceOptions& o) {
   auto listener = [](std::string_view name, bool enabled, const std::string& address,
-                     int port) {
+                     int port, const TlsOptions& tls) {
     std::string out(name);
     if (!enabled) return out + " off";
     const bool v6 = address.find(':') != std::string::npos;
     return out + " " + (v6 ? "[" + address + "]" : address) + ":" +
-           (port == 0 ? std::string("any") : std::to_string(port));
+           (port == 0 ? std::string("any") : std::to_string(port)) +
+           (tls.enabled() ? " (tls)" : "");
   };
   std::vector<std::string> lines;
   lines.push_back(
-      "listeners: " + listener("tcp", o.tcp.enabled, o.tcp.address, o.tcp.port) + ", " +
-      listener("http", o.http.enabled, o.http.address, o.http.port));
+      "listeners: " +
+      listener("tcp", o.tcp.enabled, o.tcp.address, o.tcp.port, o.tcp.tls) + ", " +
+      listener("http", o.http.enabled, o.http.address, o.http.port, o.http.tls));
   lines.push_back("shards: " +
                   (o.shards == 0 ? std::string("one per core (") +
                                        std::to_string(o.EffectiveShards()) + ")"
@@ -220,6 +235,17 @@ std::vector<std::string> DescribeService(const ServiceOptions& o) {
   for (const FileInputOptions& file : o.files) {
     inputs += ", file " + file.path + " (from the " +
               std::string(ToString(file.start_at)) + ")";
+  }
+  if (o.kafka.enabled()) {
+    inputs += ", kafka " + o.kafka.topic + " on " + o.kafka.brokers + " (group " +
+              o.kafka.group + ", state in " +
+              (o.kafka.state_topic.empty() ? "directory " + o.kafka.state_directory
+                                           : "topic " + o.kafka.state_topic) +
+              ")";
+  }
+  if (o.mqtt.enabled()) {
+    inputs += ", mqtt " + o.mqtt.host + ":" + std::to_string(o.mqtt.port) + " (" +
+              std::to_string(o.mqtt.topics.size()) + " topic filters)";
   }
   lines.push_back(inputs);
   std::string sinks = "sinks:";
@@ -240,6 +266,10 @@ std::vector<std::string> DescribeService(const ServiceOptions& o) {
              from(o.sinks.webhook.min_severity) + ";";
   }
   if (o.sinks.to_stdout) sinks += " stdout" + from(o.sinks.stdout_min_severity) + ";";
+  if (o.sinks.kafka.enabled()) {
+    sinks += " kafka " + o.sinks.kafka.topic + " on " + o.sinks.kafka.brokers +
+             from(o.sinks.kafka.min_severity) + ";";
+  }
   if (sinks.back() == ';') sinks.pop_back();
   if (sinks == "sinks:") sinks += " none";
   if (o.sinks.events) sinks += " (with events)";

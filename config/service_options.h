@@ -10,6 +10,7 @@
 //     tcp:  {address: 127.0.0.1, port: 7411, idle_timeout: 5m,
 //            max_connections: 1024, max_line_bytes: 4096, enabled: true}
 //     http: {address: 127.0.0.1, port: 7412, max_body_bytes: 16777216, enabled: true}
+//     (each may add tls: {certificate_file: server.pem, key_file: server.key})
 //   shards: 0                      # 0 = one per core
 //   queue_batches: 64              # per shard; a full queue slows the inputs
 //   max_series: 1000000            # new series beyond this are refused
@@ -24,6 +25,8 @@
 //     files:                       # followed like `tail -F`
 //       - path: /var/log/coldstore/readings.csv
 //         start_at: beginning      # beginning | end (first run only)
+//     kafka: {...}                 # a consumer group (config/stream_options.h)
+//     mqtt: {...}                  # an MQTT subscriber (config/stream_options.h)
 //   sinks:
 //     alert_log: {path: alerts.jsonl, enabled: true}   # default <directory>/alerts.jsonl
 //     webhook: {url: http://127.0.0.1:9000/alerts, attempts: 8, backoff: 500ms,
@@ -53,10 +56,22 @@
 #include <string_view>
 #include <vector>
 
+#include "config/stream_options.h"
 #include "detectors/event_time.h"
 #include "detectors/severity.h"
 
 namespace plumbline {
+
+// A listener's TLS (daemon/tls.h): off while both files are unset. A
+// listener with TLS takes TLS connections only (1.2 or later).
+struct TlsOptions {
+  std::string certificate_file;  // PEM certificate chain
+  std::string key_file;          // PEM private key
+
+  bool enabled() const { return !certificate_file.empty() || !key_file.empty(); }
+  // Rules: certificate_file and key_file both set or both unset.
+  bool IsValid(std::string* why) const;
+};
 
 // The line listener: one reading per line (DESIGN.md "Readings").
 struct TcpListenerOptions {
@@ -66,9 +81,10 @@ struct TcpListenerOptions {
   EventTime idle_timeout = 5 * kMicrosPerMinute;  // a silent connection is closed
   int max_connections = 1024;                     // more are accepted and closed at once
   std::size_t max_line_bytes = 4096;  // a longer line is refused, not the connection
+  TlsOptions tls;
 
   // Rules: address non-empty; port in [0, 65535]; idle_timeout positive;
-  // max_connections in [1, 100000]; max_line_bytes in [64, 16777216].
+  // max_connections in [1, 100000]; max_line_bytes in [64, 16777216]; tls valid.
   bool IsValid(std::string* why) const;
 };
 
@@ -78,9 +94,10 @@ struct HttpListenerOptions {
   std::string address = "127.0.0.1";
   int port = 7412;                         // 0: any free port
   std::size_t max_body_bytes = 16u << 20;  // a larger request body is refused
+  TlsOptions tls;
 
   // Rules: address non-empty; port in [0, 65535]; max_body_bytes in
-  // [1024, 1073741824].
+  // [1024, 1073741824]; tls valid.
   bool IsValid(std::string* why) const;
 };
 
@@ -147,6 +164,7 @@ struct SinkOptions {
   bool to_stdout = true;  // key `stdout` (or stdout.enabled)
   Severity stdout_min_severity = Severity::kRecord;  // key stdout.min_severity
   bool events = false;    // also send resume, retrain and meter-reset events
+  KafkaSinkOptions kafka;  // key sinks.kafka
   bool IsValid(std::string* why) const;
 };
 
@@ -177,6 +195,8 @@ struct ServiceOptions {
   EventTime checkpoint_every = 5 * kMicrosPerMinute;
   IngestAck http_ingest = IngestAck::kDurable;  // key storage.http_ingest
   std::vector<FileInputOptions> files;
+  KafkaInputOptions kafka;  // key inputs.kafka
+  MqttInputOptions mqtt;    // key inputs.mqtt
   SinkOptions sinks;
   int metrics_series_limit = 100;  // key metrics.series_limit
   EventTime shutdown_timeout = 10 * kMicrosPerSecond;
@@ -193,7 +213,8 @@ struct ServiceOptions {
   // Rules: each part valid; shards in [0, 256]; queue_batches in [1, 65536];
   // max_series >= 1; recent_points in [0, 4096]; state_directory non-empty;
   // metrics_series_limit in [0, 100000]; shutdown_timeout in (0, 10m]; no file
-  // path given twice.
+  // path given twice; with inputs.kafka, checkpoint_every 0 (the input keeps
+  // each partition's state where every instance finds it).
   bool IsValid(std::string* why) const;
   // The shard count to run: `shards`, or the number of cores when 0.
   int EffectiveShards() const;

@@ -425,6 +425,18 @@ void AlertDispatcher::Stop(std::chrono::steady_clock::time_point deadline) {
   for (auto& routed : sinks_) routed.sink->Drain(deadline);
 }
 
+bool AlertDispatcher::Flush(std::chrono::steady_clock::time_point deadline) {
+  {
+    std::unique_lock<std::mutex> lock(mutex_);
+    if (!drained_.wait_until(lock, deadline, [this] { return queue_.empty() && !busy_; })) {
+      return false;
+    }
+  }
+  bool flushed = true;
+  for (auto& routed : sinks_) flushed = routed.sink->Flush(deadline) && flushed;
+  return flushed;
+}
+
 std::vector<Alert> AlertDispatcher::Recent(EventTime since, std::size_t limit) const {
   std::vector<Alert> out;
   {

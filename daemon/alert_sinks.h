@@ -57,6 +57,11 @@ class AlertSink {
   // Staged shutdown: deliver what is pending until `deadline`, then give up
   // durably where the sink can (the webhook's dead-letter file).
   virtual void Drain(std::chrono::steady_clock::time_point /*deadline*/) {}
+  // Hands what the sink holds to its destination, waiting up to `deadline`
+  // (the Kafka sink's producer queue); false when something is still held.
+  // Called by the Kafka input before it saves partition state, from its own
+  // thread: a sink that holds alerts must make this safe beside Deliver.
+  virtual bool Flush(std::chrono::steady_clock::time_point /*deadline*/) { return true; }
   // False, with the reason in *why, while a durable write has failed.
   virtual bool Healthy(std::string* /*why*/) const { return true; }
 };
@@ -178,6 +183,11 @@ class AlertDispatcher : public AlertPublisher {
   // Delivers everything queued, drains the sinks until `deadline`, and stops
   // the thread. Later Publish calls drop their alerts (and log that).
   void Stop(std::chrono::steady_clock::time_point deadline);
+
+  // Waits until every batch published so far is delivered to the sinks and
+  // each sink has flushed (AlertSink::Flush); false when `deadline` came
+  // first. Any thread.
+  bool Flush(std::chrono::steady_clock::time_point deadline);
 
   // Alerts and events with detected_at >= since, ordered by detected_at
   // (oldest first), at most `limit` (the newest ones when more match).

@@ -277,6 +277,27 @@ void Engine::SaveSeries(
   }
 }
 
+std::optional<std::string> Engine::SaveOneSeries(std::string_view name) const {
+  auto it = series_.find(name);
+  if (it == series_.end()) return std::nullopt;
+  SnapshotWriter w;
+  SaveProfile(it->second->design->profile, w);
+  it->second->monitor->Save(w);
+  return w.Take();
+}
+
+void Engine::ForgetSeries(const std::vector<std::string>& names) {
+  std::size_t forgotten = 0;
+  for (const std::string& name : names) forgotten += series_.erase(name);
+  if (forgotten == 0) return;
+  // Deadlines may name forgotten series: rebuild them.
+  deadlines_ = {};
+  for (auto& [name, series] : series_) {
+    series->scheduled.reset();
+    Schedule(series.get());
+  }
+}
+
 Status Engine::RestoreSeries(std::string_view name, std::string_view state,
                              ReconfigureReport* report) {
   SnapshotReader r(state);
@@ -328,20 +349,47 @@ Status Engine::RestoreSeries(std::string_view name, std::string_view state,
 void ShardState::SaveSeries(std::uint64_t wal_done, SnapshotWriter* w,
                             std::uint64_t* count) const {
   engine_->SaveSeries([&](const std::string& name, std::string state) {
-    CheckpointSeries s;
-    s.name = name;
-    s.wal_done = wal_done;
-    s.engine_state = std::move(state);
-    if (const SeriesExtras* extras = Find(name)) {
-      s.has_extras = true;
-      s.readings = extras->readings;
-      s.last_time = extras->last_time;
-      s.last_value = extras->last_value;
-      s.newest = extras->newest;
-    }
-    WriteCheckpointSeries(s, *w);
+    WriteCheckpointSeries(ToCheckpointSeries(name, wal_done, std::move(state)), *w);
     ++*count;
   });
+}
+
+CheckpointSeries ShardState::ToCheckpointSeries(const std::string& name,
+                                                std::uint64_t wal_done,
+                                                std::string engine_state) const {
+  CheckpointSeries s;
+  s.name = name;
+  s.wal_done = wal_done;
+  s.engine_state = std::move(engine_state);
+  if (const SeriesExtras* extras = Find(name)) {
+    s.has_extras = true;
+    s.readings = extras->readings;
+    s.last_time = extras->last_time;
+    s.last_value = extras->last_value;
+    s.newest = extras->newest;
+  }
+  return s;
+}
+
+void ShardState::SaveNamedSeries(const std::vector<std::string>& names,
+                                 SnapshotWriter* w, std::uint64_t* count) const {
+  for (const std::string& name : names) {
+    std::optional<std::string> state = engine_->SaveOneSeries(name);
+    if (!state) continue;
+    WriteCheckpointSeries(ToCheckpointSeries(name, 0, std::move(*state)), *w);
+    ++*count;
+  }
+}
+
+void ShardState::ForgetSeries(const std::vector<std::string>& names) {
+  engine_->ForgetSeries(names);
+  for (const std::string& name : names) extras_.erase(name);
+  // Entries may name forgotten series: queue afresh.
+  silence_queue_ = {};
+  for (auto& [name, extras] : extras_) {
+    extras.scheduled = false;
+    ScheduleSilence(name, &extras);
+  }
 }
 
 Status ShardState::RestoreSeries(const CheckpointSeries& s, EventTime now,

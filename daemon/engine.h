@@ -146,6 +146,11 @@ class Engine {
   // then left out).
   Status RestoreSeries(std::string_view name, std::string_view state,
                        ReconfigureReport* report);
+  // Partition moves (daemon/kafka_input.h): one series' state as SaveSeries
+  // gives it (nullopt when the engine holds no such series), and forgetting
+  // series whose state now belongs to another instance (no events).
+  std::optional<std::string> SaveOneSeries(std::string_view name) const;
+  void ForgetSeries(const std::vector<std::string>& names);
 
   std::size_t series_count() const { return series_.size(); }
   const SeriesMonitor* Find(std::string_view series) const;

@@ -9,6 +9,7 @@
 #include <boost/asio/thread_pool.hpp>
 #include <boost/beast/core.hpp>
 #include <boost/beast/http.hpp>
+#include <boost/beast/ssl.hpp>
 #include <array>
 #include <atomic>
 #include <condition_variable>
@@ -16,6 +17,7 @@
 #include <mutex>
 #include <optional>
 #include <sstream>
+#include <type_traits>
 #include <unordered_map>
 #include <vector>
 
@@ -58,7 +60,15 @@ std::string_view RouteOf(std::string_view target) {
   return "other";
 }
 
-class Session;
+// What the server needs of a session whatever its stream (plain or TLS).
+class SessionBase {
+ public:
+  virtual ~SessionBase() = default;
+  virtual void Run() = 0;
+  // From Stop: close now if waiting for a request (or if `force`); otherwise
+  // the answer in progress is the last one.
+  virtual void PostShutdown(bool force) = 0;
+};
 
 }  // namespace
 
@@ -125,7 +135,7 @@ struct HttpServer::State : std::enable_shared_from_this<HttpServer::State> {
 
   // ---- any thread ----
   void OnSessionClosed();
-  std::vector<std::shared_ptr<Session>> LiveSessions();
+  std::vector<std::shared_ptr<SessionBase>> LiveSessions();
 
   net::io_context& io;
   const tcp::endpoint requested;
@@ -146,7 +156,8 @@ struct HttpServer::State : std::enable_shared_from_this<HttpServer::State> {
 
   mutable std::mutex mutex;  // guards the members below
   std::condition_variable finished_cv;
-  std::unordered_map<Session*, std::weak_ptr<Session>> sessions;  // open connections
+  // The open connections.
+  std::unordered_map<SessionBase*, std::weak_ptr<SessionBase>> sessions;
   bool started = false;     // Start succeeded
   bool accepting = false;   // an accept is pending or posted
   bool stop_requested = false;
@@ -161,24 +172,34 @@ namespace {
 
 // One connection: reads requests, hands them to the worker pool, writes the
 // answers. Lives through shared_from_this held by its pending handlers; every
-// handler runs on the session's strand (the stream's executor).
-class Session : public std::enable_shared_from_this<Session> {
+// handler runs on the session's strand (the stream's executor). `Stream` is
+// beast::tcp_stream, or beast::ssl_stream over one (TLS: a handshake first,
+// within the read deadline; a failed one is counted and closes the socket).
+template <class Stream>
+class Session : public SessionBase, public std::enable_shared_from_this<Session<Stream>> {
  public:
   using State = HttpServer::State;
+  static constexpr bool kTls = !std::is_same_v<Stream, beast::tcp_stream>;
 
-  Session(tcp::socket socket, std::shared_ptr<State> state)
-      : stream_(std::move(socket)), state_(std::move(state)) {}
+  // `stream_args`: the accepted socket (and the TLS context).
+  template <class... StreamArgs>
+  explicit Session(std::shared_ptr<State> state, StreamArgs&&... stream_args)
+      : stream_(std::forward<StreamArgs>(stream_args)...), state_(std::move(state)) {}
 
-  ~Session() { Unregister(); }
+  ~Session() override { Unregister(); }
 
-  void Run() {
-    net::dispatch(stream_.get_executor(), [self = shared_from_this()] { self->DoRead(); });
+  void Run() override {
+    net::dispatch(stream_.get_executor(), [self = this->shared_from_this()] {
+      if constexpr (kTls) {
+        self->DoHandshake();
+      } else {
+        self->DoRead();
+      }
+    });
   }
 
-  // From Stop: close now if waiting for a request (or if `force`); otherwise
-  // the answer in progress is the last one.
-  void PostShutdown(bool force) {
-    net::post(stream_.get_executor(), [self = shared_from_this(), force] {
+  void PostShutdown(bool force) override {
+    net::post(stream_.get_executor(), [self = this->shared_from_this(), force] {
       self->shutting_down_ = true;
       if (force || self->phase_ == Phase::kWaiting) self->Close();
     });
@@ -194,6 +215,28 @@ class Session : public std::enable_shared_from_this<Session> {
     kClosed,
   };
 
+  beast::tcp_stream& Lowest() { return beast::get_lowest_layer(stream_); }
+
+  void DoHandshake() {
+    Lowest().expires_after(state_->options.read_timeout);
+    stream_.async_handshake(net::ssl::stream_base::server,
+                            [self = this->shared_from_this()](beast::error_code ec) {
+                              self->OnHandshake(ec);
+                            });
+  }
+
+  // A client that is not speaking TLS (or cannot agree on it) is closed,
+  // counted as reason="tls_handshake".
+  void OnHandshake(beast::error_code ec) {
+    if (ec) {
+      if (ec != net::error::operation_aborted && state_->metrics != nullptr) {
+        state_->metrics->CountConnectionDropped("http", "tls_handshake");
+      }
+      return Close();
+    }
+    DoRead();
+  }
+
   void DoRead() {
     if (shutting_down_ || state_->stopping) {
       Close();
@@ -204,11 +247,12 @@ class Session : public std::enable_shared_from_this<Session> {
     parser_->header_limit(static_cast<std::uint32_t>(state_->options.max_header_bytes));
     parser_->body_limit(state_->options.max_body_bytes);
     // One deadline for the idle wait and the whole request.
-    stream_.expires_after(state_->options.read_timeout);
-    http::async_read_header(stream_, buffer_, *parser_,
-                            [self = shared_from_this()](beast::error_code ec, std::size_t) {
-                              self->OnReadHeader(ec);
-                            });
+    Lowest().expires_after(state_->options.read_timeout);
+    http::async_read_header(
+        stream_, buffer_, *parser_,
+        [self = this->shared_from_this()](beast::error_code ec, std::size_t) {
+          self->OnReadHeader(ec);
+        });
   }
 
   void OnReadHeader(beast::error_code ec) {
@@ -222,11 +266,12 @@ class Session : public std::enable_shared_from_this<Session> {
     if (beast::iequals(request[http::field::expect], "100-continue") && !parser_->is_done()) {
       // The client waits for our go-ahead before sending the body.
       continue_.emplace(http::status::continue_, request.version());
-      http::async_write(stream_, *continue_,
-                        [self = shared_from_this()](beast::error_code ec, std::size_t) {
-                          if (ec) return self->OnWriteError(ec);
-                          self->DoReadBody();
-                        });
+      http::async_write(
+          stream_, *continue_,
+          [self = this->shared_from_this()](beast::error_code ec, std::size_t) {
+            if (ec) return self->OnWriteError(ec);
+            self->DoReadBody();
+          });
       return;
     }
     DoReadBody();
@@ -234,11 +279,12 @@ class Session : public std::enable_shared_from_this<Session> {
 
   void DoReadBody() {
     if (parser_->is_done()) return DoHandle();
-    http::async_read(stream_, buffer_, *parser_,
-                     [self = shared_from_this()](beast::error_code ec, std::size_t) {
-                       if (ec) return self->OnReadError(ec);
-                       self->DoHandle();
-                     });
+    http::async_read(
+        stream_, buffer_, *parser_,
+        [self = this->shared_from_this()](beast::error_code ec, std::size_t) {
+          if (ec) return self->OnReadError(ec);
+          self->DoHandle();
+        });
   }
 
   // A timeout closes the socket (tcp_stream's deadline), so a slow or idle
@@ -271,7 +317,8 @@ class Session : public std::enable_shared_from_this<Session> {
     keep_alive_ = request.keep_alive();
     head_ = request.method() == http::verb::head;
     version_ = request.version();
-    stream_.expires_never();  // the route may wait on backpressure; the write sets its own
+    Lowest()
+        .expires_never();  // the route may wait on backpressure; the write sets its own
     const std::string_view target = Std(request.target());
     if (target == "/healthz" && request.body().empty()) {
       // Liveness asks the service nothing: answered here, whatever the pools do.
@@ -279,7 +326,7 @@ class Session : public std::enable_shared_from_this<Session> {
     }
     const bool ingest = RouteOf(target) == "readings";
     net::thread_pool& pool = ingest ? state_->ingest_workers : state_->query_workers;
-    net::post(pool, [self = shared_from_this(), request = std::move(request)] {
+    net::post(pool, [self = this->shared_from_this(), request = std::move(request)] {
       ApiResponse response;
       try {
         response = self->state_->api.Handle(Std(request.method_string()),
@@ -339,11 +386,10 @@ class Session : public std::enable_shared_from_this<Session> {
       response_.body().clear();
       response_.content_length(length);
     }
-    stream_.expires_after(state_->options.write_timeout);
+    Lowest().expires_after(state_->options.write_timeout);
     http::async_write(stream_, response_,
-                      [self = shared_from_this()](beast::error_code ec, std::size_t) {
-                        self->OnWrite(ec);
-                      });
+                      [self = this->shared_from_this()](
+                          beast::error_code ec, std::size_t) { self->OnWrite(ec); });
   }
 
   void OnWrite(beast::error_code ec) {
@@ -365,8 +411,8 @@ class Session : public std::enable_shared_from_this<Session> {
   void DoLinger() {
     phase_ = Phase::kLingering;
     beast::error_code ignored;
-    stream_.socket().shutdown(tcp::socket::shutdown_send, ignored);
-    stream_.expires_after(kLingerTime);
+    Lowest().socket().shutdown(tcp::socket::shutdown_send, ignored);
+    Lowest().expires_after(kLingerTime);
     buffer_.clear();
     DoLingerRead();
   }
@@ -374,7 +420,7 @@ class Session : public std::enable_shared_from_this<Session> {
   void DoLingerRead() {
     stream_.async_read_some(
         net::buffer(linger_buffer_),
-        [self = shared_from_this()](beast::error_code ec, std::size_t n) {
+        [self = this->shared_from_this()](beast::error_code ec, std::size_t n) {
           self->lingered_ += n;
           if (ec || self->lingered_ >= kLingerBytes || self->phase_ == Phase::kClosed) {
             return self->Close();
@@ -387,8 +433,8 @@ class Session : public std::enable_shared_from_this<Session> {
     if (phase_ == Phase::kClosed) return;
     phase_ = Phase::kClosed;
     beast::error_code ignored;
-    stream_.socket().shutdown(tcp::socket::shutdown_both, ignored);
-    stream_.close();
+    Lowest().socket().shutdown(tcp::socket::shutdown_both, ignored);
+    Lowest().close();
     Unregister();
   }
 
@@ -404,7 +450,7 @@ class Session : public std::enable_shared_from_this<Session> {
     state_->OnSessionClosed();
   }
 
-  beast::tcp_stream stream_;
+  Stream stream_;
   beast::flat_buffer buffer_;
   std::shared_ptr<State> state_;
   std::optional<http::request_parser<http::string_body>> parser_;
@@ -449,7 +495,14 @@ void HttpServer::State::OnAccept(beast::error_code ec, tcp::socket socket) {
     });
     return;
   }
-  auto session = std::make_shared<Session>(std::move(socket), shared_from_this());
+  std::shared_ptr<SessionBase> session;
+  if (options.tls) {
+    session = std::make_shared<Session<beast::ssl_stream<beast::tcp_stream>>>(
+        shared_from_this(), std::move(socket), *options.tls);
+  } else {
+    session = std::make_shared<Session<beast::tcp_stream>>(shared_from_this(),
+                                                           std::move(socket));
+  }
   bool more = false;
   std::size_t open = 0;
   {
@@ -464,8 +517,8 @@ void HttpServer::State::OnAccept(beast::error_code ec, tcp::socket socket) {
   if (more) DoAccept();
 }
 
-std::vector<std::shared_ptr<Session>> HttpServer::State::LiveSessions() {
-  std::vector<std::shared_ptr<Session>> live;
+std::vector<std::shared_ptr<SessionBase>> HttpServer::State::LiveSessions() {
+  std::vector<std::shared_ptr<SessionBase>> live;
   std::lock_guard<std::mutex> lock(mutex);
   for (auto& [raw, weak] : sessions) {
     if (auto session = weak.lock()) live.push_back(std::move(session));
@@ -496,7 +549,7 @@ void HttpServer::State::BeginStop(std::chrono::milliseconds grace) {
   beast::error_code ignored;
   acceptor.close(ignored);  // a pending accept completes with operation_aborted
   accept_timer.cancel();
-  std::vector<std::shared_ptr<Session>> live = LiveSessions();
+  std::vector<std::shared_ptr<SessionBase>> live = LiveSessions();
   for (auto& session : live) session->PostShutdown(/*force=*/false);
   const bool none_open = live.empty();
   live.clear();  // may run session destructors: no lock held here
@@ -511,7 +564,7 @@ void HttpServer::State::BeginStop(std::chrono::milliseconds grace) {
   grace_timer.expires_after(grace);
   grace_timer.async_wait([self = shared_from_this()](beast::error_code ec) {
     if (ec) return;  // cancelled by Finish
-    std::vector<std::shared_ptr<Session>> left = self->LiveSessions();
+    std::vector<std::shared_ptr<SessionBase>> left = self->LiveSessions();
     if (!left.empty()) {
       self->Log(HttpLogLevel::kWarning, "http: closing " + std::to_string(left.size()) +
                                             " connection(s) still busy after the grace period");

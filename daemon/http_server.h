@@ -14,6 +14,9 @@
 // ingest has a pool of its own, so a blocked ingest never stalls the queries
 // or /metrics; /healthz is answered on the I/O thread (it asks nothing).
 //
+// With options.tls every connection is TLS: the handshake comes first, within
+// the read deadline, and a client that fails it is closed and counted.
+//
 // Expected ends of a connection (end of stream, reset by peer, idle timeout,
 // shutdown) are not logged as errors.
 //
@@ -31,6 +34,7 @@
 
 #include <boost/asio/io_context.hpp>
 #include <boost/asio/ip/tcp.hpp>
+#include <boost/asio/ssl/context.hpp>
 #include <chrono>
 #include <cstddef>
 #include <functional>
@@ -63,6 +67,9 @@ struct HttpServerOptions {
   // Bearer <token>` (access.h); others are answered 401 as soon as their
   // header is read, before any body. Never logged.
   std::string token{};
+  // Set: every connection is TLS (daemon/tls.h); a client that fails the
+  // handshake is closed and counted (reason="tls_handshake").
+  std::shared_ptr<boost::asio::ssl::context> tls{};
 
   // Rules: max_body_bytes in [1024, 1 GiB]; max_header_bytes in [1024, 1 MiB];
   // timeouts positive; max_connections in [1, 100000]; ingest_threads and

@@ -256,6 +256,7 @@ int RunServe(const Args& args) {
     HttpServerOptions http_options;
     http_options.max_body_bytes = options.http.max_body_bytes;
     http_options.token = service.access_token();
+    http_options.tls = service.http_tls();
     http.emplace(http_io,
                  boost::asio::ip::tcp::endpoint(
                      address, static_cast<unsigned short>(options.http.port)),

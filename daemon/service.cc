@@ -5,6 +5,7 @@
 
 #include "daemon/access.h"
 #include "daemon/http_api.h"
+#include "daemon/kafka_alert_sink.h"
 #include "daemon/log.h"
 #include "detectors/glob.h"
 
@@ -130,6 +131,12 @@ Status Service::Start() {
   auto token = LoadAccessToken(options.access);
   if (!token.ok()) return token.status();
   access_token_ = std::move(*token);
+  auto tcp_tls = MakeServerTlsContext(options.tcp.tls, "listeners.tcp");
+  if (!tcp_tls.ok()) return tcp_tls.status();
+  tcp_tls_ = std::move(*tcp_tls);
+  auto http_tls = MakeServerTlsContext(options.http.tls, "listeners.http");
+  if (!http_tls.ok()) return http_tls.status();
+  http_tls_ = std::move(*http_tls);
   if (Status status = CheckProfiles(config_, designs_.get()); !status.ok()) return status;
   if (Status status = deps_.file_system->CreateDirectories(options.state_directory);
       !status.ok()) {
@@ -173,6 +180,11 @@ Status Service::Start() {
     webhook->Start();
     dispatcher_->AddSink(std::move(webhook), options.sinks.webhook.min_severity);
   }
+  if (options.sinks.kafka.enabled()) {
+    auto kafka = KafkaAlertSink::Make(options.sinks.kafka, deps_.observer);
+    if (!kafka.ok()) return kafka.status();
+    dispatcher_->AddSink(std::move(kafka).value(), options.sinks.kafka.min_severity);
+  }
   dispatcher_->Start();
 
   ShardOptions shard_options;
@@ -209,7 +221,7 @@ Status Service::Start() {
   if (options.tcp.enabled) {
     tcp_ = std::make_unique<TcpListener>(
         io_, options.tcp, shards_.get(), deps_.observer,
-        TcpIngestRules{options.max_time_ahead, access_token_});
+        TcpIngestRules{options.max_time_ahead, access_token_, tcp_tls_});
     tcp_->set_write_ahead_log(wal_.get());
     if (Status status = tcp_->Start(); !status.ok()) {
       tcp_.reset();
@@ -224,6 +236,30 @@ Status Service::Start() {
     followers_.push_back(std::make_unique<FileFollower>(
         file, options.state_directory, shards_.get(), deps_.file_system, deps_.observer));
     followers_.back()->Start();
+  }
+  if (options.kafka.enabled()) {
+    kafka_ = std::make_unique<KafkaInput>(
+        options.kafka, shards_.get(),
+        [dispatcher = dispatcher_.get()](SteadyTime deadline) {
+          return dispatcher->Flush(deadline);
+        },
+        options.max_time_ahead, deps_.file_system, deps_.observer);
+    if (Status status = kafka_->Start(); !status.ok()) {
+      kafka_.reset();
+      started_ = true;
+      Shutdown();
+      return status;
+    }
+  }
+  if (options.mqtt.enabled()) {
+    mqtt_ = std::make_unique<MqttInput>(options.mqtt, shards_.get(), options.max_time_ahead,
+                                        deps_.observer);
+    if (Status status = mqtt_->Start(); !status.ok()) {
+      mqtt_.reset();
+      started_ = true;
+      Shutdown();
+      return status;
+    }
   }
   started_ = true;
   if (deps_.observer) deps_.observer->OnReady(true);
@@ -242,6 +278,8 @@ void Service::StopInputs(SteadyTime deadline) {
     }
   }
   for (auto& follower : followers_) follower->Stop();
+  if (kafka_) kafka_->Stop();  // leaves the group: its partitions' state saved
+  if (mqtt_) mqtt_->Stop();
   if (io_thread_.joinable()) {
     work_.reset();
     io_.stop();
@@ -479,6 +517,7 @@ bool Service::Ready(std::string* why) {
   }
   // The alert log first: its failure is the one an operator must act on.
   if (!dispatcher_->Healthy(why)) return false;
+  if (kafka_ && !kafka_->Healthy(why)) return false;
   {
     std::lock_guard<std::mutex> lock(checkpoint_mutex_);
     if (!checkpoint_failure_.ok()) {

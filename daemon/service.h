@@ -9,6 +9,9 @@
 //                      bounded queues, blocking when full                         └
 //                      webhook ─ its own queue
 //
+// The Kafka and MQTT inputs (daemon/kafka_input.h, daemon/mqtt_input.h) route
+// like the others; alerts may also go to Kafka (daemon/kafka_alert_sink.h).
+//
 // Staged shutdown (Shutdown): stop the inputs (the caller stops the HTTP server
 // first), let the shards drain their queues and release held readings, let
 // the dispatcher deliver what they raised, and drain the sinks (the webhook
@@ -39,15 +42,18 @@
 
 #include "config/config.h"
 #include "daemon/alert_sinks.h"
-#include "daemon/checkpoint.h"
 #include "daemon/annotation_store.h"
+#include "daemon/checkpoint.h"
 #include "daemon/clock.h"
 #include "daemon/file_follower.h"
 #include "daemon/file_system.h"
+#include "daemon/kafka_input.h"
+#include "daemon/mqtt_input.h"
 #include "daemon/pipeline_observer.h"
 #include "daemon/service_view.h"
 #include "daemon/shard.h"
 #include "daemon/tcp_listener.h"
+#include "daemon/tls.h"
 #include "daemon/write_ahead_log.h"
 
 namespace plumbline {
@@ -111,6 +117,9 @@ class Service : public ServiceView {
   // The bearer token of the HTTP API and TCP ingest ("" when access control
   // is off), loaded by Start. Never log it.
   const std::string& access_token() const { return access_token_; }
+  // The HTTP listener's TLS context (null: plain HTTP), made by Start from
+  // listeners.http.tls; the TCP listener's is kept inside.
+  const std::shared_ptr<TlsContext>& http_tls() const { return http_tls_; }
   // The config in force (controlling thread only: Reload replaces it).
   const Config& config() const { return config_; }
   std::size_t shard_count() const { return shards_ ? shards_->size() : 0; }
@@ -127,6 +136,7 @@ class Service : public ServiceView {
   const std::size_t max_line_bytes_;
   const EventTime max_time_ahead_;  // likewise: the lead allowed over the wall clock
   std::string access_token_;        // set by Start, then read-only
+  std::shared_ptr<TlsContext> tcp_tls_, http_tls_;  // likewise (null: no TLS)
   // The API's annotations file (kAnnotationFileName in the state directory).
   const std::string annotation_file_;
   // Calibrates each distinct profile once, for every shard and reload.
@@ -142,6 +152,8 @@ class Service : public ServiceView {
   std::thread io_thread_;
   std::unique_ptr<TcpListener> tcp_;
   std::vector<std::unique_ptr<FileFollower>> followers_;
+  std::unique_ptr<KafkaInput> kafka_;  // inputs.kafka (null: off)
+  std::unique_ptr<MqttInput> mqtt_;    // inputs.mqtt (null: off)
 
   // Annotations made through the API (kept in the state directory's
   // kAnnotationFileName) join the config file's: every shard runs the config

@@ -96,27 +96,39 @@ Status Service::StartCheckpoints() {
                                     {"seconds", SecondsSince(begun)}});
   }
   // The log's tail: every record after the checkpoint, in order. A stream's
-  // batches after its last mark were never acknowledged (the sender sends
-  // them again), so they are left out.
+  // batches count once a mark of the same connection follows them; those
+  // followed by a resume or by nothing were never acknowledged (the sender
+  // sends them again), so they are left out.
   const auto replay_begun = std::chrono::steady_clock::now();
   std::unordered_map<std::string, std::uint64_t> streams(checkpoint.head.streams.begin(),
                                                          checkpoint.head.streams.end());
   wal_->SetStreams(streams);
   std::vector<WalRecord> tail;
-  std::unordered_map<std::string, std::uint64_t> last_mark;
   std::vector<std::string> problems;
   if (Status status = wal_->Replay(
           [&](const WalRecord& record) {
-            if (record.sequence <= checkpoint.head.wal_done) return;
-            if (record.type == WalRecord::Type::kMark) {
-              last_mark[record.stream] = record.sequence;
-            } else {
-              tail.push_back(record);
-            }
+            if (record.sequence > checkpoint.head.wal_done) tail.push_back(record);
           },
           &problems);
       !status.ok()) {
     return status;
+  }
+  std::vector<bool> unacknowledged(tail.size(), false);
+  std::unordered_map<std::string_view, std::vector<std::size_t>> waiting;  // per stream
+  for (std::size_t i = 0; i < tail.size(); ++i) {
+    if (tail[i].stream.empty()) continue;
+    std::vector<std::size_t>& batches = waiting[tail[i].stream];
+    if (tail[i].type == WalRecord::Type::kBatch) {
+      batches.push_back(i);
+      continue;
+    }
+    if (tail[i].type == WalRecord::Type::kResume) {
+      for (std::size_t j : batches) unacknowledged[j] = true;
+    }
+    batches.clear();
+  }
+  for (const auto& [stream, batches] : waiting) {
+    for (std::size_t j : batches) unacknowledged[j] = true;
   }
   for (const std::string& why : problems) LogWarning("write-ahead log record skipped", {{"reason", why}});
   std::uint64_t replayed = 0, skipped_readings = 0;
@@ -126,13 +138,11 @@ Status Service::StartCheckpoints() {
     shards_->shard(shard).Push(&batches[shard]);
     batches[shard] = ReadingBatch();
   };
-  for (const WalRecord& record : tail) {
-    if (!record.stream.empty()) {
-      auto mark = last_mark.find(record.stream);
-      if (mark == last_mark.end() || mark->second < record.sequence) {
-        skipped_readings += record.readings.size();
-        continue;
-      }
+  for (std::size_t i = 0; i < tail.size(); ++i) {
+    const WalRecord& record = tail[i];
+    if (unacknowledged[i]) {
+      skipped_readings += record.readings.size();
+      continue;
     }
     for (const WalRecord::Reading& r : record.readings) {
       auto done = wal_done.find(r.series);

@@ -134,9 +134,18 @@ class ShardState {
   // beside it; its silence clock restarts at clock time `now`.
   Status RestoreSeries(const struct CheckpointSeries& series, EventTime now,
                        ReconfigureReport* report);
+  // Partition moves (daemon/kafka_input.h): appends a record (as SaveSeries
+  // writes them, with wal_done 0) for each named series this shard holds, and
+  // forgets series whose state another instance now owns.
+  void SaveNamedSeries(const std::vector<std::string>& names, SnapshotWriter* w,
+                       std::uint64_t* count) const;
+  void ForgetSeries(const std::vector<std::string>& names);
 
  private:
   friend class Shard;
+  struct CheckpointSeries ToCheckpointSeries(const std::string& name,
+                                             std::uint64_t wal_done,
+                                             std::string engine_state) const;
   // Queues the series' wall-clock silence check, unless queued already or it
   // has no deadline now (then its next reading tries again).
   void ScheduleSilence(const std::string& name, SeriesExtras* extras);

@@ -3,6 +3,8 @@
 #include <algorithm>
 #include <array>
 #include <boost/asio/post.hpp>
+#include <boost/asio/ssl/error.hpp>
+#include <boost/asio/ssl/stream.hpp>
 #include <boost/asio/steady_timer.hpp>
 #include <boost/asio/write.hpp>
 #include <chrono>
@@ -52,8 +54,14 @@ std::string Describe(const tcp::endpoint& endpoint) {
          std::to_string(endpoint.port());
 }
 
+// The sender finished: a plain end of stream, or a TLS peer that closed
+// without its close_notify (as most clients do).
+bool EndOfStream(const boost::system::error_code& error) {
+  return error == asio::error::eof || error == asio::ssl::error::stream_truncated;
+}
+
 bool Expected(const boost::system::error_code& error) {
-  return error == asio::error::eof || error == asio::error::operation_aborted ||
+  return EndOfStream(error) || error == asio::error::operation_aborted ||
          error == asio::error::connection_reset || error == asio::error::bad_descriptor;
 }
 
@@ -100,7 +108,10 @@ class Session : public std::enable_shared_from_this<Session> {
  public:
   Session(std::shared_ptr<TcpListener::State> state, tcp::socket socket, std::string peer)
       : state_(std::move(state)),
-        socket_(std::move(socket)),
+        tls_(state_->rules.tls ? std::make_unique<asio::ssl::stream<tcp::socket>>(
+                                     std::move(socket), *state_->rules.tls)
+                               : nullptr),
+        socket_(tls_ ? tcp::socket(state_->io) : std::move(socket)),
         timer_(state_->io),
         peer_(std::move(peer)),
         router_(state_->shards),
@@ -122,7 +133,11 @@ class Session : public std::enable_shared_from_this<Session> {
 
   void Start() {
     last_activity_ = std::chrono::steady_clock::now();
-    DoRead();
+    if (tls_) {
+      DoHandshake();
+    } else {
+      DoRead();
+    }
     DoWaitIdle(std::chrono::microseconds(state_->options.idle_timeout));
   }
 
@@ -130,8 +145,8 @@ class Session : public std::enable_shared_from_this<Session> {
     if (closed_) return;
     closed_ = true;
     boost::system::error_code ignored;
-    socket_.shutdown(tcp::socket::shutdown_both, ignored);
-    socket_.close(ignored);
+    Socket().shutdown(tcp::socket::shutdown_both, ignored);
+    Socket().close(ignored);
     timer_.cancel();
     router_.Flush();
     state_->sessions.erase(this);
@@ -151,11 +166,38 @@ class Session : public std::enable_shared_from_this<Session> {
   }
 
  private:
+  tcp::socket& Socket() { return tls_ ? tls_->next_layer() : socket_; }
+
+  void DoHandshake() {
+    tls_->async_handshake(
+        asio::ssl::stream_base::server,
+        [self = shared_from_this()](const boost::system::error_code& error) {
+          self->OnHandshake(error);
+        });
+  }
+
+  void OnHandshake(const boost::system::error_code& error) {
+    if (closed_) return;
+    if (error) {
+      if (state_->observer) state_->observer->OnConnectionDropped("tcp", "tls_handshake");
+      LogDebug("tls handshake failed",
+               {{"input", "tcp"}, {"peer", peer_}, {"error", error.message()}});
+      Close("tls handshake failed");
+      return;
+    }
+    DoRead();
+  }
+
   void DoRead() {
-    socket_.async_read_some(
-        asio::buffer(buffer_),
-        [self = shared_from_this()](const boost::system::error_code& error,
-                                    std::size_t bytes) { self->OnRead(error, bytes); });
+    auto on_read = [self = shared_from_this()](const boost::system::error_code& error,
+                                               std::size_t bytes) {
+      self->OnRead(error, bytes);
+    };
+    if (tls_) {
+      tls_->async_read_some(asio::buffer(buffer_), std::move(on_read));
+    } else {
+      socket_.async_read_some(asio::buffer(buffer_), std::move(on_read));
+    }
   }
 
   void OnRead(const boost::system::error_code& error, std::size_t bytes) {
@@ -184,14 +226,14 @@ class Session : public std::enable_shared_from_this<Session> {
       stalled_at_activity_ = state_->stalled;
     }
     if (error) {
-      if (error == asio::error::eof) {
+      if (EndOfStream(error)) {
         parser_.Finish();  // a last line without its newline still counts
         router_.Flush();
       } else if (!Expected(error)) {
         LogWarning("connection read failed",
                    {{"input", "tcp"}, {"peer", peer_}, {"error", error.message()}});
       }
-      Close(error == asio::error::eof ? "end of stream" : "read error");
+      Close(EndOfStream(error) ? "end of stream" : "read error");
       return;
     }
     if (shards_closed_) {
@@ -278,6 +320,9 @@ class Session : public std::enable_shared_from_this<Session> {
     lines_ = known == streams.end() ? 0 : known->second;
     LogDebug("acknowledged stream", {{"input", "tcp"}, {"peer", peer_}, {"stream", stream_},
                                      {"durable_lines", lines_}});
+    // Whatever an earlier connection of the stream sent after its last mark
+    // is sent again from line lines_ + 1 on; a restart must not take it too.
+    through = state_->wal->AppendResume(stream_, lines_);
     AcknowledgeWhenDurable(through, lines_);
     return true;
   }
@@ -309,9 +354,13 @@ class Session : public std::enable_shared_from_this<Session> {
     writing_ack_ = true;
     ack_written_ = ack_target_;
     ack_text_ = "durable " + std::to_string(*ack_target_) + "\n";
-    asio::async_write(socket_, asio::buffer(ack_text_),
-                      [self = shared_from_this()](const boost::system::error_code& error,
-                                                  std::size_t) { self->OnWriteAck(error); });
+    auto on_write = [self = shared_from_this()](const boost::system::error_code& error,
+                                                std::size_t) { self->OnWriteAck(error); };
+    if (tls_) {
+      asio::async_write(*tls_, asio::buffer(ack_text_), std::move(on_write));
+    } else {
+      asio::async_write(socket_, asio::buffer(ack_text_), std::move(on_write));
+    }
   }
 
   void OnWriteAck(const boost::system::error_code& error) {
@@ -347,7 +396,8 @@ class Session : public std::enable_shared_from_this<Session> {
   }
 
   std::shared_ptr<TcpListener::State> state_;
-  tcp::socket socket_;
+  std::unique_ptr<asio::ssl::stream<tcp::socket>> tls_;  // set: TLS (owns the socket)
+  tcp::socket socket_;                                   // plain text (unused with TLS)
   asio::steady_timer timer_;
   const std::string peer_;
   ShardRouter router_;

@@ -12,6 +12,9 @@
 //   refused (time_in_future).
 // - With rules.token set, the first line must be `token <token>` (access.h);
 //   otherwise the connection is closed before any reading is taken.
+// - With rules.tls every connection is TLS: its handshake comes first (within
+//   idle_timeout); a client that fails it (one speaking plain text, say) is
+//   closed and counted (reason tls_handshake) before any line is read.
 // - At most max_connections are open; one more is accepted and closed at once,
 //   with a warning.
 // - Backpressure: when a shard's queue is full, the I/O thread waits in
@@ -28,6 +31,7 @@
 #include <atomic>
 #include <boost/asio/io_context.hpp>
 #include <boost/asio/ip/tcp.hpp>
+#include <boost/asio/ssl/context.hpp>
 #include <cstddef>
 #include <cstdint>
 #include <memory>
@@ -45,6 +49,7 @@ namespace plumbline {
 struct TcpIngestRules {
   EventTime max_time_ahead = 0;  // 0: readings may be stamped any time ahead
   std::string token;             // non-empty: connections must present it first
+  std::shared_ptr<boost::asio::ssl::context> tls;  // set: TLS only (daemon/tls.h)
 };
 
 class TcpListener {

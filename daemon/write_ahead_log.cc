@@ -106,7 +106,8 @@ Status WriteAheadLog::Replay(const std::function<void(const WalRecord&)>& each,
           reading.time = r.I64();
           reading.value = r.F64();
         }
-      } else if (record.type == WalRecord::Type::kMark) {
+      } else if (record.type == WalRecord::Type::kMark ||
+                 record.type == WalRecord::Type::kResume) {
         record.lines = r.U64();
       } else {
         r.Fail("unknown record type");
@@ -198,6 +199,12 @@ std::uint64_t WriteAheadLog::AppendMark(std::string_view stream, std::uint64_t l
   std::uint64_t& known = streams_[std::string(stream)];
   known = std::max(known, lines);
   return sequence;
+}
+
+std::uint64_t WriteAheadLog::AppendResume(std::string_view stream, std::uint64_t lines) {
+  SnapshotWriter w;
+  w.U64(lines);
+  return Append(w.Take(), stream, WalRecord::Type::kResume);
 }
 
 std::uint64_t WriteAheadLog::Rotate() {

@@ -12,8 +12,12 @@
 //   u32 payload length  u32 CRC-32C of the payload  payload
 //
 // payload (detectors/snapshot.h encoding): u64 sequence, u8 type (1 batch,
-// 2 mark), the stream name ("" for none); a batch: u64 count, then per reading
-// its series, time (i64 microseconds) and value (f64); a mark: u64 lines.
+// 2 mark, 3 resume), the stream name ("" for none); a batch: u64 count, then
+// per reading its series, time (i64 microseconds) and value (f64); a mark or
+// a resume: u64 lines. A resume is logged when an acknowledged connection of
+// the stream begins (lines: the durable count it resumes from): the stream's
+// batches between its last mark and a resume were never acknowledged (the
+// sender sends those lines again), nor are those after its last record.
 // Sequences start at 1 and grow by one per record. A checkpoint starts a new
 // segment (Rotate); segments whose records every shard has in a checkpoint
 // that is not the newest are deleted (DeleteThrough). A record cut short or
@@ -42,7 +46,7 @@
 namespace plumbline {
 
 struct WalRecord {
-  enum class Type : std::uint8_t { kBatch = 1, kMark = 2 };
+  enum class Type : std::uint8_t { kBatch = 1, kMark = 2, kResume = 3 };
   std::uint64_t sequence = 0;
   Type type = Type::kBatch;
   std::string stream;
@@ -52,7 +56,7 @@ struct WalRecord {
     double value = 0.0;
   };
   std::vector<Reading> readings;  // batch
-  std::uint64_t lines = 0;        // mark
+  std::uint64_t lines = 0;        // mark, resume
 };
 
 class WriteAheadLog {
@@ -76,6 +80,7 @@ class WriteAheadLog {
   // Append a record; returns its sequence. Never blocks on the disk.
   std::uint64_t AppendBatch(const ReadingBatch& batch, std::string_view stream);
   std::uint64_t AppendMark(std::string_view stream, std::uint64_t lines);
+  std::uint64_t AppendResume(std::string_view stream, std::uint64_t lines);
 
   // Waits until every record up to `sequence` is durable; false on timeout
   // or after a write failure.

@@ -7,6 +7,9 @@ packages=(
   build-essential cmake ninja-build pkg-config
   libboost-dev libeigen3-dev libyaml-cpp-dev prometheus-cpp-dev
   libgtest-dev libgmock-dev libbenchmark-dev
+  # TLS on the listeners (daemon/tls.h), and the openssl command its e2e test
+  # uses to make a self-signed certificate
+  libssl-dev openssl
   # deploy checks and the scrape test: promtool and a Prometheus server, and
   # systemd-analyze to verify the unit (so that check runs rather than skips)
   prometheus systemd
@@ -16,6 +19,9 @@ packages=(
   wrk curl
   # the status page and replay report in a real browser (tests/e2e/check_ui.py)
   chromium
+  # the Kafka and MQTT inputs and the Kafka sink (the tests run librdkafka's mock
+  # cluster and a mosquitto broker on loopback)
+  librdkafka-dev libmosquitto-dev mosquitto mosquitto-clients
   # reference checks: numpy/scipy/statsmodels oracles and R's data sets
   python3 python3-numpy python3-scipy python3-statsmodels r-base-core r-cran-boot
 )

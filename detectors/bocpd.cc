@@ -375,15 +375,15 @@ PLUMBLINE_INLINE typename I::V VectorLog(const typename I::V& y) {
 // -infinity, so u = -infinity and weight 0), which the caller writes into
 // the free slots around the states and whose results are ignored.
 struct UpdateArrays {
-  double* mu;                 // per state, advanced in place
-  double* beta;               // per state, advanced in place
-  const double* log_mass;     // g_j
-  const double* step;         // 1 / (kappa_n + 1), n = readings held
-  const double* log_ml_next;  // L_{n+1}
-  const double* alpha_next;   // alpha_{n+1}, or nullptr: alpha_lane0 - lane/2
-  double alpha_lane0;
-  double* log_joint;  // out: u_j (ScoreStates); in: WeighStates
-  double* weight;     // out: w_j (may be log_joint: weighed in place)
+  double* mu;                      // per state, advanced in place
+  double* beta;                    // per state, advanced in place
+  const double* log_mass;          // g_j
+  const double* step;              // 1 / (kappa_n + 1), n = readings held
+  const double* half_ratio;        // kappa_n / (2 (kappa_n + 1))
+  const double* log_ml_next;       // L_{n+1}
+  const double* minus_alpha_next;  // -alpha_{n+1}
+  double* log_joint;               // out: u_j (ScoreStates); in: WeighStates
+  double* weight;                  // out: w_j (may be log_joint: weighed in place)
   std::size_t lanes;
   std::size_t first;
   std::size_t n;
@@ -393,33 +393,29 @@ struct UpdateArrays {
   bool score_backward;
 };
 
-// W lanes of ScoreStates from lane i; raises `top` to their largest u.
+// W lanes of ScoreStates from lane i; raises `top` to their largest u. (The
+// per-run-length constants come from tables, so that a lane costs no more
+// arithmetic than its logarithm and its update.)
 template <class I>
 PLUMBLINE_INLINE void ScoreLanes(const typename I::V& x, const UpdateArrays& a,
-                                 std::size_t i, const typename I::V& lane,
-                                 typename I::V& top) {
+                                 std::size_t i, typename I::V& top) {
   using V = typename I::V;
-  V mu, beta, log_mass, step, log_ml_next, alpha_next;
+  V mu, beta, log_mass, step, half_ratio, log_ml_next, minus_alpha_next;
   Load(a.mu + i, mu);
   Load(a.beta + i, beta);
   Load(a.log_mass + i, log_mass);
   Load(a.step + i, step);
+  Load(a.half_ratio + i, half_ratio);
   Load(a.log_ml_next + i, log_ml_next);
-  if (a.alpha_next != nullptr) {
-    Load(a.alpha_next + i, alpha_next);
-  } else {
-    alpha_next = I::MulAdd(lane, Broadcast<V>(-0.5), Broadcast<V>(a.alpha_lane0));
-  }
-  // kappa_n / (2 (kappa_n + 1)) = (1 - step) / 2
-  const V half_ratio = I::MulAdd(step, Broadcast<V>(-0.5), Broadcast<V>(0.5));
+  Load(a.minus_alpha_next + i, minus_alpha_next);
   const V d = x - mu;
   const V next_beta = I::MulAdd(half_ratio, d * d, beta);
   Store(a.mu + i, I::MulAdd(d, step, mu));
   Store(a.beta + i, next_beta);
   V log_c, log1p_r;
   VectorLogParts<I>(next_beta, log_c, log1p_r);
-  const V u = I::MulAdd(-alpha_next, log1p_r,
-                        I::MulAdd(-alpha_next, log_c, log_mass + log_ml_next));
+  const V u = I::MulAdd(minus_alpha_next, log1p_r,
+                        I::MulAdd(minus_alpha_next, log_c, log_mass + log_ml_next));
   Store(a.log_joint + i, u);
   top = I::Max(u, top);
 }
@@ -433,21 +429,13 @@ PLUMBLINE_INLINE double ScoreStates(double x, const UpdateArrays& arrays) {
   const UpdateArrays a = arrays;  // a local copy, which the stores cannot alias
   const V xs = Broadcast<V>(x);
   V top = Broadcast<V>(-std::numeric_limits<double>::infinity());
-  V lane;
   if (a.score_backward) {
-    for (std::size_t l = 0; l < kWidth; ++l)
-      lane[l] = static_cast<double>(a.lanes - kWidth + l);
     for (std::size_t i = a.lanes; i > 0;) {
       i -= kWidth;
-      ScoreLanes<I>(xs, a, i, lane, top);
-      lane -= static_cast<double>(kWidth);
+      ScoreLanes<I>(xs, a, i, top);
     }
   } else {
-    for (std::size_t l = 0; l < kWidth; ++l) lane[l] = static_cast<double>(l);
-    for (std::size_t i = 0; i < a.lanes; i += kWidth) {
-      ScoreLanes<I>(xs, a, i, lane, top);
-      lane += static_cast<double>(kWidth);
-    }
+    for (std::size_t i = 0; i < a.lanes; i += kWidth) ScoreLanes<I>(xs, a, i, top);
   }
   double best = top[0];
   for (std::size_t lane = 1; lane < kWidth; ++lane) best = std::max(best, top[lane]);
@@ -487,8 +475,9 @@ PLUMBLINE_INLINE void WeighLanes(const double* log_joint, double* weight, std::s
 // each taken in the pass's order of slots, added in a fixed order), the
 // smallest, and the last j with u_j = top.
 template <class I>
-PLUMBLINE_INLINE WeighResult WeighStates(const UpdateArrays& a, double top) {
+PLUMBLINE_INLINE WeighResult WeighStates(const UpdateArrays& arrays, double top) {
   using V = typename I::V;
+  const UpdateArrays a = arrays;  // a local copy, which the stores cannot alias
   constexpr std::size_t kWidth = sizeof(V) / sizeof(double);
   constexpr std::size_t kParts = kBlock / kWidth;
   const double* log_joint = a.log_joint;
@@ -690,8 +679,9 @@ RunLengthPosterior::RunLengthPosterior(const BocpdOptions& options,
   // side for the dummy lanes of the update loop.
   const auto states = static_cast<std::size_t>(cap_) + 1;
   step_by_age_.assign(states + 2 * kLanePad, 0.5);
+  half_ratio_by_age_.assign(states + 2 * kLanePad, 0.25);
   log_ml_next_by_age_.assign(states + 2 * kLanePad, 0.0);
-  alpha_next_by_age_.assign(states + 2 * kLanePad, 1.0);
+  minus_alpha_next_by_age_.assign(states + 2 * kLanePad, -1.0);
   // L_m = log Gamma(alpha_m) - log Gamma(alpha0) - (m/2) log(2 pi)
   //       - (1/2) log(kappa_m / kappa0)
   const double log_gamma_alpha0 = LogGamma(alpha0_);
@@ -701,16 +691,21 @@ RunLengthPosterior::RunLengthPosterior(const BocpdOptions& options,
   };
   for (std::size_t age = 0; age < states; ++age) {
     const double n = static_cast<double>(cap_) - static_cast<double>(age);
-    step_by_age_[kLanePad + age] = 1.0 / (kappa0_ + n + 1.0);
+    const double step = 1.0 / (kappa0_ + n + 1.0);
+    step_by_age_[kLanePad + age] = step;
+    half_ratio_by_age_[kLanePad + age] = std::fma(step, -0.5, 0.5);  // exact product
     log_ml_next_by_age_[kLanePad + age] = log_ml(n + 1.0);
-    alpha_next_by_age_[kLanePad + age] = alpha0_ + 0.5 * (n + 1.0);
+    minus_alpha_next_by_age_[kLanePad + age] = -(alpha0_ + 0.5 * (n + 1.0));
   }
   // Slot buffers: 2 (R + 1) + 1 slots, and kLanePad more for the dummy lanes
   // after the last state.
   slots_ = 2 * states + 1;
-  for (auto* v : {&mu_, &beta_, &log_mass_, &weight_, &gather_step_, &gather_log_ml_next_,
-                  &gather_alpha_next_}) {
-    v->assign(slots_ + kLanePad, 0.0);
+  for (auto* v : {&mu_, &beta_, &log_mass_, &weight_}) v->assign(slots_ + kLanePad, 0.0);
+  // Scratch for the lanes of one update: at most R + 1 states and 2 kLanePad - 2
+  // dummies.
+  for (auto* v : {&gather_step_, &gather_half_ratio_, &gather_log_ml_next_,
+                  &gather_minus_alpha_next_}) {
+    v->assign(states + 2 * kLanePad, 0.0);
   }
   birth_.resize(slots_);
   recent_.resize(states);
@@ -790,24 +785,25 @@ void RunLengthPosterior::Update(double x) {
     // Lane l holds age R - oldest + l - first (dummies reach into the padding).
     const std::size_t start = kLanePad + static_cast<std::size_t>(cap_ - oldest) - first;
     arrays.step = &step_by_age_[start];
+    arrays.half_ratio = &half_ratio_by_age_[start];
     arrays.log_ml_next = &log_ml_next_by_age_[start];
-    arrays.alpha_next = nullptr;
-    // (as the table would hold it for the dummy lanes before the first state)
-    arrays.alpha_lane0 =
-        alpha_next_by_age_[start + first] + 0.5 * static_cast<double>(first);
+    arrays.minus_alpha_next = &minus_alpha_next_by_age_[start];
   } else {
     for (std::size_t slot = lane0; slot < lane0 + lanes; ++slot) {
       std::size_t age = 0;  // a dummy lane: any finite constants
       if (slot >= b && slot < end_) {
         age = kLanePad + static_cast<std::size_t>(cap_ - (readings_ - birth_[slot]));
       }
-      gather_step_[slot] = step_by_age_[age];
-      gather_log_ml_next_[slot] = log_ml_next_by_age_[age];
-      gather_alpha_next_[slot] = alpha_next_by_age_[age];
+      const std::size_t lane = slot - lane0;
+      gather_step_[lane] = step_by_age_[age];
+      gather_half_ratio_[lane] = half_ratio_by_age_[age];
+      gather_log_ml_next_[lane] = log_ml_next_by_age_[age];
+      gather_minus_alpha_next_[lane] = minus_alpha_next_by_age_[age];
     }
-    arrays.step = &gather_step_[lane0];
-    arrays.log_ml_next = &gather_log_ml_next_[lane0];
-    arrays.alpha_next = &gather_alpha_next_[lane0];
+    arrays.step = gather_step_.data();
+    arrays.half_ratio = gather_half_ratio_.data();
+    arrays.log_ml_next = gather_log_ml_next_.data();
+    arrays.minus_alpha_next = gather_minus_alpha_next_.data();
   }
 
   // u_j = log P_{t-1}(j) + log pi_j(x) + s_{t-1}, and w_j = exp(u_j - max u).
@@ -868,8 +864,8 @@ void RunLengthPosterior::SlideCapState(std::size_t slot, double log_joint) {
   // Same probability (log P = log_joint - s_t), now from R readings:
   // g = log_joint - L_R + alpha_R log beta. (Age 1 holds the constants of R - 1
   // readings, whose "next" is R.)
-  log_mass_[slot] = log_joint - log_ml_next_by_age_[kLanePad + 1] +
-                    alpha_next_by_age_[kLanePad + 1] * std::log(beta_[slot]);
+  log_mass_[slot] = log_joint - log_ml_next_by_age_[kLanePad + 1] -
+                    minus_alpha_next_by_age_[kLanePad + 1] * std::log(beta_[slot]);
   ++birth_[slot];
 }
 
@@ -1104,7 +1100,8 @@ Status RunLengthPosterior::Load(SnapshotReader& r) {
   if (slots != slots_ || begin > end || end > slots_) {
     return r.Fail("run-length posterior does not fit this cap");
   }
-  if ((end - begin) * 40 > r.remaining()) return r.Fail("run-length states run past the end");
+  if ((end - begin) * 40 > r.remaining())
+    return r.Fail("run-length states run past the end");
   begin_ = static_cast<std::size_t>(begin);
   end_ = static_cast<std::size_t>(end);
   for (auto* v : {&mu_, &beta_, &log_mass_, &weight_}) {
@@ -1122,7 +1119,8 @@ Status RunLengthPosterior::Load(SnapshotReader& r) {
   readings_ = r.I64();
   log_evidence_ = r.F64();
   last_log_predictive_ = r.F64();
-  if (r.ok() && (recent_.size() != states || recent_at_ >= states || map_slot_ >= slots_)) {
+  if (r.ok() &&
+      (recent_.size() != states || recent_at_ >= states || map_slot_ >= slots_)) {
     return r.Fail("run-length posterior does not fit this cap");
   }
   return r.status();

@@ -291,9 +291,10 @@ class RunLengthPosterior {
   // Per-run-length constants for a run holding n readings before a reading,
   // indexed by 8 + R - n (descending n, after 8 entries of padding), so that
   // states without gaps read a contiguous slice.
-  std::vector<double> step_by_age_;         // 1 / (kappa_n + 1)
-  std::vector<double> log_ml_next_by_age_;  // L_{n+1}
-  std::vector<double> alpha_next_by_age_;   // alpha_{n+1}
+  std::vector<double> step_by_age_;              // 1 / (kappa_n + 1)
+  std::vector<double> half_ratio_by_age_;        // kappa_n / (2 (kappa_n + 1))
+  std::vector<double> log_ml_next_by_age_;       // L_{n+1}
+  std::vector<double> minus_alpha_next_by_age_;  // -alpha_{n+1}
 
   // States, oldest (longest run) first, in slots [begin_, end_) of buffers
   // holding 2 (R + 1) + 1 slots; the block slides right as states are merged
@@ -311,10 +312,11 @@ class RunLengthPosterior {
   double scale_ = 1.0;      // P_t(j) = w_j scale_
   double log_shift_ = 0.0;  // s_t
 
-  // Scratch for one update, indexed by slot like the states: the
+  // Scratch for one update, indexed by lane (slot - lane0 of Update): the
   // per-run-length constants gathered when pruning has left gaps. (The u_j
   // of an update live in weight_ until they are weighed.)
-  bocpd_internal::AlignedDoubles gather_step_, gather_log_ml_next_, gather_alpha_next_;
+  bocpd_internal::AlignedDoubles gather_step_, gather_half_ratio_, gather_log_ml_next_,
+      gather_minus_alpha_next_;
 
   // The last R + 1 readings (ring), for the sliding cap state; reading t at
   // index t mod (R + 1), the latest at recent_at_.

@@ -3,10 +3,38 @@
 #include <Eigen/Eigenvalues>
 #include <algorithm>
 #include <cmath>
+#include <cstddef>
+#include <cstring>
 #include <limits>
 #include <numbers>
 
 namespace plumbline {
+namespace {
+
+// Divides each of `count` values by `divisor` in place, on the widest vectors
+// the processor has. Division is correctly rounded at every width, so every
+// copy gives the same bits; on the baseline x86-64 build, two lanes at a time,
+// the n^2 divisions of the forgetting step were the costliest part of an
+// update (about 40% of it for n = 20, by perf).
+#if defined(__x86_64__) && defined(__GNUC__)
+__attribute__((target_clones("avx512f", "avx2", "default")))
+#endif
+void DivideAll(double* values, std::size_t count, double divisor) {
+  typedef double Lanes __attribute__((vector_size(64)));
+  constexpr std::size_t kLanes = sizeof(Lanes) / sizeof(double);
+  Lanes divisors;
+  for (std::size_t lane = 0; lane < kLanes; ++lane) divisors[lane] = divisor;
+  std::size_t i = 0;
+  for (; i + kLanes <= count; i += kLanes) {
+    Lanes v;
+    std::memcpy(&v, values + i, sizeof v);
+    v /= divisors;
+    std::memcpy(values + i, &v, sizeof v);
+  }
+  for (; i < count; ++i) values[i] /= divisor;
+}
+
+}  // namespace
 
 bool SeasonalForecasterOptions::IsValid(std::string* why) const {
   auto fail = [why](const char* message) {
@@ -195,7 +223,7 @@ StatusOr<Forecast> SeasonalForecaster::BeginUpdate(EventTime from, EventTime to)
                 kMaxForgettingExponent));
   const EventTime elapsed = to - t_ref_;
   Recentre(to);
-  p_ /= lambda;
+  DivideAll(p_.data(), static_cast<std::size_t>(p_.size()), lambda);
   p_(0, 0) += LevelDrift(elapsed);
   // Bounding before the update as well keeps a long gap's huge P / lambda out
   // of the rank-one downdate (it would leave P with a condition number ~1e16).

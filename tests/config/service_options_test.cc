@@ -187,6 +187,31 @@ TEST(ServiceOptionsTest, LimitsAndAccessRulesAreReportedAtTheirKeys) {
                  {"token_file and token_env cannot both be set"});
 }
 
+TEST(ServiceOptionsTest, TlsMapsOntoEachListener) {
+  const Config config = MustLoad(
+      "series: []\nlisteners:\n  tcp:\n    tls: {certificate_file: c.pem, key_file: "
+      "k.pem}\n"
+      "  http:\n    tls:\n      certificate_file: h.pem\n      key_file: hk.pem\n");
+  EXPECT_TRUE(config.service.tcp.tls.enabled());
+  EXPECT_EQ(config.service.tcp.tls.certificate_file, "c.pem");
+  EXPECT_EQ(config.service.tcp.tls.key_file, "k.pem");
+  EXPECT_TRUE(config.service.http.tls.enabled());
+  EXPECT_EQ(config.service.http.tls.certificate_file, "h.pem");
+  EXPECT_EQ(config.service.http.tls.key_file, "hk.pem");
+  EXPECT_EQ(DescribeService(config.service)[0],
+            "listeners: tcp 127.0.0.1:7411 (tls), http 127.0.0.1:7412 (tls)");
+  const Config defaults = MustLoad("series: []\n");
+  EXPECT_FALSE(defaults.service.tcp.tls.enabled());
+  EXPECT_FALSE(defaults.service.http.tls.enabled());
+}
+
+TEST(ServiceOptionsTest, TlsNeedsBothFilesAndKnownKeys) {
+  ExpectOneError("listeners:\n  tcp:\n    tls: {certificate_file: c.pem}\n", 3, 10,
+                 {"listeners.tcp.tls: tls needs both certificate_file and key_file"});
+  ExpectOneError("listeners:\n  http:\n    tls: {cert: c.pem, key_file: k.pem}\n", 3, 11,
+                 {"unknown key 'cert' in listeners.http.tls"});
+}
+
 TEST(ServiceOptionsTest, AFileFollowedTwiceIsRefused) {
   ExpectOneError("inputs:\n  files: [a.csv, a.csv]\n", 2, 3,
                  {"path 'a.csv' is followed twice"});

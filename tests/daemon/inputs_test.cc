@@ -455,7 +455,8 @@ TEST_F(TcpFixture, ASlowSenderHoldingHalfALineDoesNotHoldUpAnotherConnection) {
 }
 
 TEST_F(TcpFixture, ReadingsFarAheadOfTheClockAreRefusedAndTheSeriesKeepsWorking) {
-  StartListener({}, TcpIngestRules{.max_time_ahead = kMicrosPerDay, .token = {}});
+  StartListener(
+      {}, TcpIngestRules{.max_time_ahead = kMicrosPerDay, .token = {}, .tls = nullptr});
   tcp::socket socket = Connect();
   // Lines() stamps 2026-03-01 onwards: in the past. Year 2100 is not.
   const std::string text =
@@ -467,7 +468,7 @@ TEST_F(TcpFixture, ReadingsFarAheadOfTheClockAreRefusedAndTheSeriesKeepsWorking)
 }
 
 TEST_F(TcpFixture, WithATokenTheFirstLineMustPresentIt) {
-  StartListener({}, TcpIngestRules{.token = "harbourside-7f3a"});
+  StartListener({}, TcpIngestRules{.token = "harbourside-7f3a", .tls = nullptr});
   tcp::socket good = Connect();
   // The token line may arrive in pieces, and readings may follow in the same read.
   asio::write(good, asio::buffer(std::string("tok")));

@@ -124,6 +124,50 @@ TEST(ServiceTest, IngestReceiptCountsAndNamesRefusedLinesByNumber) {
   service.Shutdown();
 }
 
+// Lines of an acknowledged stream, readings i in [from, to) of one series.
+ReadingBatch StreamBatch(const std::string& series, int from, int to) {
+  ReadingBatch batch;
+  for (int i = from; i < to; ++i) {
+    batch.Add(
+        Reading{(1'772'323'200LL + 60 * i) * kMicrosPerSecond, series, 10.0 + i % 3},
+        static_cast<std::uint64_t>(i + 1));
+  }
+  return batch;
+}
+
+// Regression: a connection's lines after its last mark are sent again by the
+// sender's next connection, and a restart replaying the log took them twice
+// (the second copy of a series' newest reading is not late), so the restored
+// series differed from one that had never stopped (unpaced serve_crash).
+TEST(ServiceTest, RestartLeavesOutStreamBatchesThatAResumeFollows) {
+  const std::string state = TempDir("resume");
+  std::filesystem::create_directories(state);
+  const std::string name = "coldstore/freezer-1/temp_c";
+  {
+    WriteAheadLog wal(state, FileSystem::Default());
+    ASSERT_TRUE(wal.Start(1).ok());
+    wal.AppendResume("feed", 0);
+    wal.AppendBatch(StreamBatch(name, 0, 10), "feed");
+    wal.AppendMark("feed", 10);
+    wal.AppendBatch(StreamBatch(name, 10, 15), "feed");  // never acknowledged
+    wal.AppendResume("feed", 10);                        // the sender reconnects
+    wal.AppendBatch(StreamBatch(name, 10, 15), "feed");  // and sends them again
+    wal.AppendMark("feed", 15);
+    wal.AppendBatch(StreamBatch(name, 15, 18), "feed");  // never acknowledged
+    ASSERT_TRUE(wal.WaitDurable(wal.next_sequence() - 1, std::chrono::seconds(10)));
+  }
+  Service service(MakeConfig(state), ServiceDependencies{});
+  {
+    const Status started = service.Start();
+    ASSERT_TRUE(started.ok()) << started.message();
+  }
+  const auto detail = service.GetSeries(name);
+  ASSERT_TRUE(detail);
+  EXPECT_EQ(detail->summary.readings, 15);
+  EXPECT_EQ(detail->summary.last_time, (1'772'323'200LL + 60 * 14) * kMicrosPerSecond);
+  service.Shutdown();
+}
+
 TEST(ServiceTest, SeriesViewsFilterByGlobAndDescribeOneSeries) {
   ManualClock clock;
   ServiceDependencies deps;
