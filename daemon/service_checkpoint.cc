@@ -224,6 +224,12 @@ Status Service::SaveCheckpoint() {
   if (!wal_->WaitDurable(through, kShardCheckpointWait)) {
     return Status::IoError("write-ahead log not durable: " + wal_->failure().message());
   }
+  // The series' state includes the alerts they raised; a restart replays only
+  // the log after this checkpoint, so those alerts must be in the alert log
+  // before the checkpoint says they happened.
+  if (!dispatcher_->Flush(std::chrono::steady_clock::now() + kShardCheckpointWait)) {
+    return Status::Unavailable("alerts not delivered in time for the checkpoint");
+  }
   std::string payload = CheckpointPayloadHead(head, series);
   for (const std::string& part : parts) payload += part;
   const double snapshot_seconds = SecondsSince(begun);

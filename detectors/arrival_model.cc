@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <limits>
 #include <numbers>
 
 #include "detectors/run_length_chain.h"
@@ -310,10 +311,14 @@ Status ArrivalShape::Load(SnapshotReader& r) {
   if (r.ok() && (events_.size() != bins || exposure_.size() != bins || p_.size() != bins)) {
     return r.Fail("arrival shape bins differ");
   }
-  exposure_total_ = r.F64();
-  anchor_ = r.I64();
-  weight_ = r.F64();
-  records_since_refresh_ = static_cast<int>(r.I64());
+  exposure_total_ = r.NonNegative("arrival exposure");
+  anchor_ = r.Time("arrival anchor");
+  weight_ = r.NonNegative("arrival weight");
+  const std::int64_t records = r.Counter("arrival records since refresh");
+  if (r.ok() && records > std::numeric_limits<int>::max()) {
+    return r.Fail("arrival records since refresh too many");
+  }
+  records_since_refresh_ = static_cast<int>(records);
   refreshed_once_ = r.Bool();
   anchored_ = r.Bool();
   return r.status();
@@ -339,18 +344,18 @@ void ArrivalModel::Save(SnapshotWriter& w) const {
 
 Status ArrivalModel::Load(SnapshotReader& r) {
   r.Tag("ARRV");
-  options_.slower_h = r.F64();
-  options_.faster_h = r.F64();
-  theta_ = r.F64();
-  gaps_ = r.I64();
-  used_ = r.I64();
-  arrivals_ = r.I64();
-  last_ = r.I64();
-  slower_ = r.F64();
-  faster_ = r.F64();
-  slower_start_ = r.I64();
-  faster_start_ = r.I64();
-  last_score_ = r.F64();
+  options_.slower_h = r.NonNegative("arrival slower threshold");
+  options_.faster_h = r.NonNegative("arrival faster threshold");
+  theta_ = r.NonNegative("arrival mean gap");
+  gaps_ = r.Counter("arrival gaps");
+  used_ = r.Counter("arrival gaps used");
+  arrivals_ = r.Counter("arrival arrivals");
+  last_ = r.Time("arrival last time");
+  slower_ = r.Finite("arrival slower statistic");
+  faster_ = r.Finite("arrival faster statistic");
+  slower_start_ = r.Time("arrival slower start");
+  faster_start_ = r.Time("arrival faster start");
+  last_score_ = r.F64();  // NaN until armed
   if (r.Bool() != shape_.has_value()) return r.Fail("arrival season differs");
   if (shape_) return shape_->Load(r);
   return r.status();

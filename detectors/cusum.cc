@@ -130,10 +130,10 @@ void SaveSide(const cusum_internal::Side& s, SnapshotWriter& w) {
   w.I64(s.start);
 }
 void LoadSide(cusum_internal::Side* s, SnapshotReader& r) {
-  s->value = r.F64();
-  s->origin = r.F64();
-  s->length = r.I64();
-  s->start = r.I64();
+  s->value = r.Finite("cusum statistic");
+  s->origin = r.Finite("cusum origin");
+  s->length = r.Counter("cusum run length");
+  s->start = r.Time("cusum start");
 }
 }  // namespace
 
@@ -149,8 +149,8 @@ Status Cusum::Load(SnapshotReader& r) {
   r.Tag("CUSM");
   LoadSide(&upper_, r);
   LoadSide(&lower_, r);
-  readings_ = r.I64();
-  alarms_ = r.I64();
+  readings_ = r.Counter("cusum readings");
+  alarms_ = r.Counter("cusum alarms");
   return r.status();
 }
 

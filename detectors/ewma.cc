@@ -111,16 +111,16 @@ void Ewma::Save(SnapshotWriter& w) const {
 
 Status Ewma::Load(SnapshotReader& r) {
   r.Tag("EWMA");
-  z_ = r.F64();
-  decay_power_ = r.F64();
-  limit_sq_ = r.F64();
+  z_ = r.Finite("ewma statistic");
+  decay_power_ = r.NonNegative("ewma decay power");
+  limit_sq_ = r.NonNegative("ewma squared limit");
   for (Run* run : {&up_, &down_}) {
-    run->start = r.I64();
-    run->length = r.I64();
-    run->sum_x = r.F64();
+    run->start = r.Time("ewma run start");
+    run->length = r.Counter("ewma run length");
+    run->sum_x = r.Finite("ewma run sum");
   }
-  readings_ = r.I64();
-  alarms_ = r.I64();
+  readings_ = r.Counter("ewma readings");
+  alarms_ = r.Counter("ewma alarms");
   return r.status();
 }
 

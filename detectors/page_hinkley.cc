@@ -113,17 +113,20 @@ void PageHinkley::Save(SnapshotWriter& w) const {
 Status PageHinkley::Load(SnapshotReader& r) {
   r.Tag("PAGE");
   for (Side* s : {&up_, &down_}) {
-    s->sum = r.F64();
-    s->statistic = r.F64();
-    s->length = r.I64();
-    s->start = r.I64();
-    s->sum_x_before = r.F64();
-    s->count_before = r.I64();
+    s->sum = r.Finite("page-hinkley sum");
+    s->statistic = r.Finite("page-hinkley statistic");
+    s->length = r.Counter("page-hinkley run length");
+    s->start = r.Time("page-hinkley start");
+    s->sum_x_before = r.Finite("page-hinkley sum before");
+    s->count_before = r.Counter("page-hinkley count before");
   }
-  sum_x_ = r.F64();
-  reference_mean_ = r.F64();
-  readings_ = r.I64();
-  alarms_ = r.I64();
+  sum_x_ = r.Finite("page-hinkley sum of readings");
+  reference_mean_ = r.Finite("page-hinkley reference mean");
+  readings_ = r.Counter("page-hinkley readings");
+  alarms_ = r.Counter("page-hinkley alarms");
+  if (r.ok() && (up_.count_before > readings_ || down_.count_before > readings_)) {
+    return r.Fail("page-hinkley count before exceeds its readings");
+  }
   return r.status();
 }
 

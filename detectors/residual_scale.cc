@@ -71,10 +71,13 @@ void ResidualScale::Save(SnapshotWriter& w) const {
 
 Status ResidualScale::Load(SnapshotReader& r) {
   r.Tag("SCAL");
-  s2_ = r.F64();
-  sigma_ = r.F64();
-  count_ = r.I64();
-  effective_ = static_cast<int>(r.I64());
+  s2_ = r.NonNegative("residual scale variance");
+  sigma_ = r.NonNegative("residual scale");
+  count_ = r.Counter("residual scale readings");
+  const std::int64_t effective = r.Counter("residual scale window");
+  if (r.ok() && effective > options_.window)
+    return r.Fail("residual scale window too large");
+  effective_ = static_cast<int>(effective);
   r.Doubles(first_.data(), first_.size());
   return r.status();
 }

@@ -2,6 +2,7 @@
 
 #include <array>
 #include <bit>
+#include <cmath>
 #include <cstring>
 
 namespace plumbline {
@@ -134,6 +135,42 @@ std::size_t SnapshotReader::Count(std::size_t item_bytes) {
     return 0;
   }
   return static_cast<std::size_t>(n);
+}
+
+std::int64_t SnapshotReader::Counter(std::string_view what) {
+  const std::int64_t v = I64();
+  if (v < 0 || v > kMaxCounter) {
+    Fail(std::string(what) + " " + std::to_string(v) + " is not a count");
+    return 0;
+  }
+  return v;
+}
+
+std::int64_t SnapshotReader::Time(std::string_view what) {
+  const std::int64_t v = I64();
+  if (v < -kMaxTime || v > kMaxTime) {
+    Fail(std::string(what) + " " + std::to_string(v) + " is out of the time range");
+    return 0;
+  }
+  return v;
+}
+
+double SnapshotReader::Finite(std::string_view what) {
+  const double v = F64();
+  if (!std::isfinite(v)) {
+    Fail(std::string(what) + " is not finite");
+    return 0.0;
+  }
+  return v;
+}
+
+double SnapshotReader::NonNegative(std::string_view what) {
+  const double v = Finite(what);
+  if (v < 0.0) {
+    Fail(std::string(what) + " is negative");
+    return 0.0;
+  }
+  return v;
 }
 
 std::string SnapshotReader::String() {

@@ -74,6 +74,20 @@ class SnapshotReader {
   // cannot make a reader allocate without bound.
   std::size_t Count(std::size_t item_bytes);
 
+  // Checked reads, for the fields an update relies on: each fails (and
+  // returns 0) when the value is out of its range, naming `what`, so that a
+  // forged state that passed its checksum is refused by Load rather than
+  // overflowing a count or a time difference later.
+  static constexpr std::int64_t kMaxCounter = std::int64_t{1} << 53;
+  static constexpr std::int64_t kMaxTime = std::int64_t{1} << 61;
+  // A count (readings, alarms, a run length): in [0, kMaxCounter].
+  std::int64_t Counter(std::string_view what);
+  // An event time: |t| <= kMaxTime, so the difference of two fits an int64.
+  std::int64_t Time(std::string_view what);
+  // A finite double; and one that is also >= 0 (sums of squares, weights).
+  double Finite(std::string_view what);
+  double NonNegative(std::string_view what);
+
   // Records a failure (the first one stays); returns it for `return r.Fail(...)`.
   Status Fail(std::string why);
   bool ok() const { return status_.ok(); }

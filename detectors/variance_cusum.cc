@@ -152,19 +152,19 @@ void VarianceCusum::Save(SnapshotWriter& w) const {
 
 Status VarianceCusum::Load(SnapshotReader& r) {
   r.Tag("VARC");
-  options_.up_h = r.F64();
-  options_.down_h = r.F64();
+  options_.up_h = r.NonNegative("variance cusum upper threshold");
+  options_.down_h = r.NonNegative("variance cusum lower threshold");
   for (Side* s : {&up_, &down_}) {
-    s->statistic = r.F64();
-    s->start = r.I64();
-    s->n = r.F64();
-    s->sum = r.F64();
-    s->sum_sq = r.F64();
+    s->statistic = r.Finite("variance cusum statistic");
+    s->start = r.Time("variance cusum start");
+    s->n = r.NonNegative("variance cusum run length");
+    s->sum = r.Finite("variance cusum sum");
+    s->sum_sq = r.NonNegative("variance cusum sum of squares");
   }
   excursion_ = r.DoubleVector();
   has_spike_ = r.Bool();
-  spike_z_ = r.F64();
-  spike_time_ = r.I64();
+  spike_z_ = r.Finite("variance cusum spike");
+  spike_time_ = r.Time("variance cusum spike time");
   return r.status();
 }
 

@@ -7,10 +7,21 @@
 
 #include <gtest/gtest.h>
 
+#include <bit>
+#include <cmath>
+#include <cstdint>
+#include <functional>
+#include <limits>
 #include <string>
 #include <vector>
 
+#include "detectors/arrival_model.h"
+#include "detectors/cusum.h"
+#include "detectors/ewma.h"
+#include "detectors/page_hinkley.h"
+#include "detectors/residual_scale.h"
 #include "detectors/series_monitor.h"
+#include "detectors/variance_cusum.h"
 #include "tests/support/synthetic_stream.h"
 
 namespace plumbline {
@@ -73,6 +84,95 @@ TEST(SnapshotCodingTest, ReaderStopsAtTheEndAndAtAWrongTag) {
   EXPECT_TRUE(r.DoubleVector().empty());  // 1000 doubles are not there
   EXPECT_FALSE(r.ok());
   EXPECT_EQ(r.U64(), 0u);  // sticky
+}
+
+TEST(SnapshotCodingTest, CheckedReadsRefuseValuesOutOfTheirRange) {
+  const auto read = [](const std::function<void(SnapshotWriter&)>& write,
+                       const std::function<void(SnapshotReader&)>& check) {
+    SnapshotWriter w;
+    write(w);
+    SnapshotReader r(w.bytes());
+    check(r);
+    return r.ok();
+  };
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  const double inf = std::numeric_limits<double>::infinity();
+  EXPECT_TRUE(read([](SnapshotWriter& w) { w.I64(SnapshotReader::kMaxCounter); },
+                   [](SnapshotReader& r) { r.Counter("n"); }));
+  for (std::int64_t bad :
+       {std::int64_t{-1}, SnapshotReader::kMaxCounter + 1, INT64_MAX}) {
+    EXPECT_FALSE(read([bad](SnapshotWriter& w) { w.I64(bad); },
+                      [](SnapshotReader& r) { EXPECT_EQ(r.Counter("n"), 0); }))
+        << bad;
+  }
+  EXPECT_TRUE(read([](SnapshotWriter& w) { w.I64(-SnapshotReader::kMaxTime); },
+                   [](SnapshotReader& r) { r.Time("t"); }));
+  for (std::int64_t bad : {INT64_MIN, SnapshotReader::kMaxTime + 1}) {
+    EXPECT_FALSE(read([bad](SnapshotWriter& w) { w.I64(bad); },
+                      [](SnapshotReader& r) { r.Time("t"); }))
+        << bad;
+  }
+  for (double bad : {nan, inf, -inf}) {
+    EXPECT_FALSE(read([bad](SnapshotWriter& w) { w.F64(bad); },
+                      [](SnapshotReader& r) { r.Finite("x"); }));
+  }
+  EXPECT_FALSE(read([](SnapshotWriter& w) { w.F64(-0.5); },
+                    [](SnapshotReader& r) { r.NonNegative("x"); }));
+  EXPECT_TRUE(read([](SnapshotWriter& w) { w.F64(0.0); },
+                   [](SnapshotReader& r) { r.NonNegative("x"); }));
+}
+
+// A detector's saved state with one field replaced: its Load must refuse it
+// (fuzzing found the updates after such a Load overflowing signed counts).
+// `field` counts the 8-byte fields after the 4-byte tag.
+template <typename T, typename Options>
+Status LoadForged(const Options& options, int field, std::uint64_t bits) {
+  T original(options);
+  SnapshotWriter w;
+  original.Save(w);
+  std::string bytes = w.Take();
+  for (int i = 0; i < 8; ++i)
+    bytes[4 + 8 * field + i] = static_cast<char>(bits >> (8 * i));
+  T loaded(options);
+  SnapshotReader r(bytes);
+  return loaded.Load(r);
+}
+
+std::uint64_t Bits(double v) { return std::bit_cast<std::uint64_t>(v); }
+
+TEST(ForgedStateTest, EachDetectorRefusesOverflowingCountsAndNonFiniteSums) {
+  const std::uint64_t huge = static_cast<std::uint64_t>(INT64_MAX);
+  const std::uint64_t minus_one = ~std::uint64_t{0};
+  const std::uint64_t nan = Bits(std::numeric_limits<double>::quiet_NaN());
+  // Page-Hinkley: per side sum, statistic, length, start, sum before, count
+  // before; then sum, reference mean, readings (field 14), alarms (15).
+  EXPECT_FALSE((LoadForged<PageHinkley>(PageHinkleyOptions{}, 14, huge).ok()));
+  EXPECT_FALSE((LoadForged<PageHinkley>(PageHinkleyOptions{}, 2, minus_one).ok()));
+  EXPECT_FALSE((LoadForged<PageHinkley>(PageHinkleyOptions{}, 5, 7).ok()));  // > readings
+  EXPECT_FALSE((LoadForged<PageHinkley>(PageHinkleyOptions{}, 0, nan).ok()));
+  EXPECT_TRUE((LoadForged<PageHinkley>(PageHinkleyOptions{}, 15, 3).ok()));
+  // EWMA: z, decay power, squared limit, per run start, length, sum; then
+  // readings (field 9), alarms (10).
+  EXPECT_FALSE((LoadForged<Ewma>(EwmaOptions{}, 9, huge).ok()));
+  EXPECT_FALSE((LoadForged<Ewma>(EwmaOptions{}, 4, minus_one).ok()));
+  EXPECT_FALSE((LoadForged<Ewma>(EwmaOptions{}, 0, nan).ok()));
+  EXPECT_FALSE((LoadForged<Ewma>(EwmaOptions{}, 3, huge).ok()));  // a start out of range
+  EXPECT_TRUE((LoadForged<Ewma>(EwmaOptions{}, 10, 3).ok()));
+  // CUSUM: per side value, origin, length, start; then readings (8), alarms (9).
+  EXPECT_FALSE((LoadForged<Cusum>(CusumOptions{}, 8, huge).ok()));
+  EXPECT_FALSE((LoadForged<Cusum>(CusumOptions{}, 2, minus_one).ok()));
+  EXPECT_FALSE((LoadForged<Cusum>(CusumOptions{}, 1, nan).ok()));
+  // Variance CUSUM: thresholds, then per side statistic, start, n, sum, sum of squares.
+  EXPECT_FALSE((LoadForged<VarianceCusum>(VarianceCusumOptions{}, 4, Bits(-1.0)).ok()));
+  EXPECT_FALSE((LoadForged<VarianceCusum>(VarianceCusumOptions{}, 0, nan).ok()));
+  // Residual scale: variance, sigma, count, window in use (more than the window).
+  EXPECT_FALSE((LoadForged<ResidualScale>(ResidualScaleOptions{}, 2, huge).ok()));
+  EXPECT_FALSE((LoadForged<ResidualScale>(ResidualScaleOptions{}, 3, 100000).ok()));
+  EXPECT_FALSE((LoadForged<ResidualScale>(ResidualScaleOptions{}, 0, Bits(-1.0)).ok()));
+  // Arrival model: thresholds, mean gap, gaps (3), used, arrivals, last time (6).
+  EXPECT_FALSE((LoadForged<ArrivalModel>(ArrivalModelOptions{}, 3, huge).ok()));
+  EXPECT_FALSE((LoadForged<ArrivalModel>(ArrivalModelOptions{}, 6, huge).ok()));
+  EXPECT_FALSE((LoadForged<ArrivalModel>(ArrivalModelOptions{}, 2, nan).ok()));
 }
 
 struct Case {

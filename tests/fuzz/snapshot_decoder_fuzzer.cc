@@ -5,11 +5,12 @@
 // bytes, Load must fail cleanly (never read out of bounds, never allocate
 // without bound) or give an object that saves, loads into a fresh object and
 // saves again to the same bytes. Any crash, sanitizer report or difference is
-// a finding. Using a loaded state is out of scope: checkpoint files carry a
-// CRC-32C that refuses corrupted bytes before any Load, and a state that
-// passes it was written by Save (Load does not re-check every invariant, so
-// an update on a forged state may overflow a count: found here at once, when
-// an update was part of the check).
+// a finding. Using a loaded state is out of scope here: checkpoint files carry
+// a CRC-32C that refuses corrupted bytes before any Load. A forged state that
+// passes it is refused by the range checks of each Load (counts, times,
+// finite sums: SnapshotReader::Counter and the like), added after an earlier
+// version of this target, which also ran an update, found Page-Hinkley and
+// EWMA counts overflowing; tests/detectors/snapshot_test.cc forges them.
 #include <cstddef>
 #include <cstdint>
 #include <cstdlib>
