@@ -148,24 +148,7 @@ SeriesMonitor::SeriesMonitor(const ProfileDesign* design)
       arrival_(design->arrival),
       variance_(design->variance),
       intake_(design->profile.kind, design->profile.gaps, design->profile.every) {
-  const DetectorDesign& d = design->level;
-  for (DetectorKind kind : d.detectors) {
-    switch (kind) {
-      case DetectorKind::kCusum:
-        level_.emplace_back(Cusum(d.cusum));
-        break;
-      case DetectorKind::kPageHinkley:
-        level_.emplace_back(PageHinkley(d.page_hinkley));
-        break;
-      case DetectorKind::kBocpd:
-        level_.emplace_back(Bocpd(d.bocpd));
-        break;
-      case DetectorKind::kEwma:
-        level_.emplace_back(Ewma(d.ewma));
-        break;
-    }
-    level_kinds_.push_back(kind);
-  }
+  BuildLevelDetectors(design->level);
   firings_.resize(level_.size());
   threshold_fraction_.assign(level_.size(), 0.0);
 }
@@ -820,11 +803,9 @@ void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
   }
 }
 
-void SeriesMonitor::Retune(const ProfileDesign* design) {
-  design_ = design;
+void SeriesMonitor::BuildLevelDetectors(const DetectorDesign& d) {
   level_.clear();
   level_kinds_.clear();
-  const DetectorDesign& d = design->level;
   for (DetectorKind kind : d.detectors) {
     switch (kind) {
       case DetectorKind::kCusum:
@@ -842,6 +823,11 @@ void SeriesMonitor::Retune(const ProfileDesign* design) {
     }
     level_kinds_.push_back(kind);
   }
+}
+
+void SeriesMonitor::Retune(const ProfileDesign* design) {
+  design_ = design;
+  BuildLevelDetectors(design->level);
   firings_.assign(level_.size(), Firing{});
   threshold_fraction_.assign(level_.size(), 0.0);
   variance_ = VarianceCusum(design->variance);

@@ -268,6 +268,8 @@ class SeriesMonitor {
   // seasonal shape and level re-learn within about `dimension` observations.
   static constexpr double kReopenVariance = 100.0;
   void ResetLevelDetectors();
+  // level_ and level_kinds_ anew from a design, in its detectors' order.
+  void BuildLevelDetectors(const DetectorDesign& d);
   // True while any level detector is past the given fraction of its threshold:
   // baselines then hold still rather than learn the change being tested for.
   bool Suspicious(double fraction_of_threshold) const;
