@@ -5,9 +5,11 @@
 
 #include <cerrno>
 #include <cstring>
+#include <limits>
 #include <unordered_set>
 
 #include "daemon/engine.h"
+#include "daemon/file_system.h"
 #include "daemon/shard.h"
 
 namespace plumbline {
@@ -28,30 +30,6 @@ std::uint64_t ReadU64(const char* p) {
   for (int i = 0; i < 8; ++i)
     v |= std::uint64_t{static_cast<std::uint8_t>(p[i])} << (8 * i);
   return v;
-}
-
-// A whole file, however large (FileSystem::ReadFile stops at 16 MiB).
-StatusOr<std::string> ReadWholeFile(const std::string& path) {
-  const int fd = ::open(path.c_str(), O_RDONLY | O_CLOEXEC);
-  if (fd < 0) {
-    if (errno == ENOENT) return Status::NotFound("no file " + path);
-    return Status::IoError("cannot open " + path + ": " + std::strerror(errno));
-  }
-  std::string contents;
-  char buffer[1 << 16];
-  while (true) {
-    const ssize_t n = ::read(fd, buffer, sizeof buffer);
-    if (n < 0) {
-      if (errno == EINTR) continue;
-      const int error = errno;
-      ::close(fd);
-      return Status::IoError("cannot read " + path + ": " + std::strerror(error));
-    }
-    if (n == 0) break;
-    contents.append(buffer, static_cast<std::size_t>(n));
-  }
-  ::close(fd);
-  return contents;
 }
 
 }  // namespace
@@ -163,7 +141,8 @@ StatusOr<std::string> CheckpointStore::Load(std::vector<std::string>* skipped) {
   bool found = false;
   Status refused;  // a file of another version, newest first
   for (int slot = 0; slot < 2; ++slot) {
-    auto file = ReadWholeFile(Path(slot));
+    // However large: FileSystem::ReadFile stops at 16 MiB.
+    auto file = ReadWholeFile(Path(slot), std::numeric_limits<std::size_t>::max());
     if (!file.ok()) {
       if (file.status().code() != Status::Code::kNotFound && skipped) {
         skipped->push_back(file.status().message());

@@ -18,6 +18,38 @@ Status Errno(std::string_view what, const std::string& path, int error) {
   return Status::IoError(std::string(what) + " " + path + ": " + std::strerror(error));
 }
 
+}  // namespace
+
+StatusOr<std::string> ReadWholeFile(const std::string& path, std::size_t max_bytes) {
+  const int fd = ::open(path.c_str(), O_RDONLY | O_CLOEXEC);
+  if (fd < 0) {
+    if (errno == ENOENT) return Status::NotFound("no file " + path);
+    return Errno("cannot open", path, errno);
+  }
+  std::string contents;
+  char buffer[65536];
+  while (true) {
+    const ssize_t n = ::read(fd, buffer, sizeof buffer);
+    if (n < 0) {
+      if (errno == EINTR) continue;
+      const int error = errno;
+      ::close(fd);
+      return Errno("cannot read", path, error);
+    }
+    if (n == 0) break;
+    contents.append(buffer, static_cast<std::size_t>(n));
+    if (contents.size() > max_bytes) {
+      ::close(fd);
+      return Status::IoError(path + ": larger than " + std::to_string(max_bytes >> 20) +
+                             " MiB; not a state file");
+    }
+  }
+  ::close(fd);
+  return contents;
+}
+
+namespace {
+
 std::string DirectoryOf(const std::string& path) {
   const std::size_t slash = path.rfind('/');
   if (slash == std::string::npos) return ".";
@@ -108,30 +140,7 @@ class PosixFileSystem : public FileSystem {
   }
 
   StatusOr<std::string> ReadFile(const std::string& path) override {
-    const int fd = ::open(path.c_str(), O_RDONLY | O_CLOEXEC);
-    if (fd < 0) {
-      if (errno == ENOENT) return Status::NotFound("no file " + path);
-      return Errno("cannot open", path, errno);
-    }
-    std::string contents;
-    char buffer[65536];
-    while (true) {
-      const ssize_t n = ::read(fd, buffer, sizeof buffer);
-      if (n < 0) {
-        if (errno == EINTR) continue;
-        const int error = errno;
-        ::close(fd);
-        return Errno("cannot read", path, error);
-      }
-      if (n == 0) break;
-      contents.append(buffer, static_cast<std::size_t>(n));
-      if (contents.size() > kMaxReadBytes) {
-        ::close(fd);
-        return Status::IoError(path + ": larger than 16 MiB; not a state file");
-      }
-    }
-    ::close(fd);
-    return contents;
+    return ReadWholeFile(path, kMaxReadBytes);
   }
 
   Status CreateDirectories(const std::string& path) override {

@@ -44,4 +44,9 @@ class FileSystem {
   static FileSystem* Default();
 };
 
+// The whole file at `path` through POSIX read, refused (IoError) once it grows
+// past max_bytes; NotFound when it does not exist. FileSystem::Default()'s
+// ReadFile is this with 16 MiB.
+StatusOr<std::string> ReadWholeFile(const std::string& path, std::size_t max_bytes);
+
 }  // namespace plumbline
