@@ -4,7 +4,7 @@
 set -euo pipefail
 
 packages=(
-  build-essential cmake ninja-build pkg-config
+  build-essential cmake ninja-build pkg-config ccache
   libboost-dev libeigen3-dev libyaml-cpp-dev prometheus-cpp-dev
   libgtest-dev libgmock-dev libbenchmark-dev
   # TLS on the listeners (daemon/tls.h), and the openssl command its e2e test
