@@ -1,0 +1,107 @@
+#!/usr/bin/python3
+"""How fast can any CUSUM find a 2-sd level step in AR(1) noise, against
+independent noise, at the same in-control run length?
+
+Issue 10 asks that a 2-sd step on AR(1) residuals with phi = 0.5 be found
+within 1.5 times the median delay on independent Gaussian noise. This script
+computes that ratio for the oracle: a CUSUM that knows phi, the noise and the
+step exactly, run on the exact innovations (the likelihood-ratio statistic for
+a step in an AR(1) process), with its reference value k chosen to minimise the
+median delay. No detector that keeps the same false-alarm rate can beat the
+oracle by much, so its ratio is what the target should be compared with.
+
+Step of size d (in marginal sd) at reading tau in AR(1) noise x_t = phi x_{t-1}
++ e_t, Var(x) = 1, e_t ~ N(0, 1 - phi^2): the innovations y_t - phi y_{t-1}
+(less the in-control mean) are e_t plus d at tau and d (1 - phi) after, in
+units of sd_e = sqrt(1 - phi^2): one jump of d / sd_e = 2.31, then
+d (1 - phi) / sd_e = 1.15 per reading for d = 2, phi = 0.5. Independent noise
+gives 2 per reading. (Standard state-space algebra; e.g. Brockwell and Davis,
+"Time Series: Theory and Methods", ch. 5 on innovations; MEM.)
+
+In-control run lengths: Brook and Evans (1972) Markov chain for the one-sided
+CUSUM S = max(0, S + z - k), z ~ N(0, 1), with h found for ARL0 = 40,000 (one
+side of a two-sided chart of ARL0 20,000, what Plumbline's default design gives
+each level detector at arl0 = 5000). Delays: Monte Carlo, zero start at tau,
+200,000 seeded trials. Asymptotic bound (Lorden 1971; Lai 1998; MEM): delay
+~ ln(ARL0) / I, I = Kullback-Leibler information per reading = delta^2 / 2.
+
+Run: tests/reference/step_delay_bound.py   (numpy and scipy from Debian)
+"""
+
+import numpy as np
+from scipy.stats import norm
+
+ARL0 = 40000.0
+STEP = 2.0
+PHI = 0.5
+TRIALS = 200000
+
+
+def arl_zero_start(k, h, mean=0.0, states=300):
+    """Brook-Evans chain: ARL of S = max(0, S + z - k), z ~ N(mean, 1), from 0."""
+    w = h / states
+    centres = (np.arange(states) + 0.5) * w
+    centres[0] = 0.0  # state 0 holds the atom at zero
+    edges = np.arange(states + 1) * w
+    edges[0] = 0.0
+    r = np.empty((states, states))
+    for i, s in enumerate(centres):
+        # P(next in bin j): next = max(0, s + z - k)
+        cdf = norm.cdf(edges - s + k - mean)
+        r[i, 0] = cdf[1]  # below the first edge, including all of the atom at zero
+        r[i, 1:] = np.diff(cdf[1:])
+    lengths = np.linalg.solve(np.eye(states) - r, np.ones(states))
+    return lengths[0]
+
+
+def h_for(k):
+    lo, hi = 0.1, 40.0
+    for _ in range(60):
+        mid = 0.5 * (lo + hi)
+        if arl_zero_start(k, mid) < ARL0:
+            lo = mid
+        else:
+            hi = mid
+    return hi
+
+
+def median_delay(k, h, drifts, rng):
+    """Median readings (inclusive) to S > h when the t-th reading after the
+    step has mean drifts[min(t, len-1)]."""
+    s = np.zeros(TRIALS)
+    delay = np.zeros(TRIALS, dtype=int)
+    alive = np.ones(TRIALS, dtype=bool)
+    for t in range(1, 400):
+        mean = drifts[min(t - 1, len(drifts) - 1)]
+        s = np.maximum(0.0, s + rng.standard_normal(TRIALS) + mean - k)
+        fired = alive & (s > h)
+        delay[fired] = t
+        alive &= ~fired
+        if not alive.any():
+            break
+    return float(np.median(delay[~alive]))
+
+
+def best(drifts, label, rng):
+    results = []
+    for k in np.arange(0.3, 1.31, 0.1):
+        h = h_for(k)
+        results.append((median_delay(k, h, drifts, np.random.default_rng(rng)), k, h))
+    d, k, h = min(results)
+    print("%-34s k = %.1f  h = %.2f  median delay %.1f readings" % (label, k, h, d))
+    return d
+
+
+def main():
+    sd_e = np.sqrt(1.0 - PHI**2)
+    independent = best([STEP], "independent N(0,1), 2-sd step:", 1)
+    ar = best([STEP / sd_e, STEP * (1.0 - PHI) / sd_e],
+              "AR(1) phi 0.5, oracle innovations:", 1)
+    print("oracle ratio AR(1) / independent: %.2f (issue 10's target: 1.5)" % (ar / independent))
+    for label, delta in (("independent", STEP), ("AR(1)", STEP * (1.0 - PHI) / sd_e)):
+        print("asymptotic ln(ARL0) / (delta^2 / 2), %-11s: %.1f readings"
+              % (label, np.log(ARL0) / (delta**2 / 2.0)))
+
+
+if __name__ == "__main__":
+    main()
