@@ -71,7 +71,7 @@ constexpr std::string_view kProfileKeys[] = {
     "match",  "kind",      "seasons",  "gaps",          "warmup",    "arl0",
     "shift",  "detectors", "agree",    "silence_after", "harmonics", "every",
     "memory", "trend",     "lateness", "agree_within",  "cooldown",  "level_noise",
-    "covariates", "covariate_max_age"};
+    "covariates", "covariate_max_age", "count_chart", "adapt_thresholds"};
 
 // Documents looked at after the first: enough to see a second document and a
 // parser that no longer advances.
@@ -679,6 +679,10 @@ class Loader {
            });
     } else if (k == "covariate_max_age") {
       Duration(f, false, &p->covariate_max_age);
+    } else if (k == "count_chart") {
+      Enum(f, CountChartFromString, CountChartChoices(), &p->count_chart);
+    } else if (k == "adapt_thresholds") {
+      Bool(f, &p->adapt_thresholds);
     } else {
       return false;
     }
@@ -1373,6 +1377,10 @@ std::string DescribeProfile(const ProfileOptions& p) {
   }
   if (p.lateness > 0) out += ", lateness " + FormatDuration(p.lateness);
   if (p.cooldown > 0) out += ", cooldown " + std::to_string(p.cooldown);
+  if (p.kind == SeriesKind::kCount && p.count_chart != CountChart::kAuto) {
+    out += ", count_chart " + std::string(ToString(p.count_chart));
+  }
+  if (p.adapt_thresholds) out += ", adapt_thresholds";
   return out;
 }
 

@@ -26,6 +26,8 @@
 //       lateness: 0s               # optional: duration or 0
 //       agree_within: 5            # optional: whole number of readings
 //       cooldown: 0                # optional: whole number of readings
+//       count_chart: auto          # optional: auto | poisson | normal (kind: count)
+//       adapt_thresholds: false    # optional: true | false
 //
 // A key that is absent takes the default in ProfileOptions (detectors/profile.h),
 // except `match`, which defaults to "**" so that a profile without it governs

@@ -312,9 +312,9 @@ void Engine::Finish(std::vector<Alert>* out) {
 // A key added to ProfileOptions must be compared here too; the
 // size check below trips when one is added (on the 64-bit Linux build), as a
 // reminder, after which update the size.
-static_assert(sizeof(void*) != 8 || sizeof(ProfileOptions) == 264,
+static_assert(sizeof(void*) != 8 || sizeof(ProfileOptions) == 272,
               "ProfileOptions changed: compare the new key in SameProfileSettings, then "
-              "update 264");
+              "update 272");
 bool SameProfileSettings(const ProfileOptions& a, const ProfileOptions& b) {
   return a.kind == b.kind && a.seasons == b.seasons && a.gaps == b.gaps &&
          a.warmup == b.warmup && a.arl0 == b.arl0 && a.shift == b.shift &&
@@ -324,7 +324,8 @@ bool SameProfileSettings(const ProfileOptions& a, const ProfileOptions& b) {
          a.level_noise == b.level_noise && a.level_noise_auto == b.level_noise_auto &&
          a.lateness == b.lateness && a.agree_within == b.agree_within &&
          a.cooldown == b.cooldown && a.covariates == b.covariates &&
-         a.covariate_max_age == b.covariate_max_age;
+         a.covariate_max_age == b.covariate_max_age && a.count_chart == b.count_chart &&
+         a.adapt_thresholds == b.adapt_thresholds;
 }
 
 bool SameModelSettings(const ProfileOptions& a, const ProfileOptions& b) {

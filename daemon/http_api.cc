@@ -182,6 +182,19 @@ std::string SeriesDetailToJson(const SeriesDetail& d) {
   number("band_high", d.band_high);
   number("sigma", d.sigma);
   number("last_z", d.last_z);
+  out += ",\"calibration\":{";
+  const SeriesDetail::Calibration& c = d.calibration;
+  AppendKey("autocorrelation", &out);
+  AppendJsonNumber(c.autocorrelation, &out);
+  number("variance", c.variance);
+  number("lag1", c.lag1);
+  number("tail_share", c.tail_share);
+  number("drift_ratio", c.drift_ratio);
+  out += ',';
+  AppendKey("level_chart", &out);
+  AppendJsonString(c.level_chart, &out);
+  number("adapted_threshold", c.adapted_threshold);
+  out += '}';
   out += ",\"detectors\":[";
   for (std::size_t i = 0; i < d.detectors.size(); ++i) {
     if (i) out += ',';
@@ -630,6 +643,12 @@ ApiResponse HttpApi::Metrics() const {
     for (const SeriesDetail::DetectorState& d : detail->detectors) {
       gauges->Set(d.name, d.statistic, d.threshold);
     }
+    const SeriesDetail::Calibration& c = detail->calibration;
+    gauges->SetCalibration("autocorrelation", c.autocorrelation);
+    gauges->SetCalibration("variance", c.variance);
+    gauges->SetCalibration("lag1", c.lag1);
+    gauges->SetCalibration("tail_share", c.tail_share);
+    gauges->SetCalibration("drift_ratio", c.drift_ratio);
   }
   ApiResponse response;
   response.route = "metrics";

@@ -63,6 +63,19 @@ void SeriesGauges::Set(std::string_view detector, double statistic, double thres
   entry->threshold->Set(threshold);
 }
 
+void SeriesGauges::SetCalibration(std::string_view figure, double value) {
+  for (std::size_t i = 0; i < kCalibrationFigures.size(); ++i) {
+    if (kCalibrationFigures[i] != figure) continue;
+    std::lock_guard<std::mutex> lock(mutex_);
+    if (calibration_[i] == nullptr) {
+      calibration_[i] =
+          &calibration_family_->Add({{"series", series_}, {"figure", std::string(figure)}});
+    }
+    calibration_[i]->Set(value);
+    return;
+  }
+}
+
 ServiceMetrics::ServiceMetrics(ServiceMetricsOptions options)
     : options_(options), registry_(std::make_shared<prometheus::Registry>()) {
   prometheus::Registry& r = *registry_;
@@ -146,6 +159,13 @@ ServiceMetrics::ServiceMetrics(ServiceMetricsOptions options)
       &prometheus::BuildGauge()
            .Name("plumbline_detector_threshold")
            .Help("Decision interval of a series' detector (at most max_detector_series series).")
+           .Register(r);
+  calibration_family_ =
+      &prometheus::BuildGauge()
+           .Name("plumbline_series_calibration")
+           .Help("How a series' standardised residuals behave against the detectors' "
+                 "assumptions: autocorrelation, variance, lag1, tail_share, drift_ratio "
+                 "(at most max_detector_series series).")
            .Register(r);
   detector_series_ = &prometheus::BuildGauge()
                           .Name("plumbline_detector_series")
@@ -279,7 +299,8 @@ SeriesGauges* ServiceMetrics::AdmitSeries(std::string_view series) {
     return nullptr;
   }
   auto gauges = std::unique_ptr<SeriesGauges>(new SeriesGauges(
-      std::string(series), detector_statistic_family_, detector_threshold_family_));
+      std::string(series), detector_statistic_family_, detector_threshold_family_,
+      calibration_family_));
   SeriesGauges* result = gauges.get();
   admitted_.emplace(std::string(series), std::move(gauges));
   detector_series_->Set(static_cast<double>(admitted_.size()));

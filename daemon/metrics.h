@@ -28,6 +28,13 @@
 //   plumbline_detector_threshold{series,detector}   and its decision interval      } max_detector_series
 //                                                   (refreshed at each scrape by HttpApi: one
 //                                                   ServiceView::GetSeries per admitted series)
+//   plumbline_series_calibration{series,figure}     how an armed series' standardised
+//                                                   residuals behave (detectors/
+//                                                   calibration_health.h): figure =
+//                                                   autocorrelation (the whitener's lag-one
+//                                                   estimate), variance, lag1, tail_share,
+//                                                   drift_ratio (1 = as the thresholds assume);
+//                                                   same guard and refresh as the detector gauges
 //   plumbline_detector_series                       series that have detector gauges
 //   plumbline_detector_series_refused_total         series refused by the cardinality guard
 //   plumbline_ready                                 1 when /readyz answers 200, else 0
@@ -95,6 +102,11 @@ class SeriesGauges {
   // page-hinkley, bocpd, ...). A detector beyond the first
   // kMaxDetectorsPerSeries names of this series is ignored.
   void Set(std::string_view detector, double statistic, double threshold);
+  // Sets one calibration figure (autocorrelation, variance, lag1, tail_share,
+  // drift_ratio); any other name is ignored. NaN (not armed yet) is shown as NaN.
+  void SetCalibration(std::string_view figure, double value);
+  static constexpr std::array<std::string_view, 5> kCalibrationFigures = {
+      "autocorrelation", "variance", "lag1", "tail_share", "drift_ratio"};
 
  private:
   friend class ServiceMetrics;
@@ -104,14 +116,19 @@ class SeriesGauges {
     prometheus::Gauge* threshold;
   };
   SeriesGauges(std::string series, prometheus::Family<prometheus::Gauge>* statistic_family,
-               prometheus::Family<prometheus::Gauge>* threshold_family)
+               prometheus::Family<prometheus::Gauge>* threshold_family,
+               prometheus::Family<prometheus::Gauge>* calibration_family)
       : series_(std::move(series)),
         statistic_family_(statistic_family),
-        threshold_family_(threshold_family) {}
+        threshold_family_(threshold_family),
+        calibration_family_(calibration_family) {}
 
   const std::string series_;
   prometheus::Family<prometheus::Gauge>* const statistic_family_;
   prometheus::Family<prometheus::Gauge>* const threshold_family_;
+  prometheus::Family<prometheus::Gauge>* const calibration_family_;
+  // One per kCalibrationFigures entry, made at the first SetCalibration; guarded by mutex_.
+  std::array<prometheus::Gauge*, kCalibrationFigures.size()> calibration_{};
   std::mutex mutex_;                 // guards detectors_
   std::vector<Detector> detectors_;  // at most kMaxDetectorsPerSeries
 };
@@ -200,6 +217,7 @@ class ServiceMetrics {
   prometheus::Family<prometheus::Counter>* sink_failures_family_;
   prometheus::Family<prometheus::Gauge>* detector_statistic_family_;
   prometheus::Family<prometheus::Gauge>* detector_threshold_family_;
+  prometheus::Family<prometheus::Gauge>* calibration_family_;
   prometheus::Gauge* detector_series_;
   prometheus::Counter* detector_series_refused_;
   prometheus::Family<prometheus::Counter>* http_requests_family_;

@@ -463,6 +463,15 @@ std::optional<SeriesDetail> Service::GetSeries(std::string_view name) {
                 detail.summary = Summarise(state, wanted, *extras);
                 detail.sigma = monitor->scale().sigma();
                 detail.last_z = monitor->last_z();
+                detail.calibration.autocorrelation = monitor->residual_autocorrelation();
+                if (const CalibrationHealth& h = monitor->health(); h.count() > 0) {
+                  detail.calibration.variance = h.variance();
+                  detail.calibration.lag1 = h.lag1();
+                  detail.calibration.tail_share = h.tail_share();
+                  detail.calibration.drift_ratio = h.drift_ratio();
+                }
+                detail.calibration.level_chart = monitor->count_chart() ? "count" : "normal";
+                detail.calibration.adapted_threshold = monitor->adapted_threshold();
                 for (const SeriesMonitor::DetectorSnapshot& d :
                      monitor->DetectorSnapshots()) {
                   detail.detectors.push_back(

@@ -83,6 +83,18 @@ struct SeriesDetail {
     double change_probability = 0.0;
   };
   std::optional<RunLength> run_length;
+  // How the residuals behave against what the thresholds assume
+  // (detectors/calibration_health.h); NaN until the series is armed.
+  struct Calibration {
+    double autocorrelation = std::numeric_limits<double>::quiet_NaN();  // lag one, whitener's
+    double variance = std::numeric_limits<double>::quiet_NaN();
+    double lag1 = std::numeric_limits<double>::quiet_NaN();
+    double tail_share = std::numeric_limits<double>::quiet_NaN();
+    double drift_ratio = std::numeric_limits<double>::quiet_NaN();
+    std::string level_chart = "normal";  // normal | count (the count CUSUM)
+    double adapted_threshold = 0.0;      // the CUSUM's re-fitted h; 0 = designed
+  };
+  Calibration calibration;
   struct Point {
     EventTime time = 0;
     double value = 0.0;

@@ -64,6 +64,7 @@
 // finite number (for exponential inter-arrival times it is a positive mean).
 #pragma once
 
+#include <cmath>
 #include <cstdint>
 #include <string>
 
@@ -143,6 +144,11 @@ class Cusum {
 
   // Back to the start state: both sides at the headstart, counters cleared.
   void Reset();
+  // A new decision interval (an empirical re-fit), state kept; ignored unless
+  // finite and above the headstart. Save does not carry it: the owner does.
+  void SetDecisionInterval(double h) {
+    if (std::isfinite(h) && h > options_.headstart) options_.h = h;
+  }
   // Checkpoints (detectors/snapshot.h): Load expects an object built from the
   // same options and overwrites its state; Corruption on a mismatch.
   void Save(SnapshotWriter& w) const;

@@ -211,15 +211,18 @@ void PoissonCusum::Side::Restart(double headstart) {
   origin = headstart;
   length = 0;
   start = 0;
+  excess = 0.0;
 }
 
-void PoissonCusum::Side::Step(double increment, EventTime time, double zero) {
+void PoissonCusum::Side::Step(double increment, double deviation, EventTime time,
+                              double zero) {
   const double next = value + increment;
   const bool positive = next > zero;
   value = positive ? next : 0.0;
   origin = positive ? origin : 0.0;
   start = (positive && length == 0) ? time : start;
   length = positive ? length + 1 : 0;
+  excess = positive ? excess + deviation : 0.0;
 }
 
 StatusOr<PoissonCusum> PoissonCusum::Create(const PoissonCusumOptions& options) {
@@ -247,25 +250,37 @@ void PoissonCusum::Reset() {
   alarms_ = 0;
 }
 
+void PoissonCusum::SetDecisionIntervals(double h, double h_down) {
+  if (std::isfinite(h) && h > options_.headstart) options_.h = h;
+  if (std::isfinite(h_down) && h_down > options_.headstart_down) options_.h_down = h_down;
+  zero_up_ = kTieTolerance * (1.0 + options_.h);
+  zero_down_ = kTieTolerance * (1.0 + options_.h_down);
+}
+
 bool PoissonCusum::Signals(double value, double h) const {
   const double tolerance = kTieTolerance * (1.0 + h);
   return options_.rule == PoissonSignalRule::kAtLeast ? value >= h - tolerance
                                                       : value > h + tolerance;
 }
 
-StatusOr<Alarm> PoissonCusum::Update(double count, EventTime time) {
+StatusOr<Alarm> PoissonCusum::Update(double count, EventTime time, double mean_ratio) {
   if (!(std::isfinite(count) && count >= 0.0 && count == std::floor(count)))
       [[unlikely]] {
     return RefuseCount(count);
   }
+  if (!IsFinitePositive(mean_ratio)) [[unlikely]] {
+    return Status::InvalidArgument("mean ratio must be finite and > 0; got " +
+                                   Format(mean_ratio));
+  }
   ++readings_;
-  upper_.Step(count - options_.k, time, zero_up_);
+  const double deviation = count - mean_ratio * options_.mu0;
+  upper_.Step(count - mean_ratio * options_.k, deviation, time, zero_up_);
   Alarm alarm;
   alarm.statistic = upper_.value;
   bool up = Signals(upper_.value, options_.h);
   bool down = false;
   if (options_.two_sided) {
-    lower_.Step(options_.k_down - count, time, zero_down_);
+    lower_.Step(mean_ratio * options_.k_down - count, deviation, time, zero_down_);
     alarm.statistic = std::max(alarm.statistic, lower_.value);
     down = Signals(lower_.value, options_.h_down);
   }
@@ -275,17 +290,71 @@ StatusOr<Alarm> PoissonCusum::Update(double count, EventTime time) {
     // by k_down - k, so that needs k_down - k > 0. If it happens, report the
     // upper side.
     const Side& side = up ? upper_ : lower_;
-    const double n = static_cast<double>(side.length);
-    const double excursion_mean = up ? options_.k + (side.value - side.origin) / n
-                                     : options_.k_down - (side.value - side.origin) / n;
     alarm.fired = true;
     alarm.direction = up ? Direction::kUp : Direction::kDown;
     alarm.change_at = side.start;
-    alarm.shift = excursion_mean - options_.mu0;
+    alarm.shift = side.excess / static_cast<double>(side.length);
     ++alarms_;
     Restart();
   }
   return alarm;
+}
+
+namespace {
+void SaveSide(double value, double origin, std::int64_t length, EventTime start,
+              double excess, SnapshotWriter& w) {
+  w.F64(value);
+  w.F64(origin);
+  w.I64(length);
+  w.I64(start);
+  w.F64(excess);
+}
+}  // namespace
+
+void PoissonCusum::Save(SnapshotWriter& w) const {
+  w.Tag("PCSM");
+  const PoissonCusumOptions& o = options_;
+  for (double x : {o.mu0, o.k, o.h, o.headstart, o.k_down, o.h_down, o.headstart_down,
+                   o.arl0}) {
+    w.F64(x);
+  }
+  w.Bool(o.two_sided);
+  w.U8(static_cast<std::uint8_t>(o.rule));
+  SaveSide(upper_.value, upper_.origin, upper_.length, upper_.start, upper_.excess, w);
+  SaveSide(lower_.value, lower_.origin, lower_.length, lower_.start, lower_.excess, w);
+  w.I64(readings_);
+  w.I64(alarms_);
+}
+
+Status PoissonCusum::Load(SnapshotReader& r) {
+  r.Tag("PCSM");
+  PoissonCusumOptions o;
+  for (double* x : {&o.mu0, &o.k, &o.h, &o.headstart, &o.k_down, &o.h_down,
+                    &o.headstart_down, &o.arl0}) {
+    *x = r.Finite("count cusum option");
+  }
+  o.two_sided = r.Bool();
+  const std::uint8_t rule = r.U8();
+  if (!r.ok()) return r.status();
+  if (rule > static_cast<std::uint8_t>(PoissonSignalRule::kAbove)) {
+    return r.Fail("count cusum signal rule out of range");
+  }
+  o.rule = static_cast<PoissonSignalRule>(rule);
+  std::string why;
+  if (!o.IsValid(&why)) return r.Fail("count cusum options: " + why);
+  PoissonCusum loaded(o);
+  for (Side* side : {&loaded.upper_, &loaded.lower_}) {
+    side->value = r.NonNegative("count cusum statistic");
+    side->origin = r.NonNegative("count cusum origin");
+    side->length = r.Counter("count cusum run length");
+    side->start = r.Time("count cusum start");
+    side->excess = r.Finite("count cusum excess");
+  }
+  loaded.readings_ = r.Counter("count cusum readings");
+  loaded.alarms_ = r.Counter("count cusum alarms");
+  if (!r.ok()) return r.status();
+  *this = loaded;
+  return r.status();
 }
 
 // ---------------------------------------------------------------------------

@@ -38,6 +38,16 @@
 // for a small d (<= 1000, at most kMaxChainStates states) is refused, not
 // approximated: round k (CalibratePoissonCusum does).
 //
+// A time-varying in-control mean. When reading t's in-control mean is
+// mu_t = r_t mu0 (a seasonal forecast of a count), the chart for the same
+// relative change (mu1 / mu0 fixed) has reference values r_t k and r_t k_down:
+// Lucas's k is mu0 (q - 1) / ln q for q = mu1 / mu0, proportional to mu0, and
+// the increments stay the log-likelihood ratio of the change over ln q
+// (the count regression chart of Hoehle and Paul 2008; MEM). The exact chain
+// holds only for a constant mean; with a moving one, h from the chain at the
+// average mean is a design value, which SeriesMonitor checks against the
+// observed increments (its empirical re-fit).
+//
 // Fast initial response (Lucas and Crosier 1982): start (and restart after
 // each signal) at a headstart 0 <= s < h, usually h/2. REFERENCES.md 7.1 gives
 // the exact ARLs for s = 5, h = 10.
@@ -59,7 +69,9 @@
 // Valid ranges: mu0 > 0; k, k_down > 0; h, h_down > 0; 0 <= headstart < h;
 // all finite. For a useful chart mu0 < k (upper) and k_down < mu0 (lower).
 //
-// Sources: Lucas, J. M. (1985), "Counted data CUSUM's", Technometrics
+// Sources: Hoehle, M. and Paul, M. (2008), "Count data regression charts for
+// the monitoring of surveillance time series", Computational Statistics and
+// Data Analysis 52(9):4357-4368 (MEM). Lucas, J. M. (1985), "Counted data CUSUM's", Technometrics
 // 27(2):129-144 (MEM). Brook, D. and Evans, D. A. (1972), "An approach to the
 // probability distribution of CUSUM run length", Biometrika 59:539-548.
 // Lucas, J. M. and Crosier, R. B. (1982), Technometrics 24:199-205.
@@ -80,6 +92,7 @@
 
 #include "detectors/detection.h"
 #include "detectors/event_time.h"
+#include "detectors/snapshot.h"
 #include "detectors/status.h"
 
 namespace plumbline {
@@ -133,10 +146,21 @@ class PoissonCusum {
   // (before the restart). Fails with InvalidArgument, leaving all state
   // untouched, when count is NaN, infinite, negative or not a whole number.
   // Allocation-free on success.
-  StatusOr<Alarm> Update(double count, EventTime time);
+  StatusOr<Alarm> Update(double count, EventTime time) { return Update(count, time, 1.0); }
+
+  // The same for a reading whose in-control mean is mean_ratio * mu0 (a
+  // seasonal forecast): both reference values are scaled by mean_ratio (see
+  // "A time-varying in-control mean" above), and Alarm::shift is the mean over
+  // the excursion of (count - mean_ratio * mu0). mean_ratio must be finite
+  // and > 0; otherwise InvalidArgument, state untouched.
+  StatusOr<Alarm> Update(double count, EventTime time, double mean_ratio);
 
   // Back to the start state: both sides at their headstarts, counters cleared.
   void Reset();
+
+  // New decision intervals (an empirical re-fit), state kept; each must be
+  // finite, > 0 and above its side's headstart, else that side keeps its own.
+  void SetDecisionIntervals(double h, double h_down);
 
   double upper() const { return upper_.value; }  // S_t
   double lower() const {
@@ -155,6 +179,12 @@ class PoissonCusum {
   const PoissonCusumOptions& options() const { return options_; }
   double arl0() const { return options_.arl0; }  // 0 = not calibrated
 
+  // Options and state, for checkpoints. Load refuses options that are not
+  // valid and state out of range (negative statistics, counts beyond the
+  // snapshot limit), with a corruption status naming the field.
+  void Save(SnapshotWriter& w) const;
+  Status Load(SnapshotReader& r);
+
  private:
   // One side: value, excursion bookkeeping. Values within kZero of 0 count as
   // 0 so that rounding from a non-integer k cannot open a false excursion.
@@ -163,8 +193,9 @@ class PoissonCusum {
     double origin = 0.0;      // value the current excursion started from
     std::int64_t length = 0;  // readings in the current excursion
     EventTime start = 0;      // time of its first reading
+    double excess = 0.0;      // sum over the excursion of count - in-control mean
     void Restart(double headstart);
-    void Step(double increment, EventTime time, double zero);
+    void Step(double increment, double deviation, EventTime time, double zero);
   };
   bool Signals(double value, double h) const;
   void Restart();

@@ -55,6 +55,24 @@ std::optional<DetectorKind> DetectorKindFromString(std::string_view text) {
   return std::nullopt;
 }
 
+std::string_view ToString(CountChart chart) {
+  switch (chart) {
+    case CountChart::kAuto: return "auto";
+    case CountChart::kPoisson: return "poisson";
+    case CountChart::kNormal: return "normal";
+  }
+  return "auto";
+}
+
+std::optional<CountChart> CountChartFromString(std::string_view text) {
+  for (CountChart c : {CountChart::kAuto, CountChart::kPoisson, CountChart::kNormal}) {
+    if (ToString(c) == text) return c;
+  }
+  return std::nullopt;
+}
+
+std::string_view CountChartChoices() { return "auto | poisson | normal"; }
+
 std::string_view SeriesKindChoices() { return "gauge | count | meter"; }
 std::string_view GapPolicyChoices() { return "skip | zero | hold"; }
 std::string_view DetectorKindChoices() { return "cusum | page-hinkley | bocpd | ewma"; }

@@ -29,9 +29,22 @@ enum class GapPolicy {
 
 enum class DetectorKind { kCusum, kPageHinkley, kBocpd, kEwma };
 
+// Which chart plays the CUSUM's part on a count series (kind: count).
+enum class CountChart {
+  kAuto,     // the count CUSUM when the mean over the warmup is below kLowCountMean
+  kPoisson,  // always the count CUSUM (detectors/poisson_cusum.h)
+  kNormal,   // always the CUSUM on standardised residuals
+};
+// Below this mean count per reading the normal approximation to a Poisson
+// count is poor (skew 1/sqrt(mean) above 0.3; common practice, no source).
+inline constexpr double kLowCountMean = 10.0;
+
 std::string_view ToString(SeriesKind kind);
 std::string_view ToString(GapPolicy gaps);
 std::string_view ToString(DetectorKind detector);
+std::string_view ToString(CountChart chart);
+std::optional<CountChart> CountChartFromString(std::string_view text);
+std::string_view CountChartChoices();  // "auto | poisson | normal"
 std::optional<SeriesKind> SeriesKindFromString(std::string_view text);
 std::optional<GapPolicy> GapPolicyFromString(std::string_view text);
 std::optional<DetectorKind> DetectorKindFromString(std::string_view text);
@@ -71,6 +84,10 @@ struct ProfileOptions {
   // at most covariate_max_age old (> 0).
   std::vector<std::string> covariates;
   EventTime covariate_max_age = 6 * kMicrosPerHour;
+  CountChart count_chart = CountChart::kAuto;  // only for kind: count
+  // Re-fit the level CUSUM's decision interval on the series' own first
+  // residuals after warmup (bounded; detectors/series_monitor.h).
+  bool adapt_thresholds = false;
 
   // One-line rules; on failure *why names the key and its valid range.
   bool IsValid(std::string* why) const;

@@ -42,6 +42,10 @@ double ThresholdFraction(const Ewma& d) {
   return limit > 0 ? std::abs(d.value()) / limit : 0.0;
 }
 double ThresholdFraction(const Bocpd&) { return 0.0; }  // a probability, not a drift
+double ThresholdFraction(const PoissonCusum& d) {
+  const PoissonCusumOptions& o = d.options();
+  return std::max(d.upper() / o.h, d.lower() / o.h_down);
+}
 
 }  // namespace
 
@@ -503,6 +507,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   }
   if (Unlearned(to)) return;
   ++observations_;
+  value_sum_ += y;
   recent_times_[observations_ % recent_times_.size()] = to;
   JoinCovariates(to);
   if (!forecaster_) {
@@ -590,6 +595,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
     }
   }
   if (!armed) return;
+  if (!count_chart_decided_) ChooseCountChart();
+  health_.Add(z);
 
   // Variance first: a variance alert changes what z means for the level
   // detectors. Not while the spread sits at its floor (values that never vary,
@@ -620,22 +627,47 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
     }
   }
   if (observations_ < level_hold_until_) return;
-  DecideLevel(to, f.value, sigma * spread, resolvable, events);
+  DecideLevel(to, y, f.value + profile_->Mean(bin) * spread, f.value, sigma * spread,
+              resolvable, events);
 }
 
-void SeriesMonitor::DecideLevel(EventTime t, double forecast, double sigma,
-                                bool resolvable, std::vector<SeriesEvent>* events) {
+void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double forecast,
+                                double sigma, bool resolvable,
+                                std::vector<SeriesEvent>* events) {
   const ProfileOptions& profile = design_->profile;
   const double clipped_z = std::clamp(last_z_, -kLevelClip, kLevelClip);
+  if (profile.adapt_thresholds) CollectLevelSample(clipped_z);
   for (size_t i = 0; i < level_.size(); ++i) {
     // BOCPD models the spread as well as the mean, so residuals pinned at the
     // resolution floor (all zero) would look to it like a change; the mean
     // detectors still watch them.
     if (!resolvable && level_kinds_[i] == DetectorKind::kBocpd) continue;
     StatusOr<Alarm> result = std::visit(
-        [&](auto& detector) { return detector.Update(clipped_z, t); }, level_[i]);
+        [&](auto& detector) -> StatusOr<Alarm> {
+          using T = std::decay_t<decltype(detector)>;
+          if constexpr (std::is_same_v<T, PoissonCusum>) {
+            // The in-control mean: the forecast, kept above a twentieth of the
+            // design mean (a forecast near zero would make any count a change).
+            const double mu0 = detector.options().mu0;
+            const double mean = std::max(expected, 0.05 * mu0);
+            const double count =
+                std::min(std::max(0.0, std::round(y)),
+                         std::max(1.0, std::floor(mean + kLevelClip * std::sqrt(mean))));
+            CollectCountIncrements(count, mean / mu0, detector);
+            return detector.Update(count, t, mean / mu0);
+          } else {
+            return detector.Update(clipped_z, t);
+          }
+        },
+        level_[i]);
     if (!result.ok()) continue;
-    if (result->fired) firings_[i] = {observations_, *result};
+    if (result->fired) {
+      // The count CUSUM measures its shift in counts; alerts carry it in sd.
+      if (std::holds_alternative<PoissonCusum>(level_[i]) && sigma > 0) {
+        result->shift /= sigma;
+      }
+      firings_[i] = {observations_, *result};
+    }
     threshold_fraction_[i] =
         result->fired
             ? 0.0
@@ -803,7 +835,107 @@ void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
   }
 }
 
+void SeriesMonitor::ChooseCountChart() {
+  count_chart_decided_ = true;
+  const ProfileOptions& profile = design_->profile;
+  if (profile.kind != SeriesKind::kCount || profile.count_chart == CountChart::kNormal ||
+      observations_ <= 0) {
+    return;
+  }
+  const double mean = value_sum_ / static_cast<double>(observations_);
+  if (profile.count_chart == CountChart::kAuto) {
+    if (!(mean < kLowCountMean)) return;
+    // Overdispersed counts (a day factor, bursts: variance above the mean)
+    // would fire the count CUSUM far more often than its chain promises; the
+    // normal CUSUM on the residuals' own spread keeps them. The dispersion
+    // index test (Fisher 1950; Cochran 1954, Biometrics 10:417-451; MEM): under
+    // Poisson, (n - 1) s^2 / mean is chi-square with n - 1 degrees of freedom,
+    // about 1 + 3 sqrt(2 / (n - 1)) times the mean at its 0.1% upper point.
+    const double n = static_cast<double>(
+        std::min<long long>(observations_, design_->scale.window));
+    const double sigma = scale_.sigma();
+    if (n > 2 && sigma * sigma > mean * (1.0 + 3.0 * std::sqrt(2.0 / (n - 1.0)))) return;
+  }
+  // A series of zeros so far has no mean to design at; a tenth of a count
+  // per reading stands in (one count then moves the upper side by most of a step).
+  const double mu = std::max(mean, 0.1);
+  const double step = profile.shift * std::sqrt(mu);
+  // Each side for twice the per-detector ARL0, as the two sides of the CUSUM
+  // share it. k to a quarter count above one count per reading (the chain then
+  // has at most 4 h states), automatic below.
+  const double side_arl0 = 2.0 * design_->level.per_detector_arl0;
+  const int denominator = mu >= 1.0 ? 4 : 0;
+  const auto up = CalibratePoissonCusum(mu, mu + step, side_arl0,
+                                        PoissonSignalRule::kAtLeast, denominator);
+  const auto down = CalibratePoissonCusum(mu, std::max(mu - step, 0.25 * mu), side_arl0,
+                                          PoissonSignalRule::kAtLeast, denominator);
+  if (!up.ok() || !down.ok()) return;  // the normal CUSUM stays
+  PoissonCusumOptions o;
+  o.mu0 = mu;
+  o.k = up->k;
+  o.h = up->h;
+  o.two_sided = true;
+  o.k_down = down->k;
+  o.h_down = down->h;
+  o.arl0 = design_->level.per_detector_arl0;
+  if (!o.IsValid(nullptr)) return;
+  for (std::size_t i = 0; i < level_.size(); ++i) {
+    if (level_kinds_[i] == DetectorKind::kCusum) level_[i].emplace<PoissonCusum>(o);
+  }
+}
+
+bool SeriesMonitor::count_chart() const {
+  for (const LevelDetector& d : level_) {
+    if (std::holds_alternative<PoissonCusum>(d)) return true;
+  }
+  return false;
+}
+
+void SeriesMonitor::CollectCountIncrements(double count, double ratio,
+                                           PoissonCusum& chart) {
+  if (count_refitted_) return;
+  count_sample_.push_back(count);
+  count_sample_.push_back(ratio);
+  if (count_sample_.size() < 2 * kRefitSample) return;
+  const PoissonCusumOptions& o = chart.options();
+  std::vector<double> upper, lower;
+  upper.reserve(kRefitSample);
+  lower.reserve(kRefitSample);
+  for (std::size_t i = 0; i + 1 < count_sample_.size(); i += 2) {
+    upper.push_back(count_sample_[i] - count_sample_[i + 1] * o.k);
+    lower.push_back(count_sample_[i + 1] * o.k_down - count_sample_[i]);
+  }
+  const double side_arl0 = 2.0 * design_->level.per_detector_arl0;
+  chart.SetDecisionIntervals(Refit(std::move(upper), side_arl0, o.h, kRefitCeiling),
+                             Refit(std::move(lower), side_arl0, o.h_down, kRefitCeiling));
+  count_refitted_ = true;
+  std::vector<double>().swap(count_sample_);
+}
+
+void SeriesMonitor::CollectLevelSample(double clipped_z) {
+  if (adapted_h_ > 0) return;
+  level_sample_.push_back(clipped_z);
+  if (level_sample_.size() < kRefitSample) return;
+  for (std::size_t i = 0; i < level_.size(); ++i) {
+    Cusum* cusum = std::get_if<Cusum>(&level_[i]);
+    if (cusum == nullptr) continue;
+    const CusumOptions& o = cusum->options();
+    const auto [upper, lower] =
+        RefitSides(level_sample_, ResidualScale::ClippedSecondMoment(kLevelClip), o.k,
+                   -o.k, o.h, o.h, 2.0 * design_->level.per_detector_arl0, kRefitCeiling);
+    adapted_h_ = std::max(upper, lower);
+    cusum->SetDecisionInterval(adapted_h_);
+  }
+  if (adapted_h_ <= 0) adapted_h_ = -1;  // no CUSUM to adapt: stop collecting
+  std::vector<double>().swap(level_sample_);
+}
+
 void SeriesMonitor::BuildLevelDetectors(const DetectorDesign& d) {
+  adapted_h_ = 0.0;
+  level_sample_.clear();
+  count_chart_decided_ = false;
+  count_refitted_ = false;
+  count_sample_.clear();
   level_.clear();
   level_kinds_.clear();
   for (DetectorKind kind : d.detectors) {
@@ -886,6 +1018,9 @@ std::vector<SeriesMonitor::DetectorSnapshot> SeriesMonitor::DetectorSnapshots() 
           } else if constexpr (std::is_same_v<T, Bocpd>) {
             out.push_back(
                 {name, detector.change_probability(), detector.options().threshold});
+          } else if constexpr (std::is_same_v<T, PoissonCusum>) {
+            out.push_back(nearer(name, detector.upper(), detector.options().h,
+                                 detector.lower(), detector.options().h_down));
           } else {
             out.push_back({name, std::abs(detector.value()), detector.limit()});
           }
@@ -982,6 +1117,7 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
   w.U64(level_.size());
   for (std::size_t i = 0; i < level_.size(); ++i) {
     w.U8(static_cast<std::uint8_t>(level_kinds_[i]));
+    w.Bool(std::holds_alternative<PoissonCusum>(level_[i]));
     std::visit([&w](const auto& d) { d.Save(w); }, level_[i]);
     w.I64(firings_[i].observation);
     SaveAlarm(firings_[i].alarm, w);
@@ -1011,6 +1147,13 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
   w.OptionalI64(regime_start_);
   for (EventTime t : recent_times_) w.I64(t);
   w.I64(regime_observations_);
+  w.F64(value_sum_);
+  w.Bool(count_chart_decided_);
+  w.DoubleVector(count_sample_);
+  w.Bool(count_refitted_);
+  health_.Save(w);
+  w.DoubleVector(level_sample_);
+  w.F64(adapted_h_);
 }
 
 Status SeriesMonitor::Load(SnapshotReader& r) {
@@ -1067,6 +1210,10 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
     if (r.U8() != static_cast<std::uint8_t>(level_kinds_[i])) {
       return r.Fail("level detectors differ");
     }
+    if (r.Bool()) {
+      if (level_kinds_[i] != DetectorKind::kCusum) return r.Fail("level detectors differ");
+      level_[i].emplace<PoissonCusum>(PoissonCusumOptions{});  // Load sets the options
+    }
     if (Status s = std::visit([&r](auto& d) { return d.Load(r); }, level_[i]); !s.ok())
       return s;
     firings_[i].observation = r.I64();
@@ -1097,6 +1244,24 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
   regime_start_ = r.OptionalI64();
   for (EventTime& t : recent_times_) t = r.I64();
   regime_observations_ = r.I64();
+  value_sum_ = r.Finite("sum of readings");
+  count_chart_decided_ = r.Bool();
+  count_sample_ = r.DoubleVector();
+  if (r.ok() && count_sample_.size() > 2 * kRefitSample) {
+    return r.Fail("count chart sample too long");
+  }
+  count_refitted_ = r.Bool();
+  if (Status s = health_.Load(r); !s.ok()) return s;
+  level_sample_ = r.DoubleVector();
+  adapted_h_ = r.F64();
+  if (r.ok() && (level_sample_.size() > kRefitSample || !std::isfinite(adapted_h_))) {
+    return r.Fail("adapted threshold out of range");
+  }
+  if (adapted_h_ > 0) {
+    for (LevelDetector& d : level_) {
+      if (Cusum* cusum = std::get_if<Cusum>(&d)) cusum->SetDecisionInterval(adapted_h_);
+    }
+  }
   return r.status();
 }
 

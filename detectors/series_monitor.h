@@ -40,7 +40,31 @@
 // grown by the sample's long-run variance inflation (neighbouring increments that
 // move together, such as arrivals in bursts), never lowered and at most
 // kRefitCeiling times the design (common practice, no source). The level
-// detectors keep their designed thresholds; they see winsorised z.
+// detectors keep their designed thresholds (they see winsorised z), except
+// where the profile opts in with adapt_thresholds: then the CUSUM's decision
+// interval gets the same re-fit on its first kRefitSample winsorised z after
+// warmup (model variance E[min(Z^2, kLevelClip^2)]), the larger of its two
+// sides' re-fits, so residuals that stay correlated or heavy-tailed after
+// whitening cannot break the false-alarm promise; the count CUSUM always gets
+// it (below). Each series also keeps a CalibrationHealth of the z its level
+// detectors see (detectors/calibration_health.h), shown in the API and metrics.
+//
+// Low counts (profile key count_chart): a count series whose mean over its
+// warmup is below kLowCountMean and whose residual variance does not exceed
+// that mean beyond chance (the dispersion index test at 0.1%; overdispersed
+// counts keep the normal CUSUM on their own spread), or any count series with
+// count_chart: poisson, has the CUSUM's place taken by the count CUSUM of
+// detectors/poisson_cusum.h, designed at the warmup's mean count mu for the
+// change mu -> mu +/- shift sqrt(mu) (the profile's shift, in Poisson sd), each
+// side by the exact chain for twice the level detectors' per-detector ARL0.
+// It reads the reading itself (rounded, winsorised at
+// mu_t + kLevelClip sqrt(mu_t)) against the in-control mean mu_t = the
+// forecast with the phase profile's mean, as the time-varying-mean chart
+// (reference values scaled by mu_t / mu). Its design then gets the same
+// empirical re-fit as the variance and arrival CUSUMs, on its first
+// kRefitSample increments, since a seasonal mean and an estimated forecast
+// make the exact chain's h only a design value. The other level detectors
+// keep watching z.
 //
 // Learning while testing: while any level detector is past kBaselineFraction of
 // its threshold, the residual scale, the phase profile and the autocorrelation
@@ -87,6 +111,7 @@
 // about 1/(4 arl0) per gap.
 #pragma once
 
+#include <algorithm>
 #include <array>
 #include <cstdint>
 #include <memory>
@@ -99,12 +124,14 @@
 #include "detectors/arrival_model.h"
 #include "detectors/bocpd.h"
 #include "detectors/calibration.h"
+#include "detectors/calibration_health.h"
 #include "detectors/covariate.h"
 #include "detectors/cusum.h"
 #include "detectors/detection.h"
 #include "detectors/ewma.h"
 #include "detectors/intake.h"
 #include "detectors/page_hinkley.h"
+#include "detectors/poisson_cusum.h"
 #include "detectors/profile.h"
 #include "detectors/residual_profile.h"
 #include "detectors/residual_scale.h"
@@ -223,6 +250,12 @@ class SeriesMonitor {
   bool armed() const { return observations_ > design_->profile.warmup; }
   bool silent() const { return silent_; }
   double last_z() const { return last_z_; }
+  // Whether the count CUSUM (detectors/poisson_cusum.h) plays the CUSUM's part.
+  bool count_chart() const;
+  // How the armed residuals behave against the detectors' assumptions.
+  const CalibrationHealth& health() const { return health_; }
+  // The CUSUM's decision interval re-fitted by adapt_thresholds; 0 until then.
+  double adapted_threshold() const { return std::max(adapted_h_, 0.0); }
   // Estimated lag-one autocorrelation of the residuals at the mean spacing.
   double residual_autocorrelation() const { return whitener_.lag1(); }
   const ResidualWhitener& whitener() const { return whitener_; }
@@ -245,7 +278,7 @@ class SeriesMonitor {
   std::optional<RunLengthSnapshot> RunLength() const;
 
  private:
-  using LevelDetector = std::variant<Cusum, PageHinkley, Bocpd, Ewma>;
+  using LevelDetector = std::variant<Cusum, PageHinkley, Bocpd, Ewma, PoissonCusum>;
   struct Firing {
     long long observation = -1;  // index at which it fired; -1 none
     Alarm alarm;
@@ -253,8 +286,15 @@ class SeriesMonitor {
 
   void Process(EventTime t, double value, std::vector<SeriesEvent>* events);
   void Model(EventTime from, EventTime to, double y, std::vector<SeriesEvent>* events);
-  void DecideLevel(EventTime t, double forecast, double sigma, bool resolvable,
-                   std::vector<SeriesEvent>* events);
+  // y: the reading; expected: its forecast with the phase profile's mean
+  // (what the count CUSUM takes as the in-control mean).
+  void DecideLevel(EventTime t, double y, double expected, double forecast,
+                   double sigma, bool resolvable, std::vector<SeriesEvent>* events);
+  // At arming: the count CUSUM in the CUSUM's place when the profile's
+  // count_chart asks for it (detectors/profile.h), designed at the mean count.
+  void ChooseCountChart();
+  // Feeds the count CUSUM's re-fit sample; re-fits once it is full.
+  void CollectCountIncrements(double count, double ratio, PoissonCusum& chart);
   void StartRegime(EventTime change_at);
   // Annotations.
   void ApplyPlannedChange(const Annotation& change);
@@ -361,6 +401,14 @@ class SeriesMonitor {
   long long variance_hold_until_ = 0;
   long long rate_hold_until_ = 0;  // in arrivals
   double last_z_ = 0.0;
+  double value_sum_ = 0.0;             // of the learned readings, for the mean count
+  bool count_chart_decided_ = false;   // ChooseCountChart ran since the last design
+  std::vector<double> count_sample_;   // (count, mean ratio) pairs for the re-fit
+  bool count_refitted_ = false;
+  CalibrationHealth health_;
+  std::vector<double> level_sample_;  // winsorised z for adapt_thresholds
+  double adapted_h_ = 0.0;            // 0: the design's h
+  void CollectLevelSample(double clipped_z);
   ResidualWhitener whitener_;
   std::vector<double> threshold_fraction_;  // per level detector, at its last update
   std::vector<double> variance_sample_;     // capped z^2, until re-fitted

@@ -101,6 +101,8 @@ TEST(ConfigTest, OptionalKeysMapOntoTheStruct) {
     agree: 2
     agree_within: 12
     cooldown: 30
+    count_chart: poisson
+    adapt_thresholds: true
     arl0: 2.5e4
     shift: "0.75"
 )");
@@ -123,6 +125,8 @@ TEST(ConfigTest, OptionalKeysMapOntoTheStruct) {
   EXPECT_EQ(p.agree, 2);
   EXPECT_EQ(p.agree_within, 12);
   EXPECT_EQ(p.cooldown, 30);
+  EXPECT_EQ(p.count_chart, CountChart::kPoisson);
+  EXPECT_TRUE(p.adapt_thresholds);
   EXPECT_EQ(p.arl0, 25000);
   EXPECT_EQ(p.shift, 0.75);  // a quoted number is read like a plain one
 }

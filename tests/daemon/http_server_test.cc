@@ -333,6 +333,10 @@ TEST_F(HttpServerTest, SeriesDetailTakesTheRestOfThePathPercentDecoded) {
     EXPECT_EQ(json["detectors"][1]["name"].as<std::string>(), "page-hinkley");
     EXPECT_DOUBLE_EQ(json["detectors"][0]["threshold"].as<double>(), 5.0);
     EXPECT_DOUBLE_EQ(json["run_length"]["most_likely"].as<double>(), 2.0);
+    EXPECT_DOUBLE_EQ(json["calibration"]["autocorrelation"].as<double>(), 0.125);
+    EXPECT_DOUBLE_EQ(json["calibration"]["drift_ratio"].as<double>(), 2.5);
+    EXPECT_EQ(json["calibration"]["level_chart"].as<std::string>(), "count");
+    EXPECT_DOUBLE_EQ(json["calibration"]["adapted_threshold"].as<double>(), 0.0);
     ASSERT_EQ(json["recent_points"].size(), 2u);
     EXPECT_EQ(json["recent_points"][0]["time"].as<std::string>(), "2026-03-01T12:00:00Z");
     EXPECT_EQ(json["recent_alerts"].size(), 0u);
@@ -432,6 +436,12 @@ TEST_F(HttpServerTest, MetricsShowDetectorGaugesOfAdmittedSeriesAsOfTheScrape) {
                       "series=\"coldstore/dock/door_openings\"} 7\n"),
             std::string::npos);
   EXPECT_NE(text.find("\nplumbline_detector_series 3\n"), std::string::npos);
+  EXPECT_NE(text.find("\nplumbline_series_calibration{figure=\"drift_ratio\","
+                      "series=\"coldstore/dock/door_openings\"} 2.5\n"),
+            std::string::npos);
+  EXPECT_NE(text.find("\nplumbline_series_calibration{figure=\"tail_share\","
+                      "series=\"coldstore/freezer-1/temp_c\"} 0.0625\n"),
+            std::string::npos);
 }
 
 TEST_F(HttpServerTest, MetricsShowNotReady) {

@@ -2,6 +2,7 @@
 
 #include <gtest/gtest.h>
 
+#include <bit>
 #include <cmath>
 #include <cstdint>
 #include <limits>
@@ -9,6 +10,7 @@
 #include <string>
 
 #include "detectors/random.h"
+#include "detectors/snapshot.h"
 
 namespace plumbline {
 namespace {
@@ -536,6 +538,105 @@ TEST(PoissonCusumTest, FractionalReferenceValueTiesWithTheLimitAreJudgedExactly)
   for (int i = 2; i <= 10; ++i) Feed(chart, 0, i);
   EXPECT_EQ(chart.upper(), 0.0);
   EXPECT_EQ(chart.upper_length(), 0);
+}
+
+TEST(PoissonCusumTest, ScaledMeanIsTheChartForTheScaledDesign) {
+  // Lucas's k is proportional to mu0 for a fixed ratio mu1 / mu0, so a chart
+  // for mu0 = 2 fed mean ratio 2 must move exactly like a chart designed for
+  // mu0 = 4 with k and k_down doubled (the time-varying-mean chart; MEM).
+  PoissonCusumOptions base;
+  base.two_sided = true;
+  PoissonCusumOptions doubled = base;
+  doubled.mu0 = 4.0;
+  doubled.k = 2.0 * base.k;
+  doubled.k_down = 2.0 * base.k_down;
+  PoissonCusum scaled(base), direct(doubled);
+  Random random(5);
+  for (int i = 1; i <= 2000; ++i) {
+    const double count = static_cast<double>(random.Poisson(i < 1000 ? 4.0 : 6.5));
+    const StatusOr<Alarm> a = scaled.Update(count, At(i), 2.0);
+    const StatusOr<Alarm> b = direct.Update(count, At(i));
+    ASSERT_TRUE(a.ok() && b.ok());
+    ASSERT_EQ(a->fired, b->fired) << i;
+    ASSERT_DOUBLE_EQ(scaled.upper(), direct.upper()) << i;
+    ASSERT_DOUBLE_EQ(scaled.lower(), direct.lower()) << i;
+    if (a->fired) {
+      EXPECT_EQ(a->change_at, b->change_at);
+      EXPECT_NEAR(a->shift, b->shift, 1e-9);
+    }
+  }
+  EXPECT_GT(direct.alarms(), 0);
+}
+
+TEST(PoissonCusumTest, ShiftUnderAMovingMeanIsTheMeanExcessOverIt) {
+  // Hand-worked, no source: mu0 = 2, k = 3, h = 6. Ratios 1, 2, 1 (means 2, 4,
+  // 2) and counts 5, 9, 6: S = 2, 2 + 9 - 6 = 5, 5 + 6 - 3 = 8 >= 6. The
+  // excursion holds all three readings; excess (5-2) + (9-4) + (6-2) = 12,
+  // shift 4 counts per reading.
+  PoissonCusum chart(PoissonCusumOptions{});
+  ASSERT_FALSE(chart.Update(5, At(1), 1.0)->fired);
+  ASSERT_FALSE(chart.Update(9, At(2), 2.0)->fired);
+  const StatusOr<Alarm> alarm = chart.Update(6, At(3), 1.0);
+  ASSERT_TRUE(alarm.ok());
+  EXPECT_TRUE(alarm->fired);
+  EXPECT_EQ(alarm->change_at, At(1));
+  EXPECT_DOUBLE_EQ(alarm->shift, 4.0);
+}
+
+TEST(PoissonCusumTest, RefusesABadMeanRatioWithoutChangingState) {
+  PoissonCusum chart(PoissonCusumOptions{});
+  Feed(chart, 5, 1);
+  for (double ratio : {0.0, -1.0, std::numeric_limits<double>::quiet_NaN(),
+                       std::numeric_limits<double>::infinity()}) {
+    EXPECT_FALSE(chart.Update(3, At(2), ratio).ok());
+  }
+  EXPECT_EQ(chart.upper(), 2.0);
+  EXPECT_EQ(chart.readings_since_restart(), 1);
+}
+
+TEST(PoissonCusumTest, SavedChartContinuesExactlyAndForgedStateIsRefused) {
+  PoissonCusumOptions o;
+  o.two_sided = true;
+  o.headstart = 3.0;
+  PoissonCusum original(o);
+  Random random(9);
+  for (int i = 1; i <= 300; ++i) Feed(original, static_cast<double>(random.Poisson(2.6)), i);
+  SnapshotWriter w;
+  original.Save(w);
+  const std::string bytes = w.Take();
+  PoissonCusum restored(PoissonCusumOptions{});
+  SnapshotReader r(bytes);
+  ASSERT_TRUE(restored.Load(r).ok()) << r.status().ToString();
+  EXPECT_TRUE(r.AtEnd());
+  EXPECT_EQ(restored.options().headstart, 3.0);
+  for (int i = 301; i <= 900; ++i) {
+    const double count = static_cast<double>(random.Poisson(i < 600 ? 2.0 : 4.0));
+    const Alarm a = Feed(original, count, i);
+    const Alarm b = Feed(restored, count, i);
+    ASSERT_EQ(a.fired, b.fired) << i;
+    ASSERT_EQ(original.upper(), restored.upper()) << i;
+  }
+  EXPECT_EQ(original.alarms(), restored.alarms());
+
+  // Tag (4 bytes), eight options of 8 bytes, two flags, then the upper side.
+  auto forged = [&](std::size_t offset, double value) {
+    std::string copy = bytes;
+    const std::uint64_t bits = std::bit_cast<std::uint64_t>(value);
+    for (int i = 0; i < 8; ++i) copy[offset + i] = static_cast<char>(bits >> (8 * i));
+    PoissonCusum loaded(PoissonCusumOptions{});
+    SnapshotReader reader(copy);
+    return loaded.Load(reader);
+  };
+  EXPECT_FALSE(forged(4, -2.0).ok());                                       // mu0
+  EXPECT_FALSE(forged(4 + 8 * 2, std::numeric_limits<double>::quiet_NaN()).ok());  // h
+  EXPECT_FALSE(forged(4 + 8 * 3, 50.0).ok());  // headstart above h
+  EXPECT_FALSE(forged(4 + 8 * 8 + 2, -1.0).ok());  // a negative statistic
+  EXPECT_TRUE(forged(4 + 8 * 8 + 2, 1.0).ok());
+  std::string bad_rule = bytes;
+  bad_rule[4 + 8 * 8 + 1] = 7;
+  PoissonCusum loaded(PoissonCusumOptions{});
+  SnapshotReader reader(bad_rule);
+  EXPECT_FALSE(loaded.Load(reader).ok());
 }
 
 TEST(PoissonCusumTest, EnumsRoundTripThroughText) {

@@ -1029,5 +1029,99 @@ TEST(SeriesMonitorAnnotationTest, MaintenanceWindowTurnsAlertsIntoSuppressedEven
   EXPECT_GE(suppressed, 10);              // each step was seen
 }
 
+
+// Counts of a daily-seasonal mean, Poisson, every 10 minutes; the mean steps
+// by `step` counts from reading `change` on. Invented data.
+std::vector<SyntheticReading> Counts(double level, long long count, long long change,
+                                     double step, std::uint64_t seed) {
+  Random random(seed);
+  std::vector<SyntheticReading> out;
+  EventTime t = 1'772'323'200LL * kMicrosPerSecond;
+  for (long long i = 0; i < count; ++i) {
+    t += 10 * kMicrosPerMinute;
+    const double phase = 2 * std::numbers::pi * static_cast<double>(t % kMicrosPerDay) /
+                         static_cast<double>(kMicrosPerDay);
+    const double mean = level * (1 + 0.5 * std::sin(phase)) + (i >= change ? step : 0.0);
+    out.push_back({t, static_cast<double>(random.Poisson(mean))});
+  }
+  return out;
+}
+
+TEST(SeriesMonitorCountChartTest, LowCountsGetTheCountCusumUnlessTheProfileSaysOtherwise) {
+  ProfileOptions profile;
+  profile.kind = SeriesKind::kCount;
+  profile.seasons = {kMicrosPerDay};
+  struct Expectation {
+    double level;
+    CountChart chart;
+    bool count_chart;
+  };
+  for (const Expectation& x : {Expectation{2.0, CountChart::kAuto, true},
+                               Expectation{40.0, CountChart::kAuto, false},
+                               Expectation{2.0, CountChart::kNormal, false},
+                               Expectation{40.0, CountChart::kPoisson, true}}) {
+    SCOPED_TRACE(x.level);
+    profile.count_chart = x.chart;
+    const ProfileDesign design = MakeDesign(profile);
+    SeriesMonitor monitor(&design);
+    Feed(monitor, Counts(x.level, 400, -1, 0.0, 3), false);
+    EXPECT_EQ(monitor.count_chart(), x.count_chart);
+  }
+  // Overdispersed low counts (each reading's mean 0.3 or 1.7 times the
+  // season's at random: variance about 3 times the mean at mean 4) keep the
+  // normal CUSUM under auto.
+  {
+    profile.count_chart = CountChart::kAuto;
+    const ProfileDesign design = MakeDesign(profile);
+    SeriesMonitor monitor(&design);
+    Random random(4);
+    std::vector<SyntheticReading> readings = Counts(4.0, 400, -1, 0.0, 3);
+    for (SyntheticReading& r : readings) {
+      r.value = static_cast<double>(
+          random.Poisson((random.Uniform() < 0.5 ? 0.3 : 1.7) * std::max(r.value, 0.5)));
+    }
+    Feed(monitor, readings, false);
+    EXPECT_FALSE(monitor.count_chart());
+  }
+  // Gauges never.
+  profile.kind = SeriesKind::kGauge;
+  profile.count_chart = CountChart::kPoisson;
+  const ProfileDesign gauge = MakeDesign(profile);
+  SeriesMonitor monitor(&gauge);
+  Feed(monitor, Counts(2.0, 400, -1, 0.0, 3), false);
+  EXPECT_FALSE(monitor.count_chart());
+}
+
+TEST(SeriesMonitorCountChartTest, CountCusumFindsARiseAndADropOfLowCountsAndDatesThem) {
+  ProfileOptions profile;
+  profile.kind = SeriesKind::kCount;
+  profile.seasons = {kMicrosPerDay};
+  const ProfileDesign design = MakeDesign(profile);
+  // Mean 2 per reading; +3 counts (about 2 sd) and then -1.5 from reading 3000.
+  for (double step : {3.0, -1.5}) {
+    SCOPED_TRACE(step);
+    SeriesMonitor monitor(&design);
+    const auto readings = Counts(2.0, 3400, 3000, step, 21);
+    const Fed fed = Feed(monitor, readings);
+    ASSERT_TRUE(monitor.count_chart());
+    const auto levels = Select(fed.events, EventType::kAlert, AlertKind::kLevel);
+    std::vector<SeriesEvent> after;
+    for (size_t i = 0; i < fed.events.size(); ++i) {
+      const SeriesEvent& e = fed.events[i];
+      if (e.type == EventType::kAlert && e.kind == AlertKind::kLevel &&
+          fed.reading[i] >= 3000) {
+        after.push_back(e);
+      }
+    }
+    ASSERT_FALSE(after.empty());
+    EXPECT_EQ(after[0].direction, step > 0 ? Direction::kUp : Direction::kDown);
+    EXPECT_LE(std::abs(after[0].change_at - readings[3000].time), 12 * 10 * kMicrosPerMinute);
+    EXPECT_GT(after[0].magnitude * step, 0.0);
+    // Before the change: at most the false-alarm budget allows (3000 readings at
+    // arl0 5000, half of it for level alerts: expect about 0.3).
+    EXPECT_LE(levels.size() - after.size(), 2u);
+  }
+}
+
 }  // namespace
 }  // namespace plumbline

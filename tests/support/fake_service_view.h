@@ -102,6 +102,12 @@ class FakeServiceView : public ServiceView {
     d.band_low = d.forecast - 2 * d.sigma;
     d.band_high = d.forecast + 2 * d.sigma;
     d.last_z = 2.0;
+    d.calibration.autocorrelation = 0.125;
+    d.calibration.variance = 1.5;
+    d.calibration.lag1 = 0.25;
+    d.calibration.tail_share = 0.0625;
+    d.calibration.drift_ratio = 2.5;
+    d.calibration.level_chart = "count";
     d.detectors = {{"cusum", 1.5, 5.0}, {"page-hinkley", 0.5, 7.0}};
     d.run_length = SeriesDetail::RunLength{static_cast<double>(s.summary.readings), 0.01};
     d.recent_points.assign(s.points.begin(), s.points.end());
