@@ -235,6 +235,7 @@ Status Service::Start() {
   for (const FileInputOptions& file : options.files) {
     followers_.push_back(std::make_unique<FileFollower>(
         file, options.state_directory, shards_.get(), deps_.file_system, deps_.observer));
+    followers_.back()->set_write_ahead_log(wal_.get());  // null without checkpoints
     followers_.back()->Start();
   }
   if (options.kafka.enabled()) {
