@@ -43,6 +43,11 @@ void WriteCheckpointSeries(const CheckpointSeries& s, SnapshotWriter& w) {
   w.I64(s.last_time);
   w.F64(s.last_value);
   w.I64(s.newest);
+  w.U64(s.covariate_history.size());
+  for (const CovariateObservation& point : s.covariate_history) {
+    w.I64(point.t);
+    w.F64(point.value);
+  }
 }
 
 std::string CheckpointPayloadHead(const CheckpointHead& head, std::uint64_t series) {
@@ -59,7 +64,12 @@ std::string CheckpointPayloadHead(const CheckpointHead& head, std::uint64_t seri
   return w.Take();
 }
 
-StatusOr<Checkpoint> ParseCheckpointPayload(std::string_view payload) {
+StatusOr<Checkpoint> ParseCheckpointPayload(std::string_view payload,
+                                            std::uint32_t version) {
+  if (version < kOldestCheckpointFormatVersion || version > kCheckpointFormatVersion) {
+    return Status::FailedPrecondition("checkpoint format version " +
+                                      std::to_string(version) + " is not read here");
+  }
   SnapshotReader r(payload);
   Checkpoint checkpoint;
   r.Tag("PLCK");
@@ -70,9 +80,10 @@ StatusOr<Checkpoint> ParseCheckpointPayload(std::string_view payload) {
     stream = r.String();
     lines = r.U64();
   }
-  // Each record takes at least 8 + 8 + 8 + 1 + 32 bytes.
+  // Each record takes at least 8 + 8 + 8 + 1 + 32 bytes (and 8 more from
+  // version 2).
   std::vector<CheckpointSeries>& out = checkpoint.series;
-  out.resize(r.Count(57));
+  out.resize(r.Count(version >= 2 ? 65 : 57));
   for (CheckpointSeries& s : out) {
     s.name = r.String();
     s.wal_done = r.U64();
@@ -82,6 +93,14 @@ StatusOr<Checkpoint> ParseCheckpointPayload(std::string_view payload) {
     s.last_time = r.I64();
     s.last_value = r.F64();
     s.newest = r.I64();
+    if (version >= 2) {
+      s.covariate_history.resize(
+          r.BoundedCount(16, CovariateBoard::kDepth, "covariate observations"));
+      for (CovariateObservation& point : s.covariate_history) {
+        point.t = r.Time("covariate observation time");
+        point.value = r.Finite("covariate observation value");
+      }
+    }
   }
   if (r.ok() && !r.AtEnd()) r.Fail("bytes after the last series");
   if (!r.ok()) return r.status();
@@ -109,11 +128,12 @@ StatusOr<UnframedCheckpoint> UnframeCheckpoint(std::string_view file) {
     return Status::Corruption("not a checkpoint (too short or no PLUMBCKP header)");
   }
   const std::uint32_t version = ReadU32(file.data() + 8);
-  if (version != kCheckpointFormatVersion) {
+  if (version < kOldestCheckpointFormatVersion || version > kCheckpointFormatVersion) {
     return Status::FailedPrecondition(
         "checkpoint format version " + std::to_string(version) + "; this build reads " +
+        std::to_string(kOldestCheckpointFormatVersion) + " to " +
         std::to_string(kCheckpointFormatVersion) +
-        " only (run the build that wrote it, or move the file away to start afresh)");
+        " (run the build that wrote it, or move the file away to start afresh)");
   }
   const std::uint32_t crc = ReadU32(file.data() + 12);
   const std::string_view body = file.substr(16);
@@ -124,7 +144,8 @@ StatusOr<UnframedCheckpoint> UnframeCheckpoint(std::string_view file) {
         std::to_string(length) + " payload bytes");
   }
   if (Crc32c(body) != crc) return Status::Corruption("checkpoint checksum mismatch");
-  return UnframedCheckpoint{ReadU64(file.data() + 16), file.substr(kHeaderBytes)};
+  return UnframedCheckpoint{ReadU64(file.data() + 16), version,
+                            file.substr(kHeaderBytes)};
 }
 
 CheckpointStore::CheckpointStore(std::string directory, FileSystem* file_system)
@@ -162,6 +183,7 @@ StatusOr<std::string> CheckpointStore::Load(std::vector<std::string>* skipped) {
     if (!found || framed->generation > generation_) {
       found = true;
       generation_ = framed->generation;
+      format_version_ = framed->version;
       newest_slot_ = slot;
       best.assign(framed->payload);
     }
@@ -183,8 +205,6 @@ Status CheckpointStore::Save(std::string_view payload) {
   return Status::Ok();
 }
 
-// engine.cc
-std::vector<Annotation> AnnotationsFor(const Config& config, std::string_view name);
 
 namespace {
 
@@ -267,7 +287,10 @@ std::optional<std::string> Engine::SaveOneSeries(std::string_view name) const {
 
 void Engine::ForgetSeries(const std::vector<std::string>& names) {
   std::size_t forgotten = 0;
-  for (const std::string& name : names) forgotten += series_.erase(name);
+  for (const std::string& name : names) {
+    forgotten += series_.erase(name);
+    covariates_->Forget(name);  // its observations went with its state
+  }
   if (forgotten == 0) return;
   // Deadlines may name forgotten series: rebuild them.
   deadlines_ = {};
@@ -275,6 +298,15 @@ void Engine::ForgetSeries(const std::vector<std::string>& names) {
     series->scheduled.reset();
     Schedule(series.get());
   }
+}
+
+std::vector<CovariateObservation> Engine::CovariateHistory(std::string_view name) const {
+  return covariates_->History(name);
+}
+
+void Engine::RestoreCovariateHistory(std::string_view name,
+                                     const std::vector<CovariateObservation>& history) {
+  covariates_->Restore(name, history);
 }
 
 Status Engine::RestoreSeries(std::string_view name, std::string_view state,
@@ -318,8 +350,8 @@ Status Engine::RestoreSeries(std::string_view name, std::string_view state,
   } else {
     ++report->kept;
   }
-  series->monitor->SetAnnotations(AnnotationsFor(config_, series->name));
   Series* raw = series.get();
+  Wire(raw);  // annotations, and the covariates it reads and publishes
   series_[raw->name] = std::move(series);
   Schedule(raw);
   return Status::Ok();
@@ -340,6 +372,7 @@ CheckpointSeries ShardState::ToCheckpointSeries(const std::string& name,
   s.name = name;
   s.wal_done = wal_done;
   s.engine_state = std::move(engine_state);
+  s.covariate_history = engine_->CovariateHistory(name);
   if (const SeriesExtras* extras = Find(name)) {
     s.has_extras = true;
     s.readings = extras->readings;
@@ -376,6 +409,10 @@ Status ShardState::RestoreSeries(const CheckpointSeries& s, EventTime now,
   if (Status status = engine_->RestoreSeries(s.name, s.engine_state, report);
       !status.ok())
     return status;
+  // Whatever became of the series itself (kept, restarted, dropped), the
+  // series that read it as a covariate join its observations as an
+  // uninterrupted run would (a reload keeps them too).
+  engine_->RestoreCovariateHistory(s.name, s.covariate_history);
   if (!s.has_extras || !engine_->Find(s.name)) return Status::Ok();
   auto it = extras_.emplace(s.name, SeriesExtras{}).first;
   SeriesExtras& extras = it->second;

@@ -12,9 +12,16 @@
 //
 // (integers little-endian). Reading takes the valid file with the higher
 // generation; a file that is cut short, fails its checksum or is not a
-// checkpoint is reported and the other generation used. A file of another
-// format version is refused with a message naming both versions: this build
-// neither reads nor overwrites it, so a downgrade never destroys state.
+// checkpoint is reported and the other generation used. Writing uses the
+// current format version; reading also takes the older versions this build
+// knows (kOldestCheckpointFormatVersion on: what a version lacks is read as
+// empty, and the next checkpoint is written in the current one). A file of a
+// version outside that range is refused with a message naming the versions:
+// this build neither reads nor overwrites it, so a downgrade never destroys
+// state.
+//
+// Versions: 1, the first; 2 adds to each series record the covariate
+// observations the engine holds of it (Engine::CovariateHistory).
 //
 // The payload (detectors/snapshot.h encoding): "PLCK"; the write-ahead log's
 // position (daemon/write_ahead_log.h: next sequence, the sequence through
@@ -22,8 +29,10 @@
 // streams' line counts); u64 series count, then per series its name, the
 // sequence through which its shard's batches are in its state, the engine's
 // state of it (Engine::SaveSeries: the profile settings it ran under and its
-// monitor) and what the shard keeps beside it. Series are stored by name, not by shard, so a restart with
-// another shard count routes each to its new shard.
+// monitor), what the shard keeps beside it and (version 2) its covariate
+// observations, if a profile names it as a covariate. Series are stored by
+// name, not by shard, so a restart with another shard count routes each to
+// its new shard, its covariate observations with it.
 //
 // Thread-safety: CheckpointStore is used by one thread at a time.
 #pragma once
@@ -35,13 +44,15 @@
 #include <vector>
 
 #include "daemon/file_system.h"
+#include "detectors/covariate.h"
 #include "detectors/event_time.h"
 #include "detectors/snapshot.h"
 #include "detectors/status.h"
 
 namespace plumbline {
 
-inline constexpr std::uint32_t kCheckpointFormatVersion = 1;
+inline constexpr std::uint32_t kCheckpointFormatVersion = 2;
+inline constexpr std::uint32_t kOldestCheckpointFormatVersion = 1;
 
 // The payload's opening.
 struct CheckpointHead {
@@ -60,6 +71,9 @@ struct CheckpointSeries {
   double last_value = 0.0;
   EventTime newest = 0;
   bool has_extras = false;
+  // Version 2: the series' observations on the covariate board, oldest first
+  // (empty when no profile names it as a covariate).
+  std::vector<CovariateObservation> covariate_history;
 };
 
 // Appends one series record to a payload under construction.
@@ -67,18 +81,20 @@ void WriteCheckpointSeries(const CheckpointSeries& series, SnapshotWriter& w);
 // The payload's opening: its tag, the head and the number of series records
 // after it.
 std::string CheckpointPayloadHead(const CheckpointHead& head, std::uint64_t series);
-// Parses a whole payload.
+// Parses a whole payload written in format `version` (one this build reads).
 struct Checkpoint {
   CheckpointHead head;
   std::vector<CheckpointSeries> series;
 };
-StatusOr<Checkpoint> ParseCheckpointPayload(std::string_view payload);
+StatusOr<Checkpoint> ParseCheckpointPayload(
+    std::string_view payload, std::uint32_t version = kCheckpointFormatVersion);
 
 // The frame around a payload, and its check (Corruption, or
 // FailedPrecondition for another format version).
 std::string FrameCheckpoint(std::string_view payload, std::uint64_t generation);
 struct UnframedCheckpoint {
   std::uint64_t generation = 0;
+  std::uint32_t version = kCheckpointFormatVersion;  // of the payload
   std::string_view payload;  // into the framed bytes
 };
 StatusOr<UnframedCheckpoint> UnframeCheckpoint(std::string_view file);
@@ -101,10 +117,11 @@ class CheckpointStore {
   // `file_system` must outlive the store.
   CheckpointStore(std::string directory, FileSystem* file_system);
 
-  // Reads both generations; returns the newest good payload. NotFound when
-  // there is none (a first start), FailedPrecondition when the newest file
-  // is of another format version. Every file passed over is described in
-  // *skipped (path and reason), for the log.
+  // Reads both generations; returns the newest good payload (its format
+  // version in format_version()). NotFound when there is none (a first
+  // start), FailedPrecondition when a file is of a version this build does
+  // not read. Every file passed over is described in *skipped (path and
+  // reason), for the log.
   StatusOr<std::string> Load(std::vector<std::string>* skipped);
 
   // Writes `payload` as the next generation, over the older file.
@@ -112,12 +129,14 @@ class CheckpointStore {
 
   std::string Path(int slot) const;
   std::uint64_t generation() const { return generation_; }
+  std::uint32_t format_version() const { return format_version_; }
 
  private:
   std::string directory_;
   FileSystem* file_system_;
   std::uint64_t generation_ = 0;  // of the newest good file
   int newest_slot_ = 1;           // so that the first Save writes slot 0
+  std::uint32_t format_version_ = kCheckpointFormatVersion;  // of the newest good file
 };
 
 }  // namespace plumbline

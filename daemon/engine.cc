@@ -171,36 +171,19 @@ std::string AlertToText(const Alert& a) {
   return out;
 }
 
-void SharedCovariateBoard::SetWanted(const Config& config) {
+// The names every profile lists as covariates.
+static std::vector<std::string> CovariateNames(const Config& config) {
   std::vector<std::string> wanted;
   for (const ProfileOptions& profile : config.series) {
     wanted.insert(wanted.end(), profile.covariates.begin(), profile.covariates.end());
   }
-  std::unique_lock lock(mutex_);
-  board_.SetWanted(std::move(wanted));
-}
-
-bool SharedCovariateBoard::Wants(std::string_view series) const {
-  std::shared_lock lock(mutex_);
-  return board_.Wants(series);
-}
-
-void SharedCovariateBoard::Publish(std::string_view series, EventTime t, double value) {
-  std::unique_lock lock(mutex_);
-  board_.Publish(series, t, value);
-}
-
-std::optional<double> SharedCovariateBoard::ValueAsOf(std::string_view series, EventTime t,
-                                                      EventTime max_age) const {
-  std::shared_lock lock(mutex_);
-  return board_.ValueAsOf(series, t, max_age);
+  return wanted;
 }
 
 Engine::Engine(Config config, EngineOptions options)
     : config_(std::move(config)), options_(std::move(options)) {
   designs_.resize(config_.series.size());
-  if (!options_.covariates) options_.covariates = std::make_shared<SharedCovariateBoard>();
-  options_.covariates->SetWanted(config_);
+  covariates_ = std::make_unique<CovariateBoard>(CovariateNames(config_));
 }
 
 void Engine::StartMonitor(Series* series) {
@@ -210,7 +193,7 @@ void Engine::StartMonitor(Series* series) {
 
 void Engine::Wire(Series* series) {
   series->monitor->SetAnnotations(AnnotationsFor(config_, series->name));
-  SharedCovariateBoard* board = options_.covariates.get();
+  CovariateBoard* board = covariates_.get();
   series->monitor->ConnectCovariates(board, board->Wants(series->name) ? board : nullptr,
                                      series->name);
 }
@@ -342,7 +325,7 @@ ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
     if (design) retired_designs_.push_back(std::move(design));
   }
   config_ = std::move(config);
-  options_.covariates->SetWanted(config_);
+  covariates_->SetWanted(CovariateNames(config_));
   designs_.clear();
   designs_.resize(config_.series.size());
   // Calibrated designs pass to new profiles with the same settings.

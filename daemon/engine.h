@@ -10,7 +10,6 @@
 #include <memory>
 #include <optional>
 #include <queue>
-#include <shared_mutex>
 #include <string>
 #include <string_view>
 #include <unordered_map>
@@ -76,31 +75,12 @@ bool SameProfileSettings(const ProfileOptions& a, const ProfileOptions& b);
 // thresholds: a series can then be retuned instead of restarted.
 bool SameModelSettings(const ProfileOptions& a, const ProfileOptions& b);
 
-// Covariate values shared by every engine of a daemon (one per shard, so a
-// covariate may live in another shard than the series it explains): a
-// CovariateBoard behind a lock. Only series that some profile names as a
-// covariate publish to it. Thread-safe.
-class SharedCovariateBoard : public CovariateSource, public CovariateSink {
- public:
-  void SetWanted(const Config& config);
-  bool Wants(std::string_view series) const;
-  void Publish(std::string_view series, EventTime t, double value) override;
-  std::optional<double> ValueAsOf(std::string_view series, EventTime t,
-                                  EventTime max_age) const override;
-
- private:
-  mutable std::shared_mutex mutex_;
-  CovariateBoard board_;
-};
-
 struct EngineOptions {
   std::size_t max_series = 1'000'000;  // new series beyond this are refused
   // Empty: ProfileDesign::Make. serve shares one memoizing maker among its
   // shards, so each profile is calibrated once; a shared one must be
   // thread-safe.
   DesignMaker make_design;
-  // Shared with the daemon's other engines; empty: the engine keeps its own.
-  std::shared_ptr<SharedCovariateBoard> covariates;
   bool IsValid(std::string* why) const;
 };
 
@@ -151,6 +131,14 @@ class Engine {
   // series whose state now belongs to another instance (no events).
   std::optional<std::string> SaveOneSeries(std::string_view name) const;
   void ForgetSeries(const std::vector<std::string>& names);
+  // The covariate observations this engine holds of `name` (empty when no
+  // profile names it as a covariate), and their restoration (kept only when
+  // some profile names it now). A series and the covariates it reads live in
+  // one engine (serve routes them to one shard: daemon/shard.h), so a
+  // checkpoint saves them with the covariate's series record.
+  std::vector<CovariateObservation> CovariateHistory(std::string_view name) const;
+  void RestoreCovariateHistory(std::string_view name,
+                               const std::vector<CovariateObservation>& history);
 
   std::size_t series_count() const { return series_.size(); }
   const SeriesMonitor* Find(std::string_view series) const;
@@ -175,6 +163,10 @@ class Engine {
 
   Config config_;
   EngineOptions options_;
+  // The observations of the series some profile names as a covariate; on the
+  // heap so that the monitors' pointers to it stay valid, and declared before
+  // the series so that it outlives their monitors.
+  std::unique_ptr<CovariateBoard> covariates_;
   std::vector<std::unique_ptr<ProfileDesign>> designs_;  // index: profile index
   // Designs of replaced profiles that kept series still use (after Reconfigure).
   std::vector<std::unique_ptr<ProfileDesign>> retired_designs_;

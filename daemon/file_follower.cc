@@ -8,6 +8,8 @@
 #include <charconv>
 #include <cstdio>
 #include <cstring>
+#include <shared_mutex>
+#include <utility>
 #include <vector>
 
 #include "daemon/log.h"
@@ -66,6 +68,30 @@ std::string FollowStatePath(const std::string& state_directory, const std::strin
   std::string out = state_directory;
   if (!out.empty() && out.back() != '/') out += '/';
   return out + name;
+}
+
+std::string FollowStreamName(const FollowStream& stream) {
+  return "file:" + std::to_string(stream.device) + ":" + std::to_string(stream.inode) + ":" +
+         std::to_string(stream.epoch) + " " + stream.path;
+}
+
+std::optional<FollowStream> ParseFollowStreamName(std::string_view name) {
+  constexpr std::string_view kPrefix = "file:";
+  if (name.substr(0, kPrefix.size()) != kPrefix) return std::nullopt;
+  name.remove_prefix(kPrefix.size());
+  FollowStream stream;
+  for (std::uint64_t* field : {&stream.device, &stream.inode, &stream.epoch}) {
+    const auto [end, ec] = std::from_chars(name.data(), name.data() + name.size(), *field);
+    if (ec != std::errc() || end == name.data() || end == name.data() + name.size()) {
+      return std::nullopt;
+    }
+    const char separator = field == &stream.epoch ? ' ' : ':';
+    if (*end != separator) return std::nullopt;
+    name.remove_prefix(static_cast<std::size_t>(end - name.data()) + 1);
+  }
+  if (name.empty()) return std::nullopt;
+  stream.path = std::string(name);
+  return stream;
 }
 
 FileFollower::FileFollower(FileInputOptions options, std::string state_directory,
@@ -149,7 +175,12 @@ bool FileFollower::OpenCurrent(bool use_saved) {
                static_cast<std::uint64_t>(info.st_ino), 0};
   const auto size = static_cast<std::uint64_t>(info.st_size);
   std::string_view from = "start";
-  if (use_saved && saved_) {
+  const std::optional<std::uint64_t> resumed = wal_ ? ResumeFromLog(size) : std::nullopt;
+  if (resumed) {
+    position_.offset = *resumed;
+    from = *resumed > 0 ? "checkpointed offset"
+                        : "start (new, replaced or truncated file, or nothing of it read)";
+  } else if (use_saved && saved_) {
     if (saved_->device == position_.device && saved_->inode == position_.inode &&
         size >= saved_->offset) {
       position_.offset = saved_->offset;
@@ -161,6 +192,7 @@ bool FileFollower::OpenCurrent(bool use_saved) {
     position_.offset = size;
     from = "end";
   }
+  if (wal_ && !resumed) BeginStream(0, position_.offset);
   ::lseek(fd_, static_cast<off_t>(position_.offset), SEEK_SET);
   committed_.store(position_.offset);
   status_logged_ = false;
@@ -170,6 +202,61 @@ bool FileFollower::OpenCurrent(bool use_saved) {
                              {"offset", position_.offset},
                              {"size", size}});
   return true;
+}
+
+std::optional<std::uint64_t> FileFollower::ResumeFromLog(std::uint64_t size) {
+  bool path_known = false;
+  std::optional<std::pair<FollowStream, std::uint64_t>> latest;  // this file's newest epoch
+  for (const auto& [name, offset] : wal_->Streams(nullptr)) {
+    auto stream = ParseFollowStreamName(name);
+    if (!stream || stream->path != options_.path) continue;
+    path_known = true;
+    if (stream->device != position_.device || stream->inode != position_.inode) continue;
+    if (!latest || stream->epoch > latest->first.epoch) latest.emplace(*stream, offset);
+  }
+  if (!path_known) return std::nullopt;
+  if (!latest) {  // the path names another file now
+    BeginStream(0, 0);
+    return 0;
+  }
+  if (latest->second > size) {  // truncated while stopped
+    BeginStream(latest->first.epoch + 1, 0);
+    return 0;
+  }
+  BeginStream(latest->first.epoch, latest->second);
+  return latest->second;
+}
+
+void FileFollower::BeginStream(std::uint64_t epoch, std::uint64_t offset) {
+  stream_ = FollowStream{position_.device, position_.inode, epoch, options_.path};
+  stream_name_ = FollowStreamName(stream_);
+  marked_ = offset;
+  router_->set_stream(stream_name_);
+  // The path's other streams (files it named before, earlier epochs) are done.
+  for (const auto& entry : wal_->Streams(nullptr)) {
+    auto stream = ParseFollowStreamName(entry.first);
+    if (stream && stream->path == options_.path && entry.first != stream_name_) {
+      wal_->ForgetStream(entry.first);
+    }
+  }
+  // Batches an earlier run pushed after its last mark were never covered by
+  // one: the resume keeps a replay from taking them (the lines are read again).
+  wal_->AppendResume(stream_name_, offset);
+}
+
+bool FileFollower::Deliver(std::string_view bytes, bool finish) {
+  std::shared_lock<std::shared_mutex> gate;  // pushes and their mark together
+  if (wal_) gate = std::shared_lock<std::shared_mutex>(wal_->stream_gate());
+  if (!bytes.empty()) parser_->Feed(bytes);
+  if (finish) parser_->Finish();
+  const bool ok = router_->Flush();
+  const std::uint64_t committed = position_.offset - (finish ? 0 : parser_->pending_bytes());
+  committed_.store(committed);
+  if (wal_ && ok && committed != marked_) {
+    wal_->AppendMark(stream_name_, committed);
+    marked_ = committed;
+  }
+  return ok;
 }
 
 void FileFollower::CloseFile() {
@@ -194,10 +281,9 @@ bool FileFollower::ReadAvailable() {
     }
     if (n == 0) return true;
     position_.offset += static_cast<std::uint64_t>(n);
-    parser_->Feed(std::string_view(buffer.data(), static_cast<std::size_t>(n)));
-    const bool ok = router_->Flush();
-    committed_.store(position_.offset - parser_->pending_bytes());
-    if (!ok) return false;
+    if (!Deliver(std::string_view(buffer.data(), static_cast<std::size_t>(n)), false)) {
+      return false;
+    }
   }
 }
 
@@ -243,8 +329,7 @@ void FileFollower::Run() {
            static_cast<std::uint64_t>(by_path.st_ino) != position_.inode)) {
         // Rotated: the old file is complete; its last line counts.
         ReadAvailable();
-        parser_->Finish();
-        router_->Flush();
+        Deliver({}, true);
         LogInfo("file rotated; following the new one",
                 {{"input", "file"},
                  {"path", options_.path},
@@ -264,6 +349,7 @@ void FileFollower::Run() {
         ::lseek(fd_, 0, SEEK_SET);
         position_.offset = 0;
         committed_.store(0);
+        if (wal_) BeginStream(stream_.epoch + 1, 0);
         NewParser();
         reopened_.fetch_add(1);
         SavePosition(true);

@@ -16,6 +16,21 @@
 //   long; otherwise the file is read from its start (it was replaced or
 //   truncated while the daemon was down), or from its end when start_at is
 //   `end` and no offset was ever saved.
+// - With checkpoints (a write-ahead log), the offset is part of the durable
+//   state instead: the follower is a stream of the log (FollowStreamName:
+//   the file's device, inode and an epoch that grows when the file is
+//   truncated), its batches carry that name, and after each read it logs a
+//   mark holding the offset of the last complete line pushed, under the
+//   log's stream gate, as an acknowledged TCP connection does. A checkpoint's
+//   stream table then holds exactly the offset whose readings are in the
+//   checkpoint or in the log after it, and a restart replays only the
+//   batches a mark follows. At start the follower resumes at the offset the
+//   table holds for the file it finds (logging a resume record, so the
+//   batches of an earlier run after its last mark are never taken): from the
+//   start if the table knows the path only under another device and inode,
+//   or the file is shorter than the offset (replaced or truncated while
+//   stopped). The offset file above is then read only when the table knows
+//   nothing of the path (a state directory from before), and still written.
 // - Backpressure: a full shard queue blocks this thread, which simply reads
 //   later; the file is the buffer.
 //
@@ -28,6 +43,7 @@
 #include <mutex>
 #include <optional>
 #include <string>
+#include <string_view>
 #include <thread>
 
 #include "config/service_options.h"
@@ -35,6 +51,7 @@
 #include "daemon/file_system.h"
 #include "daemon/pipeline_observer.h"
 #include "daemon/shard.h"
+#include "daemon/write_ahead_log.h"
 #include "detectors/status.h"
 
 namespace plumbline {
@@ -51,6 +68,17 @@ std::optional<FollowPosition> ParseFollowPosition(std::string_view text);
 // The state file of `path` inside `state_directory`.
 std::string FollowStatePath(const std::string& state_directory, const std::string& path);
 
+// A followed file as a stream of the write-ahead log:
+// "file:<device>:<inode>:<epoch> <path>"; the stream's mark is a byte offset.
+struct FollowStream {
+  std::uint64_t device = 0;
+  std::uint64_t inode = 0;
+  std::uint64_t epoch = 0;  // truncations of the same file seen so far
+  std::string path;
+};
+std::string FollowStreamName(const FollowStream& stream);
+std::optional<FollowStream> ParseFollowStreamName(std::string_view name);
+
 class FileFollower {
  public:
   static constexpr int kLoggedRejections = 5;  // bad lines logged per file, then counted
@@ -59,6 +87,10 @@ class FileFollower {
   FileFollower(FileInputOptions options, std::string state_directory, ShardSet* shards,
                FileSystem* file_system, PipelineObserver* observer);
   ~FileFollower();  // stops
+
+  // With checkpoints: the log whose stream table holds the offset (see
+  // above). Call before Start; `wal` must outlive the follower.
+  void set_write_ahead_log(WriteAheadLog* wal) { wal_ = wal; }
 
   // Reads the saved position and starts the thread. The file need not exist yet.
   void Start();
@@ -78,6 +110,17 @@ class FileFollower {
   void CloseFile();
   // Reads to the end of the open file; false when shards stopped taking input.
   bool ReadAvailable();
+  // Feeds `bytes` (and with `finish` ends the last line), pushes what was
+  // routed and marks the stream's new offset, all under the stream gate.
+  // False when the shards stopped taking input.
+  bool Deliver(std::string_view bytes, bool finish);
+  // With a log: picks the stream and offset for the file just opened (see
+  // above) and logs its resume; returns the offset, or nullopt when the table
+  // knows nothing of the path.
+  std::optional<std::uint64_t> ResumeFromLog(std::uint64_t size);
+  // With a log: makes (device, inode, epoch) of the open file the stream
+  // its batches and marks carry, from `offset`, and logs its resume.
+  void BeginStream(std::uint64_t epoch, std::uint64_t offset);
   void SavePosition(bool force);
   void NewParser();
 
@@ -92,8 +135,13 @@ class FileFollower {
   bool stop_ = false;
   std::thread thread_;
 
+  WriteAheadLog* wal_ = nullptr;
+
   // Follower thread only:
   int fd_ = -1;
+  FollowStream stream_;          // with a log: the open file's stream
+  std::string stream_name_;      // FollowStreamName(stream_)
+  std::uint64_t marked_ = 0;     // offset of its last mark
   FollowPosition position_;              // of the open file; offset = bytes read
   std::optional<FollowPosition> saved_;  // as loaded or last written
   std::chrono::steady_clock::time_point last_save_{};

@@ -356,7 +356,7 @@ StatusOr<PartitionState> DecodePartitionState(std::string_view record,
                                               std::int32_t partition) {
   auto framed = UnframeCheckpoint(record);
   if (!framed.ok()) return framed.status();
-  auto checkpoint = ParseCheckpointPayload(framed->payload);
+  auto checkpoint = ParseCheckpointPayload(framed->payload, framed->version);
   if (!checkpoint.ok()) return checkpoint.status();
   const std::string stream = StreamName(topic, partition);
   if (checkpoint->head.streams.size() != 1 ||

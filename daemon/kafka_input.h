@@ -33,6 +33,15 @@
 // again with the same stable ids (duplicates a consumer can drop by id),
 // and none is lost, because a record is written only after its alerts left.
 //
+// Covariates (detectors/covariate.h). A covariate's recent observations are
+// part of its series record, so they move with its partition. Within an
+// instance a series and its covariates share a shard (daemon/covariate_groups.h)
+// whatever partitions they come from; but the join follows arrival order, which
+// across partitions is the consumer's interleaving, and an instance that does
+// not own the covariate's partition never sees it (the series then reads the
+// covariate's mean). Producing a covariate to the partition of the series that
+// reads it keeps the join deterministic and on one instance.
+//
 // Thread-safety: Start and Stop from one controlling thread; the counters from
 // any. The consumer and its rebalances run on the input's own thread.
 #pragma once

@@ -198,8 +198,6 @@ Status Service::Start() {
   shard_options.engine.make_design = [designs = designs_](const ProfileOptions& profile) {
     return designs->Make(profile);
   };
-  // One covariate board for all shards: a covariate may live in another shard.
-  shard_options.engine.covariates = std::make_shared<SharedCovariateBoard>();
   AlertPublisher* publisher = dispatcher_.get();
   if (wal_ && options.sinks.alert_log.enabled) {  // a restart replays the log's tail
     known_alerts_ = MakeKnownAlertFilter(
@@ -235,6 +233,7 @@ Status Service::Start() {
   for (const FileInputOptions& file : options.files) {
     followers_.push_back(std::make_unique<FileFollower>(
         file, options.state_directory, shards_.get(), deps_.file_system, deps_.observer));
+    followers_.back()->set_write_ahead_log(wal_.get());  // null without checkpoints
     followers_.back()->Start();
   }
   if (options.kafka.enabled()) {
@@ -321,6 +320,14 @@ StatusOr<ReloadReport> Service::Reload(const Config& config) {
   const std::vector<std::string> after = DescribeService(config.service);
   for (std::size_t i = 0; i < after.size(); ++i) {
     if (i >= before.size() || before[i] != after[i]) report.ignored.push_back(after[i]);
+  }
+  // Running series stay on their shards: until a restart places them by the
+  // new relations, a series whose covariate is on another shard reads it as
+  // missing (its running mean).
+  if (!shards_->groups().SamePlacement(CovariateGroups(config))) {
+    report.ignored.push_back(
+        "covariate relations (which series share a shard; until then a covariate on "
+        "another shard reads as missing)");
   }
   // Shared, not referenced: a task that outlives a timed-out wait still has it.
   // The annotations made through the API stay.

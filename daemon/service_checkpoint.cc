@@ -42,7 +42,7 @@ Status Service::StartCheckpoints() {
   }
   Checkpoint checkpoint;
   if (payload.ok()) {
-    auto parsed = ParseCheckpointPayload(*payload);
+    auto parsed = ParseCheckpointPayload(*payload, store->format_version());
     if (!parsed.ok()) {
       // The checksum held, so this is a bug or a foreign writer, not a torn file.
       return Status::Corruption("checkpoint in " + options.state_directory + ": " +

@@ -6,18 +6,6 @@
 #include "daemon/write_ahead_log.h"
 
 namespace plumbline {
-namespace {
-
-std::uint64_t Fnv1a(std::string_view text) {
-  std::uint64_t hash = 1469598103934665603ULL;
-  for (unsigned char c : text) {
-    hash ^= c;
-    hash *= 1099511628211ULL;
-  }
-  return hash;
-}
-
-}  // namespace
 
 bool ShardOptions::IsValid(std::string* why) const {
   auto fail = [why](const char* message) {
@@ -321,7 +309,8 @@ void Shard::Publish() {
 
 ShardSet::ShardSet(std::size_t count, const Config& config, const ShardOptions& options,
                    const Clock* clock, AlertPublisher* publisher,
-                   PipelineObserver* observer) {
+                   PipelineObserver* observer)
+    : groups_(config) {
   for (std::size_t i = 0; i < std::max<std::size_t>(count, 1); ++i) {
     shards_.push_back(
         std::make_unique<Shard>(i, config, options, clock, publisher, observer));
@@ -333,7 +322,7 @@ void ShardSet::Start() {
 }
 
 std::size_t ShardSet::ShardFor(std::string_view series) const {
-  return static_cast<std::size_t>(Fnv1a(series) % shards_.size());
+  return static_cast<std::size_t>(groups_.RouteHash(series) % shards_.size());
 }
 
 void ShardSet::CloseAndJoin(

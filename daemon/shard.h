@@ -45,6 +45,7 @@
 
 #include "config/config.h"
 #include "daemon/clock.h"
+#include "daemon/covariate_groups.h"
 #include "daemon/engine.h"
 #include "daemon/ingest_budget.h"
 #include "daemon/pipeline_observer.h"
@@ -260,8 +261,9 @@ class Shard {
   std::vector<Alert> out_;
 };
 
-// The set of shards and the stable routing of a series name to one of them.
-// Thread-safe as Shard is.
+// The set of shards and the stable routing of a series name to one of them:
+// a series goes to the shard of its covariates (daemon/covariate_groups.h),
+// any other by its own name. Thread-safe as Shard is.
 class ShardSet {
  public:
   ShardSet(std::size_t count, const Config& config, const ShardOptions& options,
@@ -270,9 +272,14 @@ class ShardSet {
 
   std::size_t size() const { return shards_.size(); }
   Shard& shard(std::size_t i) { return *shards_[i]; }
-  // FNV-1a of the name, modulo the shard count: the same shard for a name in
-  // every run with the same shard count.
+  // FNV-1a of the series' route key (its own name unless covariates tie it
+  // to others: CovariateGroups::RouteKey), modulo the shard count: the same
+  // shard for a name in every run with the same shard count and covariate
+  // relations, and one shard for a series and the covariates it reads.
   std::size_t ShardFor(std::string_view series) const;
+  // The covariate groups of the config the set started with. They stay for
+  // the set's life: a reload does not move running series between shards.
+  const CovariateGroups& groups() const { return groups_; }
 
   // Closes every shard's input and joins them all.
   void CloseAndJoin(
@@ -285,6 +292,7 @@ class ShardSet {
 
  private:
   std::vector<std::unique_ptr<Shard>> shards_;
+  const CovariateGroups groups_;
   IngestBudget* budget_ = nullptr;
 };
 

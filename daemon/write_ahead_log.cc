@@ -330,6 +330,11 @@ void WriteAheadLog::SetStreams(std::unordered_map<std::string, std::uint64_t> st
   streams_ = std::move(streams);
 }
 
+void WriteAheadLog::ForgetStream(std::string_view stream) {
+  std::lock_guard<std::mutex> lock(mutex_);
+  streams_.erase(std::string(stream));
+}
+
 std::uint64_t WriteAheadLog::bytes_written() const {
   std::lock_guard<std::mutex> lock(mutex_);
   return bytes_;

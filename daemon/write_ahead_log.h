@@ -100,6 +100,10 @@ class WriteAheadLog {
   std::unordered_map<std::string, std::uint64_t> Streams(std::uint64_t* through) const;
   // Seeds the table (from a checkpoint) before Replay.
   void SetStreams(std::unordered_map<std::string, std::uint64_t> streams);
+  // Drops a stream from the table (a followed file that was replaced), so
+  // the table does not grow with every rotation. Not logged: a replay of
+  // older marks may bring it back, which only costs its line in the table.
+  void ForgetStream(std::string_view stream);
   // Bytes written and fsyncs done (group commit: many records per fsync).
   std::uint64_t bytes_written() const;
   std::uint64_t syncs() const;

@@ -1097,32 +1097,53 @@ Status RunLengthPosterior::Load(SnapshotReader& r) {
   const std::uint64_t begin = r.U64();
   const std::uint64_t end = r.U64();
   if (!r.ok()) return r.status();
-  if (slots != slots_ || begin > end || end > slots_) {
+  // At least the r = 0 state, at most R + 1 states (the cap merges the rest).
+  if (slots != slots_ || begin >= end || end > slots_ ||
+      end - begin > static_cast<std::uint64_t>(cap_) + 1) {
     return r.Fail("run-length posterior does not fit this cap");
   }
   if ((end - begin) * 40 > r.remaining())
     return r.Fail("run-length states run past the end");
   begin_ = static_cast<std::size_t>(begin);
   end_ = static_cast<std::size_t>(end);
-  for (auto* v : {&mu_, &beta_, &log_mass_, &weight_}) {
-    std::fill(v->begin(), v->end(), 0.0);
-    r.Doubles(v->data() + begin_, end_ - begin_);
-  }
+  const std::size_t n = end_ - begin_;
+  for (auto* v : {&mu_, &beta_, &log_mass_, &weight_}) std::fill(v->begin(), v->end(), 0.0);
+  r.FiniteDoubles(mu_.data() + begin_, n, "run-length mean");
+  r.FiniteDoubles(beta_.data() + begin_, n, "run-length rate");
+  r.FiniteDoubles(log_mass_.data() + begin_, n, "run-length log mass");
+  r.FiniteDoubles(weight_.data() + begin_, n, "run-length weight");
   std::fill(birth_.begin(), birth_.end(), 0);
   for (std::size_t i = begin_; i < end_; ++i) birth_[i] = r.I64();
   map_slot_ = static_cast<std::size_t>(r.U64());
-  scale_ = r.F64();
-  log_shift_ = r.F64();
+  scale_ = r.Finite("run-length scale");
+  log_shift_ = r.Finite("run-length log shift");
   const std::size_t states = recent_.size();
-  recent_ = r.DoubleVector();
+  recent_.assign(r.BoundedCount(8, states, "run-length recent readings"), 0.0);
+  r.FiniteDoubles(recent_.data(), recent_.size(), "run-length recent reading");
   recent_at_ = static_cast<std::size_t>(r.U64());
-  readings_ = r.I64();
-  log_evidence_ = r.F64();
-  last_log_predictive_ = r.F64();
-  if (r.ok() &&
-      (recent_.size() != states || recent_at_ >= states || map_slot_ >= slots_)) {
+  readings_ = r.Counter("run-length readings");
+  log_evidence_ = r.Finite("run-length log evidence");
+  last_log_predictive_ = r.Finite("run-length log predictive");
+  if (!r.ok()) return r.status();
+  if (recent_.size() != states || recent_at_ >= states || map_slot_ < begin_ ||
+      map_slot_ >= end_) {
     return r.Fail("run-length posterior does not fit this cap");
   }
+  if (!(scale_ > 0)) return r.Fail("run-length scale is not positive");
+  // The update indexes its per-age tables by readings - birth, so every run
+  // length must be in [0, R], the oldest state first, and the newest r = 0.
+  std::int64_t previous = -1;
+  for (std::size_t i = begin_; i < end_; ++i) {
+    const std::int64_t run = readings_ - birth_[i];
+    if (birth_[i] < 0 || run < 0 || run > cap_ || (i > begin_ && run >= previous)) {
+      return r.Fail("run-length state " + std::to_string(i - begin_) +
+                    " has an impossible run length");
+    }
+    previous = run;
+    if (!(beta_[i] > 0)) return r.Fail("run-length rate is not positive");
+    if (weight_[i] < 0) return r.Fail("run-length weight is negative");
+  }
+  if (previous != 0) return r.Fail("run-length posterior lacks its r = 0 state");
   return r.status();
 }
 
@@ -1148,18 +1169,27 @@ Status Bocpd::Load(SnapshotReader& r) {
   const std::size_t window = times_.size();
   times_ = r.I64Vector();
   if (r.ok() && times_.size() != window) return r.Fail("BOCPD window differs");
+  for (EventTime t : times_) {
+    if (r.ok() && (t < -SnapshotReader::kMaxTime || t > SnapshotReader::kMaxTime)) {
+      return r.Fail("BOCPD reading time " + std::to_string(t) + " is out of the time range");
+    }
+  }
   if (r.Count(16) != snapshots_.size()) return r.Fail("BOCPD window differs");
   for (Snapshot& s : snapshots_) {
-    s.mean = r.F64();
-    s.variance = r.F64();
+    s.mean = r.Finite("BOCPD run mean");
+    s.variance = r.NonNegative("BOCPD run variance");
   }
   time_at_ = static_cast<std::size_t>(r.U64());
   snapshot_at_ = static_cast<std::size_t>(r.U64());
-  change_probability_ = r.F64();
+  change_probability_ = r.NonNegative("BOCPD change probability");
   above_ = r.Bool();
-  alarms_ = r.I64();
+  alarms_ = r.Counter("BOCPD alarms");
   if (r.ok() && (time_at_ >= times_.size() || snapshot_at_ >= snapshots_.size())) {
     return r.Fail("BOCPD ring position out of range");
+  }
+  // Rounding may put a sum of probabilities a few ulps past 1, never further.
+  if (r.ok() && change_probability_ > 1.0 + 1e-9) {
+    return r.Fail("BOCPD change probability is above 1");
   }
   return r.status();
 }

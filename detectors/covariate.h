@@ -12,8 +12,9 @@
 // stamped with the end of the interval it covers.
 //
 // CovariateBoard keeps the last kDepth observations of each series that some
-// profile names as a covariate. It is not thread-safe; daemon/ wraps it with a
-// lock where shards share one.
+// profile names as a covariate. It is not thread-safe: each engine owns one,
+// and serve routes a series to the shard of its covariates (daemon/shard.h),
+// so the join happens in one shard in arrival order, as replay does.
 #pragma once
 
 #include <cstddef>
@@ -46,6 +47,14 @@ class CovariateSink {
   virtual void Publish(std::string_view series, EventTime t, double value) = 0;
 };
 
+// One observation of a covariate: its value, stamped with the end of the
+// interval it covers.
+struct CovariateObservation {
+  EventTime t = 0;
+  double value = 0.0;
+  bool operator==(const CovariateObservation&) const = default;
+};
+
 class CovariateBoard : public CovariateSource, public CovariateSink {
  public:
   // Observations kept per series: enough for a series bucketed by the hour to
@@ -61,11 +70,17 @@ class CovariateBoard : public CovariateSource, public CovariateSink {
   std::optional<double> ValueAsOf(std::string_view series, EventTime t,
                                   EventTime max_age) const override;
 
+  // Checkpoints (daemon/checkpoint.h) and partition moves carry a covariate's
+  // observations with its series. History: oldest first (empty when none).
+  std::vector<CovariateObservation> History(std::string_view series) const;
+  // Replaces the observations of `series` with `history` (time order; the
+  // newest kDepth kept), if the board wants the series; else ignores them.
+  void Restore(std::string_view series, const std::vector<CovariateObservation>& history);
+  // Drops the observations of `series` (its state moved to another instance).
+  void Forget(std::string_view series);
+
  private:
-  struct Point {
-    EventTime t;
-    double value;
-  };
+  using Point = CovariateObservation;
   struct Hash {
     using is_transparent = void;
     std::size_t operator()(std::string_view s) const {

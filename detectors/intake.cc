@@ -214,17 +214,23 @@ void Intake::Save(SnapshotWriter& w) const {
 Status Intake::Load(SnapshotReader& r) {
   r.Tag("INTK");
   has_reading_ = r.Bool();
-  last_time_ = r.I64();
-  last_value_ = r.F64();
+  last_time_ = r.Time("intake last time");
+  last_value_ = r.Finite("intake last value");
   bucket_open_ = r.Bool();
-  bucket_ = r.I64();
-  sum_ = r.F64();
-  covered_ = r.F64();
+  bucket_ = r.Time("intake bucket");
+  sum_ = r.Finite("intake bucket sum");
+  covered_ = r.NonNegative("intake bucket coverage");
   partial_ = r.Bool();
   has_emitted_ = r.Bool();
-  last_emitted_bucket_ = r.I64();
-  last_emitted_value_ = r.F64();
-  unfilled_ = r.I64();
+  last_emitted_bucket_ = r.Time("intake last emitted bucket");
+  last_emitted_value_ = r.Finite("intake last emitted value");
+  unfilled_ = r.Counter("intake unfilled buckets");
+  if (!r.ok()) return r.status();
+  // Buckets start on multiples of the width; filling and closing step by it.
+  if (every_ && ((bucket_open_ && BucketStart(bucket_) != bucket_) ||
+                 (has_emitted_ && BucketStart(last_emitted_bucket_) != last_emitted_bucket_))) {
+    return r.Fail("intake bucket is not on a bucket boundary");
+  }
   return r.status();
 }
 

@@ -103,9 +103,9 @@ Status ResidualProfile::Load(SnapshotReader& r) {
   for (std::vector<Bin_>* bins : {&bins_, &folded_}) {
     if (r.Count(24) != bins->size()) return r.Fail("phase profile bins differ");
     for (Bin_& b : *bins) {
-      b.n = r.F64();
-      b.mean = r.F64();
-      b.s2 = r.F64();
+      b.n = r.NonNegative("phase profile bin count");
+      b.mean = r.Finite("phase profile bin mean");
+      b.s2 = r.NonNegative("phase profile bin variance ratio");
     }
   }
   return r.status();

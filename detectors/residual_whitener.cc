@@ -120,13 +120,29 @@ void ResidualWhitener::Save(SnapshotWriter& w) const {
 Status ResidualWhitener::Load(SnapshotReader& r) {
   r.Tag("WHIT");
   has_previous_ = r.Bool();
-  previous_time_ = r.I64();
-  for (double* v : {&state_mean_, &state_variance_, &u1_, &u2_, &lags1_}) *v = r.F64();
+  previous_time_ = r.Time("whitener previous time");
+  state_mean_ = r.Finite("whitener state mean");
+  state_variance_ = r.NonNegative("whitener state variance");
+  u1_ = r.Finite("whitener previous residual");
+  u2_ = r.Finite("whitener residual before it");
+  lags1_ = r.F64();  // may be infinite (a gap of no use to the fit), never NaN
+  if (r.ok() && !(lags1_ >= 0)) return r.Fail("whitener lags is negative or NaN");
   has_u2_ = r.Bool();
-  pairs_ = r.I64();
-  triples_ = r.I64();
-  for (double* v : {&square_, &cross1_, &cross2_, &square2_, &rho1_, &phi_, &c_})
-    *v = r.F64();
+  pairs_ = r.Counter("whitener pairs");
+  triples_ = r.Counter("whitener triples");
+  square_ = r.NonNegative("whitener mean square");
+  cross1_ = r.Finite("whitener lag-1 product");
+  cross2_ = r.Finite("whitener lag-2 product");
+  square2_ = r.NonNegative("whitener lag-2 mean square");
+  rho1_ = r.NonNegative("whitener lag-1 correlation");
+  phi_ = r.NonNegative("whitener persistence");
+  c_ = r.NonNegative("whitener signal share");
+  if (!r.ok()) return r.status();
+  // Refit keeps rho1 and phi in [0, kMaxPhi] and c = rho1 / phi in (0, 1]; a
+  // phi of 1 or more would let the filter's variance grow without bound.
+  if (triples_ > pairs_) return r.Fail("whitener has more triples than pairs");
+  if (rho1_ > kMaxPhi || phi_ > kMaxPhi) return r.Fail("whitener persistence too high");
+  if (!(c_ > 0) || c_ > 1.0) return r.Fail("whitener signal share outside (0, 1]");
   return r.status();
 }
 

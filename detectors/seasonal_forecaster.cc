@@ -338,9 +338,9 @@ void SeasonalForecaster::Save(SnapshotWriter& w) const {
 
 Status SeasonalForecaster::Load(SnapshotReader& r) {
   r.Tag("FCST");
-  options_.memory = r.I64();
-  options_.level_noise = r.F64();
-  options_.level_noise_unit = r.I64();
+  options_.memory = r.Time("forecaster memory");
+  options_.level_noise = r.NonNegative("forecaster level noise");
+  options_.level_noise_unit = r.Time("forecaster level noise unit");
   const std::uint64_t n = r.U64();
   if (!r.ok()) return r.status();
   if (n != static_cast<std::uint64_t>(theta_.size())) {
@@ -350,16 +350,36 @@ Status SeasonalForecaster::Load(SnapshotReader& r) {
   if (options_.memory <= 0 || options_.level_noise_unit <= 0) {
     return r.Fail("forecaster memory or level noise unit not positive");
   }
-  r.Doubles(theta_.data(), static_cast<std::size_t>(theta_.size()));
-  r.Doubles(p_.data(), static_cast<std::size_t>(p_.size()));
-  t_ref_ = r.I64();
-  t_first_ = r.I64();
-  updates_ = r.I64();
+  if (options_.level_noise > SeasonalForecasterOptions::kMaxLevelNoise) {
+    return r.Fail("forecaster level noise above its range");
+  }
+  r.FiniteDoubles(theta_.data(), static_cast<std::size_t>(theta_.size()),
+                  "forecaster coefficient");
+  r.FiniteDoubles(p_.data(), static_cast<std::size_t>(p_.size()), "forecaster covariance");
+  t_ref_ = r.Time("forecaster last time");
+  t_first_ = r.Time("forecaster first time");
+  updates_ = r.Counter("forecaster updates");
   pending_.active = r.Bool();
-  pending_.from = r.I64();
-  pending_.to = r.I64();
-  pending_.forecast = r.F64();
-  pending_.xpx = r.F64();
+  pending_.from = r.Time("forecaster pending start");
+  pending_.to = r.Time("forecaster pending end");
+  pending_.forecast = r.Finite("forecaster pending forecast");
+  pending_.xpx = r.F64();  // infinite while the prior is not yet set
+  if (!r.ok()) return r.status();
+  // A covariance has a non-negative diagonal; a negative variance would make
+  // x' P x negative and the forecast's spread the square root of it.
+  for (int i = 0; i < dimension(); ++i) {
+    if (p_(i, i) < 0) {
+      return r.Fail("forecaster variance of coefficient " + std::to_string(i) +
+                    " is negative");
+    }
+  }
+  if (t_first_ > t_ref_) return r.Fail("forecaster first time is after its last");
+  if (!(pending_.xpx >= 0) || (updates_ > 0 && !std::isfinite(pending_.xpx))) {
+    return r.Fail("forecaster pending variance factor out of range");
+  }
+  if (pending_.active && pending_.from > pending_.to) {
+    return r.Fail("forecaster pending interval ends before it starts");
+  }
   return r.status();
 }
 

@@ -1057,12 +1057,12 @@ void SaveScore(const auto& score, SnapshotWriter& w) {
 }
 
 void LoadScore(auto* score, SnapshotReader& r) {
-  score->scaled_squares = r.F64();
-  score->log_spreads = r.F64();
-  score->count = r.I64();
-  score->previous = r.F64();
-  score->cross = r.F64();
-  score->square = r.F64();
+  score->scaled_squares = r.NonNegative("forecast score squares");
+  score->log_spreads = r.NonNegative("forecast score spreads");
+  score->count = r.Counter("forecast score count");
+  score->previous = r.Finite("forecast score previous error");
+  score->cross = r.Finite("forecast score cross product");
+  score->square = r.NonNegative("forecast score square");
 }
 
 void SaveAlarm(const Alarm& a, SnapshotWriter& w) {
@@ -1075,10 +1075,22 @@ void SaveAlarm(const Alarm& a, SnapshotWriter& w) {
 
 void LoadAlarm(Alarm* a, SnapshotReader& r) {
   a->fired = r.Bool();
-  a->direction = static_cast<Direction>(r.U8());
-  a->change_at = r.I64();
-  a->shift = r.F64();
-  a->statistic = r.F64();
+  const std::uint8_t direction = r.U8();
+  if (direction > static_cast<std::uint8_t>(Direction::kNone)) r.Fail("alarm direction unknown");
+  a->direction = static_cast<Direction>(direction);
+  a->change_at = r.Time("alarm change time");
+  a->shift = r.Finite("alarm shift");
+  a->statistic = r.Finite("alarm statistic");
+}
+
+// The reorder buffer's bounds: INT64_MIN until the first reading.
+EventTime ReorderTime(SnapshotReader& r, std::string_view what) {
+  const std::int64_t t = r.I64();
+  if (t != INT64_MIN && (t < -SnapshotReader::kMaxTime || t > SnapshotReader::kMaxTime)) {
+    r.Fail(std::string(what) + " " + std::to_string(t) + " is out of the time range");
+    return INT64_MIN;
+  }
+  return t;
 }
 
 }  // namespace
@@ -1164,26 +1176,31 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
     forecaster_.emplace(design_->forecaster);
     if (Status s = forecaster_->Load(r); !s.ok()) return s;
     LoadScore(&forecaster_score_, r);
-    const std::size_t rivals = r.Count(1);
+    // StartForecaster makes one rival per other level noise of the grid.
+    const std::size_t rivals = r.BoundedCount(1, kLevelNoiseGrid.size() - 1, "rival forecasters");
     for (std::size_t i = 0; i < rivals && r.ok(); ++i) {
       rivals_.push_back({SeasonalForecaster(design_->forecaster), {}});
       if (Status s = rivals_.back().forecaster.Load(r); !s.ok()) return s;
       LoadScore(&rivals_.back().score, r);
     }
   }
-  probe_.resize(r.Count(24));
+  // Observations are held only until the forecaster starts, at kProbe.
+  probe_.resize(r.BoundedCount(24, forecaster_ ? 0 : kProbe - 1, "held observations"));
   for (HeldObservation& h : probe_) {
-    h.from = r.I64();
-    h.to = r.I64();
-    h.y = r.F64();
-    h.covariates = r.DoubleVector();
+    h.from = r.Time("held observation start");
+    h.to = r.Time("held observation end");
+    h.y = r.Finite("held observation value");
+    h.covariates.resize(r.BoundedCount(8, design_->profile.covariates.size(), "covariates"));
+    r.FiniteDoubles(h.covariates.data(), h.covariates.size(), "held covariate");
     if (h.covariates.size() != design_->profile.covariates.size()) {
       return r.Fail("covariates differ");
     }
+    if (r.ok() && h.from > h.to) return r.Fail("held observation ends before it starts");
   }
-  covariate_means_ = r.DoubleVector();
-  const std::vector<std::int64_t> counts = r.I64Vector();
-  covariate_counts_.assign(counts.begin(), counts.end());
+  covariate_means_.resize(r.BoundedCount(8, design_->profile.covariates.size(), "covariates"));
+  r.FiniteDoubles(covariate_means_.data(), covariate_means_.size(), "covariate mean");
+  covariate_counts_.resize(r.BoundedCount(8, covariate_means_.size(), "covariate counts"));
+  for (long long& count : covariate_counts_) count = r.Counter("covariate count");
   if (covariate_means_.size() != design_->profile.covariates.size() ||
       covariate_counts_.size() != covariate_means_.size()) {
     return r.Fail("covariates differ");
@@ -1192,7 +1209,7 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
   if (Status s = scale_.Load(r); !s.ok()) return s;
   profile_.reset();
   if (r.Bool()) {
-    const EventTime period = r.I64();
+    const EventTime period = r.Time("phase profile period");
     const std::int64_t bins = r.I64();
     const std::int64_t fold = r.I64();
     if (r.ok() && (period <= 0 || bins < 1 || bins > kMaxLongPhaseBins || fold < 0 ||
@@ -1202,6 +1219,9 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
     profile_.emplace(period, static_cast<int>(bins), design_->scale.clip,
                      static_cast<int>(fold));
     if (Status s = profile_->Load(r); !s.ok()) return s;
+  }
+  if (forecaster_.has_value() != profile_.has_value()) {
+    return r.Fail("phase profile and forecaster do not go together");
   }
   if (Status s = arrival_.Load(r); !s.ok()) return s;
   if (Status s = variance_.Load(r); !s.ok()) return s;
@@ -1213,50 +1233,73 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
     if (r.Bool()) {
       if (level_kinds_[i] != DetectorKind::kCusum) return r.Fail("level detectors differ");
       level_[i].emplace<PoissonCusum>(PoissonCusumOptions{});  // Load sets the options
+    } else if (std::holds_alternative<PoissonCusum>(level_[i])) {
+      level_[i].emplace<Cusum>(design_->level.cusum);
     }
     if (Status s = std::visit([&r](auto& d) { return d.Load(r); }, level_[i]); !s.ok())
       return s;
-    firings_[i].observation = r.I64();
+    firings_[i].observation = r.I64();  // -1: none
+    if (r.ok() && (firings_[i].observation < -1 ||
+                   firings_[i].observation > SnapshotReader::kMaxCounter)) {
+      return r.Fail("level firing observation out of range");
+    }
     LoadAlarm(&firings_[i].alarm, r);
-    threshold_fraction_[i] = r.F64();
+    threshold_fraction_[i] = r.NonNegative("level threshold fraction");
   }
   pending_.resize(r.Count(16));
   for (auto& [t, v] : pending_) {
-    t = r.I64();
-    v = r.F64();
+    t = r.Time("held reading time");
+    v = r.Finite("held reading value");
   }
-  newest_ = r.I64();
-  released_ = r.I64();
+  newest_ = ReorderTime(r, "newest reading time");
+  released_ = ReorderTime(r, "released reading time");
+  if (r.ok()) {
+    // Observe pops the buffer as a min-heap on time and releases in order:
+    // every held reading is within [released, newest].
+    const auto later = [](const auto& a, const auto& b) { return a.first > b.first; };
+    if (!std::is_heap(pending_.begin(), pending_.end(), later)) {
+      return r.Fail("held readings are not in reorder order");
+    }
+    for (const auto& [t, v] : pending_) {
+      if (t < released_ || t > newest_) return r.Fail("held reading outside the reorder window");
+    }
+    if (released_ > newest_) return r.Fail("released reading is newer than the newest");
+  }
   if (Status s = intake_.Load(r); !s.ok()) return s;
-  observations_ = r.I64();
-  level_hold_until_ = r.I64();
-  variance_hold_until_ = r.I64();
-  rate_hold_until_ = r.I64();
-  last_z_ = r.F64();
+  observations_ = r.Counter("observations");
+  level_hold_until_ = r.Counter("level hold");
+  variance_hold_until_ = r.Counter("variance hold");
+  rate_hold_until_ = r.Counter("rate hold");
+  last_z_ = r.Finite("last z");
   if (Status s = whitener_.Load(r); !s.ok()) return s;
-  variance_sample_ = r.DoubleVector();
-  arrival_sample_ = r.DoubleVector();
+  // Samples are re-fitted and cleared when they reach kRefitSample.
+  variance_sample_.resize(r.BoundedCount(8, kRefitSample - 1, "variance sample"));
+  r.FiniteDoubles(variance_sample_.data(), variance_sample_.size(), "variance sample");
+  arrival_sample_.resize(r.BoundedCount(8, kRefitSample - 1, "arrival sample"));
+  r.FiniteDoubles(arrival_sample_.data(), arrival_sample_.size(), "arrival sample");
   variance_refitted_ = r.Bool();
   arrival_refitted_ = r.Bool();
   silent_ = r.Bool();
   has_reading_ = r.Bool();
-  last_reading_ = r.I64();
+  last_reading_ = r.Time("last reading time");
   regime_start_ = r.OptionalI64();
-  for (EventTime& t : recent_times_) t = r.I64();
-  regime_observations_ = r.I64();
+  if (r.ok() && regime_start_ &&
+      (*regime_start_ < -SnapshotReader::kMaxTime || *regime_start_ > SnapshotReader::kMaxTime)) {
+    return r.Fail("regime start is out of the time range");
+  }
+  for (EventTime& t : recent_times_) t = r.Time("recent observation time");
+  regime_observations_ = r.Counter("regime observations");
   value_sum_ = r.Finite("sum of readings");
   count_chart_decided_ = r.Bool();
-  count_sample_ = r.DoubleVector();
-  if (r.ok() && count_sample_.size() > 2 * kRefitSample) {
-    return r.Fail("count chart sample too long");
-  }
+  // (count, mean ratio) pairs, re-fitted and cleared at 2 kRefitSample values.
+  count_sample_.resize(r.BoundedCount(8, 2 * kRefitSample - 1, "count chart sample"));
+  r.FiniteDoubles(count_sample_.data(), count_sample_.size(), "count chart sample");
   count_refitted_ = r.Bool();
   if (Status s = health_.Load(r); !s.ok()) return s;
-  level_sample_ = r.DoubleVector();
-  adapted_h_ = r.F64();
-  if (r.ok() && (level_sample_.size() > kRefitSample || !std::isfinite(adapted_h_))) {
-    return r.Fail("adapted threshold out of range");
-  }
+  level_sample_.resize(r.BoundedCount(8, kRefitSample - 1, "adapt_thresholds sample"));
+  r.FiniteDoubles(level_sample_.data(), level_sample_.size(), "adapt_thresholds sample");
+  adapted_h_ = r.Finite("adapted threshold");
+  if (!r.ok()) return r.status();
   if (adapted_h_ > 0) {
     for (LevelDetector& d : level_) {
       if (Cusum* cusum = std::get_if<Cusum>(&d)) cusum->SetDecisionInterval(adapted_h_);

@@ -173,6 +173,27 @@ double SnapshotReader::NonNegative(std::string_view what) {
   return v;
 }
 
+void SnapshotReader::FiniteDoubles(double* values, std::size_t count,
+                                   std::string_view what) {
+  Doubles(values, count);
+  for (std::size_t i = 0; i < count && ok(); ++i) {
+    if (!std::isfinite(values[i])) {
+      Fail(std::string(what) + " " + std::to_string(i) + " is not finite");
+    }
+  }
+}
+
+std::size_t SnapshotReader::BoundedCount(std::size_t item_bytes, std::size_t most,
+                                         std::string_view what) {
+  const std::size_t n = Count(item_bytes);
+  if (n > most) {
+    Fail(std::string(what) + ": " + std::to_string(n) + " items, at most " +
+         std::to_string(most));
+    return 0;
+  }
+  return n;
+}
+
 std::string SnapshotReader::String() {
   const std::size_t n = Count(1);
   const char* p = nullptr;

@@ -87,6 +87,11 @@ class SnapshotReader {
   // A finite double; and one that is also >= 0 (sums of squares, weights).
   double Finite(std::string_view what);
   double NonNegative(std::string_view what);
+  // `count` doubles that must all be finite (coefficients, means).
+  void FiniteDoubles(double* values, std::size_t count, std::string_view what);
+  // A length of at most `most` items (a ring, a sample, a buffer whose size
+  // the code bounds), checked like Count before anything is allocated.
+  std::size_t BoundedCount(std::size_t item_bytes, std::size_t most, std::string_view what);
 
   // Records a failure (the first one stays); returns it for `return r.Fail(...)`.
   Status Fail(std::string why);

@@ -30,6 +30,7 @@
 #include "config/config.h"
 #include "daemon/file_follower.h"
 #include "daemon/tcp_listener.h"
+#include "daemon/write_ahead_log.h"
 #include "detectors/time_format.h"
 
 namespace plumbline {
@@ -247,6 +248,101 @@ TEST(FileFollowerTest, ResumesFromItsSavedOffsetAfterARestart) {
   ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 10; }));
   EXPECT_EQ(pipeline.Readings("a"), 10);  // the 10 new lines, none of the 60 old
   follower.Stop();
+}
+
+TEST(FollowStreamTest, NamesRoundTripAndOthersAreNotFollowStreams) {
+  const FollowStream stream{2049, 1234567, 3, "/var/spool/plumbline/a b.csv"};
+  const std::string name = FollowStreamName(stream);
+  auto back = ParseFollowStreamName(name);
+  ASSERT_TRUE(back);
+  EXPECT_EQ(back->device, stream.device);
+  EXPECT_EQ(back->inode, stream.inode);
+  EXPECT_EQ(back->epoch, stream.epoch);
+  EXPECT_EQ(back->path, stream.path);
+  EXPECT_FALSE(ParseFollowStreamName("harbourside-feed"));
+  EXPECT_FALSE(ParseFollowStreamName("file:1:2:3"));  // no path
+  EXPECT_FALSE(ParseFollowStreamName("file:1:2 /a.csv"));
+  EXPECT_FALSE(ParseFollowStreamName("file:1:x:3 /a.csv"));
+}
+
+// The follow streams the log's table holds for `path`: name -> offset.
+std::map<std::string, std::uint64_t> FollowStreams(const WriteAheadLog& wal,
+                                                   const std::string& path) {
+  std::map<std::string, std::uint64_t> out;
+  for (const auto& [name, offset] : wal.Streams(nullptr)) {
+    auto stream = ParseFollowStreamName(name);
+    if (stream && stream->path == path) out[name] = offset;
+  }
+  return out;
+}
+
+std::uint64_t EpochOf(const std::map<std::string, std::uint64_t>& streams) {
+  return streams.size() == 1 ? ParseFollowStreamName(streams.begin()->first)->epoch : 99;
+}
+
+TEST(FileFollowerTest, WithALogTheOffsetIsItsStreamMarkAcrossRestartsTruncationAndReplacement) {
+  const std::string dir = TempDir("logged");
+  const std::string path = dir + "/readings.csv";
+  // The log's stream table is what a restart restores from the checkpoint
+  // and the log's marks; one log object stands for it across the followers.
+  WriteAheadLog wal(dir, FileSystem::Default(), /*sync=*/false);
+  ASSERT_TRUE(wal.Start(1).ok());
+  const std::string line60 = Lines("a", 60, 1);
+  Append(path, Lines("a", 0, 60) + line60.substr(0, line60.size() - 3));  // unfinished
+  auto run = [&](const std::function<void(Pipeline&, FileFollower&)>& body) {
+    Pipeline pipeline;
+    FileFollower follower(Follow(path), dir, pipeline.shards(), FileSystem::Default(),
+                          nullptr);
+    follower.set_write_ahead_log(&wal);
+    follower.Start();
+    body(pipeline, follower);
+    follower.Stop();
+  };
+  run([](Pipeline& pipeline, FileFollower&) {
+    ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 60; }));
+  });
+  // One stream for the file, marked at the end of its last complete line.
+  auto streams = FollowStreams(wal, path);
+  ASSERT_EQ(streams.size(), 1u);
+  EXPECT_EQ(streams.begin()->second, Lines("a", 0, 60).size());
+  EXPECT_EQ(EpochOf(streams), 0u);
+  // Restart: the offset comes from the table, not the offset file.
+  std::filesystem::remove(FollowStatePath(dir, path));
+  Append(path, line60.substr(line60.size() - 3) + Lines("a", 61, 9));
+  run([&](Pipeline& pipeline, FileFollower& follower) {
+    ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 10; }));
+    EXPECT_EQ(pipeline.Readings("a"), 10);  // the 10 new lines, none of the 60 old
+    // Truncated while followed: a new epoch, marked from the top.
+    std::filesystem::resize_file(path, 0);
+    ASSERT_TRUE(WaitFor([&] { return follower.reopened() == 1; }));
+    Append(path, Lines("b", 0, 10));
+    ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 20; }));
+    ASSERT_TRUE(WaitFor([&] { return follower.committed_offset() == Lines("b", 0, 10).size(); }));
+  });
+  streams = FollowStreams(wal, path);
+  ASSERT_EQ(streams.size(), 1u);  // the older epoch is forgotten
+  EXPECT_EQ(EpochOf(streams), 1u);
+  EXPECT_EQ(streams.begin()->second, Lines("b", 0, 10).size());
+  // Truncated while stopped (shorter than the mark): read from the top again.
+  std::filesystem::resize_file(path, 0);
+  Append(path, Lines("c", 0, 3));
+  run([](Pipeline& pipeline, FileFollower&) {
+    ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 3; }));
+    EXPECT_EQ(pipeline.Readings("c"), 3);
+  });
+  EXPECT_EQ(EpochOf(FollowStreams(wal, path)), 2u);
+  // Replaced while stopped: another file under the path, read from its start.
+  Append(path + ".new", Lines("d", 0, 7));
+  std::filesystem::rename(path + ".new", path);
+  run([](Pipeline& pipeline, FileFollower&) {
+    ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == 7; }));
+    EXPECT_EQ(pipeline.Readings("d"), 7);
+  });
+  streams = FollowStreams(wal, path);
+  ASSERT_EQ(streams.size(), 1u);
+  EXPECT_EQ(EpochOf(streams), 0u);
+  EXPECT_EQ(streams.begin()->second, Lines("d", 0, 7).size());
+  wal.Stop();
 }
 
 TEST(FileFollowerTest, StartAtEndSkipsWhatIsAlreadyThereOnAFirstRun) {

@@ -112,7 +112,9 @@ TEST(ShardTest, DemoThroughShardsGivesReplaysEventsForAnyShardCount) {
   const std::multiset<AlertKey> expected = Keys(Replay(*config, readings));
   ASSERT_GT(expected.size(), 20u);
   ManualClock clock;  // never advanced: a fast feed of old readings
-  for (std::size_t shards : {1u, 3u}) {
+  // 2 and 4 shards would split door openings from pallets shipped, their
+  // covariate, by name alone (daemon/covariate_groups.h keeps them together).
+  for (std::size_t shards : {1u, 2u, 4u}) {
     EXPECT_EQ(Keys(RunShards(*config, readings, shards, &clock)), expected)
         << shards << " shards";
   }

@@ -16,10 +16,15 @@
 #include <vector>
 
 #include "detectors/arrival_model.h"
+#include "detectors/bocpd.h"
 #include "detectors/cusum.h"
 #include "detectors/ewma.h"
+#include "detectors/intake.h"
 #include "detectors/page_hinkley.h"
+#include "detectors/residual_profile.h"
 #include "detectors/residual_scale.h"
+#include "detectors/residual_whitener.h"
+#include "detectors/seasonal_forecaster.h"
 #include "detectors/series_monitor.h"
 #include "detectors/variance_cusum.h"
 #include "tests/support/synthetic_stream.h"
@@ -173,6 +178,242 @@ TEST(ForgedStateTest, EachDetectorRefusesOverflowingCountsAndNonFiniteSums) {
   EXPECT_FALSE((LoadForged<ArrivalModel>(ArrivalModelOptions{}, 3, huge).ok()));
   EXPECT_FALSE((LoadForged<ArrivalModel>(ArrivalModelOptions{}, 6, huge).ok()));
   EXPECT_FALSE((LoadForged<ArrivalModel>(ArrivalModelOptions{}, 2, nan).ok()));
+}
+
+// The saved state of `original` with the 8 bytes at byte `at` replaced by
+// `bits`, loaded into `fresh` (built like the original). For the classes whose
+// fields are not all 8 bytes wide, or whose layout depends on their state.
+template <typename T>
+Status LoadPatched(const T& original, T& fresh, std::size_t at, std::uint64_t bits) {
+  SnapshotWriter w;
+  original.Save(w);
+  std::string bytes = w.Take();
+  if (at + 8 > bytes.size()) return Status::InvalidArgument("patch past the end");
+  for (int i = 0; i < 8; ++i) bytes[at + i] = static_cast<char>(bits >> (8 * i));
+  SnapshotReader r(bytes);
+  return fresh.Load(r);
+}
+
+std::uint64_t U64At(const std::string& bytes, std::size_t at) {
+  std::uint64_t v = 0;
+  for (int i = 0; i < 8; ++i)
+    v |= std::uint64_t{static_cast<std::uint8_t>(bytes[at + i])} << (8 * i);
+  return v;
+}
+
+// A forged state is refused as corruption, and the reason names the field.
+::testing::AssertionResult RefusedNaming(const Status& status, std::string_view field) {
+  if (status.code() != Status::Code::kCorruption) {
+    return ::testing::AssertionFailure() << "not refused as corruption: " << status.ToString();
+  }
+  if (status.message().find(field) == std::string::npos) {
+    return ::testing::AssertionFailure() << "'" << status.message() << "' does not name '"
+                                         << field << "'";
+  }
+  return ::testing::AssertionSuccess();
+}
+
+// Deterministic readings with a step, so the run-length posterior holds
+// several states (some pruned) when saved.
+double Wave(int i) { return std::sin(0.7 * i) + (i > 40 ? 2.0 : 0.0); }
+
+constexpr std::uint64_t kHuge = static_cast<std::uint64_t>(INT64_MAX);
+constexpr std::uint64_t kMinusOne = ~std::uint64_t{0};
+const std::uint64_t kNan = Bits(std::numeric_limits<double>::quiet_NaN());
+
+std::string Saved(const SeriesMonitor& monitor);  // below
+
+TEST(ForgedStateTest, RunLengthPosteriorRefusesImpossibleSizesRunLengthsAndWeights) {
+  const BocpdOptions options;
+  RunLengthPosterior original(options);
+  for (int i = 0; i < 60; ++i) original.Update(Wave(i));
+  SnapshotWriter w;
+  original.Save(w);
+  const std::string bytes = w.Take();
+  // "RUNL", slots, begin, end; then per state mu, beta, log mass, weight,
+  // birth; map slot, scale, log shift, the recent readings, their position,
+  // readings, log evidence, last log predictive.
+  const std::size_t begin = U64At(bytes, 12), end = U64At(bytes, 20);
+  const std::size_t n = end - begin;
+  ASSERT_GE(n, 3u);
+  const std::size_t mu = 28, beta = mu + 8 * n, weight = mu + 24 * n, birth = mu + 32 * n;
+  const std::size_t map_slot = mu + 40 * n, scale = map_slot + 8;
+  const std::size_t readings = scale + 16 + 8 + 8 * (options.max_run_length + 1) + 8;
+  ASSERT_EQ(U64At(bytes, readings), 60u);  // the layout above is right
+  auto load = [&](std::size_t at, std::uint64_t bits) {
+    RunLengthPosterior fresh(options);
+    return LoadPatched(original, fresh, at, bits);
+  };
+  EXPECT_TRUE(load(weight, Bits(0.5)).ok());  // a weight in range loads
+  // Sizes: more states than the cap allows, or an end past the buffers.
+  EXPECT_TRUE(RefusedNaming(load(20, begin + options.max_run_length + 2), "cap"));
+  EXPECT_TRUE(RefusedNaming(load(20, std::uint64_t{1} << 40), "cap"));
+  EXPECT_TRUE(RefusedNaming(load(12, end), "cap"));  // no state at all
+  // Non-finite or negative where a probability or a variance is.
+  EXPECT_TRUE(RefusedNaming(load(weight, kNan), "run-length weight"));
+  EXPECT_TRUE(RefusedNaming(load(weight + 8, Bits(-0.25)), "run-length weight"));
+  EXPECT_TRUE(RefusedNaming(load(beta, Bits(-1.0)), "run-length rate"));
+  EXPECT_TRUE(RefusedNaming(load(mu, Bits(std::numeric_limits<double>::infinity())),
+                            "run-length mean"));
+  EXPECT_TRUE(RefusedNaming(load(scale, Bits(0.0)), "run-length scale"));
+  // Counts and run lengths: the update indexes tables by them.
+  EXPECT_TRUE(RefusedNaming(load(readings, kHuge), "run-length readings"));
+  EXPECT_TRUE(RefusedNaming(load(birth, kMinusOne), "impossible run length"));
+  EXPECT_TRUE(RefusedNaming(load(birth + 8 * (n - 1), 61), "impossible run length"));
+  EXPECT_TRUE(RefusedNaming(load(birth, 60), "impossible run length"));  // order
+  EXPECT_TRUE(RefusedNaming(load(map_slot, end), "cap"));
+}
+
+TEST(ForgedStateTest, BocpdRefusesAProbabilityAboveOneAndANegativeAlarmCount) {
+  BocpdOptions options;
+  Bocpd original(options);
+  for (int i = 0; i < 80; ++i) ASSERT_TRUE(original.Update(Wave(i), i).ok());
+  SnapshotWriter w;
+  original.Save(w);
+  const std::size_t size = w.bytes().size();
+  // The state ends with the change probability, the "above" flag and alarms.
+  auto load = [&](std::size_t at, std::uint64_t bits) {
+    Bocpd fresh(options);
+    return LoadPatched(original, fresh, at, bits);
+  };
+  EXPECT_TRUE(load(size - 8, 2).ok());
+  EXPECT_TRUE(RefusedNaming(load(size - 8, kMinusOne), "BOCPD alarms"));
+  EXPECT_TRUE(RefusedNaming(load(size - 17, Bits(2.0)), "BOCPD change probability"));
+  EXPECT_TRUE(RefusedNaming(load(size - 17, kNan), "BOCPD change probability"));
+}
+
+TEST(ForgedStateTest, ForecasterRefusesOtherDimensionsNonFiniteCoefficientsNegativeVariances) {
+  SeasonalForecasterOptions options;
+  options.seasons = {kMicrosPerDay};
+  options.harmonics = {3};
+  SeasonalForecaster original(options);
+  for (int i = 0; i < 50; ++i) ASSERT_TRUE(original.Update(i * kMicrosPerHour, Wave(i)).ok());
+  const std::size_t n = static_cast<std::size_t>(original.dimension());
+  // "FCST", memory, level noise, its unit, n; theta (n), P (n x n); last and
+  // first time, updates, the pending flag (1 byte) and update.
+  const std::size_t theta = 36, p = theta + 8 * n, t_ref = p + 8 * n * n;
+  const std::size_t updates = t_ref + 16, xpx = updates + 8 + 1 + 24;
+  auto load = [&](std::size_t at, std::uint64_t bits) {
+    SeasonalForecaster fresh(options);
+    return LoadPatched(original, fresh, at, bits);
+  };
+  EXPECT_TRUE(load(updates, 50).ok());
+  EXPECT_TRUE(RefusedNaming(load(28, n + 1), "coefficients"));
+  EXPECT_TRUE(RefusedNaming(load(28, kHuge), "coefficients"));
+  EXPECT_TRUE(RefusedNaming(load(theta + 8, kNan), "forecaster coefficient"));
+  EXPECT_TRUE(RefusedNaming(load(p + 8, kNan), "forecaster covariance"));
+  EXPECT_TRUE(RefusedNaming(load(p + 8 * (n + 1), Bits(-1.0)), "variance of coefficient 1"));
+  EXPECT_TRUE(RefusedNaming(load(4, 0), "memory"));
+  EXPECT_TRUE(RefusedNaming(load(12, Bits(-0.5)), "level noise"));
+  EXPECT_TRUE(RefusedNaming(load(12, Bits(5000.0)), "level noise"));
+  EXPECT_TRUE(RefusedNaming(load(updates, kMinusOne), "forecaster updates"));
+  EXPECT_TRUE(RefusedNaming(load(t_ref, kHuge), "forecaster last time"));
+  EXPECT_TRUE(RefusedNaming(load(t_ref + 8, 100 * kMicrosPerHour), "first time"));
+  EXPECT_TRUE(RefusedNaming(load(xpx, kNan), "pending variance factor"));
+}
+
+TEST(ForgedStateTest, ResidualProfileRefusesOtherBinCountsAndNegativeOrNonFiniteBins) {
+  const auto make = [] { return ResidualProfile(kMicrosPerDay, 24, 3.0, 8); };
+  ResidualProfile original = make();
+  for (int i = 0; i < 200; ++i) {
+    const EventTime t = i * 20 * kMicrosPerMinute;
+    original.Update(original.Bin(t), Wave(i), Wave(i), 1.0);
+  }
+  // "PROF", 24 bins (count, mean, variance ratio), 8 pooled bins.
+  auto load = [&](std::size_t at, std::uint64_t bits) {
+    ResidualProfile fresh = make();
+    return LoadPatched(original, fresh, at, bits);
+  };
+  EXPECT_TRUE(load(12, Bits(3.0)).ok());
+  EXPECT_TRUE(RefusedNaming(load(4, 25), "bins differ"));
+  EXPECT_FALSE(load(4, kHuge).ok());  // longer than the state: refused before allocating
+  EXPECT_TRUE(RefusedNaming(load(12, Bits(-1.0)), "bin count"));
+  EXPECT_TRUE(RefusedNaming(load(20, kNan), "bin mean"));
+  EXPECT_TRUE(RefusedNaming(load(28, Bits(-0.1)), "bin variance ratio"));
+}
+
+TEST(ForgedStateTest, WhitenerRefusesOverflowingCountsAndAPersistenceOfOneOrMore) {
+  ResidualWhitener original;
+  for (int i = 0; i < 300; ++i)
+    original.Whiten(i * kMicrosPerMinute, Wave(i), kMicrosPerMinute, 1.0, true);
+  // "WHIT", a flag (1 byte), previous time, state mean and variance, two
+  // residuals, lags, a flag; pairs (54), triples (62), four moments, rho1,
+  // phi (110), c (118).
+  auto load = [&](std::size_t at, std::uint64_t bits) {
+    ResidualWhitener fresh;
+    return LoadPatched(original, fresh, at, bits);
+  };
+  EXPECT_TRUE(load(110, Bits(0.5)).ok());
+  EXPECT_TRUE(RefusedNaming(load(54, kHuge), "whitener pairs"));
+  EXPECT_TRUE(RefusedNaming(load(62, 301), "more triples than pairs"));
+  EXPECT_TRUE(RefusedNaming(load(21, Bits(-1.0)), "whitener state variance"));
+  EXPECT_TRUE(RefusedNaming(load(13, kNan), "whitener state mean"));
+  EXPECT_TRUE(RefusedNaming(load(45, kNan), "whitener lags"));
+  EXPECT_TRUE(RefusedNaming(load(110, Bits(1.0)), "persistence"));
+  EXPECT_TRUE(RefusedNaming(load(118, Bits(0.0)), "signal share"));
+}
+
+TEST(ForgedStateTest, IntakeRefusesTimesOutOfRangeNonFiniteValuesAndOffBoundaryBuckets) {
+  const auto make = [] {
+    return Intake(SeriesKind::kGauge, GapPolicy::kHold, kMicrosPerHour);
+  };
+  Intake original = make();
+  std::vector<Observation> out;
+  std::vector<MeterReset> resets;
+  for (int i = 0; i < 30; ++i) original.Add(i * 7 * kMicrosPerMinute, Wave(i), &out, &resets);
+  // "INTK", a flag, last time (5), last value (13), a flag, bucket (22), sum,
+  // covered (38), two flags, last emitted bucket (48) and value, unfilled (64).
+  auto load = [&](std::size_t at, std::uint64_t bits) {
+    Intake fresh = make();
+    return LoadPatched(original, fresh, at, bits);
+  };
+  EXPECT_TRUE(load(64, 3).ok());
+  EXPECT_TRUE(RefusedNaming(load(64, kMinusOne), "intake unfilled buckets"));
+  EXPECT_TRUE(RefusedNaming(load(5, kHuge), "intake last time"));
+  EXPECT_TRUE(RefusedNaming(load(13, kNan), "intake last value"));
+  EXPECT_TRUE(RefusedNaming(load(38, Bits(-1.0)), "intake bucket coverage"));
+  EXPECT_TRUE(RefusedNaming(load(22, 3 * kMicrosPerHour + 1), "bucket boundary"));
+}
+
+TEST(ForgedStateTest, SeriesMonitorRefusesOversizedBuffersAndCountsOutOfRange) {
+  ProfileOptions profile;
+  profile.detectors = {DetectorKind::kCusum, DetectorKind::kBocpd};
+  auto design = ProfileDesign::Make(profile);
+  ASSERT_TRUE(design.ok()) << design.status().ToString();
+  const auto readings = synthetic::MakeSyntheticStream({}, 400, 7);
+  std::vector<SeriesEvent> ignored;
+  auto load = [&](const SeriesMonitor& original, std::size_t at, std::uint64_t bits) {
+    SeriesMonitor fresh(&*design);
+    return LoadPatched(original, fresh, at, bits);
+  };
+  {
+    // Before the forecaster starts: "SMON", no forecaster (1 byte), then the
+    // held observations (count at 5; from, to, value, covariates).
+    SeriesMonitor early(&*design);
+    for (int i = 0; i < 3; ++i) early.Observe(readings[i].time, readings[i].value, &ignored);
+    ASSERT_EQ(U64At(Saved(early), 5), 3u);
+    EXPECT_TRUE(load(early, 29, Bits(1.5)).ok());
+    EXPECT_TRUE(RefusedNaming(load(early, 5, 100), "held observations"));
+    EXPECT_TRUE(RefusedNaming(load(early, 29, kNan), "held observation value"));
+    EXPECT_TRUE(RefusedNaming(load(early, 13, kHuge), "held observation start"));
+  }
+  SeriesMonitor armed(&*design);
+  for (const auto& r : readings) armed.Observe(r.time, r.value, &ignored);
+  const std::string bytes = Saved(armed);
+  // The tail: ... the recent observation times (256), the regime's observations.
+  EXPECT_TRUE(RefusedNaming(load(armed, bytes.size() - 8, kMinusOne), "regime observations"));
+  EXPECT_TRUE(
+      RefusedNaming(load(armed, bytes.size() - 16, kHuge), "recent observation time"));
+  // Around the intake: the reorder buffer's newest and released times before
+  // it, the observation count after it (the intake is 72 bytes).
+  const std::size_t intake = bytes.find("INTK");
+  ASSERT_NE(intake, std::string::npos);
+  ASSERT_EQ(U64At(bytes, intake + 72), 400u);
+  EXPECT_TRUE(RefusedNaming(load(armed, intake + 72, kHuge), "observations"));
+  EXPECT_TRUE(RefusedNaming(load(armed, intake - 16, kHuge), "newest reading time"));
+  EXPECT_TRUE(RefusedNaming(load(armed, intake - 8, U64At(bytes, intake - 16) + 1),
+                            "released reading is newer"));
+  EXPECT_TRUE(load(armed, intake - 8, U64At(bytes, intake - 16) - 1).ok());
 }
 
 struct Case {

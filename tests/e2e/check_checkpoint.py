@@ -115,7 +115,7 @@ def main():
         result = subprocess.run([args.plumbline, "serve", "--config", config_b],
                                 capture_output=True, text=True, timeout=60)
         check(result.returncode != 0, "started on a checkpoint of another version")
-        check("checkpoint format version 99; this build reads 1" in result.stderr,
+        check("checkpoint format version 99; this build reads 1 to 2" in result.stderr,
               "unclear refusal:\n" + result.stderr[-2000:])
         after = [read_bytes(os.path.join(state_b, "checkpoint-%d.plc" % s)) for s in (0, 1)]
         check(before == after, "a refused checkpoint was overwritten")

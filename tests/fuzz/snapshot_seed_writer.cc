@@ -5,12 +5,16 @@
 #include <fstream>
 #include <random>
 #include <string>
+#include <vector>
 
 #include "detectors/arrival_model.h"
 #include "detectors/cusum.h"
 #include "detectors/ewma.h"
+#include "detectors/intake.h"
 #include "detectors/page_hinkley.h"
+#include "detectors/residual_profile.h"
 #include "detectors/residual_scale.h"
+#include "detectors/residual_whitener.h"
 #include "detectors/seasonal_forecaster.h"
 #include "detectors/snapshot.h"
 #include "detectors/variance_cusum.h"
@@ -51,6 +55,12 @@ int main(int argc, char** argv) {
   plumbline::ResidualScale scale(plumbline::ResidualScaleOptions{});
   plumbline::VarianceCusum variance(plumbline::VarianceCusumOptions{});
   plumbline::ArrivalModel arrivals(plumbline::ArrivalModelOptions{});
+  plumbline::ResidualProfile profile(plumbline::kMicrosPerDay, 24, 3.0, 8);
+  plumbline::ResidualWhitener whitener;
+  plumbline::Intake intake(plumbline::SeriesKind::kGauge, plumbline::GapPolicy::kHold,
+                           plumbline::kMicrosPerHour);
+  std::vector<plumbline::Observation> observations;
+  std::vector<plumbline::MeterReset> resets;
   for (int i = 0; i < 200; ++i) {
     const EventTime t = kStart + i * kStep;
     const double z = noise(random);
@@ -61,6 +71,9 @@ int main(int argc, char** argv) {
     (void)scale.Update(z);
     (void)variance.Update(z, t);
     (void)arrivals.Observe(t + static_cast<EventTime>(1e6 * z));
+    profile.Update(profile.Bin(t), z, z, 1.0);
+    (void)whitener.Whiten(t, z, static_cast<double>(kStep), 1.0, true);
+    intake.Add(t, z, &observations, &resets);
   }
   Write(dir, 0, "forecaster", forecaster);
   Write(dir, 1, "cusum", cusum);
@@ -69,5 +82,8 @@ int main(int argc, char** argv) {
   Write(dir, 4, "residual_scale", scale);
   Write(dir, 5, "variance_cusum", variance);
   Write(dir, 6, "arrival_model", arrivals);
+  Write(dir, 7, "residual_profile", profile);
+  Write(dir, 8, "residual_whitener", whitener);
+  Write(dir, 9, "intake", intake);
   return 0;
 }
