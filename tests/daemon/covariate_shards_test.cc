@@ -22,6 +22,7 @@
 #include "daemon/engine.h"
 #include "daemon/shard.h"
 #include "detectors/random.h"
+#include "tests/support/collecting_publisher.h"
 
 namespace plumbline {
 namespace {
@@ -172,22 +173,7 @@ std::vector<Alert> Replay(const Config& config, const std::vector<OwnedReading>&
   return out;
 }
 
-class CollectingPublisher : public AlertPublisher {
- public:
-  void Publish(std::size_t, std::vector<Alert>* alerts) override {
-    std::lock_guard<std::mutex> lock(mutex_);
-    for (Alert& a : *alerts) alerts_.push_back(std::move(a));
-    alerts->clear();
-  }
-  std::vector<Alert> alerts() const {
-    std::lock_guard<std::mutex> lock(mutex_);
-    return alerts_;
-  }
-
- private:
-  mutable std::mutex mutex_;
-  std::vector<Alert> alerts_;
-};
+using testing::CollectingPublisher;
 
 std::vector<Alert> RunShards(const Config& config, const std::vector<OwnedReading>& readings,
                              std::size_t shards) {

@@ -21,27 +21,13 @@
 #include "config/config.h"
 #include "daemon/reading_parser.h"
 #include "detectors/time_format.h"
+#include "tests/support/collecting_publisher.h"
 #include "tests/support/synthetic_stream.h"
 
 namespace plumbline {
 namespace {
 
-class CollectingPublisher : public AlertPublisher {
- public:
-  void Publish(std::size_t, std::vector<Alert>* alerts) override {
-    std::lock_guard<std::mutex> lock(mutex_);
-    for (Alert& a : *alerts) alerts_.push_back(std::move(a));
-    alerts->clear();
-  }
-  std::vector<Alert> alerts() const {
-    std::lock_guard<std::mutex> lock(mutex_);
-    return alerts_;
-  }
-
- private:
-  mutable std::mutex mutex_;
-  std::vector<Alert> alerts_;
-};
+using testing::CollectingPublisher;
 
 using AlertKey = std::tuple<std::string, std::string, EventTime,
                             EventTime>;  // id, event, change, detect

@@ -400,10 +400,16 @@ TEST(ForgedStateTest, SeriesMonitorRefusesOversizedBuffersAndCountsOutOfRange) {
   SeriesMonitor armed(&*design);
   for (const auto& r : readings) armed.Observe(r.time, r.value, &ignored);
   const std::string bytes = Saved(armed);
-  // The tail: ... the recent observation times (256), the regime's observations.
-  EXPECT_TRUE(RefusedNaming(load(armed, bytes.size() - 8, kMinusOne), "regime observations"));
-  EXPECT_TRUE(
-      RefusedNaming(load(armed, bytes.size() - 16, kHuge), "recent observation time"));
+  // Near the tail: ... the recent observation times (256), the regime's
+  // observations; then the sum of readings (8 bytes), a flag (1), the empty
+  // count-chart sample (8), a flag (1) and the calibration health ("HLTH").
+  const std::size_t health = bytes.rfind("HLTH");
+  ASSERT_NE(health, std::string::npos);
+  EXPECT_TRUE(RefusedNaming(load(armed, health - 26, kMinusOne), "regime observations"));
+  EXPECT_TRUE(RefusedNaming(load(armed, health - 34, kHuge), "recent observation time"));
+  EXPECT_TRUE(RefusedNaming(load(armed, health - 18, kNan), "sum of readings"));
+  EXPECT_FALSE(load(armed, health - 9, 5000).ok());  // runs past the end
+  EXPECT_TRUE(RefusedNaming(load(armed, bytes.size() - 8, kNan), "adapted threshold"));
   // Around the intake: the reorder buffer's newest and released times before
   // it, the observation count after it (the intake is 72 bytes).
   const std::size_t intake = bytes.find("INTK");
