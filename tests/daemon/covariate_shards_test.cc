@@ -22,10 +22,16 @@
 #include "daemon/engine.h"
 #include "daemon/shard.h"
 #include "detectors/random.h"
-#include "tests/support/collecting_publisher.h"
+#include "tests/support/shard_run.h"
 
 namespace plumbline {
 namespace {
+
+using testing::AlertKey;
+using testing::CollectingPublisher;
+using testing::Keys;
+using testing::OwnedReading;
+using testing::RunShards;
 
 Config Load(const std::string& yaml) {
   auto config = LoadConfigText(yaml, "test.yaml");
@@ -111,12 +117,6 @@ constexpr char kDoors[] = "coldstore/dock/door_openings";
 constexpr long long kReadings = 3000;
 constexpr long long kStep = 2000;
 
-struct OwnedReading {
-  EventTime time;
-  std::string series;
-  double value;
-};
-
 std::vector<OwnedReading> CovariateStream() {
   Random rng(20261202);
   const EventTime start = 1'772'323'200LL * kMicrosPerSecond;  // 2026-03-01
@@ -143,16 +143,6 @@ std::string Profiles(bool with_covariate) {
                          : "");
 }
 
-using AlertKey = std::tuple<std::string, std::string, EventTime, EventTime>;
-
-std::multiset<AlertKey> Keys(const std::vector<Alert>& alerts) {
-  std::multiset<AlertKey> keys;
-  for (const Alert& a : alerts) {
-    keys.emplace(a.id, std::string(ToString(a.event)), a.change_at, a.detected_at);
-  }
-  return keys;
-}
-
 bool HasLevelAlert(const std::vector<Alert>& alerts, const std::string& series) {
   for (const Alert& a : alerts) {
     if (a.series == series && a.event == EventType::kAlert && a.kind == AlertKind::kLevel)
@@ -173,24 +163,6 @@ std::vector<Alert> Replay(const Config& config, const std::vector<OwnedReading>&
   return out;
 }
 
-using testing::CollectingPublisher;
-
-std::vector<Alert> RunShards(const Config& config, const std::vector<OwnedReading>& readings,
-                             std::size_t shards) {
-  ManualClock clock;  // never advanced: a fast feed of old readings
-  CollectingPublisher publisher;
-  ShardSet set(shards, config, ShardOptions{}, &clock, &publisher, nullptr);
-  set.Start();
-  {
-    ShardRouter router(&set);
-    std::uint64_t line = 0;
-    for (const OwnedReading& r : readings) {
-      EXPECT_TRUE(router.Add({r.time, r.series, r.value}, ++line));
-    }
-  }
-  set.CloseAndJoin();
-  return publisher.alerts();
-}
 
 TEST(CovariateShardsTest, TheStreamsLevelChangeIsExplainedByItsCovariate) {
   const std::vector<OwnedReading> readings = CovariateStream();
@@ -211,7 +183,9 @@ TEST(CovariateShardsTest, ServeGivesReplaysAlertsForAnyShardCount) {
   for (std::size_t shards : {1u, 2u, 3u, 4u, 5u}) {
     if (RouteNameHash(kDoors) % shards != RouteNameHash(kPallets) % shards)
       apart_by_name = true;
-    EXPECT_EQ(Keys(RunShards(config, readings, shards)), expected) << shards << " shards";
+    ManualClock clock;  // never advanced: a fast feed of old readings
+    EXPECT_EQ(Keys(RunShards(config, readings, shards, &clock)), expected)
+        << shards << " shards";
   }
   EXPECT_TRUE(apart_by_name);  // some count would have split them by name
 }

@@ -21,30 +21,17 @@
 #include "config/config.h"
 #include "daemon/reading_parser.h"
 #include "detectors/time_format.h"
-#include "tests/support/collecting_publisher.h"
+#include "tests/support/shard_run.h"
 #include "tests/support/synthetic_stream.h"
 
 namespace plumbline {
 namespace {
 
+using testing::AlertKey;
 using testing::CollectingPublisher;
-
-using AlertKey = std::tuple<std::string, std::string, EventTime,
-                            EventTime>;  // id, event, change, detect
-
-std::multiset<AlertKey> Keys(const std::vector<Alert>& alerts) {
-  std::multiset<AlertKey> keys;
-  for (const Alert& a : alerts) {
-    keys.emplace(a.id, std::string(ToString(a.event)), a.change_at, a.detected_at);
-  }
-  return keys;
-}
-
-struct OwnedReading {
-  EventTime time;
-  std::string series;
-  double value;
-};
+using testing::Keys;
+using testing::OwnedReading;
+using testing::RunShards;
 
 std::vector<OwnedReading> ReadFixture(const std::string& path) {
   std::ifstream file(path);
@@ -70,23 +57,6 @@ std::vector<Alert> Replay(const Config& config,
   }
   engine.Finish(&out);
   return out;
-}
-
-std::vector<Alert> RunShards(const Config& config,
-                             const std::vector<OwnedReading>& readings,
-                             std::size_t shards, const Clock* clock) {
-  CollectingPublisher publisher;
-  ShardSet set(shards, config, ShardOptions{}, clock, &publisher, nullptr);
-  set.Start();
-  {
-    ShardRouter router(&set);
-    std::uint64_t line = 0;
-    for (const OwnedReading& r : readings) {
-      EXPECT_TRUE(router.Add({r.time, r.series, r.value}, ++line));
-    }
-  }
-  set.CloseAndJoin();
-  return publisher.alerts();
 }
 
 TEST(ShardTest, DemoThroughShardsGivesReplaysEventsForAnyShardCount) {
