@@ -3,18 +3,12 @@
 #include <algorithm>
 #include <mutex>
 
+#include "daemon/text.h"
 #include "detectors/glob.h"
 
 namespace plumbline {
 
-std::uint64_t RouteNameHash(std::string_view name) {
-  std::uint64_t hash = 1469598103934665603ULL;
-  for (unsigned char c : name) {
-    hash ^= c;
-    hash *= 1099511628211ULL;
-  }
-  return hash;
-}
+std::uint64_t RouteNameHash(std::string_view name) { return Fnv1a(name); }
 
 namespace {
 

@@ -11,14 +11,6 @@
 namespace plumbline {
 namespace {
 
-std::uint64_t Fnv1a(std::string_view text, std::uint64_t hash = 1469598103934665603ULL) {
-  for (unsigned char c : text) {
-    hash ^= c;
-    hash *= 1099511628211ULL;
-  }
-  return hash;
-}
-
 void AppendNumber(std::string* out, double value) {
   if (!std::isfinite(value)) {
     *out += "null";

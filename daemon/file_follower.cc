@@ -13,6 +13,7 @@
 #include <vector>
 
 #include "daemon/log.h"
+#include "daemon/text.h"
 
 namespace plumbline {
 namespace {
@@ -20,14 +21,6 @@ namespace {
 constexpr std::size_t kChunkBytes = 1 << 20;          // one read
 constexpr auto kSaveEvery = std::chrono::seconds(1);  // position writes, at most
 
-std::uint64_t Fnv1a(std::string_view text) {
-  std::uint64_t hash = 1469598103934665603ULL;
-  for (unsigned char c : text) {
-    hash ^= c;
-    hash *= 1099511628211ULL;
-  }
-  return hash;
-}
 
 bool ParseNumber(std::string_view* text, std::uint64_t* out) {
   while (!text->empty() && text->front() == ' ') text->remove_prefix(1);

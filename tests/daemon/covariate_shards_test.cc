@@ -31,6 +31,7 @@ using testing::AlertKey;
 using testing::CollectingPublisher;
 using testing::Keys;
 using testing::OwnedReading;
+using testing::Replay;
 using testing::RunShards;
 
 Config Load(const std::string& yaml) {
@@ -151,17 +152,6 @@ bool HasLevelAlert(const std::vector<Alert>& alerts, const std::string& series) 
   return false;
 }
 
-// What `replay` does (daemon/replay_command.cc) for one time-ordered input.
-std::vector<Alert> Replay(const Config& config, const std::vector<OwnedReading>& readings) {
-  Engine engine(config);
-  std::vector<Alert> out;
-  for (const OwnedReading& r : readings) {
-    engine.AdvanceClock(r.time, &out);
-    engine.Ingest(r.series, r.time, r.value, &out);
-  }
-  engine.Finish(&out);
-  return out;
-}
 
 
 TEST(CovariateShardsTest, TheStreamsLevelChangeIsExplainedByItsCovariate) {

@@ -31,6 +31,7 @@ using testing::AlertKey;
 using testing::CollectingPublisher;
 using testing::Keys;
 using testing::OwnedReading;
+using testing::Replay;
 using testing::RunShards;
 
 std::vector<OwnedReading> ReadFixture(const std::string& path) {
@@ -46,18 +47,6 @@ std::vector<OwnedReading> ReadFixture(const std::string& path) {
   return out;
 }
 
-// What `replay` does (daemon/replay_command.cc) for one time-ordered input.
-std::vector<Alert> Replay(const Config& config,
-                          const std::vector<OwnedReading>& readings) {
-  Engine engine(config);
-  std::vector<Alert> out;
-  for (const OwnedReading& r : readings) {
-    engine.AdvanceClock(r.time, &out);
-    engine.Ingest(r.series, r.time, r.value, &out);
-  }
-  engine.Finish(&out);
-  return out;
-}
 
 TEST(ShardTest, DemoThroughShardsGivesReplaysEventsForAnyShardCount) {
   const std::string fixture = PLUMBLINE_FIXTURES_DIR "/harbourside";

@@ -1,6 +1,7 @@
 // Helpers for tests that run readings through a ShardSet and compare the
 // alerts with a replay's: a publisher that collects every alert, readings that
-// own their series names, alert keys for comparing runs, and one run.
+// own their series names, alert keys for comparing runs, one replay and one
+// run through the shards.
 // CollectingPublisher is thread-safe (one mutex); the rest are plain functions.
 #pragma once
 
@@ -17,6 +18,7 @@
 
 #include "config/config.h"
 #include "daemon/clock.h"
+#include "daemon/engine.h"
 #include "daemon/shard.h"
 
 namespace plumbline::testing {
@@ -53,6 +55,19 @@ inline std::multiset<AlertKey> Keys(const std::vector<Alert>& alerts) {
     keys.emplace(a.id, std::string(ToString(a.event)), a.change_at, a.detected_at);
   }
   return keys;
+}
+
+// What `replay` does (daemon/replay_command.cc) for one time-ordered input.
+inline std::vector<Alert> Replay(const Config& config,
+                                 const std::vector<OwnedReading>& readings) {
+  Engine engine(config);
+  std::vector<Alert> out;
+  for (const OwnedReading& r : readings) {
+    engine.AdvanceClock(r.time, &out);
+    engine.Ingest(r.series, r.time, r.value, &out);
+  }
+  engine.Finish(&out);
+  return out;
 }
 
 // Routes the readings in order through `shards` shards and returns every alert.
