@@ -24,6 +24,7 @@
 #include "daemon/http_api.h"
 #include "daemon/reading_parser.h"
 #include "daemon/replay_report.h"
+#include "daemon/series_trace.h"
 #include "daemon/subcommands.h"
 #include "daemon/terminal.h"
 #include "daemon/ui_pages.h"
@@ -46,6 +47,11 @@ const std::vector<OptionSpec> kReplayOptions = {
     {"truth", true, false,
      "labelled changes (CSV: series,kind,at,from,to,label) to score the alerts against",
      "FILE"},
+    {"trace", true, false,
+     "write one series' model and detectors at each of its observations (CSV: time, "
+     "reading, z, then each detector's statistic and threshold) to --trace-to",
+     "NAME"},
+    {"trace-to", true, false, "where --trace writes its CSV", "FILE"},
 };
 
 const std::vector<OptionSpec> kForecastOptions = {
@@ -182,6 +188,23 @@ int RunReplay(const Args& args) {
     truth = std::move(labels).value();
   }
   const auto report_path = parsed->Get("report");
+  const auto trace_series = parsed->Get("trace");
+  const auto trace_path = parsed->Get("trace-to");
+  if (trace_series.has_value() != trace_path.has_value()) {
+    std::fprintf(stderr, "plumbline replay: --trace and --trace-to go together\n");
+    return 2;
+  }
+  std::unique_ptr<std::FILE, int (*)(std::FILE*)> trace_file(nullptr, &std::fclose);
+  std::optional<ObservationTracer> tracer;
+  if (trace_path) {
+    trace_file.reset(std::fopen(trace_path->c_str(), "w"));
+    if (!trace_file) {
+      std::fprintf(stderr, "plumbline replay: cannot write the trace to %s\n",
+                   trace_path->c_str());
+      return 1;
+    }
+    tracer.emplace(*trace_series, trace_file.get());
+  }
   const Config report_config = *config;  // the engine takes the config
   ReplayRecorder recorder;
   std::vector<Alert> raised;  // for --truth
@@ -266,6 +289,9 @@ int RunReplay(const Args& args) {
     if (outcome == IngestOutcome::kAccepted) {
       ++readings;
       if (report_path) recorder.AddPoint(head->series, point);
+      if (tracer && head->series == tracer->series()) {
+        tracer->After(engine.Find(head->series), head->time, head->value);
+      }
     } else {
       ++rejected[std::string(ToString(outcome))];
       if (first_errors.size() < 10) {

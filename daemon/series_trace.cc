@@ -1,6 +1,9 @@
 #include "daemon/series_trace.h"
 
 #include <algorithm>
+#include <utility>
+
+#include "detectors/time_format.h"
 
 namespace plumbline {
 
@@ -69,6 +72,29 @@ std::vector<TracePoint> Decimate(const std::vector<TracePoint>& points,
     }
   }
   return out;
+}
+
+ObservationTracer::ObservationTracer(std::string series, std::FILE* out)
+    : series_(std::move(series)), out_(out) {}
+
+void ObservationTracer::After(const SeriesMonitor* monitor, EventTime time, double value) {
+  if (monitor == nullptr || monitor->observations() == observations_) return;
+  observations_ = monitor->observations();
+  const std::vector<SeriesMonitor::DetectorSnapshot> detectors = monitor->DetectorSnapshots();
+  if (!header_) {
+    header_ = true;
+    std::fprintf(out_, "time,reading,observation,armed,sigma,z");
+    for (const auto& d : detectors) {
+      std::fprintf(out_, ",%.*s,%.*s_threshold", static_cast<int>(d.name.size()),
+                   d.name.data(), static_cast<int>(d.name.size()), d.name.data());
+    }
+    std::fprintf(out_, "\n");
+  }
+  std::fprintf(out_, "%s,%.10g,%lld,%d,%.6g,%.6g", FormatRfc3339(time).c_str(), value,
+               observations_, monitor->armed() ? 1 : 0, monitor->scale().sigma(),
+               monitor->last_z());
+  for (const auto& d : detectors) std::fprintf(out_, ",%.6g,%.6g", d.statistic, d.threshold);
+  std::fprintf(out_, "\n");
 }
 
 }  // namespace plumbline

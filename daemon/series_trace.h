@@ -15,6 +15,7 @@
 
 #include <cmath>
 #include <cstddef>
+#include <cstdio>
 #include <limits>
 #include <string>
 #include <vector>
@@ -63,5 +64,26 @@ class PointRing {
 // survive. Fewer points than max_points are returned as they are.
 std::vector<TracePoint> Decimate(const std::vector<TracePoint>& points,
                                  std::size_t max_points);
+
+// replay --trace: one series' standardised residual and every detector's
+// statistic and threshold at each of its observations, as CSV, to answer
+// "why did it fire, and why not sooner". A line is written after each reading
+// of the series that completed an observation (for a bucketed series a
+// reading can complete several; the line shows the last). Before the model
+// is armed, z is 0 and the detectors are idle.
+class ObservationTracer {
+ public:
+  // Writes to `out` (not owned; the caller closes it).
+  ObservationTracer(std::string series, std::FILE* out);
+  const std::string& series() const { return series_; }
+  // After `monitor` (null: not created yet) took the reading (time, value).
+  void After(const SeriesMonitor* monitor, EventTime time, double value);
+
+ private:
+  std::string series_;
+  std::FILE* out_;
+  long long observations_ = 0;
+  bool header_ = false;
+};
 
 }  // namespace plumbline
