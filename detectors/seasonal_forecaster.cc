@@ -15,8 +15,10 @@ namespace {
 // the processor has. Division is correctly rounded at every width, so every
 // copy gives the same bits; on the baseline x86-64 build, two lanes at a time,
 // the n^2 divisions of the forgetting step were the costliest part of an
-// update (about 40% of it for n = 20, by perf).
-#if defined(__x86_64__) && defined(__GNUC__)
+// update (about 40% of it for n = 20, by perf). Not under ThreadSanitizer:
+// the clones' resolver runs while the program is being relocated, before the
+// sanitizer's runtime has started, and its instrumented code crashes there.
+#if defined(__x86_64__) && defined(__GNUC__) && !defined(__SANITIZE_THREAD__)
 __attribute__((target_clones("avx512f", "avx2", "default")))
 #endif
 void DivideAll(double* values, std::size_t count, double divisor) {

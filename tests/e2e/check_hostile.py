@@ -277,7 +277,10 @@ def scenario_overload(args, tmp):
     check(totals["budget_max"] <= budget, "ingest memory %d over the budget %d" % (
         totals["budget_max"], budget))
     peak = rss_kib(daemon.process.pid, "VmHWM")
-    check(peak < 256 * 1024, "peak RSS %d KiB" % peak)
+    # The bound is raised for the AddressSanitizer build, whose shadow memory
+    # and quarantine of freed blocks (256 MiB by default) count in RSS.
+    peak_mib = int(os.environ.get("PLUMBLINE_E2E_PEAK_RSS_MIB", "256"))
+    check(peak < peak_mib * 1024, "peak RSS %d KiB, over %d MiB" % (peak, peak_mib))
     rate = accepted / seconds
     offered = 2 * tcp_lines + totals["http_offered"]
     check(offered / offering > rate, "offered no more than the shard processes")
