@@ -2,6 +2,7 @@
 
 #include <Eigen/Dense>
 #include <algorithm>
+#include <cfloat>
 #include <cmath>
 #include <string>
 
@@ -10,21 +11,36 @@
 namespace plumbline {
 namespace {
 
-double ChainArl(const IncrementCdf& cdf, double h, double start, int m) {
+// The matrix, factorisation and right-hand side of one chain size, kept so a
+// calibration's repeated ARLs allocate nothing after the first.
+struct ChainWorkspace {
+  explicit ChainWorkspace(int n) : a(n, n), lu(n), ones(Vector::Ones(n)) {}
+  Matrix a;
+  Eigen::PartialPivLU<Matrix> lu;
+  Vector ones;
+};
+
+// The ARL of the m-cell chain whose row i holds F((j + 1/2) w - i w) at
+// cell_cdf(i, j, (j + 1/2) w - i w), j = 0..m.
+template <typename CellCdf>
+double ChainArl(const CellCdf& cell_cdf, double h, double start, int m,
+                ChainWorkspace& space) {
   const double w = h / (m + 0.5);
   const int n = m + 1;
-  Matrix a = Matrix::Identity(n, n);
+  Matrix& a = space.a;
+  a.setIdentity(n, n);
   for (int i = 0; i < n; ++i) {
     const double s = i * w;
-    double below = cdf(0.5 * w - s);
+    double below = cell_cdf(i, 0, 0.5 * w - s);
     a(i, 0) -= below;
     for (int j = 1; j < n; ++j) {
-      const double upper = cdf((j + 0.5) * w - s);
+      const double upper = cell_cdf(i, j, (j + 0.5) * w - s);
       a(i, j) -= upper - below;
       below = upper;
     }
   }
-  const Vector arl = a.partialPivLu().solve(Vector::Ones(n));
+  space.lu.compute(a);
+  const Vector arl = space.lu.solve(space.ones);
   // Start in the cell that holds `start`, interpolating between cell centres.
   const double position = start / w;
   const int lower = static_cast<int>(std::floor(position));
@@ -33,12 +49,65 @@ double ChainArl(const IncrementCdf& cdf, double h, double start, int m) {
   return (1.0 - fraction) * arl[lower] + fraction * arl[lower + 1];
 }
 
+template <typename CellCdf>
+double RichardsonArl(const CellCdf& coarse_cdf, const CellCdf& fine_cdf, double h,
+                     double start, int cells, ChainWorkspace& coarse_space,
+                     ChainWorkspace& fine_space) {
+  const double coarse = ChainArl(coarse_cdf, h, start, cells, coarse_space);
+  const double fine = ChainArl(fine_cdf, h, start, 2 * cells, fine_space);
+  return (4.0 * fine - coarse) / 3.0;
+}
+
+// An IncrementCdf called at every cell edge.
+struct FunctionCellCdf {
+  double operator()(int, int, double y) const { return (*cdf)(y); }
+  const IncrementCdf* cdf;
+};
+
 }  // namespace
 
+double EmpiricalCdf(std::span<const double> sorted, double y) {
+  return static_cast<double>(std::upper_bound(sorted.begin(), sorted.end(), y) -
+                             sorted.begin()) /
+         static_cast<double>(sorted.size());
+}
+
+void EmpiricalChainCdf::Tabulate(std::span<const double> sorted, double h, int m) {
+  sorted_ = sorted;
+  const int n = m + 1;
+  offset_ = n - 1;
+  const double w = h / (m + 0.5);
+  // The edge (j + 1/2) w - i w as ChainArl rounds it lies within about
+  // 4 u n w of (k + 1/2) w, k = j - i (u = DBL_EPSILON / 2: three roundings of
+  // terms below n w, and one of the tabulated edge); 8 times that is the band.
+  const double band = 16.0 * DBL_EPSILON * (n + 1) * w;
+  const double size = static_cast<double>(sorted.size());
+  table_.resize(2 * n - 1);
+  for (int k = -(n - 1); k <= n - 1; ++k) {
+    const double edge = (k + 0.5) * w;
+    const auto below_band = std::lower_bound(sorted.begin(), sorted.end(), edge - band);
+    const auto above_band = std::upper_bound(below_band, sorted.end(), edge + band);
+    // With no sample value in the band, every edge rounded into it counts the
+    // same values; otherwise that edge is searched as it is.
+    table_[k + offset_] = below_band == above_band
+                              ? static_cast<double>(below_band - sorted.begin()) / size
+                              : -1.0;
+  }
+}
+
 double OneSidedCusumArl(const IncrementCdf& cdf, double h, double start, int cells) {
-  const double coarse = ChainArl(cdf, h, start, cells);
-  const double fine = ChainArl(cdf, h, start, 2 * cells);
-  return (4.0 * fine - coarse) / 3.0;
+  ChainWorkspace coarse(cells + 1), fine(2 * cells + 1);
+  const FunctionCellCdf cell_cdf{&cdf};
+  return RichardsonArl(cell_cdf, cell_cdf, h, start, cells, coarse, fine);
+}
+
+double OneSidedCusumArlFromSample(std::span<const double> sorted_increments, double h,
+                                  int cells) {
+  EmpiricalChainCdf coarse_cdf, fine_cdf;
+  coarse_cdf.Tabulate(sorted_increments, h, cells);
+  fine_cdf.Tabulate(sorted_increments, h, 2 * cells);
+  ChainWorkspace coarse(cells + 1), fine(2 * cells + 1);
+  return RichardsonArl(coarse_cdf, fine_cdf, h, 0.0, cells, coarse, fine);
 }
 
 StatusOr<double> CalibrateOneSidedCusum(const IncrementCdf& cdf, double arl0,
@@ -72,17 +141,18 @@ StatusOr<double> CalibrateOneSidedCusumFromSample(std::vector<double> increments
     return Status::InvalidArgument("need 0 < h_floor <= h_ceiling");
   }
   std::sort(increments.begin(), increments.end());
-  const double n = static_cast<double>(increments.size());
-  const IncrementCdf cdf = [&increments, n](double y) {
-    return static_cast<double>(std::upper_bound(increments.begin(), increments.end(), y) -
-                               increments.begin()) / n;
-  };
   // A sample of this size pins the ARL down to a few per cent at best, so a
   // coarser chain (80 cells, which agrees with 150 on the thresholds it picks;
   // 40 did not) and a 1% bracket are enough, and keep a re-fit to tens of
   // milliseconds per series.
   constexpr int kCells = 80;
-  auto arl = [&](double h) { return OneSidedCusumArl(cdf, h, 0.0, kCells); };
+  EmpiricalChainCdf coarse_cdf, fine_cdf;
+  ChainWorkspace coarse(kCells + 1), fine(2 * kCells + 1);
+  auto arl = [&](double h) {
+    coarse_cdf.Tabulate(increments, h, kCells);
+    fine_cdf.Tabulate(increments, h, 2 * kCells);
+    return RichardsonArl(coarse_cdf, fine_cdf, h, 0.0, kCells, coarse, fine);
+  };
   if (arl(h_floor) >= arl0) return h_floor;
   if (arl(h_ceiling) < arl0) return h_ceiling;
   double low = h_floor, high = h_ceiling;

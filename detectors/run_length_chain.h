@@ -19,6 +19,7 @@
 #pragma once
 
 #include <functional>
+#include <span>
 #include <vector>
 
 #include "detectors/status.h"
@@ -36,6 +37,38 @@ double OneSidedCusumArl(const IncrementCdf& cdf, double h, double start = 0.0,
 // Fails when arl0 cannot be reached below h_max.
 StatusOr<double> CalibrateOneSidedCusum(const IncrementCdf& cdf, double arl0,
                                         double h_max = 1000.0);
+
+// The empirical CDF of a sorted sample at y: the share of values <= y (a
+// binary search).
+double EmpiricalCdf(std::span<const double> sorted, double y);
+
+// The empirical CDF of a sorted sample on the cell edges of one chain (m
+// cells, decision interval h): row i, column j is evaluated at the edge
+// (j + 1/2) w - i w, which depends on k = j - i alone but for rounding. So the
+// CDF is tabulated once per k (2m + 1 searches instead of (m + 1)^2), and an
+// edge is searched as it is only where a sample value lies within a rounding
+// band of (k + 1/2) w. Either way the value is bit for bit EmpiricalCdf at the
+// edge as rounded. Holds a view of the sample: it must outlive the table.
+class EmpiricalChainCdf {
+ public:
+  void Tabulate(std::span<const double> sorted, double h, int m);
+
+  // F(y) for row i, column j, y the rounded edge of that cell.
+  double operator()(int i, int j, double y) const {
+    const double tabulated = table_[j - i + offset_];
+    return tabulated >= 0.0 ? tabulated : EmpiricalCdf(sorted_, y);
+  }
+
+ private:
+  std::span<const double> sorted_;
+  std::vector<double> table_;  // by k + offset_; -1 where a value is in the band
+  int offset_ = 0;
+};
+
+// OneSidedCusumArl (start 0) for the empirical CDF of a sorted sample,
+// equal bit for bit to it with cdf = EmpiricalCdf(sorted_increments, .).
+double OneSidedCusumArlFromSample(std::span<const double> sorted_increments, double h,
+                                  int cells = 150);
 
 // The same calibration for increments whose distribution is known only by a
 // sample (the empirical CDF of `increments`, at least 100 values), with h held

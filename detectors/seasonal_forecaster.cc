@@ -36,7 +36,31 @@ void DivideAll(double* values, std::size_t count, double divisor) {
   for (; i < count; ++i) values[i] /= divisor;
 }
 
+// Full-matrix workspaces of the covariance, one per dimension and thread: P
+// rests packed in each forecaster and is unpacked here for the update's
+// matrix products, so the arithmetic is the full matrix's, bit for bit.
+Matrix& CovarianceWorkspace(int n) {
+  thread_local std::vector<Matrix> by_dimension;
+  if (static_cast<int>(by_dimension.size()) <= n) by_dimension.resize(n + 1);
+  Matrix& p = by_dimension[static_cast<std::size_t>(n)];
+  if (p.rows() != n) p.resize(n, n);
+  return p;
+}
+
 }  // namespace
+
+void PackedSymmetricTimesVector(const double* lower, int n, const double* x, double* y) {
+  for (int i = 0; i < n; ++i) y[i] = 0.0;
+  const double* column = lower;  // column j from P(j, j)
+  for (int j = 0; j < n; column += n - j, ++j) {
+    const double xj = x[j];
+    // Above the diagonal P(i, j) = P(j, i), row j of the triangle: in column
+    // i at offset j - i, so n - i - 1 further on from one column to the next.
+    const double* transposed = lower + j;
+    for (int i = 0; i < j; transposed += n - i - 1, ++i) y[i] += *transposed * xj;
+    Eigen::Map<Vector>(y + j, n - j) += xj * Eigen::Map<const Vector>(column, n - j);
+  }
+}
 
 bool SeasonalForecasterOptions::IsValid(std::string* why) const {
   auto fail = [why](const char* message) {
@@ -82,7 +106,7 @@ SeasonalForecaster::SeasonalForecaster(const SeasonalForecasterOptions& options)
   n += options_.covariates;
   covariate_values_ = Vector::Zero(options_.covariates);
   theta_ = Vector::Zero(n);
-  p_ = Matrix::Identity(n, n) * options_.prior_variance;
+  Pack(Matrix::Identity(n, n) * options_.prior_variance);
   x_ = Vector::Zero(n);
   px_ = Vector::Zero(n);
 }
@@ -158,7 +182,7 @@ Forecast SeasonalForecaster::PredictInterval(EventTime from, EventTime to) const
   const double lambda =
       std::exp(-static_cast<double>(std::max<EventTime>(to - t_ref_, 0)) /
                static_cast<double>(options_.memory));
-  return {x_.dot(theta_), x_.dot(p_.selfadjointView<Eigen::Lower>() * x_) / lambda +
+  return {x_.dot(theta_), x_.dot(Unpacked().selfadjointView<Eigen::Lower>() * x_) / lambda +
                               x_[0] * x_[0] * LevelDrift(to - t_ref_)};
 }
 
@@ -170,10 +194,45 @@ Forecast SeasonalForecaster::Predict(EventTime t) const {
                static_cast<double>(options_.memory));
   Forecast f;
   f.value = x_.dot(theta_);
-  f.parameter_variance_factor = x_.dot(p_.selfadjointView<Eigen::Lower>() * x_) / lambda +
+  f.parameter_variance_factor = x_.dot(Unpacked().selfadjointView<Eigen::Lower>() * x_) / lambda +
                                 x_[0] * x_[0] * LevelDrift(t - t_ref_);
   return f;
 }
+
+Matrix& SeasonalForecaster::Unpacked() const {
+  const int n = dimension();
+  Matrix& p = CovarianceWorkspace(n);
+  const double* packed = p_lower_.data();
+  for (int j = 0; j < n; packed += n - j, ++j) {
+    std::memcpy(&p(j, j), packed, sizeof(double) * static_cast<std::size_t>(n - j));
+  }
+  p.triangularView<Eigen::StrictlyUpper>() = p.transpose();
+  return p;
+}
+
+void SeasonalForecaster::Pack(const Matrix& p) {
+  const int n = static_cast<int>(p.rows());
+  p_lower_.resize(n * (n + 1) / 2);
+  double* packed = p_lower_.data();
+  for (int j = 0; j < n; ++j) {
+    for (int i = j; i < n; ++i, ++packed) *packed = p(i, j);
+  }
+}
+
+double& SeasonalForecaster::Diagonal(int i) {
+  // Column j of the packed lower triangle starts at j n - j (j - 1) / 2.
+  return p_lower_[i * dimension() - i * (i - 1) / 2];
+}
+
+double SeasonalForecaster::LargestVariance() const {
+  const int n = dimension();
+  double largest = p_lower_[0];
+  const double* diagonal = p_lower_.data();
+  for (int i = 1; i < n; ++i) largest = std::max(largest, *(diagonal += n - i + 1));
+  return largest;
+}
+
+Matrix SeasonalForecaster::covariance() const { return Unpacked(); }
 
 void SeasonalForecaster::Recentre(EventTime t) {
   if (!options_.trend || t == t_ref_) {
@@ -181,10 +240,16 @@ void SeasonalForecaster::Recentre(EventTime t) {
     return;
   }
   const double d = static_cast<double>(t - t_ref_) / static_cast<double>(options_.memory);
-  // theta' = A theta, P' = A P A' with A = I + d e_0 e_1'.
+  // theta' = A theta, P' = A P A' with A = I + d e_0 e_1': row 0 += d row 1,
+  // then column 0 += d column 1, which on the lower triangle is
+  // P00 = (P00 + d P10) + d (P10 + d P11) and Pi0 += d Pi1 for i >= 1 (P11
+  // the diagonal), in the full matrix's order of operations.
   theta_[0] += d * theta_[1];
-  p_.row(0) += d * p_.row(1);
-  p_.col(0) += d * p_.col(1);
+  const int n = dimension();
+  double* column0 = p_lower_.data();
+  const double* column1 = column0 + n;  // from P11
+  column0[0] = (column0[0] + d * column0[1]) + d * (column0[1] + d * column1[0]);
+  for (int i = 1; i < n; ++i) column0[i] += d * column1[i - 1];
   t_ref_ = t;
 }
 
@@ -225,8 +290,8 @@ StatusOr<Forecast> SeasonalForecaster::BeginUpdate(EventTime from, EventTime to)
                 kMaxForgettingExponent));
   const EventTime elapsed = to - t_ref_;
   Recentre(to);
-  DivideAll(p_.data(), static_cast<std::size_t>(p_.size()), lambda);
-  p_(0, 0) += LevelDrift(elapsed);
+  DivideAll(p_lower_.data(), static_cast<std::size_t>(p_lower_.size()), lambda);
+  Diagonal(0) += LevelDrift(elapsed);
   // Bounding before the update as well keeps a long gap's huge P / lambda out
   // of the rank-one downdate (it would leave P with a condition number ~1e16).
   BoundCovariance(to);
@@ -235,7 +300,7 @@ StatusOr<Forecast> SeasonalForecaster::BeginUpdate(EventTime from, EventTime to)
   } else {
     FillRegressors(to, &x_);
   }
-  px_.noalias() = p_ * x_;
+  PackedSymmetricTimesVector(p_lower_.data(), dimension(), x_.data(), px_.data());
   pending_.xpx = x_.dot(px_);
   pending_.forecast = x_.dot(theta_);
   return Forecast{pending_.forecast, pending_.xpx};
@@ -250,25 +315,29 @@ Status SeasonalForecaster::CommitUpdate(double y) {
     t_first_ = t;
     theta_.setZero();
     theta_[0] = y;
-    p_ = Matrix::Identity(dimension(), dimension()) * options_.prior_variance;
+    Pack(Matrix::Identity(dimension(), dimension()) * options_.prior_variance);
     BoundCovariance(t);
     if (pending_.from < t) {
       FillIntervalRegressors(pending_.from, t, &x_);
     } else {
       FillRegressors(t, &x_);
     }
-    px_.noalias() = p_ * x_;
+    PackedSymmetricTimesVector(p_lower_.data(), dimension(), x_.data(), px_.data());
     pending_.xpx = x_.dot(px_);
     pending_.forecast = x_.dot(theta_);
   }
   const double error = y - pending_.forecast;
   const double denominator = 1.0 + pending_.xpx;
   theta_.noalias() += px_ * (error / denominator);
-  // Rank-one downdate of the lower triangle only (a full outer product would
-  // go through Eigen's general matrix product), then mirrored: P stays exactly
-  // symmetric. Bounded as well.
-  p_.selfadjointView<Eigen::Lower>().rankUpdate(px_, -1.0 / denominator);
-  p_.triangularView<Eigen::StrictlyUpper>() = p_.transpose();
+  // Rank-one downdate of the packed lower triangle, P += alpha u u' with
+  // u = P x: column i gets (alpha u_i) u, as Eigen's selfadjoint rankUpdate
+  // computes it (rounding included). P stays exactly symmetric. Bounded as well.
+  const double alpha = -1.0 / denominator;
+  const int n = dimension();
+  double* column = p_lower_.data();
+  for (int i = 0; i < n; column += n - i, ++i) {
+    Eigen::Map<Vector>(column, n - i) += (alpha * px_[i]) * px_.tail(n - i);
+  }
   BoundCovariance(t);
   ++updates_;
   pending_.active = false;
@@ -287,22 +356,23 @@ void SeasonalForecaster::BoundCovariance(EventTime t) {
   const double bound = CovarianceBound(t);
   // The margin keeps rounding (P_ii a few ulps above an exactly-met bound) from
   // triggering the guard while the fit is still the exact one.
-  if (!(p_.diagonal().maxCoeff() > bound * (1.0 + kBoundMargin))) return;
+  if (!(LargestVariance() > bound * (1.0 + kBoundMargin))) return;
+  Matrix& p = Unpacked();
   // Clamp the eigenvalues rather than rescale rows and columns: a diagonal
   // rescaling D P D of directions that are correlated with well-determined ones
   // (a season aliased with the level) leaks their huge variance into the
   // well-determined combinations, and the fit turns noisy.
-  Eigen::SelfAdjointEigenSolver<Matrix> eigen(p_);
+  Eigen::SelfAdjointEigenSolver<Matrix> eigen(p);
   const Vector clamped = eigen.eigenvalues().cwiseMin(kBoundReset * bound);
-  p_.noalias() =
+  p.noalias() =
       eigen.eigenvectors() * clamped.asDiagonal() * eigen.eigenvectors().transpose();
-  p_.triangularView<Eigen::StrictlyUpper>() = p_.transpose();
+  Pack(p);
 }
 
 void SeasonalForecaster::Reopen(double variance) {
   const double ceiling = kBoundReset * CovarianceBound(t_ref_);
   for (int i = 0; i < dimension(); ++i) {
-    p_(i, i) += std::clamp(variance, 0.0, std::max(ceiling - p_(i, i), 0.0));
+    Diagonal(i) += std::clamp(variance, 0.0, std::max(ceiling - Diagonal(i), 0.0));
   }
 }
 
@@ -316,8 +386,8 @@ void SeasonalForecaster::ShiftLevel(double delta, double level_variance) {
   theta_[0] += delta;
   // Adding to a diagonal element keeps P positive definite. The addition stops
   // at half the covariance bound, so the guard has nothing to do.
-  const double room = kBoundReset * CovarianceBound(t_ref_) - p_(0, 0);
-  p_(0, 0) += std::clamp(level_variance, 0.0, std::max(room, 0.0));
+  const double room = kBoundReset * CovarianceBound(t_ref_) - Diagonal(0);
+  Diagonal(0) += std::clamp(level_variance, 0.0, std::max(room, 0.0));
 }
 
 void SeasonalForecaster::Save(SnapshotWriter& w) const {
@@ -327,7 +397,8 @@ void SeasonalForecaster::Save(SnapshotWriter& w) const {
   w.I64(options_.level_noise_unit);
   w.U64(static_cast<std::uint64_t>(theta_.size()));
   w.Doubles(theta_.data(), static_cast<std::size_t>(theta_.size()));
-  w.Doubles(p_.data(), static_cast<std::size_t>(p_.size()));
+  const Matrix& p = Unpacked();  // saved whole: the format predates packing
+  w.Doubles(p.data(), static_cast<std::size_t>(p.size()));
   w.I64(t_ref_);
   w.I64(t_first_);
   w.I64(updates_);
@@ -357,7 +428,8 @@ Status SeasonalForecaster::Load(SnapshotReader& r) {
   }
   r.FiniteDoubles(theta_.data(), static_cast<std::size_t>(theta_.size()),
                   "forecaster coefficient");
-  r.FiniteDoubles(p_.data(), static_cast<std::size_t>(p_.size()), "forecaster covariance");
+  Matrix& p = CovarianceWorkspace(dimension());
+  r.FiniteDoubles(p.data(), static_cast<std::size_t>(p.size()), "forecaster covariance");
   t_ref_ = r.Time("forecaster last time");
   t_first_ = r.Time("forecaster first time");
   updates_ = r.Counter("forecaster updates");
@@ -368,13 +440,17 @@ Status SeasonalForecaster::Load(SnapshotReader& r) {
   pending_.xpx = r.F64();  // infinite while the prior is not yet set
   if (!r.ok()) return r.status();
   // A covariance has a non-negative diagonal; a negative variance would make
-  // x' P x negative and the forecast's spread the square root of it.
+  // x' P x negative and the forecast's spread the square root of it. It is
+  // symmetric (the updates keep it so bit for bit), and only its lower
+  // triangle is kept.
   for (int i = 0; i < dimension(); ++i) {
-    if (p_(i, i) < 0) {
+    if (p(i, i) < 0) {
       return r.Fail("forecaster variance of coefficient " + std::to_string(i) +
                     " is negative");
     }
   }
+  if (p != p.transpose()) return r.Fail("forecaster covariance is not symmetric");
+  Pack(p);
   if (t_first_ > t_ref_) return r.Fail("forecaster first time is after its last");
   if (!(pending_.xpx >= 0) || (updates_ > 0 && !std::isfinite(pending_.xpx))) {
     return r.Fail("forecaster pending variance factor out of range");

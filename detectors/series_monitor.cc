@@ -642,7 +642,7 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
     // resolution floor (all zero) would look to it like a change; the mean
     // detectors still watch them.
     if (!resolvable && level_kinds_[i] == DetectorKind::kBocpd) continue;
-    StatusOr<Alarm> result = std::visit(
+    StatusOr<Alarm> result = VisitLevel(
         [&](auto& detector) -> StatusOr<Alarm> {
           using T = std::decay_t<decltype(detector)>;
           if constexpr (std::is_same_v<T, PoissonCusum>) {
@@ -671,7 +671,8 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
     threshold_fraction_[i] =
         result->fired
             ? 0.0
-            : std::visit([](const auto& d) { return ThresholdFraction(d); }, level_[i]);
+            : VisitLevel([](const auto& d) { return ThresholdFraction(d); },
+                         std::as_const(level_[i]));
   }
   int agreeing = 0;
   int best = -1;
@@ -947,7 +948,7 @@ void SeriesMonitor::BuildLevelDetectors(const DetectorDesign& d) {
         level_.emplace_back(PageHinkley(d.page_hinkley));
         break;
       case DetectorKind::kBocpd:
-        level_.emplace_back(Bocpd(d.bocpd));
+        level_.emplace_back(BoxedBocpd(Bocpd(d.bocpd)));
         break;
       case DetectorKind::kEwma:
         level_.emplace_back(Ewma(d.ewma));
@@ -970,7 +971,7 @@ void SeriesMonitor::Retune(const ProfileDesign* design) {
 }
 
 void SeriesMonitor::ResetLevelDetectors() {
-  for (auto& detector : level_) std::visit([](auto& d) { d.Reset(); }, detector);
+  for (auto& detector : level_) VisitLevel([](auto& d) { d.Reset(); }, detector);
   for (auto& firing : firings_) firing = Firing{};
   std::fill(threshold_fraction_.begin(), threshold_fraction_.end(), 0.0);
 }
@@ -1005,7 +1006,7 @@ std::vector<SeriesMonitor::DetectorSnapshot> SeriesMonitor::DetectorSnapshots() 
   };
   for (std::size_t i = 0; i < level_.size(); ++i) {
     const std::string_view name = ToString(level_kinds_[i]);
-    std::visit(
+    VisitLevel(
         [&](const auto& detector) {
           using T = std::decay_t<decltype(detector)>;
           if constexpr (std::is_same_v<T, Cusum>) {
@@ -1038,8 +1039,9 @@ std::vector<SeriesMonitor::DetectorSnapshot> SeriesMonitor::DetectorSnapshots() 
 
 std::optional<SeriesMonitor::RunLengthSnapshot> SeriesMonitor::RunLength() const {
   for (const LevelDetector& detector : level_) {
-    if (const Bocpd* bocpd = std::get_if<Bocpd>(&detector)) {
-      return RunLengthSnapshot{bocpd->map_run_length(), bocpd->change_probability()};
+    if (const BoxedBocpd* boxed = std::get_if<BoxedBocpd>(&detector)) {
+      const Bocpd& bocpd = **boxed;
+      return RunLengthSnapshot{bocpd.map_run_length(), bocpd.change_probability()};
     }
   }
   return std::nullopt;
@@ -1130,7 +1132,7 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
   for (std::size_t i = 0; i < level_.size(); ++i) {
     w.U8(static_cast<std::uint8_t>(level_kinds_[i]));
     w.Bool(std::holds_alternative<PoissonCusum>(level_[i]));
-    std::visit([&w](const auto& d) { d.Save(w); }, level_[i]);
+    VisitLevel([&w](const auto& d) { d.Save(w); }, level_[i]);
     w.I64(firings_[i].observation);
     SaveAlarm(firings_[i].alarm, w);
     w.F64(threshold_fraction_[i]);
@@ -1236,7 +1238,7 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
     } else if (std::holds_alternative<PoissonCusum>(level_[i])) {
       level_[i].emplace<Cusum>(design_->level.cusum);
     }
-    if (Status s = std::visit([&r](auto& d) { return d.Load(r); }, level_[i]); !s.ok())
+    if (Status s = VisitLevel([&r](auto& d) { return d.Load(r); }, level_[i]); !s.ok())
       return s;
     firings_[i].observation = r.I64();  // -1: none
     if (r.ok() && (firings_[i].observation < -1 ||

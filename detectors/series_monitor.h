@@ -117,6 +117,8 @@
 #include <memory>
 #include <optional>
 #include <string>
+#include <type_traits>
+#include <utility>
 #include <variant>
 #include <vector>
 
@@ -278,7 +280,50 @@ class SeriesMonitor {
   std::optional<RunLengthSnapshot> RunLength() const;
 
  private:
-  using LevelDetector = std::variant<Cusum, PageHinkley, Bocpd, Ewma, PoissonCusum>;
+  // BOCPD's state (672 bytes, its tables on the heap besides) is several times
+  // the other detectors' (at most 192): held on the heap, so every level
+  // detector slot of the many series without BOCPD stays small. Copies copy it.
+  class BoxedBocpd {
+   public:
+    explicit BoxedBocpd(Bocpd bocpd) : bocpd_(std::make_unique<Bocpd>(std::move(bocpd))) {}
+    BoxedBocpd(const BoxedBocpd& other) : BoxedBocpd(*other.bocpd_) {}
+    BoxedBocpd(BoxedBocpd&&) = default;
+    BoxedBocpd& operator=(const BoxedBocpd& other) {
+      *bocpd_ = *other.bocpd_;
+      return *this;
+    }
+    BoxedBocpd& operator=(BoxedBocpd&&) = default;
+    Bocpd& operator*() const { return *bocpd_; }
+
+   private:
+    std::unique_ptr<Bocpd> bocpd_;  // null only when moved from
+  };
+  using LevelDetector = std::variant<Cusum, PageHinkley, BoxedBocpd, Ewma, PoissonCusum>;
+  // std::visit on a level detector, BOCPD unboxed.
+  template <typename Visitor>
+  static decltype(auto) VisitLevel(Visitor&& visitor, LevelDetector& detector) {
+    return std::visit(
+        [&visitor](auto& d) -> decltype(auto) {
+          if constexpr (std::is_same_v<std::decay_t<decltype(d)>, BoxedBocpd>) {
+            return visitor(*d);
+          } else {
+            return visitor(d);
+          }
+        },
+        detector);
+  }
+  template <typename Visitor>
+  static decltype(auto) VisitLevel(Visitor&& visitor, const LevelDetector& detector) {
+    return std::visit(
+        [&visitor](const auto& d) -> decltype(auto) {
+          if constexpr (std::is_same_v<std::decay_t<decltype(d)>, BoxedBocpd>) {
+            return visitor(std::as_const(*d));
+          } else {
+            return visitor(d);
+          }
+        },
+        detector);
+  }
   struct Firing {
     long long observation = -1;  // index at which it fired; -1 none
     Alarm alarm;

@@ -2,9 +2,11 @@
 
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <numbers>
+#include <vector>
 
 #include "detectors/random.h"
 
@@ -175,6 +177,70 @@ TEST(RunLengthChainTest, CappedChiSquareIncrementAgreesWithMonteCarlo) {
   EXPECT_NEAR(chain, mean, 3.0 * se);
   std::printf("capped chi-square CUSUM, h = %.1f: chain %.3f, Monte Carlo %.3f +- %.3f\n",
               h, chain, mean, se);
+}
+
+// ---------------------------------------------------------------------------
+// The empirical chain's tabulated CDF against the binary search it replaces
+// (exact equality: the re-fitted thresholds, and with them replay's alerts,
+// must not change; common practice, no source).
+
+// Samples with ties, values far beyond the chain's edges on both sides, and
+// values placed exactly on cell edges as the chain rounds them (where the
+// table must fall back to a search).
+std::vector<std::vector<double>> EdgeCaseSamples(double h, int m) {
+  Random random(77);
+  std::vector<std::vector<double>> samples;
+  std::vector<double> normal, ties, wide, on_edges;
+  for (int i = 0; i < 1000; ++i) {
+    const double z = random.Normal();
+    normal.push_back(z - 0.5);
+    ties.push_back(std::round(4.0 * z) / 4.0 - 0.5);  // many equal values
+    wide.push_back(i % 10 == 0 ? (i % 20 == 0 ? 1e6 : -1e6) : 3.0 * z);
+  }
+  const double w = h / (m + 0.5);
+  for (int i = 0; i < 300; ++i) {
+    const int row = static_cast<int>(random.Uniform() * (m + 1));
+    const int column = static_cast<int>(random.Uniform() * (m + 1));
+    on_edges.push_back((column + 0.5) * w - row * w);  // exactly an edge
+    on_edges.push_back(std::nextafter(on_edges.back(), 1e9));
+    on_edges.push_back(random.Normal());
+  }
+  for (auto* sample : {&normal, &ties, &wide, &on_edges}) {
+    std::sort(sample->begin(), sample->end());
+    samples.push_back(*sample);
+  }
+  return samples;
+}
+
+TEST(RunLengthChainTest, TabulatedEmpiricalCdfEqualsBinarySearchAtEveryEdge) {
+  for (const double h : {0.37, 4.0, 11.3}) {
+    for (const int m : {80, 160}) {
+      for (const std::vector<double>& sample : EdgeCaseSamples(h, m)) {
+        EmpiricalChainCdf table;
+        table.Tabulate(sample, h, m);
+        const double w = h / (m + 0.5);
+        long long mismatches = 0;
+        for (int i = 0; i <= m; ++i) {
+          const double s = i * w;
+          for (int j = 0; j <= m; ++j) {
+            const double y = (j + 0.5) * w - s;  // as the chain rounds it
+            if (table(i, j, y) != EmpiricalCdf(sample, y)) ++mismatches;
+          }
+        }
+        EXPECT_EQ(mismatches, 0) << "h " << h << ", m " << m;
+      }
+    }
+  }
+}
+
+TEST(RunLengthChainTest, ArlFromSampleEqualsArlOfTheEmpiricalCdfBitForBit) {
+  for (const double h : {0.37, 4.0, 11.3}) {
+    for (const std::vector<double>& sample : EdgeCaseSamples(h, 80)) {
+      const IncrementCdf cdf = [&sample](double y) { return EmpiricalCdf(sample, y); };
+      EXPECT_EQ(OneSidedCusumArlFromSample(sample, h, 80), OneSidedCusumArl(cdf, h, 0.0, 80))
+          << "h " << h;
+    }
+  }
 }
 
 }  // namespace

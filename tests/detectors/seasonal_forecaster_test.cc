@@ -484,6 +484,52 @@ TEST(SeasonalForecasterTest, ShiftLevelMovesForecastsAndKeepsCovariancePositiveD
   EXPECT_TRUE(Inspect(model.covariance()).cholesky_ok);
 }
 
+// The packed product against Eigen's full one, exactly (the forecaster's
+// updates, and with them replay's alerts, must not change; common practice,
+// no source): odd and even sizes, mixed signs and magnitudes, zeros.
+TEST(PackedSymmetricTimesVectorTest, EqualsTheFullMatrixProductBitForBit) {
+  Random random(11);
+  for (const int n : {1, 2, 3, 7, 20, 33}) {
+    Matrix p(n, n);
+    for (int j = 0; j < n; ++j) {
+      for (int i = j; i < n; ++i) {
+        const double v = i % 5 == 3 ? 0.0 : random.Normal() * std::exp(8.0 * random.Normal());
+        p(i, j) = p(j, i) = v;
+      }
+    }
+    Vector x(n);
+    for (int i = 0; i < n; ++i) x[i] = random.Normal() * std::exp(4.0 * random.Normal());
+    std::vector<double> lower;
+    for (int j = 0; j < n; ++j) {
+      for (int i = j; i < n; ++i) lower.push_back(p(i, j));
+    }
+    Vector full(n), packed(n);
+    full.noalias() = p * x;
+    PackedSymmetricTimesVector(lower.data(), n, x.data(), packed.data());
+    for (int i = 0; i < n; ++i) EXPECT_EQ(packed[i], full[i]) << "n " << n << ", row " << i;
+  }
+}
+
+// P is kept as its packed lower triangle: the updates (re-centring with a
+// trend, forgetting, the rank-one downdate) keep it exactly symmetric, and
+// ShiftLevel and Reopen change the diagonal entries they name and nothing
+// else (common practice, no source).
+TEST(SeasonalForecasterTest, PackedCovarianceStaysSymmetricAndDiagonalEditsHitTheDiagonal) {
+  SeasonalForecaster model = FittedReferenceModel();
+  ASSERT_TRUE(model.options().trend);
+  const Matrix before = model.covariance();
+  EXPECT_EQ(before, before.transpose());
+  const int n = model.dimension();
+  model.ShiftLevel(0.0, 0.25);
+  Matrix expected = before;
+  expected(0, 0) += 0.25;
+  EXPECT_EQ(model.covariance(), expected);
+  model.Reopen(0.5);
+  for (int i = 0; i < n; ++i) expected(i, i) += 0.5;
+  EXPECT_EQ(model.covariance(), expected);
+  EXPECT_EQ(model.covariance(), model.covariance().transpose());
+}
+
 }  // namespace
 }  // namespace plumbline
 

@@ -282,7 +282,8 @@ TEST(ForgedStateTest, BocpdRefusesAProbabilityAboveOneAndANegativeAlarmCount) {
   EXPECT_TRUE(RefusedNaming(load(size - 17, kNan), "BOCPD change probability"));
 }
 
-TEST(ForgedStateTest, ForecasterRefusesOtherDimensionsNonFiniteCoefficientsNegativeVariances) {
+TEST(ForgedStateTest,
+     ForecasterRefusesOtherDimensionsNonFiniteCoefficientsNegativeVariancesAsymmetry) {
   SeasonalForecasterOptions options;
   options.seasons = {kMicrosPerDay};
   options.harmonics = {3};
@@ -303,6 +304,7 @@ TEST(ForgedStateTest, ForecasterRefusesOtherDimensionsNonFiniteCoefficientsNegat
   EXPECT_TRUE(RefusedNaming(load(theta + 8, kNan), "forecaster coefficient"));
   EXPECT_TRUE(RefusedNaming(load(p + 8, kNan), "forecaster covariance"));
   EXPECT_TRUE(RefusedNaming(load(p + 8 * (n + 1), Bits(-1.0)), "variance of coefficient 1"));
+  EXPECT_TRUE(RefusedNaming(load(p + 8 * n, Bits(0.125)), "not symmetric"));  // P(0, 1) alone
   EXPECT_TRUE(RefusedNaming(load(4, 0), "memory"));
   EXPECT_TRUE(RefusedNaming(load(12, Bits(-0.5)), "level noise"));
   EXPECT_TRUE(RefusedNaming(load(12, Bits(5000.0)), "level noise"));
