@@ -79,10 +79,10 @@ ObservationTracer::ObservationTracer(std::string series, std::FILE* out)
 
 void ObservationTracer::After(const SeriesMonitor* monitor, EventTime time, double value) {
   if (monitor == nullptr || monitor->observations() == observations_) return;
+  const bool first = observations_ == 0;
   observations_ = monitor->observations();
   const std::vector<SeriesMonitor::DetectorSnapshot> detectors = monitor->DetectorSnapshots();
-  if (!header_) {
-    header_ = true;
+  if (first) {
     std::fprintf(out_, "time,reading,observation,armed,sigma,z");
     for (const auto& d : detectors) {
       std::fprintf(out_, ",%.*s,%.*s_threshold", static_cast<int>(d.name.size()),

@@ -82,8 +82,7 @@ class ObservationTracer {
  private:
   std::string series_;
   std::FILE* out_;
-  long long observations_ = 0;
-  bool header_ = false;
+  long long observations_ = 0;  // the last traced; 0: none yet, so the header is due
 };
 
 }  // namespace plumbline
