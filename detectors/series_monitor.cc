@@ -598,37 +598,45 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   if (!count_chart_decided_) ChooseCountChart();
   health_.Add(z);
 
-  // Variance first: a variance alert changes what z means for the level
-  // detectors. Not while the spread sits at its floor (values that never vary,
-  // such as one event per reading): a narrower spread cannot be seen there.
+  // The variance chart sees this reading before the level detectors, but they
+  // decide first when both fire on it: a level shift inflates z^2, so a reading
+  // that completes the evidence for a new level also pushes the variance chart
+  // over its line, while a wider spread alone seldom completes a level
+  // detector's evidence on the very same reading. The level alert re-baselines
+  // and resets the variance chart. Not while the spread sits at its floor
+  // (values that never vary, such as one event per reading): a narrower spread
+  // cannot be seen there.
   const bool resolvable = sigma > 1.5 * design_->scale.floor;
+  Alarm variance_alarm{};
   if (resolvable && observations_ >= variance_hold_until_) {
     CollectForRefit(std::min(z * z, design_->variance.cap),
                     std::numeric_limits<double>::quiet_NaN());
-    const Alarm v = variance_.Update(z, to);
-    if (v.fired) {
-      SeriesEvent e;
-      e.kind = AlertKind::kVariance;
-      e.direction = v.direction;
-      e.detected_at = to;
-      e.change_at = v.change_at;
-      e.magnitude = v.shift;  // ratio of standard deviations
-      e.before = sigma;
-      e.after = sigma * v.shift;
-      events->push_back(e);
-      scale_.Restart(20);  // re-learn the spread quickly
-      ResetLevelDetectors();
-      const long long hold = design_->profile.cooldown > 0 ? design_->profile.cooldown
-                                                           : design_->profile.warmup;
-      variance_hold_until_ = observations_ + hold;
-      level_hold_until_ = std::max(level_hold_until_, observations_ + 20);
-      StartRegime(v.change_at);
-      return;
-    }
+    variance_alarm = variance_.Update(z, to);
   }
-  if (observations_ < level_hold_until_) return;
-  DecideLevel(to, y, f.value + profile_->Mean(bin) * spread, f.value, sigma * spread,
-              resolvable, events);
+  if (observations_ >= level_hold_until_) {
+    const size_t before = events->size();
+    DecideLevel(to, y, f.value + profile_->Mean(bin) * spread, f.value, sigma * spread,
+                resolvable, events);
+    if (events->size() > before) return;
+  }
+  if (!variance_alarm.fired) return;
+  SeriesEvent e;
+  e.kind = AlertKind::kVariance;
+  e.direction = variance_alarm.direction;
+  e.detected_at = to;
+  e.change_at = variance_alarm.change_at;
+  e.magnitude = variance_alarm.shift;  // ratio of standard deviations
+  e.before = sigma;
+  e.after = sigma * variance_alarm.shift;
+  events->push_back(e);
+  // A variance alert changes what z means for the level detectors: they restart.
+  scale_.Restart(20);  // re-learn the spread quickly
+  ResetLevelDetectors();
+  const long long hold =
+      design_->profile.cooldown > 0 ? design_->profile.cooldown : design_->profile.warmup;
+  variance_hold_until_ = observations_ + hold;
+  level_hold_until_ = std::max(level_hold_until_, observations_ + 20);
+  StartRegime(variance_alarm.change_at);
 }
 
 void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double forecast,
