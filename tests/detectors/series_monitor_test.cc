@@ -321,6 +321,59 @@ TEST(SeriesMonitorMeterTest, MeterReplacementWithHourBucketsGivesAResetEventAndN
   ExpectMeterResetRaisesNoAlert(profile);
 }
 
+// A level shift whose excursion opens with readings on both sides of the old
+// level (as when a reading interval straddles the change, Harbourside's meter
+// at the seal failure): z = -2.5, +1.3, then the new level at +9 and +5 sd.
+// The variance chart's gate lets such a mixed excursion through as a change of
+// spread, and its z^2 crosses the line on the same reading that completes the
+// CUSUM's evidence. The level alert is the one raised there (series_monitor.cc:
+// a level shift inflates z^2; the converse seldom completes a level detector's
+// evidence on the very same reading).
+TEST(SeriesMonitorDecisionTest, AShiftThatAlsoFiresTheVarianceChartIsALevelAlert) {
+  ProfileOptions profile;
+  profile.seasons = {};
+  profile.warmup = 200;
+  profile.arl0 = 1000;
+  const ProfileDesign design = MakeDesign(profile);
+  constexpr int kInControl = 1500;
+  const double kTail[] = {-2.5, 1.3, 9.0, 5.0, 5.0, 5.0, 5.0, 5.0, 5.0, 5.0};
+  int level_first = 0, variance_first = 0;
+  for (int trial = 0; trial < 40; ++trial) {
+    Random rng(5100 + static_cast<std::uint64_t>(trial));
+    std::vector<SyntheticReading> readings;
+    EventTime t = 1'772'323'200LL * kMicrosPerSecond;
+    for (int i = 0; i < kInControl; ++i) {
+      t += kMicrosPerMinute;
+      readings.push_back({t, 10.0 + rng.Normal()});
+    }
+    for (double z : kTail) {
+      t += kMicrosPerMinute;
+      readings.push_back({t, 10.0 + z});
+    }
+    SeriesMonitor monitor(&design);
+    const Fed fed = Feed(monitor, readings);
+    for (size_t k = 0; k < fed.events.size(); ++k) {
+      if (fed.events[k].type != EventType::kAlert || fed.reading[k] < kInControl) continue;
+      if (fed.events[k].kind == AlertKind::kLevel) ++level_first;
+      if (fed.events[k].kind == AlertKind::kVariance) {
+        ++variance_first;
+        std::printf("  trial %d: variance alert at tail reading %zu\n", trial,
+                    fed.reading[k] - kInControl);
+      }
+      break;
+    }
+  }
+  std::printf(
+      "[figures] shift with a mixed excursion: first alert level in %d/40, variance in "
+      "%d/40\n",
+      level_first, variance_first);
+  // Before the rule, 16 of these 40 first alerts were variance alerts (on
+  // tail reading 3). A trial whose tail falls in the hold after an in-control
+  // alarm (arl0 1000 over 1,300 armed readings) raises none there.
+  EXPECT_EQ(variance_first, 0);
+  EXPECT_GE(level_first, 34);
+}
+
 // ---------------------------------------------------------------------------
 // (c) Late readings
 
