@@ -185,7 +185,11 @@ StatusOr<std::string> CheckpointStore::Load(std::vector<std::string>* skipped) {
       generation_ = framed->generation;
       format_version_ = framed->version;
       newest_slot_ = slot;
-      best.assign(framed->payload);
+      // The payload is the file after its header: keep the file's string
+      // rather than copy gigabytes into a new one.
+      const std::size_t header = framed->payload.data() - file->data();
+      best = std::move(file).value();
+      best.erase(0, header);
     }
   }
   if (!refused.ok()) return refused;
