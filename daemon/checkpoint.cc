@@ -3,6 +3,7 @@
 #include <fcntl.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <cerrno>
 #include <cstring>
 #include <limits>
@@ -111,15 +112,16 @@ std::string FrameCheckpoint(std::string_view payload, std::uint64_t generation) 
   SnapshotWriter rest;
   rest.U64(generation);
   rest.U64(payload.size());
-  std::string body = rest.Take();
-  body.append(payload);
   SnapshotWriter head;
   head.Tag(kMagic.substr(0, 4));
   head.Tag(kMagic.substr(4, 4));
   head.U32(kCheckpointFormatVersion);
-  head.U32(Crc32c(body));
-  std::string out = head.Take();
-  out += body;
+  head.U32(Crc32c(payload, Crc32c(rest.bytes())));  // of everything after it
+  std::string out;
+  out.reserve(kHeaderBytes + payload.size());  // the payload is copied once
+  out += head.bytes();
+  out += rest.bytes();
+  out.append(payload);
   return out;
 }
 
@@ -157,11 +159,57 @@ std::string CheckpointStore::Path(int slot) const {
   return path + "checkpoint-" + std::to_string(slot) + ".plc";
 }
 
+namespace {
+
+// The first `bytes` bytes of a file (fewer if it is shorter); empty if it
+// cannot be read.
+std::string ReadHead(const std::string& path, std::size_t bytes) {
+  std::string head(bytes, '\0');
+  const int fd = ::open(path.c_str(), O_RDONLY | O_CLOEXEC);
+  if (fd < 0) return {};
+  std::size_t got = 0;
+  while (got < bytes) {
+    const ssize_t n = ::read(fd, head.data() + got, bytes - got);
+    if (n < 0 && errno == EINTR) continue;
+    if (n <= 0) break;
+    got += static_cast<std::size_t>(n);
+  }
+  ::close(fd);
+  head.resize(got);
+  return head;
+}
+
+}  // namespace
+
 StatusOr<std::string> CheckpointStore::Load(std::vector<std::string>* skipped) {
-  std::string best;
-  bool found = false;
-  Status refused;  // a file of another version, newest first
+  // The headers first: a file of another format version refuses the start
+  // (a downgrade must not overwrite it), and the generations say which file
+  // to read whole first. Only the newest file that checks out is read whole
+  // (a checkpoint can be gigabytes); the older one only when the newer fails.
+  struct Candidate {
+    int slot;
+    std::uint64_t generation;  // from the header; 0 when it has none
+  };
+  std::vector<Candidate> order;
   for (int slot = 0; slot < 2; ++slot) {
+    const std::string head = ReadHead(Path(slot), kHeaderBytes);
+    if (head.size() >= 16 && head.substr(0, kMagic.size()) == kMagic) {
+      const std::uint32_t version = ReadU32(head.data() + 8);
+      if (version < kOldestCheckpointFormatVersion || version > kCheckpointFormatVersion) {
+        return Status::FailedPrecondition(Path(slot) + ": " +
+                                          UnframeCheckpoint(head).status().message());
+      }
+    }
+    order.push_back(
+        {slot, head.size() == kHeaderBytes && head.substr(0, kMagic.size()) == kMagic
+                   ? ReadU64(head.data() + 16)
+                   : 0});
+  }
+  std::stable_sort(order.begin(), order.end(), [](const Candidate& a, const Candidate& b) {
+    return a.generation > b.generation;
+  });
+  for (const Candidate& candidate : order) {
+    const int slot = candidate.slot;
     // However large: FileSystem::ReadFile stops at 16 MiB.
     auto file = ReadWholeFile(Path(slot), std::numeric_limits<std::size_t>::max());
     if (!file.ok()) {
@@ -173,28 +221,22 @@ StatusOr<std::string> CheckpointStore::Load(std::vector<std::string>* skipped) {
     auto framed = UnframeCheckpoint(*file);
     if (!framed.ok()) {
       if (framed.status().code() == Status::Code::kFailedPrecondition) {
-        refused =
-            Status::FailedPrecondition(Path(slot) + ": " + framed.status().message());
-      } else if (skipped) {
-        skipped->push_back(Path(slot) + ": " + framed.status().message());
+        return Status::FailedPrecondition(Path(slot) + ": " + framed.status().message());
       }
+      if (skipped) skipped->push_back(Path(slot) + ": " + framed.status().message());
       continue;
     }
-    if (!found || framed->generation > generation_) {
-      found = true;
-      generation_ = framed->generation;
-      format_version_ = framed->version;
-      newest_slot_ = slot;
-      // The payload is the file after its header: keep the file's string
-      // rather than copy gigabytes into a new one.
-      const std::size_t header = framed->payload.data() - file->data();
-      best = std::move(file).value();
-      best.erase(0, header);
-    }
+    generation_ = framed->generation;
+    format_version_ = framed->version;
+    newest_slot_ = slot;
+    // The payload is the file after its header: keep the file's string
+    // rather than copy gigabytes into a new one.
+    const std::size_t header = framed->payload.data() - file->data();
+    std::string best = std::move(file).value();
+    best.erase(0, header);
+    return best;
   }
-  if (!refused.ok()) return refused;
-  if (!found) return Status::NotFound("no checkpoint in " + directory_);
-  return best;
+  return Status::NotFound("no checkpoint in " + directory_);
 }
 
 Status CheckpointStore::Save(std::string_view payload) {

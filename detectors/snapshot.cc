@@ -20,12 +20,51 @@ constexpr std::array<std::uint32_t, 256> MakeCrc32cTable() {
 
 constexpr std::array<std::uint32_t, 256> kCrc32cTable = MakeCrc32cTable();
 
+#if defined(__x86_64__)
+// SSE4.2's crc32 computes exactly this CRC (Castagnoli, reflected), eight
+// bytes per instruction.
+__attribute__((target("sse4.2"))) std::uint32_t Crc32cInstruction(std::string_view bytes,
+                                                                  std::uint32_t crc) {
+  std::uint64_t c = ~crc;
+  const char* p = bytes.data();
+  std::size_t n = bytes.size();
+  for (; n >= 8; n -= 8, p += 8) {
+    std::uint64_t word;
+    std::memcpy(&word, p, 8);
+    c = __builtin_ia32_crc32di(c, word);
+  }
+  auto c32 = static_cast<std::uint32_t>(c);
+  for (; n > 0; --n, ++p) c32 = __builtin_ia32_crc32qi(c32, static_cast<unsigned char>(*p));
+  return ~c32;
+}
+
+const bool kHasCrc32Instruction = [] {
+  __builtin_cpu_init();  // may run before libgcc's own constructor has
+  return __builtin_cpu_supports("sse4.2") != 0;
+}();
+#else
+const bool kHasCrc32Instruction = false;
+#endif
+
 }  // namespace
 
-std::uint32_t Crc32c(std::string_view bytes, std::uint32_t crc) {
+namespace crc32c_internal {
+
+std::uint32_t Portable(std::string_view bytes, std::uint32_t crc) {
   crc = ~crc;
   for (unsigned char b : bytes) crc = kCrc32cTable[(crc ^ b) & 0xFFu] ^ (crc >> 8);
   return ~crc;
+}
+
+bool UsesInstruction() { return kHasCrc32Instruction; }
+
+}  // namespace crc32c_internal
+
+std::uint32_t Crc32c(std::string_view bytes, std::uint32_t crc) {
+#if defined(__x86_64__)
+  if (kHasCrc32Instruction) return Crc32cInstruction(bytes, crc);
+#endif
+  return crc32c_internal::Portable(bytes, crc);
 }
 
 void SnapshotWriter::Tag(std::string_view four_letters) {

@@ -28,7 +28,17 @@ namespace plumbline {
 
 // CRC-32C (Castagnoli, reflected polynomial 0x82F63B78), as iSCSI and ext4
 // use it. Chain calls by passing the previous result as `crc`.
+// On x86-64 processors with SSE4.2 it runs on the processor's crc32
+// instruction (about 20 times faster than the table: checkpoints are read and
+// written whole); elsewhere a byte table.
 std::uint32_t Crc32c(std::string_view bytes, std::uint32_t crc = 0);
+
+namespace crc32c_internal {
+// The byte-table computation, on every processor (tests compare the two).
+std::uint32_t Portable(std::string_view bytes, std::uint32_t crc);
+// Whether Crc32c uses the crc32 instruction here.
+bool UsesInstruction();
+}  // namespace crc32c_internal
 
 class SnapshotWriter {
  public:

@@ -10,6 +10,7 @@
 #include <bit>
 #include <cmath>
 #include <cstdint>
+#include <cstdio>
 #include <functional>
 #include <limits>
 #include <string>
@@ -43,6 +44,27 @@ TEST(Crc32cTest, MatchesPublishedCheckValues) {
   EXPECT_EQ(Crc32c(std::string(32, '\xff')), 0x62A8AB43u);
   // Chaining over pieces gives the checksum of the whole.
   EXPECT_EQ(Crc32c("6789", Crc32c("12345")), 0xE3069283u);
+}
+
+// Where the crc32 instruction is used, it agrees with the byte table on every
+// length and alignment (the tail bytes, the 8-byte words and their seams).
+TEST(Crc32cTest, InstructionAndTableAgree) {
+  std::printf("[figures] crc32c on the crc32 instruction: %s\n",
+              crc32c_internal::UsesInstruction() ? "yes" : "no (byte table only)");
+  std::string bytes(300, '\0');
+  std::uint32_t x = 12345;
+  for (char& b : bytes) {
+    x = x * 1103515245u + 12345u;
+    b = static_cast<char>(x >> 16);
+  }
+  for (std::size_t offset = 0; offset < 9; ++offset) {
+    for (std::size_t length = 0; offset + length <= bytes.size(); length += 7) {
+      const std::string_view piece(bytes.data() + offset, length);
+      ASSERT_EQ(Crc32c(piece, 0x1234u), crc32c_internal::Portable(piece, 0x1234u))
+          << "offset " << offset << " length " << length;
+    }
+  }
+  EXPECT_EQ(crc32c_internal::Portable("123456789", 0), 0xE3069283u);
 }
 
 TEST(SnapshotCodingTest, RoundTripsEveryFieldBitForBit) {
