@@ -1,10 +1,9 @@
 #include "config/stream_options.h"
 
-
 namespace plumbline {
 namespace {
 
-bool Fail(std::string* why, std::string message) {
+bool Refuse(std::string* why, std::string message) {
   if (why) *why = std::move(message);
   return false;
 }
@@ -25,47 +24,48 @@ bool ValidPlaceholder(std::string_view name) {
 
 bool KafkaInputOptions::IsValid(std::string* why) const {
   if (!enabled()) return true;
-  if (topic.empty()) return Fail(why, "topic must name the readings topic");
-  if (group.empty()) return Fail(why, "group must name the consumer group");
+  if (topic.empty()) return Refuse(why, "topic must name the readings topic");
+  if (group.empty()) return Refuse(why, "group must name the consumer group");
   if (state_topic.empty() == state_directory.empty()) {
-    return Fail(why,
-                "state_topic or state_directory must say where partition state lives "
-                "(one of them)");
+    return Refuse(why,
+                  "state_topic or state_directory must say where partition state lives "
+                  "(one of them)");
   }
   if (checkpoint_every < 100 * 1000 || checkpoint_every > kMicrosPerHour) {
-    return Fail(why, "checkpoint_every must be in [100ms, 1h]");
+    return Refuse(why, "checkpoint_every must be in [100ms, 1h]");
   }
   if (session_timeout < kMicrosPerSecond || session_timeout > 5 * kMicrosPerMinute) {
-    return Fail(why, "session_timeout must be in [1s, 5m]");
+    return Refuse(why, "session_timeout must be in [1s, 5m]");
   }
   return true;
 }
 
 bool MqttInputOptions::IsValid(std::string* why) const {
   if (!enabled()) return true;
-  if (port < 1 || port > 65535) return Fail(why, "port must be in [1, 65535]");
-  if (topics.empty()) return Fail(why, "topics must list at least one topic filter");
+  if (port < 1 || port > 65535) return Refuse(why, "port must be in [1, 65535]");
+  if (topics.empty()) return Refuse(why, "topics must list at least one topic filter");
   for (const std::string& filter : topics) {
-    if (filter.empty()) return Fail(why, "topics must not hold an empty filter");
+    if (filter.empty()) return Refuse(why, "topics must not hold an empty filter");
   }
-  if (series.empty()) return Fail(why, "series must be a name template such as {topic}");
+  if (series.empty())
+    return Refuse(why, "series must be a name template such as {topic}");
   for (std::size_t at = series.find('{'); at != std::string::npos;
        at = series.find('{', at + 1)) {
     std::size_t close = 0;
     if (!ValidPlaceholder(Placeholder(series, at, &close))) {
-      return Fail(why, "series may hold only {topic} and {1}..{9} in braces");
+      return Refuse(why, "series may hold only {topic} and {1}..{9} in braces");
     }
   }
   if (keepalive < 5 * kMicrosPerSecond || keepalive > kMicrosPerHour) {
-    return Fail(why, "keepalive must be in [5s, 1h]");
+    return Refuse(why, "keepalive must be in [5s, 1h]");
   }
-  if (backoff <= 0) return Fail(why, "backoff must be positive");
-  if (backoff_max < backoff) return Fail(why, "backoff_max must be at least backoff");
+  if (backoff <= 0) return Refuse(why, "backoff must be positive");
+  if (backoff_max < backoff) return Refuse(why, "backoff_max must be at least backoff");
   return true;
 }
 
 bool KafkaSinkOptions::IsValid(std::string* why) const {
-  if (enabled() && topic.empty()) return Fail(why, "topic must name the alerts topic");
+  if (enabled() && topic.empty()) return Refuse(why, "topic must name the alerts topic");
   return true;
 }
 
