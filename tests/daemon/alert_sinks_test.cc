@@ -23,6 +23,8 @@
 #include <utility>  // before any Asio header (Boost 1.74 under C++20)
 #include <vector>
 
+#include "tests/support/temp_dir.h"
+
 namespace plumbline {
 namespace {
 
@@ -31,11 +33,7 @@ namespace http = boost::beast::http;
 using tcp = asio::ip::tcp;
 
 std::string TempDir(const std::string& name) {
-  const std::string dir =
-      testing::TempDir() + "/alert_sinks_" + name + "_" + std::to_string(::getpid());
-  std::filesystem::remove_all(dir);
-  std::filesystem::create_directories(dir);
-  return dir;
+  return test_support::FreshTempDir("alert_sinks_" + name);
 }
 
 std::vector<std::string> Lines(const std::string& path) {

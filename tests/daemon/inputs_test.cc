@@ -32,6 +32,7 @@
 #include "daemon/tcp_listener.h"
 #include "daemon/write_ahead_log.h"
 #include "detectors/time_format.h"
+#include "tests/support/temp_dir.h"
 
 namespace plumbline {
 namespace {
@@ -49,11 +50,7 @@ bool WaitFor(const std::function<bool()>& done) {
 }
 
 std::string TempDir(const std::string& name) {
-  const std::string dir =
-      testing::TempDir() + "/inputs_" + name + "_" + std::to_string(::getpid());
-  std::filesystem::remove_all(dir);
-  std::filesystem::create_directories(dir);
-  return dir;
+  return test_support::FreshTempDir("inputs_" + name);
 }
 
 // Counts parse refusals by reason.

@@ -17,15 +17,13 @@
 
 #include "daemon/log.h"
 #include "detectors/time_format.h"
+#include "tests/support/temp_dir.h"
 
 namespace plumbline {
 namespace {
 
 std::string TempDir(const std::string& name) {
-  const std::string dir =
-      testing::TempDir() + "/service_" + name + "_" + std::to_string(::getpid());
-  std::filesystem::remove_all(dir);
-  return dir;
+  return test_support::FreshTempDir("service_" + name, /*create=*/false);
 }
 
 // POSIX, except that fsync fails once told to.
