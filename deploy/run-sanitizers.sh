@@ -9,8 +9,8 @@
 #                   CMakeLists.txt): recall, false-alarm, delay and stability
 #                   figures over thousands of seeded repeats of code the unit
 #                   tests already run under the sanitizers. Under ASan they took
-#                   roughly 400 CPU seconds; their statistical assertions are
-#                   checked in the plain run.
+#                   282 CPU seconds (152 s on two cores); their statistical
+#                   assertions are checked in the plain run.
 #               Built at -O1 without debug info (reports name functions, not
 #               lines; PLUMBLINE_ASAN_CXXFLAGS="-O1 -g" for lines), only the
 #               programs ctest starts (target plumbline_test_programs).
@@ -20,8 +20,9 @@
 # test that raised it, so this script fails too.
 # Measured cold (no ccache) on two cores shared with other builds (load 3 to 7):
 # `asan` 36 minutes wall, 2,663 CPU seconds: build 1,282 s wall (1,094 CPU s),
-# 585 tests 873 s wall (1,569 CPU s). On an idle machine about 23 minutes
-# (build ~550 s, tests ~800 s); the end-to-end tests are 56% of the test time.
+# 585 tests 873 s wall (1,569 CPU s); the tests again nearly idle 821 s. On an
+# idle machine about 23 minutes (build ~550 s, tests ~820 s); the end-to-end
+# tests are 56% of the test time.
 #
 #   deploy/run-sanitizers.sh [asan] [tsan]     (both by default)
 # PLUMBLINE_SANITIZER_DIR (default: the repository) holds the build directories.
