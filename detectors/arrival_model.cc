@@ -5,6 +5,7 @@
 #include <limits>
 #include <numbers>
 
+#include "detectors/calibration_memo.h"
 #include "detectors/run_length_chain.h"
 
 namespace plumbline {
@@ -39,7 +40,9 @@ bool ArrivalModelOptions::IsValid(std::string* why) const {
   return true;
 }
 
-StatusOr<ArrivalModelOptions> ArrivalModelOptions::Calibrated(double arl0) {
+namespace {
+
+StatusOr<ArrivalModelOptions> CalibrateArrivalModel(double arl0) {
   ArrivalModelOptions options;
   // Increment of the slower side: X - 2 ln 2, X ~ Exp(1).
   const double cap = options.gap_cap;
@@ -61,6 +64,13 @@ StatusOr<ArrivalModelOptions> ArrivalModelOptions::Calibrated(double arl0) {
   options.slower_h = *slower;
   options.faster_h = *faster;
   return options;
+}
+
+}  // namespace
+
+StatusOr<ArrivalModelOptions> ArrivalModelOptions::Calibrated(double arl0) {
+  static CalibrationMemo<ArrivalModelOptions> memo;
+  return memo.Get(arl0, [arl0] { return CalibrateArrivalModel(arl0); });
 }
 
 ArrivalShape::ArrivalShape(EventTime period, int bins, EventTime memory, int fold_bins)

@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <cmath>
 
+#include "detectors/calibration_memo.h"
 #include "detectors/run_length_chain.h"
 
 namespace plumbline {
@@ -34,7 +35,9 @@ bool VarianceCusumOptions::IsValid(std::string* why) const {
 double VarianceCusumOptions::k_up() const { return Reference(rho_up); }
 double VarianceCusumOptions::k_down() const { return Reference(rho_down); }
 
-StatusOr<VarianceCusumOptions> VarianceCusumOptions::Calibrated(double arl0) {
+namespace {
+
+StatusOr<VarianceCusumOptions> CalibrateVarianceCusum(double arl0) {
   VarianceCusumOptions options;
   const double k_up = options.k_up(), k_down = options.k_down(), cap = options.cap;
   auto up = CalibrateOneSidedCusum(
@@ -47,6 +50,13 @@ StatusOr<VarianceCusumOptions> VarianceCusumOptions::Calibrated(double arl0) {
   options.up_h = *up;
   options.down_h = *down;
   return options;
+}
+
+}  // namespace
+
+StatusOr<VarianceCusumOptions> VarianceCusumOptions::Calibrated(double arl0) {
+  static CalibrationMemo<VarianceCusumOptions> memo;
+  return memo.Get(arl0, [arl0] { return CalibrateVarianceCusum(arl0); });
 }
 
 VarianceCusum::VarianceCusum(const VarianceCusumOptions& options)
