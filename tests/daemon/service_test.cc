@@ -269,9 +269,9 @@ TEST(ServiceTest, NotReadyOnceTheAlertLogFailsAndSaysWhy) {
   // A silence alert reaches the alert log, whose fsync now fails.
   service.IngestLines(Body("coldstore/freezer-1/temp_c", 0, 30, -20) +
                       Body("coldstore/freezer-1/temp_c", 100, 1, -20));
-  // The write-ahead log fails first (not ready at once); wait (bounded) for the
+  // The write-ahead log fails first (not ready at once); wait (up to 20 s) for the
   // alert log's failure, which the reason names before any other.
-  for (int i = 0; i < 5000 && (service.Ready(&why) || why.find("alert log") == std::string::npos);
+  for (int i = 0; i < 20000 && (service.Ready(&why) || why.find("alert log") == std::string::npos);
        ++i) {
     std::this_thread::sleep_for(std::chrono::milliseconds(1));
   }
