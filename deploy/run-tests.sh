@@ -4,13 +4,12 @@
 # + UndefinedBehaviorSanitizer and the threaded tests under ThreadSanitizer
 # (deploy/run-sanitizers.sh). PLUMBLINE_SANITIZERS=0 skips the sanitizer builds
 # (a quick local run; CI always runs them).
-# PLUMBLINE_LONG_TESTS=1 also registers the long soak checks (minutes).
 # Tests labelled `pending` (fixture expectations not met yet, see DEVELOPERS.md)
 # are left out; `ctest --test-dir build -L pending` runs them.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 deploy/install-deps.sh
-deploy/build.sh -DPLUMBLINE_LONG_TESTS="${PLUMBLINE_LONG_TESTS:-0}"
+deploy/build.sh
 build_dir=${PLUMBLINE_BUILD_DIR:-build}
 pending=$(ctest --test-dir "$build_dir" -N -L pending | sed -n 's/^Total Tests: //p')
 echo "run-tests: leaving out ${pending:-0} test(s) labelled pending (fixture expectations not met yet;"
