@@ -4,6 +4,8 @@
 #include <algorithm>
 #include <cfloat>
 #include <cmath>
+#include <functional>
+#include <limits>
 #include <string>
 
 #include "detectors/eigen_types.h"
@@ -64,6 +66,49 @@ struct FunctionCellCdf {
   const IncrementCdf* cdf;
 };
 
+// g(h) = log ARL(h) - log arl0, the gap a calibration closes; -inf where the
+// chain gives no positive ARL.
+struct ArlGap {
+  std::function<double(double)> arl;
+  double log_arl0;
+  double operator()(double h) const {
+    const double a = arl(h);
+    return a > 0 ? std::log(a) - log_arl0 : -std::numeric_limits<double>::infinity();
+  }
+};
+
+// The smallest h to within `tolerance` (relative) where g reaches 0, given
+// g(low) < 0 <= g(high); returns the upper end of the final bracket. g rises
+// with h and is close to linear (the ARL of a CUSUM grows about exponentially
+// in h), so false position closes in much faster than bisection (a step per
+// halving: eight for a 1% bracket on [h, 3 h], fifteen for 1e-4). The
+// Illinois rule (Dowell and Jarratt 1971, from memory) halves the kept end's
+// g when the same end is kept twice, so both ends move; a step that falls
+// outside the bracket or is not finite (an ARL beyond double range) takes the
+// midpoint.
+double CloseIn(const ArlGap& g, double low, double g_low, double high, double g_high,
+               double tolerance) {
+  int kept = 0;  // +1: high was kept by the last step, -1: low was
+  while (high - low > tolerance * high) {
+    double x = (low * g_high - high * g_low) / (g_high - g_low);
+    const double margin = 0.1 * tolerance * high;  // stay strictly inside
+    if (!(x > low + margin && x < high - margin)) {
+      x = std::isfinite(x) ? std::clamp(x, low + margin, high - margin) : 0.5 * (low + high);
+    }
+    const double g_x = g(x);
+    if (g_x < 0) {
+      low = x, g_low = g_x;
+      if (kept == 1) g_high *= 0.5;
+      kept = 1;
+    } else {
+      high = x, g_high = g_x;
+      if (kept == -1) g_low *= 0.5;
+      kept = -1;
+    }
+  }
+  return high;
+}
+
 }  // namespace
 
 double EmpiricalCdf(std::span<const double> sorted, double y) {
@@ -120,23 +165,23 @@ StatusOr<double> CalibrateOneSidedCusum(const IncrementCdf& cdf, double arl0,
   constexpr int kCells = 150;  // OneSidedCusumArl's default
   ChainWorkspace coarse(kCells + 1), fine(2 * kCells + 1);
   const FunctionCellCdf cell_cdf{&cdf};
-  auto arl = [&](double h) {
-    return RichardsonArl(cell_cdf, cell_cdf, h, 0.0, kCells, coarse, fine);
-  };
-  double low = 1e-3, high = 1.0;
-  while (arl(high) < arl0) {
-    low = high;
+  const ArlGap g{[&](double h) {
+                   return RichardsonArl(cell_cdf, cell_cdf, h, 0.0, kCells, coarse, fine);
+                 },
+                 std::log(arl0)};
+  // Double h from 1 until the ARL reaches arl0, then close in on it.
+  double low = 1e-3, high = 1.0, g_low = std::nan(""), g_high = g(high);
+  while (g_high < 0) {
+    low = high, g_low = g_high;
     high *= 2.0;
     if (high > h_max) {
       return Status::OutOfRange("arl0 " + std::to_string(arl0) +
                                 " needs a decision interval above " + std::to_string(h_max));
     }
+    g_high = g(high);
   }
-  while (high - low > 1e-4 * high) {  // ARL grows monotonically with h
-    const double mid = 0.5 * (low + high);
-    (arl(mid) < arl0 ? low : high) = mid;
-  }
-  return high;
+  if (std::isnan(g_low)) g_low = g(low);
+  return CloseIn(g, low, g_low, high, g_high, 1e-4);
 }
 
 StatusOr<double> CalibrateOneSidedCusumFromSample(std::vector<double> increments,
@@ -156,19 +201,17 @@ StatusOr<double> CalibrateOneSidedCusumFromSample(std::vector<double> increments
   constexpr int kCells = 80;
   EmpiricalChainCdf coarse_cdf, fine_cdf;
   ChainWorkspace coarse(kCells + 1), fine(2 * kCells + 1);
-  auto arl = [&](double h) {
-    coarse_cdf.Tabulate(increments, h, kCells);
-    fine_cdf.Tabulate(increments, h, 2 * kCells);
-    return RichardsonArl(coarse_cdf, fine_cdf, h, 0.0, kCells, coarse, fine);
-  };
-  if (arl(h_floor) >= arl0) return h_floor;
-  if (arl(h_ceiling) < arl0) return h_ceiling;
-  double low = h_floor, high = h_ceiling;
-  while (high - low > 1e-2 * high) {
-    const double mid = 0.5 * (low + high);
-    (arl(mid) < arl0 ? low : high) = mid;
-  }
-  return high;
+  const ArlGap g{[&](double h) {
+                   coarse_cdf.Tabulate(increments, h, kCells);
+                   fine_cdf.Tabulate(increments, h, 2 * kCells);
+                   return RichardsonArl(coarse_cdf, fine_cdf, h, 0.0, kCells, coarse, fine);
+                 },
+                 std::log(arl0)};
+  const double g_low = g(h_floor);
+  if (g_low >= 0) return h_floor;
+  const double g_high = g(h_ceiling);
+  if (g_high < 0) return h_ceiling;
+  return CloseIn(g, h_floor, g_low, h_ceiling, g_high, 1e-2);
 }
 
 }  // namespace plumbline
