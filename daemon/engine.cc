@@ -185,9 +185,18 @@ void Engine::StartMonitor(Series* series) {
 
 void Engine::Wire(Series* series) {
   series->monitor->SetAnnotations(AnnotationsFor(config_, series->name));
+  series->monitor->SetObservationListener(
+      listener_ && series->name == listened_series_ ? listener_ : nullptr);
   CovariateBoard* board = covariates_.get();
   series->monitor->ConnectCovariates(board, board->Wants(series->name) ? board : nullptr,
                                      series->name);
+}
+
+void Engine::SetObservationListener(std::string series, ObservationListener* listener) {
+  listened_series_ = std::move(series);
+  listener_ = listener;
+  if (auto it = series_.find(listened_series_); it != series_.end() && it->second->monitor)
+    it->second->monitor->SetObservationListener(listener_);
 }
 
 const ProfileDesign* Engine::DesignFor(const ProfileOptions* profile) {

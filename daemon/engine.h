@@ -142,6 +142,9 @@ class Engine {
 
   std::size_t series_count() const { return series_.size(); }
   const SeriesMonitor* Find(std::string_view series) const;
+  // Tells `listener` (not owned; null: nobody) of every observation of the
+  // series named `series`, now and after it is created or restarted.
+  void SetObservationListener(std::string series, ObservationListener* listener);
   // The first profile-design failure, if any (a profile that cannot be calibrated).
   const Status& design_status() const { return design_status_; }
 
@@ -186,6 +189,8 @@ class Engine {
   std::priority_queue<Deadline, std::vector<Deadline>, std::greater<>> deadlines_;
   std::vector<SeriesEvent> scratch_;
   Status design_status_;
+  std::string listened_series_;
+  ObservationListener* listener_ = nullptr;
 };
 
 }  // namespace plumbline

@@ -49,7 +49,8 @@ const std::vector<OptionSpec> kReplayOptions = {
      "FILE"},
     {"trace", true, false,
      "write one series' model and detectors at each of its observations (CSV: time, "
-     "reading, z, then each detector's statistic and threshold) to --trace-to",
+     "value, z, then each detector's statistic and threshold; a bucketed series has "
+     "a line per bucket) to --trace-to",
      "NAME"},
     {"trace-to", true, false, "where --trace writes its CSV", "FILE"},
 };
@@ -243,6 +244,7 @@ int RunReplay(const Args& args) {
   const bool colour = !json && WantsColour(stdout);
   const bool progress = ::isatty(STDERR_FILENO) != 0;
   Engine engine(std::move(config).value());
+  if (tracer) engine.SetObservationListener(tracer->series(), &*tracer);
   std::vector<Alert> out;
   std::map<std::string, std::uint64_t> alerts_by_kind, events_by_type;
   std::uint64_t readings = 0;
@@ -289,9 +291,6 @@ int RunReplay(const Args& args) {
     if (outcome == IngestOutcome::kAccepted) {
       ++readings;
       if (report_path) recorder.AddPoint(head->series, point);
-      if (tracer && head->series == tracer->series()) {
-        tracer->After(engine.Find(head->series), head->time, head->value);
-      }
     } else {
       ++rejected[std::string(ToString(outcome))];
       if (first_errors.size() < 10) {

@@ -77,13 +77,12 @@ std::vector<TracePoint> Decimate(const std::vector<TracePoint>& points,
 ObservationTracer::ObservationTracer(std::string series, std::FILE* out)
     : series_(std::move(series)), out_(out) {}
 
-void ObservationTracer::After(const SeriesMonitor* monitor, EventTime time, double value) {
-  if (monitor == nullptr || monitor->observations() == observations_) return;
-  const bool first = observations_ == 0;
-  observations_ = monitor->observations();
-  const std::vector<SeriesMonitor::DetectorSnapshot> detectors = monitor->DetectorSnapshots();
-  if (first) {
-    std::fprintf(out_, "time,reading,observation,armed,sigma,z");
+void ObservationTracer::Observed(const SeriesMonitor& monitor, EventTime time,
+                                 double value) {
+  const std::vector<SeriesMonitor::DetectorSnapshot> detectors = monitor.DetectorSnapshots();
+  if (!header_written_) {
+    header_written_ = true;
+    std::fprintf(out_, "time,value,observation,armed,sigma,z");
     for (const auto& d : detectors) {
       std::fprintf(out_, ",%.*s,%.*s_threshold", static_cast<int>(d.name.size()),
                    d.name.data(), static_cast<int>(d.name.size()), d.name.data());
@@ -91,8 +90,8 @@ void ObservationTracer::After(const SeriesMonitor* monitor, EventTime time, doub
     std::fprintf(out_, "\n");
   }
   std::fprintf(out_, "%s,%.10g,%lld,%d,%.6g,%.6g", FormatRfc3339(time).c_str(), value,
-               observations_, monitor->armed() ? 1 : 0, monitor->scale().sigma(),
-               monitor->last_z());
+               monitor.observations(), monitor.armed() ? 1 : 0, monitor.scale().sigma(),
+               monitor.last_z());
   for (const auto& d : detectors) std::fprintf(out_, ",%.6g,%.6g", d.statistic, d.threshold);
   std::fprintf(out_, "\n");
 }

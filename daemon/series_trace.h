@@ -67,22 +67,23 @@ std::vector<TracePoint> Decimate(const std::vector<TracePoint>& points,
 
 // replay --trace: one series' standardised residual and every detector's
 // statistic and threshold at each of its observations, as CSV, to answer
-// "why did it fire, and why not sooner". A line is written after each reading
-// of the series that completed an observation (for a bucketed series a
-// reading can complete several; the line shows the last). Before the model
-// is armed, z is 0 and the detectors are idle.
-class ObservationTracer {
+// "why did it fire, and why not sooner". One line per observation, told by
+// the monitor (ObservationListener): for a series read without `every` that is
+// each reading; for a bucketed series each bucket (its end time and its total
+// or mean, as the detectors saw it, so an alert's detected_at has its line);
+// for a meter each consumption rate. Before the model is armed, z is 0 and the
+// detectors are idle.
+class ObservationTracer : public ObservationListener {
  public:
   // Writes to `out` (not owned; the caller closes it).
   ObservationTracer(std::string series, std::FILE* out);
   const std::string& series() const { return series_; }
-  // After `monitor` (null: not created yet) took the reading (time, value).
-  void After(const SeriesMonitor* monitor, EventTime time, double value);
+  void Observed(const SeriesMonitor& monitor, EventTime time, double value) override;
 
  private:
   std::string series_;
   std::FILE* out_;
-  long long observations_ = 0;  // the last traced; 0: none yet, so the header is due
+  bool header_written_ = false;
 };
 
 }  // namespace plumbline

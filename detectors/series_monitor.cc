@@ -339,7 +339,11 @@ void SeriesMonitor::Process(EventTime t, double value, std::vector<SeriesEvent>*
     e.after = reset.total_after;
     events->push_back(e);
   }
-  for (const Observation& o : observations_scratch_) Model(o.from, o.to, o.value, events);
+  for (const Observation& o : observations_scratch_) {
+    const long long before = observations_;
+    Model(o.from, o.to, o.value, events);
+    if (listener_ && observations_ != before) listener_->Observed(*this, o.to, o.value);
+  }
 }
 
 void SeriesMonitor::ConnectCovariates(const CovariateSource* source, CovariateSink* sink,

@@ -192,6 +192,18 @@ struct ProfileDesign {
 // Why a reading did not reach the model.
 enum class ReadingVerdict { kAccepted, kLate, kNotFinite };
 
+class SeriesMonitor;
+
+// Told of each observation a monitor has modelled, after the model, scale and
+// detectors took it (replay --trace). For a bucketed series an observation is
+// a bucket (time: its end; value: its total or mean); for a meter, the
+// consumption rate over an interval. Not owned by the monitor.
+class ObservationListener {
+ public:
+  virtual ~ObservationListener() = default;
+  virtual void Observed(const SeriesMonitor& monitor, EventTime time, double value) = 0;
+};
+
 class SeriesMonitor {
  public:
   // `design` must outlive the monitor.
@@ -252,6 +264,8 @@ class SeriesMonitor {
   bool armed() const { return observations_ > design_->profile.warmup; }
   bool silent() const { return silent_; }
   double last_z() const { return last_z_; }
+  // Null: none (the default). Not saved with the state.
+  void SetObservationListener(ObservationListener* listener) { listener_ = listener; }
   // Whether the count CUSUM (detectors/poisson_cusum.h) plays the CUSUM's part.
   bool count_chart() const;
   // How the armed residuals behave against the detectors' assumptions.
@@ -446,6 +460,7 @@ class SeriesMonitor {
   long long variance_hold_until_ = 0;
   long long rate_hold_until_ = 0;  // in arrivals
   double last_z_ = 0.0;
+  ObservationListener* listener_ = nullptr;
   double value_sum_ = 0.0;             // of the learned readings, for the mean count
   bool count_chart_decided_ = false;   // ChooseCountChart ran since the last design
   std::vector<double> count_sample_;   // (count, mean ratio) pairs for the re-fit

@@ -52,7 +52,7 @@ def main(argv):
             raised = [json.loads(line) for line in f if line.strip()]
 
     columns = list(rows[0].keys()) if rows else []
-    check(columns[:6] == ["time", "reading", "observation", "armed", "sigma", "z"],
+    check(columns[:6] == ["time", "value", "observation", "armed", "sigma", "z"],
           "columns %s" % columns)
     for name in ("cusum", "page-hinkley", "bocpd", "variance", "rate"):
         check(name in columns and name + "_threshold" in columns, "no column " + name)
