@@ -308,9 +308,12 @@ class Session : public std::enable_shared_from_this<Session> {
     data->remove_prefix(end + 1);
     stream_ = std::string(line.substr(kStreamPrefix.size()));
     stream_line_.clear();
-    if (stream_.empty()) {
-      LogWarning("connection refused: empty stream name", {{"input", "tcp"}, {"peer", peer_}});
-      Close("empty stream name");
+    if (stream_.empty() || IsInternalStreamName(stream_)) {
+      const char* why = stream_.empty() ? "empty stream name" : "stream name reserved";
+      if (state_->observer) state_->observer->OnConnectionDropped("tcp", "bad_stream_name");
+      LogWarning("connection refused: bad stream name",
+                 {{"input", "tcp"}, {"peer", peer_}, {"stream", stream_}, {"why", why}});
+      Close(why);
       return false;
     }
     router_.set_stream(stream_);

@@ -59,6 +59,14 @@ struct WalRecord {
   std::uint64_t lines = 0;        // mark, resume
 };
 
+// Stream names the daemon gives its own inputs: followed files
+// ("file:<device>:<inode>:<epoch>:<path>", file_follower.h) and Kafka
+// partitions ("kafka:<topic>/<partition>"). A sender's acknowledged TCP
+// stream may not take one, or it could move a followed file's durable offset.
+inline bool IsInternalStreamName(std::string_view name) {
+  return name.starts_with("file:") || name.starts_with("kafka:");
+}
+
 class WriteAheadLog {
  public:
   // `file_system` must outlive the log. With `sync` false the log is written

@@ -172,6 +172,16 @@ def scenario_hostile(args, tmp):
         metrics(daemon), 'plumbline_connections_dropped_total{input="tcp",reason="idle_timeout"}')
         >= 1)
 
+    # An acknowledged stream may not take a name the daemon gives its own inputs
+    # (a followed file's), or it could move that file's durable offset; its
+    # reading is not taken.
+    with socket.create_connection(("127.0.0.1", daemon.tcp_port)) as spoof:
+        spoof.sendall(b"ack file:2049:131:0:/var/log/readings.csv\n" + csv(good, 45, 1))
+        check(server_closes(spoof, 10), "reserved stream name not refused")
+    wait_until("the reserved stream name counted", lambda: metric(
+        metrics(daemon),
+        'plumbline_connections_dropped_total{input="tcp",reason="bad_stream_name"}') == 1)
+
     # HTTP: a body over max_body_bytes is 413; a malformed request 400.
     status, _, _ = request(daemon.http_port, "POST", "/v1/readings", body=csv(good, 50, 5000))
     check(status == 413, "oversized body: %d, expected 413" % status)
@@ -189,7 +199,8 @@ def scenario_hostile(args, tmp):
     check(daemon.readings() == 41 + 19, "readings lost")
     daemon.stop()
     print("check_hostile: hostile: %d kinds of bad line refused and counted, flood of 100 "
-          "series capped at 20, idle, slow, 413 and 400 handled" % len(expected))
+          "series capped at 20, idle, slow, reserved stream name, 413 and 400 handled"
+          % len(expected))
 
 
 def rss_kib(pid, field):
