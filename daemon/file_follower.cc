@@ -8,6 +8,7 @@
 #include <charconv>
 #include <cstdio>
 #include <cstring>
+#include <filesystem>
 #include <shared_mutex>
 #include <utility>
 #include <vector>
@@ -197,6 +198,60 @@ bool FileFollower::OpenCurrent(bool use_saved) {
   return true;
 }
 
+bool FileFollower::OpenRotatedAway() {
+  // Where the state left off: the log's stream of the path, or the offset file.
+  std::optional<FollowPosition> last;
+  std::uint64_t epoch = 0;
+  if (wal_) {
+    for (const auto& [name, offset] : wal_->Streams(nullptr)) {
+      auto stream = ParseFollowStreamName(name);
+      if (!stream || stream->path != options_.path) continue;
+      if (last && stream->epoch < epoch) continue;
+      last = FollowPosition{stream->device, stream->inode, offset};
+      epoch = stream->epoch;
+    }
+  } else {
+    last = saved_;
+  }
+  if (!last) return false;
+  struct stat by_path {};
+  if (::stat(options_.path.c_str(), &by_path) == 0 &&
+      static_cast<std::uint64_t>(by_path.st_dev) == last->device &&
+      static_cast<std::uint64_t>(by_path.st_ino) == last->inode) {
+    return false;  // the same file: resumed as usual
+  }
+  std::error_code error;
+  const std::filesystem::path folder =
+      std::filesystem::path(options_.path).parent_path().empty()
+          ? std::filesystem::path(".")
+          : std::filesystem::path(options_.path).parent_path();
+  std::string old_path;
+  for (const auto& entry : std::filesystem::directory_iterator(folder, error)) {
+    struct stat info {};
+    if (::stat(entry.path().c_str(), &info) != 0 || !S_ISREG(info.st_mode)) continue;
+    if (static_cast<std::uint64_t>(info.st_dev) == last->device &&
+        static_cast<std::uint64_t>(info.st_ino) == last->inode &&
+        static_cast<std::uint64_t>(info.st_size) > last->offset) {
+      old_path = entry.path().string();
+      break;
+    }
+  }
+  if (old_path.empty()) return false;
+  const int fd = ::open(old_path.c_str(), O_RDONLY | O_CLOEXEC);
+  if (fd < 0) return false;
+  fd_ = fd;
+  position_ = *last;
+  if (wal_) BeginStream(epoch, last->offset);
+  ::lseek(fd_, static_cast<off_t>(position_.offset), SEEK_SET);
+  committed_.store(position_.offset);
+  LogInfo("path rotated while stopped; finishing the old file first",
+          {{"input", "file"},
+           {"path", options_.path},
+           {"old_file", old_path},
+           {"offset", position_.offset}});
+  return true;
+}
+
 std::optional<std::uint64_t> FileFollower::ResumeFromLog(std::uint64_t size) {
   bool path_known = false;
   std::optional<std::pair<FollowStream, std::uint64_t>> latest;  // this file's newest epoch
@@ -310,7 +365,9 @@ void FileFollower::Run() {
       std::lock_guard<std::mutex> lock(mutex_);
       if (stop_) break;
     }
-    if (fd_ < 0 && OpenCurrent(first_open)) first_open = false;
+    if (fd_ < 0 && ((first_open && OpenRotatedAway()) || OpenCurrent(first_open))) {
+      first_open = false;
+    }
     if (fd_ >= 0) {
       if (!ReadAvailable()) break;  // the shards stopped taking input
       struct stat by_path {

@@ -5,7 +5,10 @@
 // - Rotation (the path now names another file: rename + create): the old file
 //   is read to its end (its last line counts even without a newline), then
 //   the new one from its start. While the path names no file, the old one is
-//   still followed.
+//   still followed. A rotation while the daemon was down is finished the same
+//   way at start when the old file is still in the same folder (renamed, so
+//   the same device and inode, e.g. readings.csv.1); a compressed or moved
+//   old file is not found, and its tail past the saved offset is not read.
 // - Truncation (the file is shorter than the offset read so far, same file):
 //   reading restarts at its start; a partial line held from before is dropped.
 // - Offset across restarts: the offset of the last complete line handed to
@@ -107,6 +110,12 @@ class FileFollower {
  private:
   void Run();
   bool OpenCurrent(bool use_saved);  // opens options_.path; false if it does not exist
+  // At the first open: when the path names another file than the one the
+  // state left off in (rotated while the daemon was down) and that file is
+  // still in the path's folder under another name (found by device and
+  // inode) with bytes past the offset, opens it at the offset, so its tail
+  // is read before the new file, as for a rotation seen live. False otherwise.
+  bool OpenRotatedAway();
   void CloseFile();
   // Reads to the end of the open file; false when shards stopped taking input.
   bool ReadAvailable();

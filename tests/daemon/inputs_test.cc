@@ -342,6 +342,48 @@ TEST(FileFollowerTest, WithALogTheOffsetIsItsStreamMarkAcrossRestartsTruncationA
   wal.Stop();
 }
 
+// Rotated while the daemon was down (renamed to readings.csv.1, a new file
+// created): the old file's tail past the saved offset is read first, then the
+// new file from its start; nothing is lost or taken twice. With the log's
+// stream table and with the offset file alone.
+TEST(FileFollowerTest, FinishesAFileRotatedAwayWhileStoppedBeforeTheNewOne) {
+  for (const bool logged : {true, false}) {
+    const std::string dir = TempDir(logged ? "rotated_logged" : "rotated_plain");
+    const std::string path = dir + "/readings.csv";
+    WriteAheadLog wal(dir, FileSystem::Default(), /*sync=*/false);
+    if (logged) {
+      ASSERT_TRUE(wal.Start(1).ok());
+    }
+    auto run = [&](std::uint64_t expected, const std::function<void(Pipeline&)>& check) {
+      Pipeline pipeline;
+      FileFollower follower(Follow(path), dir, pipeline.shards(), FileSystem::Default(),
+                            nullptr);
+      if (logged) follower.set_write_ahead_log(&wal);
+      follower.Start();
+      ASSERT_TRUE(WaitFor([&] { return pipeline.Processed() == expected; }))
+          << pipeline.Processed() << " of " << expected << (logged ? " (logged)" : "");
+      check(pipeline);
+      follower.Stop();
+    };
+    Append(path, Lines("a", 0, 20));
+    run(20, [](Pipeline&) {});
+    // While stopped: 5 more lines in the old file (the last without its
+    // newline), then it is renamed away and a new file takes the path.
+    const std::string line24 = Lines("a", 24, 1);
+    Append(path, Lines("a", 20, 4) + line24.substr(0, line24.size() - 1));
+    std::filesystem::rename(path, path + ".1");
+    Append(path, Lines("b", 0, 8));
+    run(13, [](Pipeline& pipeline) {
+      EXPECT_EQ(pipeline.Readings("a"), 5);  // the old file's tail, its last line too
+      EXPECT_EQ(pipeline.Readings("b"), 8);  // then all of the new file
+    });
+    // The rotated file is done: a further restart takes nothing from it.
+    Append(path, Lines("b", 8, 2));
+    run(2, [](Pipeline& pipeline) { EXPECT_EQ(pipeline.Readings("b"), 2); });
+    if (logged) wal.Stop();
+  }
+}
+
 TEST(FileFollowerTest, StartAtEndSkipsWhatIsAlreadyThereOnAFirstRun) {
   Pipeline pipeline;
   const std::string dir = TempDir("end");
