@@ -226,13 +226,15 @@ bool FileFollower::OpenRotatedAway() {
           ? std::filesystem::path(".")
           : std::filesystem::path(options_.path).parent_path();
   std::string old_path;
-  for (const auto& entry : std::filesystem::directory_iterator(folder, error)) {
+  // Error codes throughout: a folder that changes under the scan ends it.
+  for (std::filesystem::directory_iterator it(folder, error), end; !error && it != end;
+       it.increment(error)) {
     struct stat info {};
-    if (::stat(entry.path().c_str(), &info) != 0 || !S_ISREG(info.st_mode)) continue;
+    if (::stat(it->path().c_str(), &info) != 0 || !S_ISREG(info.st_mode)) continue;
     if (static_cast<std::uint64_t>(info.st_dev) == last->device &&
         static_cast<std::uint64_t>(info.st_ino) == last->inode &&
         static_cast<std::uint64_t>(info.st_size) > last->offset) {
-      old_path = entry.path().string();
+      old_path = it->path().string();
       break;
     }
   }
