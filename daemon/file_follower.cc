@@ -203,12 +203,10 @@ bool FileFollower::OpenRotatedAway() {
   std::optional<FollowPosition> last;
   std::uint64_t epoch = 0;
   if (wal_) {
-    for (const auto& [name, offset] : wal_->Streams(nullptr)) {
-      auto stream = ParseFollowStreamName(name);
-      if (!stream || stream->path != options_.path) continue;
-      if (last && stream->epoch < epoch) continue;
-      last = FollowPosition{stream->device, stream->inode, offset};
-      epoch = stream->epoch;
+    for (const auto& [stream, offset] : PathStreams()) {
+      if (last && stream.epoch < epoch) continue;
+      last = FollowPosition{stream.device, stream.inode, offset};
+      epoch = stream.epoch;
     }
   } else {
     last = saved_;
@@ -221,10 +219,8 @@ bool FileFollower::OpenRotatedAway() {
     return false;  // the same file: resumed as usual
   }
   std::error_code error;
-  const std::filesystem::path folder =
-      std::filesystem::path(options_.path).parent_path().empty()
-          ? std::filesystem::path(".")
-          : std::filesystem::path(options_.path).parent_path();
+  std::filesystem::path folder = std::filesystem::path(options_.path).parent_path();
+  if (folder.empty()) folder = ".";
   std::string old_path;
   // Error codes throughout: a folder that changes under the scan ends it.
   for (std::filesystem::directory_iterator it(folder, error), end; !error && it != end;
@@ -254,17 +250,23 @@ bool FileFollower::OpenRotatedAway() {
   return true;
 }
 
-std::optional<std::uint64_t> FileFollower::ResumeFromLog(std::uint64_t size) {
-  bool path_known = false;
-  std::optional<std::pair<FollowStream, std::uint64_t>> latest;  // this file's newest epoch
+std::vector<std::pair<FollowStream, std::uint64_t>> FileFollower::PathStreams() const {
+  std::vector<std::pair<FollowStream, std::uint64_t>> out;
   for (const auto& [name, offset] : wal_->Streams(nullptr)) {
     auto stream = ParseFollowStreamName(name);
-    if (!stream || stream->path != options_.path) continue;
-    path_known = true;
-    if (stream->device != position_.device || stream->inode != position_.inode) continue;
-    if (!latest || stream->epoch > latest->first.epoch) latest.emplace(*stream, offset);
+    if (stream && stream->path == options_.path) out.emplace_back(std::move(*stream), offset);
   }
-  if (!path_known) return std::nullopt;
+  return out;
+}
+
+std::optional<std::uint64_t> FileFollower::ResumeFromLog(std::uint64_t size) {
+  const auto streams = PathStreams();
+  if (streams.empty()) return std::nullopt;
+  std::optional<std::pair<FollowStream, std::uint64_t>> latest;  // this file's newest epoch
+  for (const auto& [stream, offset] : streams) {
+    if (stream.device != position_.device || stream.inode != position_.inode) continue;
+    if (!latest || stream.epoch > latest->first.epoch) latest.emplace(stream, offset);
+  }
   if (!latest) {  // the path names another file now
     BeginStream(0, 0);
     return 0;

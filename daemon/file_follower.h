@@ -48,6 +48,8 @@
 #include <string>
 #include <string_view>
 #include <thread>
+#include <utility>
+#include <vector>
 
 #include "config/service_options.h"
 #include "daemon/clock.h"
@@ -127,6 +129,8 @@ class FileFollower {
   // above) and logs its resume; returns the offset, or nullopt when the table
   // knows nothing of the path.
   std::optional<std::uint64_t> ResumeFromLog(std::uint64_t size);
+  // With a log: the streams its table holds for this path, with their offsets.
+  std::vector<std::pair<FollowStream, std::uint64_t>> PathStreams() const;
   // With a log: makes (device, inode, epoch) of the open file the stream
   // its batches and marks carry, from `offset`, and logs its resume.
   void BeginStream(std::uint64_t epoch, std::uint64_t offset);

@@ -2,13 +2,13 @@
 // in-control ARL) alone, so profiles that share an arl0 share one calibration.
 //
 // The variance and arrival CUSUMs of a profile are fixed by arl0: the same
-// Markov-chain searches (run_length_chain.h) for every profile that asks:
-// tenths of a second at -O2, seconds under the sanitizers. A daemon whose config has many profiles,
-// or a reload, would otherwise repeat them on the shard thread while readings
-// wait. Thread-safe; a calibration runs outside the lock (two threads may both
-// compute a missing entry; they get the same value).
-#ifndef PLUMBLINE_DETECTORS_CALIBRATION_MEMO_H_
-#define PLUMBLINE_DETECTORS_CALIBRATION_MEMO_H_
+// Markov-chain searches (run_length_chain.h) for every profile that asks,
+// tenths of a second at -O2 and seconds under the sanitizers. A daemon whose
+// config has many profiles, or a reload, would otherwise repeat them on the
+// shard thread while readings wait. Thread-safe; a calibration runs outside
+// the lock (two threads may both compute a missing entry; they get the same
+// value).
+#pragma once
 
 #include <cmath>
 #include <cstddef>
@@ -48,5 +48,3 @@ class CalibrationMemo {
 };
 
 }  // namespace plumbline
-
-#endif  // PLUMBLINE_DETECTORS_CALIBRATION_MEMO_H_

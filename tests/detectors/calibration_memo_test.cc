@@ -8,7 +8,6 @@
 #include <vector>
 
 #include "detectors/arrival_model.h"
-#include "detectors/run_length_chain.h"
 #include "detectors/variance_cusum.h"
 
 namespace plumbline {
