@@ -328,9 +328,15 @@ int RunReplay(const Args& args) {
   for (const auto& [kind, n] : alerts_by_kind) {
     std::fprintf(stderr, "  %s %llu", kind.c_str(), static_cast<unsigned long long>(n));
   }
-  std::fprintf(stderr, "\n  events    ");
+  std::uint64_t events_total = 0;  // besides the alerts
   for (const auto& [type, n] : events_by_type) {
-    if (type != "alert") std::fprintf(stderr, " %s %llu", type.c_str(), static_cast<unsigned long long>(n));
+    if (type != "alert") events_total += n;
+  }
+  std::fprintf(stderr, "\n  events     %llu", static_cast<unsigned long long>(events_total));
+  for (const auto& [type, n] : events_by_type) {
+    if (type != "alert") {
+      std::fprintf(stderr, "  %s %llu", type.c_str(), static_cast<unsigned long long>(n));
+    }
   }
   std::uint64_t rejected_total = 0;
   for (const auto& [reason, n] : rejected) rejected_total += n;
