@@ -1,0 +1,86 @@
+#!/usr/bin/python3
+"""Replays many realisations of the Harbourside Cold Store demo and tallies the outcomes.
+
+The committed fixture (replay-fixtures/harbourside) is one draw of a random story:
+whether a detector fires on one Tuesday's noise is luck as much as method. This
+regenerates the same scripted story with other seeds (generate.py --seed), checks each
+against its own expect.json with tests/e2e/check_fixture.py, and prints how often each
+expected entry passed and how many unexplained alerts each series raised, by kind.
+
+  /usr/bin/python3 tests/tools/harbourside_seeds.py --plumbline build/daemon/plumbline \\
+      --seeds 20
+
+Synthetic data, invented for the demo (replay-fixtures/harbourside/SOURCE.md). Not part
+of the default test run; a few seconds a seed.
+"""
+import argparse
+import collections
+import json
+import os
+import re
+import shutil
+import subprocess
+import sys
+import tempfile
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+ROOT = os.path.dirname(os.path.dirname(HERE))
+FIXTURE = os.path.join(ROOT, "replay-fixtures", "harbourside")
+CHECK = os.path.join(ROOT, "tests", "e2e", "check_fixture.py")
+ALERT = re.compile(r"detected_at (\S+)\s+change_at (\S+)\s+(\w+) (\w+)\s+(\S+)")
+
+
+def one_seed(plumbline, seed, work):
+    folder = os.path.join(work, f"seed-{seed}")
+    os.makedirs(folder)
+    subprocess.run([sys.executable, os.path.join(FIXTURE, "generate.py"), "--out", folder,
+                    "--seed", str(seed)], check=True, stdout=subprocess.DEVNULL)
+    shutil.copy(os.path.join(FIXTURE, "plumbline.yaml"), folder)
+    report = os.path.join(folder, "report.json")
+    subprocess.run([sys.executable, CHECK, "--plumbline", plumbline, "--fixture", folder,
+                    "--report", report], stdout=subprocess.DEVNULL)
+    with open(report) as f:
+        verdict = json.load(f)
+    shutil.rmtree(folder)
+    return verdict
+
+
+def main():
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("--plumbline", required=True)
+    parser.add_argument("--seeds", type=int, default=20, help="how many realisations")
+    parser.add_argument("--first", type=int, default=1, help="the first seed")
+    args = parser.parse_args()
+
+    entries = collections.Counter()
+    unmatched = collections.Counter()
+    clean = 0
+    with tempfile.TemporaryDirectory(prefix="plumbline-seeds-") as work:
+        for seed in range(args.first, args.first + args.seeds):
+            verdict = one_seed(os.path.abspath(args.plumbline), seed, work)
+            extra = []
+            for check in verdict["checks"]:
+                name = check["check"].split(":")[0]
+                if check["passed"]:
+                    entries[name] += 1
+                if name == "unmatched alerts forbidden":
+                    for line in check["details"]:
+                        m = ALERT.search(line)
+                        if m:
+                            extra.append(f"{m.group(5).split('/')[1]} {m.group(3)} {m.group(4)}")
+            unmatched.update(extra)
+            clean += verdict["failed"] == 0
+            print(f"seed {seed}: {verdict['passed']} passed, {verdict['failed']} failed"
+                  + (f"; unexplained: {', '.join(extra)}" if extra else ""), flush=True)
+    n = args.seeds
+    print(f"\n{clean} of {n} realisations pass every check")
+    print("passed, by check:")
+    for name, count in sorted(entries.items()):
+        print(f"  {count:3d}/{n}  {name}")
+    print(f"unexplained alerts after warmup ({sum(unmatched.values())} in {n} realisations):")
+    for what, count in unmatched.most_common():
+        print(f"  {count:3d}  {what}")
+
+
+if __name__ == "__main__":
+    main()
