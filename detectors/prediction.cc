@@ -56,8 +56,8 @@ StatusOr<ReadingForecast> ForecastReading(const SeriesMonitor& monitor, EventTim
   out.at = at;
   out.level = level;
   out.horizon = at - forecaster->last_time();
-  out.value = f.value + profile->Mean(bin) * spread;
-  out.sd = profile->Sigma(bin, sigma) * spread;
+  out.value = f.value + profile->Mean(bin, sigma) * spread;
+  out.sd = monitor.PhaseSigma(bin) * spread;
   const double half = NormalQuantile(0.5 * (1.0 + level)) * out.sd;
   out.low = out.value - half;
   out.high = out.value + half;

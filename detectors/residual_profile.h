@@ -14,22 +14,60 @@
 // sigma_all (ResidualScale, which follows the overall level of the noise within
 // a few hundred readings): the shape of the spread over the phases is learned
 // slowly, bin by bin, while its overall size follows the series at once.
-//   mean_b  = n_b / (n_b + n0) * m_b
-//   k_b     = (n_b s2_b + n0) / (n_b + n0),    sigma_b = sigma_all sqrt(k_b)
+// The shrinkage is empirical Bayes (partial pooling; Efron and Morris 1975,
+// with the moment estimator of the between-bin spread of DerSimonian and
+// Laird 1986, both from memory). Bin b's running mean m_b (in units of
+// sigma_all) and variance ratio s2_b are noisy estimates of its true values,
+// with sampling variances
 //
-// with n0 = kPrior readings of shrinkage (empirical-Bayes style partial pooling,
-// common practice, no source) and m(c) the clipped second moment of N(0,1)
-// (ResidualScale::ClippedSecondMoment). Bins are equal slices of the period, in
-// event time.
+//   V(m_b)  ~ k0_b / e_b,      V(s2_b) ~ kappa k0_b^2 / e_b
+//
+// with kappa = E[x^2] / E[x]^2 - 1 over the clipped squared readings x, each
+// divided by its phase's ratio (2 in normal theory, which is used until 50
+// readings are in; heavy tails and small counts make it larger).
+//
+// where k0_b is the ratio b is shrunk toward and e_b its effective count (n_b,
+// or 2 window - 1 once the running means forget). The true values scatter around
+// their priors with between-bin variances tau_m^2 and tau_k^2, estimated by
+// moments over the bins that have data:
+//
+//   tau^2 = max(0, mean_b (estimate_b - prior_b)^2 - mean_b V_b)
+//
+// and each bin moves from its prior toward its own estimate by the weight
+// tau^2 / (tau^2 + V_b), but ends no further from its own estimate than one
+// standard error (the limited translation of Efron and Morris 1972, from memory;
+// with a single tau^2 for all bins, one sharply different bin among many alike
+// would otherwise be pooled away):
+//
+//   mean_b = clamp(m0_b + w_b (m_b - m0_b), m_b -+ sqrt V(m_b))
+//   k_b    = clamp(k0_b + w'_b (s2_b - k0_b), s2_b -+ sqrt V(s2_b)),
+//   sigma_b = sigma_all sqrt(k_b)
+//
+// A level with fewer than kMinPooledBins bins holding kMinPooledReadings or
+// more cannot tell tau^2 from noise (moment estimates from a handful of bins
+// swing widely: three four-month bins of a monthly series, say; and a variance
+// from fewer than five readings is too skewed for the sampling variance above):
+// there, and for a bin with fewer readings, each bin keeps the fixed weight
+// e_b / (e_b + kPrior) toward its prior (common practice, no source).
+//
+// So a series whose phases all behave alike (tau near 0) keeps every bin at
+// the pooled value however few readings each has, and one whose phases differ
+// widely (hourly orders: none at night, dozens by day) lets each bin speak for
+// itself after a reading or two. A phase whose residuals never vary (a count
+// that is zero every night) gets a spread near zero, so the caller floors
+// sigma_b at the series' resolution. m(c) is the clipped second moment of
+// N(0,1) (ResidualScale::ClippedSecondMoment). Bins are equal slices of the
+// period, in event time.
 //
 // Two levels (fold_bins > 0): the period is a whole number of repeats of a
 // shorter season (a week of days), and each bin is shrunk toward its phase in
 // that shorter season, pooled over all repeats, instead of toward zero and the
 // whole series:
 //
-//   mean_b  = n_b / (n_b + n0) * m_b + n0 / (n_b + n0) * mean_j     (j = b mod fold_bins)
-//   mean_j  = N_j / (N_j + n0) * M_j                                (M_j, N_j over the
-//   repeats) k_b = (n_b s2_b + n0 k_j) / (n_b + n0),  k_j likewise toward 1
+//   prior of bin b:  its phase j = b mod fold_bins, with (mean_j, k_j)
+//   prior of phase j: mean 0, ratio 1
+//
+// each level with its own tau_m^2 and tau_k^2.
 //
 // So a shape shared by every day is learned from every day, while what sets one
 // day of the week apart (a Sunday with no orders, say: the smooth day and week
@@ -37,6 +75,7 @@
 // one day) is learned as the weekly bins fill. Not thread-safe; owned by one shard.
 #pragma once
 
+#include <cstdint>
 #include <vector>
 
 #include "detectors/event_time.h"
@@ -46,8 +85,14 @@ namespace plumbline {
 
 class ResidualProfile {
  public:
-  static constexpr double kPrior = 10.0;  // readings of shrinkage toward the whole series
-  static constexpr int kWindow = 200;     // readings per bin in the running means
+  static constexpr double kWindow = 200;  // readings per bin in the running means
+  // Standard errors a bin's estimate may be moved toward its prior (below).
+  static constexpr double kTranslationLimit = 1.0;
+  // Bins with data a level needs before its tau^2 is estimated, and the fixed
+  // prior weight (readings) used until then.
+  static constexpr int kMinPooledBins = 10;
+  static constexpr double kMinPooledReadings = 5;  // a bin's, to take part
+  static constexpr double kPrior = 10.0;
 
   // period > 0, bins >= 1. One bin is a plain (phase-free) robust scale.
   // fold_bins: 0, or the bins of the shorter season (must divide bins; else 0).
@@ -56,10 +101,11 @@ class ResidualProfile {
   int Bin(EventTime t) const;
   // The expected residual and its spread at the phase of t. `sigma_all` is the
   // whole-series scale the bins are shrunk toward.
-  double Mean(int bin) const;
+  double Mean(int bin, double sigma_all) const;
   double Sigma(int bin, double sigma_all) const;
   // Folds in residual r and innovation a observed in `bin`, given the current
-  // whole-series scale.
+  // whole-series scale, and every kPoolEvery readings estimates the between-bin
+  // spreads again.
   void Update(int bin, double r, double a, double sigma_all);
   // Forgets everything learned (a planned change).
   void Reset();
@@ -75,14 +121,45 @@ class ResidualProfile {
   struct Bin_ {
     double n = 0, mean = 0, s2 = 0;
   };
+  // One level's between-bin variances: of the means (in units of sigma_all^2)
+  // and of the variance ratios, around their priors.
+  struct Spread {
+    double mean = 0, ratio = 0;
+    bool estimated = false;  // else too few bins had data: the fixed prior weight applies
+  };
   EventTime period_;
   double clip_;
   double correction_;
   std::vector<Bin_> bins_;
   std::vector<Bin_> folded_;  // the shorter season's phases; empty for one level
+  Spread spread_, folded_spread_;
+  // Running moments of the squared standardised readings over their phase's
+  // variance ratio: m2 / m1^2 - 1 is the sampling factor of s2.
+  struct Moments {
+    double n = 0, m1 = 0, m2 = 0;
+  };
+  Moments kurtosis_;
+  static constexpr double kKurtosisWindow = 2000;
+  static constexpr double kMinKurtosisRatio = 1e-6;
+  double RatioSamplingFactor() const;
+  static constexpr std::uint32_t kPoolEvery = 16;  // readings between estimates of the spreads
+  std::uint32_t since_pool_ = 0;
+  double FoldedWindow() const;
+  // Weight of a bin's own estimate against its prior.
+  static double Weight(double tau2, double sampling_variance);
+  // The pooled estimate, held within kTranslationLimit standard errors of the bin's own.
+  // Without a pooled estimate of tau^2, a bin with e readings gets e / (e + kPrior).
+  static double Shrink(double estimate, double prior, double tau2, bool pooled,
+                       double sampling_variance, double effective);
+  double FoldedMean(size_t j, double sigma_all) const;
+  double FoldedRatio(size_t j) const;
+  // tau^2 of one level by moments; prior(b) gives each bin's (mean, ratio) prior.
+  template <typename Prior>
+  static Spread Between(const std::vector<Bin_>& bins, double window, double sigma_all,
+                        double ratio_factor, Prior prior);
   // The prior each bin is shrunk toward: its phase's pooled values, or (one
   // level) zero mean and the whole series' spread.
-  double PriorMean(int bin) const;
+  double PriorMean(int bin, double sigma_all) const;
   // Variance ratios to the whole-series scale: the bin's (shrunk) and its prior.
   double Ratio(int bin) const;
   double PriorRatio(int bin) const;

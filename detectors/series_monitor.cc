@@ -426,7 +426,9 @@ void SeriesMonitor::StartForecaster() {
   // number of times (a week of days, a day of 8-hour defrost cycles), the
   // profile spans it, its bins pooled by their phase in the shortest season
   // (residual_profile.h): the additive seasonal terms cannot switch one day's
-  // pattern off, the profile can. Bins stay the same width, at most kMaxLongPhaseBins.
+  // pattern off, the profile can. At most kMaxLongPhaseBins bins: where the
+  // shortest season's bins repeated would be more, they are widened (a week of
+  // 5-minute readings gets hour-wide bins, not none).
   EventTime profile_period = shortest > 0 ? shortest : kMicrosPerDay;
   int fold = 0;
   if (shortest > 0 && spacing > 0) {
@@ -434,10 +436,11 @@ void SeriesMonitor::StartForecaster() {
       if (period <= shortest || period > 7 * kMicrosPerDay || period % shortest != 0)
         continue;
       const int repeats = static_cast<int>(period / shortest);
-      if (bins * repeats > kMaxLongPhaseBins) continue;
+      const int widened = std::min(bins, kMaxLongPhaseBins / repeats);
+      if (widened < 1) continue;
       if (period > profile_period) {
         profile_period = period;
-        fold = bins;
+        fold = widened;
       }
     }
   }
@@ -503,6 +506,12 @@ void SeriesMonitor::ScoreRivals(EventTime from, EventTime to, double y) {
   }
 }
 
+double SeriesMonitor::PhaseSigma(int bin) const {
+  // A phase whose residuals never vary (a count that is zero every night) has a
+  // spread near zero in the profile; the series' resolution floors it.
+  return std::max(profile_->Sigma(bin, scale_.sigma()), design_->scale.floor);
+}
+
 void SeriesMonitor::Model(EventTime from, EventTime to, double y,
                           std::vector<SeriesEvent>* events) {
   if (covariate_sink_) covariate_sink_->Publish(name_, to, y);
@@ -543,10 +552,10 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // variance alerts on the demo and on the airline data than it finds).
   const bool suspicious = Suspicious(kBaselineFraction);
   const int bin = profile_->Bin(from + (to - from) / 2);
-  const double v = u - profile_->Mean(bin);
+  const double v = u - profile_->Mean(bin, sigma);
   const double a =
       identified ? whitener_.Whiten(to, v, arrival_.mean_gap(), sigma, !suspicious) : v;
-  const double phase_sigma = profile_->Sigma(bin, sigma);
+  const double phase_sigma = PhaseSigma(bin);
   const double z = armed && phase_sigma > 0 ? a / phase_sigma : 0.0;
   last_z_ = z;
 
@@ -560,7 +569,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   const double clip = Suspicious(kLearnFraction) ? 1.0 : 4.0;
   if (armed && std::abs(z) > clip) {
     y_fit =
-        f.value + (profile_->Mean(bin) + std::copysign(clip * phase_sigma, a)) * spread;
+        f.value + (profile_->Mean(bin, sigma) + std::copysign(clip * phase_sigma, a)) * spread;
   }
   (void)forecaster_->CommitUpdate(y_fit);
   if (!rivals_.empty()) {
@@ -607,10 +616,10 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // that completes the evidence for a new level also pushes the variance chart
   // over its line, while a wider spread alone seldom completes a level
   // detector's evidence on the very same reading. The level alert re-baselines
-  // and resets the variance chart. Not while the spread sits at its floor
-  // (values that never vary, such as one event per reading): a narrower spread
-  // cannot be seen there.
-  const bool resolvable = sigma > 1.5 * design_->scale.floor;
+  // and resets the variance chart. Not while the spread at this phase sits at
+  // its floor (values that never vary, such as one event per reading, or a
+  // count that is zero every night): a narrower spread cannot be seen there.
+  const bool resolvable = phase_sigma > 1.5 * design_->scale.floor;
   Alarm variance_alarm{};
   if (resolvable && observations_ >= variance_hold_until_) {
     CollectForRefit(std::min(z * z, design_->variance.cap),
@@ -619,7 +628,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   }
   if (observations_ >= level_hold_until_) {
     const size_t before = events->size();
-    DecideLevel(to, y, f.value + profile_->Mean(bin) * spread, f.value, sigma * spread,
+    DecideLevel(to, y, f.value + profile_->Mean(bin, sigma) * spread, f.value, sigma * spread,
                 resolvable, events);
     if (events->size() > before) return;
   }

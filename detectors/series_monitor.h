@@ -258,6 +258,9 @@ class SeriesMonitor {
   const ResidualScale& scale() const { return scale_; }
   // The phase profile; null until the forecaster starts (forecasts, prediction.h).
   const ResidualProfile* residual_profile() const { return profile_ ? &*profile_ : nullptr; }
+  // The residual spread at a phase bin of the profile (which must exist): the
+  // profile's, floored at the series' resolution.
+  double PhaseSigma(int bin) const;
   const ProfileOptions& profile() const { return design_->profile; }
   const ArrivalModel& arrivals() const { return arrival_; }
   long long observations() const { return observations_; }
@@ -401,7 +404,7 @@ class SeriesMonitor {
   static constexpr int kMinScaleResiduals = 10;
   static constexpr int kMaxPhaseBins = 48;
   static constexpr int kMaxLongPhaseBins =
-      168;  // a week of hours; the longer profile is skipped beyond it
+      168;  // a week of hours; the longer profile's bins are widened to fit
   std::optional<SeasonalForecaster> forecaster_;
   // Level-noise selection (see the header comment): until the detectors arm,
   // forecasters that differ only in level_noise run beside forecaster_, each

@@ -124,6 +124,11 @@ bool SnapshotReader::Take(std::size_t n, const char** out) {
   return true;
 }
 
+bool SnapshotReader::NextTagIs(std::string_view four_letters) const {
+  return status_.ok() && remaining() >= 4 &&
+         bytes_.substr(at_, 4) == four_letters.substr(0, 4);
+}
+
 bool SnapshotReader::Tag(std::string_view four_letters) {
   const char* p = nullptr;
   if (!Take(4, &p)) return false;

@@ -68,6 +68,9 @@ class SnapshotReader {
 
   // Reads a tag; a different one is a failure naming both.
   bool Tag(std::string_view four_letters);
+  // Whether the next four bytes are this tag, without reading them (a layout
+  // that changed keeps its old tag and gets a new one).
+  bool NextTagIs(std::string_view four_letters) const;
   std::uint8_t U8();
   bool Bool();
   std::uint32_t U32();

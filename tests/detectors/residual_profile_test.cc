@@ -1,7 +1,9 @@
 // ResidualProfile: phase means and spreads, one level and two (a week of days).
-// Properties of the shrinkage rules in residual_profile.h (common practice, no
-// source): what every day shares is learned from every day; what sets one day of
-// the week apart is learned as that day's bins fill.
+// Properties of the empirical-Bayes shrinkage in residual_profile.h (Efron and
+// Morris; DerSimonian and Laird; from memory): what every day shares is learned
+// from every day; what sets one day of the week apart is learned from that day's
+// own bins; bins that differ only by noise stay pooled; a phase that never varies
+// gets a spread near zero; with too few bins the fixed prior weight applies.
 #include "detectors/residual_profile.h"
 
 #include <gtest/gtest.h>
@@ -47,20 +49,22 @@ TEST(ResidualProfileTest,
   ASSERT_EQ(weekly_plain.fold_bins(), 0);
   auto at = [](int day, int hour) { return (day * 24 + hour) * kMicrosPerHour + 1; };
 
-  // The shared 09:00 bump after three weeks: the daily profile has 21
-  // residuals in its bin (21 / 31 of the way), the pooled weekly one nearly as
-  // much through its phase, the plain weekly one only 3 (3 / 13).
-  const double shared_daily = daily.Mean(daily.Bin(at(0, 9)));
-  const double shared_weekly = weekly.Mean(weekly.Bin(at(0, 9)));
-  const double shared_plain = weekly_plain.Mean(weekly_plain.Bin(at(0, 9)));
+  // The shared 09:00 bump (+2) after three weeks: the daily profile has 21
+  // residuals in its bin, the pooled weekly one as many through its phase, the
+  // plain weekly one only 3, so it keeps its own estimate's standard error
+  // (0.58 of sigma) short of it.
+  const double shared_daily = daily.Mean(daily.Bin(at(0, 9)), 1.0);
+  const double shared_weekly = weekly.Mean(weekly.Bin(at(0, 9)), 1.0);
+  const double shared_plain = weekly_plain.Mean(weekly_plain.Bin(at(0, 9)), 1.0);
   EXPECT_GT(shared_weekly, 0.8 * shared_daily);
-  EXPECT_GT(shared_weekly, 2.0 * shared_plain);
+  EXPECT_GT(shared_daily, 1.5);
+  EXPECT_GT(shared_weekly, shared_plain + 0.3);
 
   // The odd day's dip: the daily profile spreads it over all days (a seventh),
   // the weekly ones put it on its own day.
-  const double odd_weekly = weekly.Mean(weekly.Bin(at(3, 10)));
-  const double odd_daily = daily.Mean(daily.Bin(at(3, 10)));
-  const double other_day_weekly = weekly.Mean(weekly.Bin(at(4, 10)));
+  const double odd_weekly = weekly.Mean(weekly.Bin(at(3, 10)), 1.0);
+  const double odd_daily = daily.Mean(daily.Bin(at(3, 10)), 1.0);
+  const double other_day_weekly = weekly.Mean(weekly.Bin(at(4, 10)), 1.0);
   EXPECT_LT(odd_weekly, 2.0 * odd_daily);  // more than twice as deep
   EXPECT_GT(other_day_weekly,
             0.5 * odd_weekly);  // the other days dip less than half as much
@@ -71,10 +75,58 @@ TEST(ResidualProfileTest,
   }
 }
 
+// Bins that differ only by noise: their own means scatter by 1 / sqrt(n) of
+// sigma, the pooled ones by less (limited translation lets each move at most
+// one standard error toward the prior, so not to zero).
+TEST(ResidualProfileTest, BinsThatDifferOnlyByNoiseStayPooled) {
+  ResidualProfile profile(7 * kMicrosPerDay, kHoursPerWeek, 4.0);
+  Random random(11);
+  for (int h = 0; h < 3 * kHoursPerWeek; ++h) {
+    const double r = random.Normal();
+    profile.Update(profile.Bin(h * kMicrosPerHour + 1), r, r, 1.0);
+  }
+  double means = 0, ratios = 0;
+  for (int b = 0; b < profile.bins(); ++b) {
+    means += profile.Mean(b, 1.0) * profile.Mean(b, 1.0);
+    const double k = profile.Sigma(b, 1.0) * profile.Sigma(b, 1.0) - 1.0;
+    ratios += k * k;
+  }
+  // Own means over 3 readings: root mean square 0.58; own variance ratios: 0.82.
+  EXPECT_LT(std::sqrt(means / profile.bins()), 0.5 * 0.58);
+  EXPECT_LT(std::sqrt(ratios / profile.bins()), 0.75 * 0.82);
+}
+
+// Hourly counts that are zero every night (a closed phase) and vary by day: the
+// night bins' spread falls to a fraction of sigma within a week (the fixed prior
+// weight of ten readings would leave it at 0.77), the day bins' does not.
+TEST(ResidualProfileTest, APhaseThatNeverVariesGetsASpreadNearZero) {
+  ResidualProfile profile(kMicrosPerDay, 24, 4.0);
+  Random random(3);
+  for (int h = 0; h < 7 * 24; ++h) {
+    const bool open = h % 24 >= 6 && h % 24 < 18;
+    const double r = open ? 2.0 * random.Normal() : 0.0;
+    profile.Update(profile.Bin(h * kMicrosPerHour + 1), r, r, 1.0);
+  }
+  EXPECT_LT(profile.Sigma(profile.Bin(2 * kMicrosPerHour), 1.0), 0.35);
+  EXPECT_GT(profile.Sigma(profile.Bin(12 * kMicrosPerHour), 1.0), 1.0);
+}
+
+// Three bins (a monthly series' four-month bins) are too few to estimate the
+// spread between bins: each keeps the fixed weight e / (e + kPrior).
+TEST(ResidualProfileTest, TooFewBinsKeepTheFixedPriorWeight) {
+  ResidualProfile profile(kMicrosPerDay, 3, 4.0);
+  for (int i = 0; i < 3 * 30; ++i) {
+    const int bin = i % 3;
+    const double r = bin == 0 ? 1.0 : 0.0;
+    profile.Update(bin, r, r, 1.0);
+  }
+  EXPECT_NEAR(profile.Mean(0, 1.0), 30.0 / (30.0 + ResidualProfile::kPrior), 1e-12);
+}
+
 TEST(ResidualProfileTest, FoldThatDoesNotDivideTheBinsFallsBackToOneLevel) {
   const ResidualProfile profile(7 * kMicrosPerDay, 168, 4.0, 25);
   EXPECT_EQ(profile.fold_bins(), 0);
-  EXPECT_EQ(profile.Mean(0), 0.0);
+  EXPECT_EQ(profile.Mean(0, 1.0), 0.0);
 }
 
 }  // namespace

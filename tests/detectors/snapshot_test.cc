@@ -354,6 +354,44 @@ TEST(ForgedStateTest, ResidualProfileRefusesOtherBinCountsAndNegativeOrNonFinite
   EXPECT_TRUE(RefusedNaming(load(12, Bits(-1.0)), "bin count"));
   EXPECT_TRUE(RefusedNaming(load(20, kNan), "bin mean"));
   EXPECT_TRUE(RefusedNaming(load(28, Bits(-0.1)), "bin variance ratio"));
+  // Then the spreads between bins, each a flag, of means and of ratios: 788 on.
+  EXPECT_TRUE(RefusedNaming(load(789, Bits(-1.0)), "spread of means"));
+  EXPECT_TRUE(RefusedNaming(load(806, kNan), "spread of means"));
+  EXPECT_TRUE(RefusedNaming(load(814, Bits(-1.0)), "spread of ratios"));
+  // Then the moments of the squared readings (822 on) and the readings since
+  // the spreads were estimated (a u32).
+  EXPECT_TRUE(RefusedNaming(load(822, Bits(-1.0)), "kurtosis count"));
+  EXPECT_TRUE(RefusedNaming(load(838, kNan), "fourth moment"));
+}
+
+// The layout before the spreads were kept ("PROF": the bins only) still loads:
+// the bins as saved; the spreads start unestimated and the next reading
+// estimates them again.
+TEST(ForgedStateTest, ResidualProfileReadsTheLayoutWithoutSpreads) {
+  const auto make = [] { return ResidualProfile(kMicrosPerDay, 24, 3.0, 8); };
+  ResidualProfile original = make();
+  for (int i = 0; i < 200; ++i) {
+    const EventTime t = i * 20 * kMicrosPerMinute;
+    original.Update(original.Bin(t), Wave(i), Wave(i), 1.0);
+  }
+  SnapshotWriter w;
+  original.Save(w);
+  const std::string now = w.Take();
+  ASSERT_EQ(now.substr(0, 4), "PRF2");
+  // Tag, 24 bins and 8 pooled bins (each a count and 24 bytes a bin).
+  const std::size_t bins_end = 4 + 8 + 24 * 24 + 8 + 8 * 24;
+  const std::string old = "PROF" + now.substr(4, bins_end - 4);
+  ResidualProfile fresh = make();
+  SnapshotReader r(old);
+  ASSERT_TRUE(fresh.Load(r).ok());
+  EXPECT_TRUE(r.AtEnd());
+  SnapshotWriter again;
+  fresh.Save(again);
+  EXPECT_EQ(again.bytes().substr(4, bins_end - 4), now.substr(4, bins_end - 4));
+  fresh.Update(0, 0.5, 0.5, 1.0);
+  for (int b = 0; b < 24; ++b) {
+    EXPECT_TRUE(std::isfinite(fresh.Mean(b, 1.0)) && fresh.Sigma(b, 1.0) > 0) << b;
+  }
 }
 
 TEST(ForgedStateTest, WhitenerRefusesOverflowingCountsAndAPersistenceOfOneOrMore) {
