@@ -336,16 +336,22 @@ TEST(ForgedStateTest,
   EXPECT_TRUE(RefusedNaming(load(xpx, kNan), "pending variance factor"));
 }
 
-TEST(ForgedStateTest, ResidualProfileRefusesOtherBinCountsAndNegativeOrNonFiniteBins) {
-  const auto make = [] { return ResidualProfile(kMicrosPerDay, 24, 3.0, 8); };
-  ResidualProfile original = make();
+// A day of 24 bins pooled by 8, after 200 readings of a wave.
+ResidualProfile UntrainedProfile() { return ResidualProfile(kMicrosPerDay, 24, 3.0, 8); }
+ResidualProfile TrainedProfile() {
+  ResidualProfile profile = UntrainedProfile();
   for (int i = 0; i < 200; ++i) {
     const EventTime t = i * 20 * kMicrosPerMinute;
-    original.Update(original.Bin(t), Wave(i), Wave(i), 1.0);
+    profile.Update(profile.Bin(t), Wave(i), Wave(i), 1.0);
   }
-  // "PROF", 24 bins (count, mean, variance ratio), 8 pooled bins.
+  return profile;
+}
+
+TEST(ForgedStateTest, ResidualProfileRefusesOtherBinCountsAndNegativeOrNonFiniteBins) {
+  const ResidualProfile original = TrainedProfile();
+  // "PRF2", 24 bins (count, mean, variance ratio), 8 pooled bins.
   auto load = [&](std::size_t at, std::uint64_t bits) {
-    ResidualProfile fresh = make();
+    ResidualProfile fresh = UntrainedProfile();
     return LoadPatched(original, fresh, at, bits);
   };
   EXPECT_TRUE(load(12, Bits(3.0)).ok());
@@ -368,12 +374,7 @@ TEST(ForgedStateTest, ResidualProfileRefusesOtherBinCountsAndNegativeOrNonFinite
 // the bins as saved; the spreads start unestimated and the next reading
 // estimates them again.
 TEST(ForgedStateTest, ResidualProfileReadsTheLayoutWithoutSpreads) {
-  const auto make = [] { return ResidualProfile(kMicrosPerDay, 24, 3.0, 8); };
-  ResidualProfile original = make();
-  for (int i = 0; i < 200; ++i) {
-    const EventTime t = i * 20 * kMicrosPerMinute;
-    original.Update(original.Bin(t), Wave(i), Wave(i), 1.0);
-  }
+  const ResidualProfile original = TrainedProfile();
   SnapshotWriter w;
   original.Save(w);
   const std::string now = w.Take();
@@ -381,7 +382,7 @@ TEST(ForgedStateTest, ResidualProfileReadsTheLayoutWithoutSpreads) {
   // Tag, 24 bins and 8 pooled bins (each a count and 24 bytes a bin).
   const std::size_t bins_end = 4 + 8 + 24 * 24 + 8 + 8 * 24;
   const std::string old = "PROF" + now.substr(4, bins_end - 4);
-  ResidualProfile fresh = make();
+  ResidualProfile fresh = UntrainedProfile();
   SnapshotReader r(old);
   ASSERT_TRUE(fresh.Load(r).ok());
   EXPECT_TRUE(r.AtEnd());
