@@ -22,12 +22,11 @@
 //
 //   V(m_b)  ~ k0_b / e_b,      V(s2_b) ~ kappa k0_b^2 / e_b
 //
-// with kappa = E[x^2] / E[x]^2 - 1 over the clipped squared readings x, each
-// divided by its phase's ratio (2 in normal theory, which is used until 50
-// readings are in; heavy tails and small counts make it larger).
-//
-// where k0_b is the ratio b is shrunk toward and e_b its effective count (n_b,
-// or 2 window - 1 once the running means forget). The true values scatter around
+// where k0_b is the ratio b is shrunk toward, e_b its effective count (n_b,
+// or 2 window - 1 once the running means forget) and kappa = E[x^2] / E[x]^2 - 1
+// over the clipped squared readings x, each divided by its phase's ratio (2 in
+// normal theory, which is used until 50 readings are in; heavy tails and small
+// counts make it larger). The true values scatter around
 // their priors with between-bin variances tau_m^2 and tau_k^2, estimated by
 // moments over the bins that have data:
 //
@@ -53,7 +52,7 @@
 // So a series whose phases all behave alike (tau near 0) keeps every bin at
 // the pooled value however few readings each has, and one whose phases differ
 // widely (hourly orders: none at night, dozens by day) lets each bin speak for
-// itself after a reading or two. A phase whose residuals never vary (a count
+// itself once it has five readings. A phase whose residuals never vary (a count
 // that is zero every night) gets a spread near zero, so the caller floors
 // sigma_b at the series' resolution. m(c) is the clipped second moment of
 // N(0,1) (ResidualScale::ClippedSecondMoment). Bins are equal slices of the
