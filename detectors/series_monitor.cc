@@ -619,7 +619,18 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // and resets the variance chart. Not while the spread at this phase sits at
   // its floor (values that never vary, such as one event per reading, or a
   // count that is zero every night): a narrower spread cannot be seen there.
-  const bool resolvable = phase_sigma > 1.5 * design_->scale.floor;
+  // Nor on a count series watched by the count CUSUM: a Poisson count's
+  // variance is its mean, so a change of it is a change of level, which that
+  // chart sees. Nor where a count series expects fewer than kLowCountMean: its
+  // z is then too discrete and skewed for a chart that models z as Gaussian
+  // in its spread (runs of zeros at quiet hours look like a narrower spread,
+  // one busy hour like a new level). BOCPD, which models both, skips those
+  // readings too, unless it is the only level detector (rather than go blind).
+  const double expected = f.value + profile_->Mean(bin, sigma) * spread;
+  const bool spread_seen = phase_sigma > 1.5 * design_->scale.floor;
+  const bool near_normal =
+      design_->profile.kind != SeriesKind::kCount || expected >= kLowCountMean;
+  const bool resolvable = spread_seen && near_normal && !count_chart();
   Alarm variance_alarm{};
   if (resolvable && observations_ >= variance_hold_until_) {
     CollectForRefit(std::min(z * z, design_->variance.cap),
@@ -628,8 +639,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   }
   if (observations_ >= level_hold_until_) {
     const size_t before = events->size();
-    DecideLevel(to, y, f.value + profile_->Mean(bin, sigma) * spread, f.value, sigma * spread,
-                resolvable, events);
+    DecideLevel(to, y, expected, f.value, sigma * spread,
+                spread_seen && (near_normal || level_.size() == 1), events);
     if (events->size() > before) return;
   }
   if (!variance_alarm.fired) return;
@@ -660,8 +671,8 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
   if (profile.adapt_thresholds) CollectLevelSample(clipped_z);
   for (size_t i = 0; i < level_.size(); ++i) {
     // BOCPD models the spread as well as the mean, so residuals pinned at the
-    // resolution floor (all zero) would look to it like a change; the mean
-    // detectors still watch them.
+    // resolution floor (all zero), or too discrete to be near Gaussian (low
+    // counts), would look to it like a change; the mean detectors still watch them.
     if (!resolvable && level_kinds_[i] == DetectorKind::kBocpd) continue;
     StatusOr<Alarm> result = VisitLevel(
         [&](auto& detector) -> StatusOr<Alarm> {
