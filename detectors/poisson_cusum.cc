@@ -263,7 +263,8 @@ bool PoissonCusum::Signals(double value, double h) const {
                                                       : value > h + tolerance;
 }
 
-StatusOr<Alarm> PoissonCusum::Update(double count, EventTime time, double mean_ratio) {
+StatusOr<Alarm> PoissonCusum::Update(double count, EventTime time, double mean_ratio,
+                                     double down_ratio) {
   if (!(std::isfinite(count) && count >= 0.0 && count == std::floor(count)))
       [[unlikely]] {
     return RefuseCount(count);
@@ -271,6 +272,10 @@ StatusOr<Alarm> PoissonCusum::Update(double count, EventTime time, double mean_r
   if (!IsFinitePositive(mean_ratio)) [[unlikely]] {
     return Status::InvalidArgument("mean ratio must be finite and > 0; got " +
                                    Format(mean_ratio));
+  }
+  if (!(std::isfinite(down_ratio) && down_ratio >= 0.0)) [[unlikely]] {
+    return Status::InvalidArgument("lower side's mean ratio must be finite and >= 0; got " +
+                                   Format(down_ratio));
   }
   ++readings_;
   const double deviation = count - mean_ratio * options_.mu0;
@@ -280,7 +285,7 @@ StatusOr<Alarm> PoissonCusum::Update(double count, EventTime time, double mean_r
   bool up = Signals(upper_.value, options_.h);
   bool down = false;
   if (options_.two_sided) {
-    lower_.Step(mean_ratio * options_.k_down - count, deviation, time, zero_down_);
+    lower_.Step(down_ratio * options_.k_down - count, deviation, time, zero_down_);
     alarm.statistic = std::max(alarm.statistic, lower_.value);
     down = Signals(lower_.value, options_.h_down);
   }

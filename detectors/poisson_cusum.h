@@ -153,7 +153,17 @@ class PoissonCusum {
   // "A time-varying in-control mean" above), and Alarm::shift is the mean over
   // the excursion of (count - mean_ratio * mu0). mean_ratio must be finite
   // and > 0; otherwise InvalidArgument, state untouched.
-  StatusOr<Alarm> Update(double count, EventTime time, double mean_ratio);
+  StatusOr<Alarm> Update(double count, EventTime time, double mean_ratio) {
+    return Update(count, time, mean_ratio, mean_ratio);
+  }
+
+  // The same with the lower side's reference scaled by down_ratio (finite,
+  // >= 0) instead: a caller that floors mean_ratio to keep the upper side from
+  // taking any count at a near-zero forecast as a change passes the unfloored
+  // ratio here, since a zero count where almost none is expected is no
+  // evidence of a fall (the log-likelihood ratio of a fall, mu_t (1 - q) for
+  // a zero, vanishes with mu_t). Otherwise InvalidArgument, state untouched.
+  StatusOr<Alarm> Update(double count, EventTime time, double mean_ratio, double down_ratio);
 
   // Back to the start state: both sides at their headstarts, counters cleared.
   void Reset();

@@ -679,14 +679,18 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
           using T = std::decay_t<decltype(detector)>;
           if constexpr (std::is_same_v<T, PoissonCusum>) {
             // The in-control mean: the forecast, kept above a twentieth of the
-            // design mean (a forecast near zero would make any count a change).
+            // design mean on the upper side (a forecast near zero would make
+            // any count a rise); the lower side takes it as it is, not below
+            // zero (a zero count where none is expected says nothing of a fall).
             const double mu0 = detector.options().mu0;
-            const double mean = std::max(expected, 0.05 * mu0);
+            const double down_ratio = std::max(expected, 0.0) / mu0;
+            const double ratio = std::max(down_ratio, kCountMeanFloor);
+            const double mean = ratio * mu0;
             const double count =
                 std::min(std::max(0.0, std::round(y)),
                          std::max(1.0, std::floor(mean + kLevelClip * std::sqrt(mean))));
-            CollectCountIncrements(count, mean / mu0, detector);
-            return detector.Update(count, t, mean / mu0);
+            CollectCountIncrements(count, down_ratio, detector);
+            return detector.Update(count, t, ratio, down_ratio);
           } else {
             return detector.Update(clipped_z, t);
           }
@@ -924,19 +928,20 @@ bool SeriesMonitor::count_chart() const {
   return false;
 }
 
-void SeriesMonitor::CollectCountIncrements(double count, double ratio,
+void SeriesMonitor::CollectCountIncrements(double count, double down_ratio,
                                            PoissonCusum& chart) {
   if (count_refitted_) return;
   count_sample_.push_back(count);
-  count_sample_.push_back(ratio);
+  count_sample_.push_back(down_ratio);
   if (count_sample_.size() < 2 * kRefitSample) return;
   const PoissonCusumOptions& o = chart.options();
   std::vector<double> upper, lower;
   upper.reserve(kRefitSample);
   lower.reserve(kRefitSample);
   for (std::size_t i = 0; i + 1 < count_sample_.size(); i += 2) {
-    upper.push_back(count_sample_[i] - count_sample_[i + 1] * o.k);
-    lower.push_back(count_sample_[i + 1] * o.k_down - count_sample_[i]);
+    const double down_ratio = count_sample_[i + 1];
+    upper.push_back(count_sample_[i] - std::max(down_ratio, kCountMeanFloor) * o.k);
+    lower.push_back(down_ratio * o.k_down - count_sample_[i]);
   }
   const double side_arl0 = 2.0 * design_->level.per_detector_arl0;
   chart.SetDecisionIntervals(Refit(std::move(upper), side_arl0, o.h, kRefitCeiling),

@@ -356,7 +356,7 @@ class SeriesMonitor {
   // count_chart asks for it (detectors/profile.h), designed at the mean count.
   void ChooseCountChart();
   // Feeds the count CUSUM's re-fit sample; re-fits once it is full.
-  void CollectCountIncrements(double count, double ratio, PoissonCusum& chart);
+  void CollectCountIncrements(double count, double down_ratio, PoissonCusum& chart);
   void StartRegime(EventTime change_at);
   // Annotations.
   void ApplyPlannedChange(const Annotation& change);
@@ -380,6 +380,9 @@ class SeriesMonitor {
   static constexpr double kBaselineFraction = 0.25;
   static constexpr double kLearnFraction = 0.5;
   static constexpr double kLevelClip = 4.0;
+  // The count CUSUM's upper side reads a forecast below this fraction of its
+  // design mean as this fraction (a forecast near zero would make any count a rise).
+  static constexpr double kCountMeanFloor = 0.05;
   static constexpr size_t kRefitSample = 1000;
   static constexpr double kRefitCeiling = 3.0;
   void StartForecaster();
@@ -466,7 +469,9 @@ class SeriesMonitor {
   ObservationListener* listener_ = nullptr;
   double value_sum_ = 0.0;             // of the learned readings, for the mean count
   bool count_chart_decided_ = false;   // ChooseCountChart ran since the last design
-  std::vector<double> count_sample_;   // (count, mean ratio) pairs for the re-fit
+  // (count, unfloored mean ratio) pairs for the re-fit (older checkpoints hold
+  // the floored ratio; the difference is below kCountMeanFloor).
+  std::vector<double> count_sample_;
   bool count_refitted_ = false;
   CalibrationHealth health_;
   std::vector<double> level_sample_;  // winsorised z for adapt_thresholds

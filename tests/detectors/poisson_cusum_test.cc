@@ -594,6 +594,40 @@ TEST(PoissonCusumTest, RefusesABadMeanRatioWithoutChangingState) {
   EXPECT_EQ(chart.readings_since_restart(), 1);
 }
 
+TEST(PoissonCusumTest, LowerSideReadsItsOwnRatioAndZerosWhereNoneAreExpectedAddNothing) {
+  // Hand-worked, no source: two-sided, mu0 = 2, k_down = 1, h_down = 3. With
+  // the upper side's ratio floored at 0.05 and the lower side's ratio 0 (a
+  // closed hour), zero counts leave the lower side at 0 however many there
+  // are; read at the floored ratio they would climb by 0.05 each.
+  PoissonCusumOptions o;
+  o.two_sided = true;
+  o.k_down = 1.0;
+  o.h_down = 3.0;
+  PoissonCusum own(o), floored(o);
+  for (int i = 1; i <= 100; ++i) {
+    ASSERT_FALSE(own.Update(0, At(i), 0.05, 0.0)->fired);
+    ASSERT_TRUE(floored.Update(0, At(i), 0.05).ok());
+  }
+  EXPECT_EQ(own.lower(), 0.0);
+  EXPECT_EQ(own.upper(), floored.upper());
+  EXPECT_GT(floored.alarms(), 0);
+  // Where the ratios agree the two forms are one chart: ratio 1 then counts
+  // 0, 0, 0 give T = 1, 2, 3 >= 3.
+  PoissonCusum chart(o);
+  ASSERT_FALSE(chart.Update(0, At(1), 1.0, 1.0)->fired);
+  ASSERT_FALSE(chart.Update(0, At(2), 1.0, 1.0)->fired);
+  const StatusOr<Alarm> alarm = chart.Update(0, At(3), 1.0, 1.0);
+  ASSERT_TRUE(alarm.ok());
+  EXPECT_TRUE(alarm->fired);
+  EXPECT_EQ(alarm->direction, Direction::kDown);
+  // A negative or non-finite lower ratio is refused, state untouched.
+  for (double ratio : {-0.5, std::numeric_limits<double>::quiet_NaN(),
+                       std::numeric_limits<double>::infinity()}) {
+    EXPECT_FALSE(chart.Update(0, At(4), 1.0, ratio).ok());
+  }
+  EXPECT_EQ(chart.readings_since_restart(), 0);
+}
+
 TEST(PoissonCusumTest, SavedChartContinuesExactlyAndForgedStateIsRefused) {
   PoissonCusumOptions o;
   o.two_sided = true;
