@@ -8,14 +8,38 @@
 
 namespace plumbline {
 
-ResidualProfile::ResidualProfile(EventTime period, int bins, double clip, int fold_bins)
+ResidualProfile::ResidualProfile(EventTime period, int bins, double clip, int fold_bins,
+                                 EventTime fold_period)
     : period_(period),
       clip_(clip),
       correction_(1.0 / ResidualScale::ClippedSecondMoment(clip)),
       bins_(static_cast<size_t>(std::max(bins, 1))) {
-  if (fold_bins > 0 && fold_bins < this->bins() && this->bins() % fold_bins == 0) {
-    folded_.resize(static_cast<size_t>(fold_bins));
+  if (fold_period == 0 && fold_bins > 0 && fold_bins < this->bins() &&
+      this->bins() % fold_bins == 0) {
+    fold_period = period / (this->bins() / fold_bins);  // phase bins as wide as the long ones
   }
+  (void)SetFold(fold_bins, fold_period);
+}
+
+bool ResidualProfile::SetFold(int fold_bins, EventTime fold_period) {
+  folded_.clear();
+  fold_period_ = 0;
+  per_repeat_ = 0;
+  span_ = 1;
+  if (fold_bins <= 0 || fold_period <= 0 || fold_period >= period_ ||
+      period_ % fold_period != 0) {
+    return false;
+  }
+  const EventTime repeats = period_ / fold_period;
+  const int n = bins();
+  if (n % repeats != 0) return false;
+  const int per_repeat = static_cast<int>(n / repeats);
+  if (fold_bins % per_repeat != 0) return false;
+  folded_.resize(static_cast<size_t>(fold_bins));
+  fold_period_ = fold_period;
+  per_repeat_ = per_repeat;
+  span_ = fold_bins / per_repeat;
+  return true;
 }
 
 void ResidualProfile::Reset() {
@@ -51,7 +75,9 @@ double ResidualProfile::RatioSamplingFactor() const {
 }
 
 double ResidualProfile::FoldedWindow() const {
-  return kWindow * static_cast<double>(bins_.size() / std::max<size_t>(folded_.size(), 1));
+  // Readings a phase bin gets for each one a long bin gets.
+  return kWindow * static_cast<double>(bins_.size()) /
+         static_cast<double>(std::max<size_t>(folded_.size(), 1));
 }
 
 double ResidualProfile::Shrink(double estimate, double prior, double tau2, bool pooled,
@@ -81,45 +107,65 @@ double ResidualProfile::FoldedMean(size_t j, double sigma_all) const {
                             folded_spread_.estimated, 1.0 / e, e);
 }
 
-double ResidualProfile::PriorMean(int bin, double sigma_all) const {
+double ResidualProfile::PriorMean(size_t b, double sigma_all) const {
   if (folded_.empty()) return 0.0;
-  return FoldedMean(static_cast<size_t>(bin) % folded_.size(), sigma_all);
+  const size_t first = (b % static_cast<size_t>(per_repeat_)) * static_cast<size_t>(span_);
+  double sum = 0;
+  for (int i = 0; i < span_; ++i) sum += FoldedMean(first + static_cast<size_t>(i), sigma_all);
+  return sum / span_;
 }
-
-double ResidualProfile::PriorRatio(int bin) const {
+double ResidualProfile::PriorRatio(size_t b) const {
   if (folded_.empty()) return 1.0;
-  return FoldedRatio(static_cast<size_t>(bin) % folded_.size());
+  const size_t first = (b % static_cast<size_t>(per_repeat_)) * static_cast<size_t>(span_);
+  double sum = 0;
+  for (int i = 0; i < span_; ++i) sum += FoldedRatio(first + static_cast<size_t>(i));
+  return sum / span_;
 }
-
 int ResidualProfile::Bin(EventTime t) const {
-  EventTime within = t % period_;
-  if (within < 0) within += period_;
-  const int n = bins();
-  return std::min(n - 1, static_cast<int>(static_cast<double>(within) /
-                                          static_cast<double>(period_) * n));
+  const auto slot = [t](EventTime period, int n) {
+    EventTime within = t % period;
+    if (within < 0) within += period;
+    return std::min(n - 1, static_cast<int>(static_cast<double>(within) /
+                                            static_cast<double>(period) * n));
+  };
+  const int b = slot(period_, bins());
+  if (folded_.empty()) return b;
+  return b * fold_bins() + slot(fold_period_, fold_bins());
+}
+double ResidualProfile::LongMean(size_t b, double sigma_all) const {
+  const double prior = PriorMean(b, sigma_all);
+  const Bin_& x = bins_[b];
+  if (x.n == 0) return prior;
+  const double e = Effective(x.n, kWindow);
+  if (!(sigma_all > 0)) return prior + e / (e + kPrior) * (x.mean - prior);
+  return sigma_all * Shrink(x.mean / sigma_all, prior / sigma_all, spread_.mean,
+                            spread_.estimated, PriorRatio(b) / e, e);
 }
 
-double ResidualProfile::Mean(int bin, double sigma_all) const {
-  const double prior = PriorMean(bin, sigma_all);
-  const Bin_& b = bins_[static_cast<size_t>(bin)];
-  if (b.n == 0) return prior;
-  const double e = Effective(b.n, kWindow);
-  if (!(sigma_all > 0)) return prior + e / (e + kPrior) * (b.mean - prior);
-  return sigma_all *
-         Shrink(b.mean / sigma_all, prior / sigma_all, spread_.mean, spread_.estimated,
-                PriorRatio(bin) / e, e);
+double ResidualProfile::Mean(int key, double sigma_all) const {
+  const size_t b = LongBin(key);
+  const double mean = LongMean(b, sigma_all);
+  if (span_ == 1) return mean;
+  // A long bin's value is the average over its phases: this phase's own
+  // departure from that average is added back.
+  return mean + FoldedMean(Phase(key), sigma_all) - PriorMean(b, sigma_all);
+}
+double ResidualProfile::LongRatio(size_t b) const {
+  const double prior = PriorRatio(b);
+  const Bin_& x = bins_[b];
+  if (x.n == 0) return prior;
+  const double e = Effective(x.n, kWindow);
+  return std::max(0.0, Shrink(x.s2, prior, spread_.ratio, spread_.estimated,
+                              RatioSamplingFactor() * prior * prior / e, e));
 }
 
-double ResidualProfile::Ratio(int bin) const {
-  const double prior = PriorRatio(bin);
-  const Bin_& b = bins_[static_cast<size_t>(bin)];
-  if (b.n == 0) return prior;
-  const double e = Effective(b.n, kWindow);
-  return std::max(0.0,
-                  Shrink(b.s2, prior, spread_.ratio, spread_.estimated,
-                         RatioSamplingFactor() * prior * prior / e, e));
+double ResidualProfile::Ratio(int key) const {
+  const size_t b = LongBin(key);
+  const double ratio = LongRatio(b);
+  if (span_ == 1) return ratio;
+  const double average = PriorRatio(b);
+  return average > kMinKurtosisRatio ? ratio * FoldedRatio(Phase(key)) / average : ratio;
 }
-
 template <typename Prior>
 ResidualProfile::Spread ResidualProfile::Between(const std::vector<Bin_>& bins, double window,
                                                  double sigma_all, double ratio_factor,
@@ -144,16 +190,15 @@ ResidualProfile::Spread ResidualProfile::Between(const std::vector<Bin_>& bins, 
           std::max(0.0, (ratio_deviation - ratio_sampling) / filled), true};
 }
 
-double ResidualProfile::Sigma(int bin, double sigma_all) const {
-  return sigma_all * std::sqrt(Ratio(bin));
+double ResidualProfile::Sigma(int key, double sigma_all) const {
+  return sigma_all * std::sqrt(Ratio(key));
 }
-
-void ResidualProfile::Fold(Bin_* b, double r, double q, double sigma, double ratio,
-                           double clip, double correction, double window) {
+void ResidualProfile::Fold(Bin_* b, double r, double center, double q, double sigma,
+                           double ratio, double clip, double correction, double window) {
   b->n += 1;
   const double weight = 1.0 / std::min(b->n, window);
   const double limit = 4.0 * sigma;
-  b->mean += (std::clamp(r, b->mean - limit, b->mean + limit) - b->mean) * weight;
+  b->mean += (std::clamp(r, center - limit, center + limit) - b->mean) * weight;
   const double clipped = std::min(q * q, clip * clip * ratio) * correction;
   if (b->n == 1) {
     b->s2 = clipped;
@@ -161,20 +206,24 @@ void ResidualProfile::Fold(Bin_* b, double r, double q, double sigma, double rat
     b->s2 += (clipped - b->s2) * weight;
   }
 }
-
-void ResidualProfile::Update(int bin, double r, double a, double sigma_all) {
+void ResidualProfile::Update(int key, double r, double a, double sigma_all) {
   if (!std::isfinite(r) || !std::isfinite(a) || !(sigma_all > 0)) return;
   const double q = a / sigma_all;
+  const size_t b = LongBin(key);
+  // Where a long bin spans several phases, r is held near this phase's share
+  // of the long bin's mean.
+  double center = bins_[b].mean;
   if (!folded_.empty()) {
     // The pooled phase sees every repeat, so its window spans as many periods.
-    const size_t j = static_cast<size_t>(bin) % folded_.size();
-    const double ratio = PriorRatio(bin);
-    Fold(&folded_[j], r, q, sigma_all * std::sqrt(ratio), ratio, clip_, correction_,
-         FoldedWindow());
+    const size_t j = Phase(key);
+    const double ratio = FoldedRatio(j);
+    if (span_ > 1) center += FoldedMean(j, sigma_all) - PriorMean(b, sigma_all);
+    Fold(&folded_[j], r, folded_[j].mean, q, sigma_all * std::sqrt(ratio), ratio, clip_,
+         correction_, FoldedWindow());
   }
-  const double ratio = Ratio(bin);
-  Fold(&bins_[static_cast<size_t>(bin)], r, q, sigma_all * std::sqrt(ratio), ratio, clip_,
-       correction_, kWindow);
+  const double ratio = Ratio(key);
+  Fold(&bins_[b], r, center, q, sigma_all * std::sqrt(ratio), ratio, clip_, correction_,
+       kWindow);
   // The squared readings' spread relative to their phase's variance, for the
   // sampling variance of s2 (heavy tails make it larger than normal theory's).
   if (ratio > kMinKurtosisRatio) {
@@ -193,13 +242,13 @@ void ResidualProfile::Update(int bin, double r, double a, double sigma_all) {
                              [](size_t) { return std::pair{0.0, 1.0}; });
   }
   spread_ = Between(bins_, kWindow, sigma_all, RatioSamplingFactor(), [this, sigma_all](size_t b) {
-    const int bin = static_cast<int>(b);
-    return std::pair{PriorMean(bin, sigma_all), PriorRatio(bin)};
+    return std::pair{PriorMean(b, sigma_all), PriorRatio(b)};
   });
 }
-
 void ResidualProfile::Save(SnapshotWriter& w) const {
-  w.Tag("PRF2");
+  w.Tag("PRF3");
+  w.I64(fold_period_);
+  w.U64(folded_.size());
   for (const std::vector<Bin_>* bins : {&bins_, &folded_}) {
     w.U64(bins->size());
     for (const Bin_& b : *bins) {
@@ -220,10 +269,25 @@ void ResidualProfile::Save(SnapshotWriter& w) const {
 }
 
 Status ResidualProfile::Load(SnapshotReader& r) {
-  // "PROF", the layout before the between-bin spreads were kept: they start
-  // unestimated (the fixed prior weight) and are estimated again at the next reading.
-  const bool spreads = r.NextTagIs("PRF2");
-  r.Tag(spreads ? "PRF2" : "PROF");
+  // "PRF3" records the phase bins' own season; "PRF2", the layout before that,
+  // had phase bins as wide as the long ones (the geometry made by the
+  // constructor); "PROF", before the between-bin spreads were kept: they
+  // start unestimated (the fixed prior weight) and are estimated again at the
+  // next reading.
+  const bool geometry = r.NextTagIs("PRF3");
+  const bool spreads = geometry || r.NextTagIs("PRF2");
+  r.Tag(geometry ? "PRF3" : spreads ? "PRF2" : "PROF");
+  if (geometry) {
+    const EventTime fold_period = r.Time("phase profile season");
+    const std::uint64_t fold_bins = r.Count(24);
+    if (!r.ok()) return r.status();
+    if (fold_bins > bins_.size() * 64 ||
+        (fold_bins > 0 && !SetFold(static_cast<int>(fold_bins), fold_period)) ||
+        (fold_bins == 0 && fold_period != 0)) {
+      return r.Fail("phase profile season out of range");
+    }
+    if (fold_bins == 0) (void)SetFold(0, 0);
+  }
   for (std::vector<Bin_>* bins : {&bins_, &folded_}) {
     if (r.Count(24) != bins->size()) return r.Fail("phase profile bins differ");
     for (Bin_& b : *bins) {

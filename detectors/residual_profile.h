@@ -94,18 +94,24 @@ class ResidualProfile {
   static constexpr double kPrior = 10.0;
 
   // period > 0, bins >= 1. One bin is a plain (phase-free) robust scale.
-  // fold_bins: 0, or the bins of the shorter season (must divide bins; else 0).
-  ResidualProfile(EventTime period, int bins, double clip, int fold_bins = 0);
+  // fold_bins: 0, or the bins of the shorter season, fold_period, which must
+  // divide period a whole number of times; the long bins within one repeat
+  // must divide fold_bins (each long bin spans fold_bins / (bins / repeats)
+  // phase bins). fold_period 0: phase bins as wide as the long ones (then
+  // fold_bins must divide bins). Otherwise one level.
+  ResidualProfile(EventTime period, int bins, double clip, int fold_bins = 0,
+                  EventTime fold_period = 0);
 
+  // The key of t's bins (its long bin and, with two levels, its phase bin).
   int Bin(EventTime t) const;
-  // The expected residual and its spread at the phase of t. `sigma_all` is the
-  // whole-series scale the bins are shrunk toward.
-  double Mean(int bin, double sigma_all) const;
-  double Sigma(int bin, double sigma_all) const;
-  // Folds in residual r and innovation a observed in `bin`, given the current
+  // The expected residual and its spread at the bins of `key`. `sigma_all` is
+  // the whole-series scale the bins are shrunk toward.
+  double Mean(int key, double sigma_all) const;
+  double Sigma(int key, double sigma_all) const;
+  // Folds in residual r and innovation a observed at `key`, given the current
   // whole-series scale, and every kPoolEvery readings estimates the between-bin
   // spreads again.
-  void Update(int bin, double r, double a, double sigma_all);
+  void Update(int key, double r, double a, double sigma_all);
   // Forgets everything learned (a planned change).
   void Reset();
   // Checkpoints (detectors/snapshot.h): Load expects an object built from the
@@ -115,6 +121,7 @@ class ResidualProfile {
   int bins() const { return static_cast<int>(bins_.size()); }
   int fold_bins() const { return static_cast<int>(folded_.size()); }
   EventTime period() const { return period_; }
+  EventTime fold_period() const { return fold_period_; }
 
  private:
   struct Bin_ {
@@ -127,6 +134,16 @@ class ResidualProfile {
     bool estimated = false;  // else too few bins had data: the fixed prior weight applies
   };
   EventTime period_;
+  // Two levels: the shorter season, long bins per repeat of it, and phase
+  // bins per long bin (1 when they are as wide).
+  EventTime fold_period_ = 0;
+  int per_repeat_ = 0;
+  int span_ = 1;
+  bool SetFold(int fold_bins, EventTime fold_period);
+  size_t LongBin(int key) const {
+    return static_cast<size_t>(folded_.empty() ? key : key / fold_bins());
+  }
+  size_t Phase(int key) const { return static_cast<size_t>(key % fold_bins()); }
   double clip_;
   double correction_;
   std::vector<Bin_> bins_;
@@ -156,15 +173,19 @@ class ResidualProfile {
   template <typename Prior>
   static Spread Between(const std::vector<Bin_>& bins, double window, double sigma_all,
                         double ratio_factor, Prior prior);
-  // The prior each bin is shrunk toward: its phase's pooled values, or (one
-  // level) zero mean and the whole series' spread.
-  double PriorMean(int bin, double sigma_all) const;
-  // Variance ratios to the whole-series scale: the bin's (shrunk) and its prior.
-  double Ratio(int bin) const;
-  double PriorRatio(int bin) const;
-  // q = a / sigma_all; sigma and ratio: the bin's current spread, in units and as a ratio.
-  static void Fold(Bin_* b, double r, double q, double sigma, double ratio, double clip,
-                   double correction, double window);
+  // The prior each long bin b is shrunk toward: the average of its phases'
+  // pooled values, or (one level) zero mean and the whole series' spread.
+  double PriorMean(size_t b, double sigma_all) const;
+  double PriorRatio(size_t b) const;
+  // Long bin b's shrunk mean and variance ratio to the whole-series scale.
+  double LongMean(size_t b, double sigma_all) const;
+  double LongRatio(size_t b) const;
+  // The variance ratio at a key: its long bin's, shaped by its phase's.
+  double Ratio(int key) const;
+  // q = a / sigma_all; sigma and ratio: the bin's current spread, in units and
+  // as a ratio; r is clipped within 4 sigma of center.
+  static void Fold(Bin_* b, double r, double center, double q, double sigma, double ratio,
+                   double clip, double correction, double window);
 };
 
 }  // namespace plumbline

@@ -426,27 +426,32 @@ void SeriesMonitor::StartForecaster() {
   // number of times (a week of days, a day of 8-hour defrost cycles), the
   // profile spans it, its bins pooled by their phase in the shortest season
   // (residual_profile.h): the additive seasonal terms cannot switch one day's
-  // pattern off, the profile can. At most kMaxLongPhaseBins bins: where the
-  // shortest season's bins repeated would be more, they are widened (a week of
-  // 5-minute readings gets hour-wide bins, not none).
+  // pattern off, the profile can. At most kMaxLongPhaseBins long bins: where
+  // the phase bins repeated would be more, the long bins are wider, each
+  // spanning a whole number of phase bins (a week of 5-minute readings: a
+  // day's shape in half-hour bins, each weekday's departure from it by the hour).
   EventTime profile_period = shortest > 0 ? shortest : kMicrosPerDay;
-  int fold = 0;
+  int per_repeat = 0;
   if (shortest > 0 && spacing > 0) {
     for (EventTime period : options.seasons) {
       if (period <= shortest || period > 7 * kMicrosPerDay || period % shortest != 0)
         continue;
       const int repeats = static_cast<int>(period / shortest);
-      const int widened = std::min(bins, kMaxLongPhaseBins / repeats);
+      int widened = std::min(bins, kMaxLongPhaseBins / repeats);
+      while (widened > 1 && bins % widened != 0) --widened;
       if (widened < 1) continue;
       if (period > profile_period) {
         profile_period = period;
-        fold = widened;
+        per_repeat = widened;
       }
     }
   }
-  profile_.emplace(profile_period,
-                   fold > 0 ? fold * static_cast<int>(profile_period / shortest) : bins,
-                   design_->scale.clip, fold);
+  if (per_repeat > 0) {
+    profile_.emplace(profile_period, per_repeat * static_cast<int>(profile_period / shortest),
+                     design_->scale.clip, bins, shortest);
+  } else {
+    profile_.emplace(profile_period, bins, design_->scale.clip);
+  }
   std::vector<HeldObservation> held;
   held.swap(probe_);
   for (const HeldObservation& h : held) {
@@ -841,13 +846,21 @@ std::pair<double, double> RefitSides(const std::vector<double>& scores,
 
 }  // namespace
 
+size_t SeriesMonitor::RefitSampleSize() const {
+  const double gap = arrival_.mean_gap();
+  if (!profile_ || !(gap > 0)) return kRefitSample;
+  const double period = static_cast<double>(profile_->period()) / gap;
+  return static_cast<size_t>(std::clamp(std::ceil(period), static_cast<double>(kRefitSample),
+                                        static_cast<double>(kMaxRefitSample)));
+}
+
 void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
   // Each side of the variance and arrival pairs holds 1/8 of the false-alarm
   // budget (1/4 per family, see the header), so it is fitted to 8 x arl0.
   const double side_arl0 = 8.0 * design_->profile.arl0;
   if (!variance_refitted_ && std::isfinite(variance_q)) {
     variance_sample_.push_back(variance_q);
-    if (variance_sample_.size() == kRefitSample) {
+    if (variance_sample_.size() >= RefitSampleSize()) {
       const VarianceCusumOptions& o = design_->variance;
       const auto [up_h, down_h] =
           RefitSides(variance_sample_, CappedChiSquareVariance(o.cap), o.k_up(),
@@ -859,7 +872,7 @@ void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
   }
   if (!arrival_refitted_ && std::isfinite(arrival_score)) {
     arrival_sample_.push_back(arrival_score);
-    if (arrival_sample_.size() == kRefitSample) {
+    if (arrival_sample_.size() >= RefitSampleSize()) {
       const ArrivalModelOptions& o = design_->arrival;
       const auto [slower_h, faster_h] = RefitSides(
           arrival_sample_, CappedExponentialVariance(o.gap_cap),
@@ -933,11 +946,11 @@ void SeriesMonitor::CollectCountIncrements(double count, double down_ratio,
   if (count_refitted_) return;
   count_sample_.push_back(count);
   count_sample_.push_back(down_ratio);
-  if (count_sample_.size() < 2 * kRefitSample) return;
+  if (count_sample_.size() < 2 * RefitSampleSize()) return;
   const PoissonCusumOptions& o = chart.options();
   std::vector<double> upper, lower;
-  upper.reserve(kRefitSample);
-  lower.reserve(kRefitSample);
+  upper.reserve(count_sample_.size() / 2);
+  lower.reserve(count_sample_.size() / 2);
   for (std::size_t i = 0; i + 1 < count_sample_.size(); i += 2) {
     const double down_ratio = count_sample_[i + 1];
     upper.push_back(count_sample_[i] - std::max(down_ratio, kCountMeanFloor) * o.k);
@@ -953,7 +966,7 @@ void SeriesMonitor::CollectCountIncrements(double count, double down_ratio,
 void SeriesMonitor::CollectLevelSample(double clipped_z) {
   if (adapted_h_ > 0) return;
   level_sample_.push_back(clipped_z);
-  if (level_sample_.size() < kRefitSample) return;
+  if (level_sample_.size() < RefitSampleSize()) return;
   for (std::size_t i = 0; i < level_.size(); ++i) {
     Cusum* cusum = std::get_if<Cusum>(&level_[i]);
     if (cusum == nullptr) continue;
@@ -1252,12 +1265,15 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
     const std::int64_t bins = r.I64();
     const std::int64_t fold = r.I64();
     if (r.ok() && (period <= 0 || bins < 1 || bins > kMaxLongPhaseBins || fold < 0 ||
-                   fold > bins)) {
+                   fold > kMaxPhaseBins)) {
       return r.Fail("phase profile out of range");
     }
+    // The phase bins' own season comes with the profile's state (older
+    // checkpoints: as wide as the long bins, the constructor's default).
     profile_.emplace(period, static_cast<int>(bins), design_->scale.clip,
                      static_cast<int>(fold));
     if (Status s = profile_->Load(r); !s.ok()) return s;
+    if (profile_->fold_bins() != fold) return r.Fail("phase profile bins differ");
   }
   if (forecaster_.has_value() != profile_.has_value()) {
     return r.Fail("phase profile and forecaster do not go together");
@@ -1311,10 +1327,10 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
   rate_hold_until_ = r.Counter("rate hold");
   last_z_ = r.Finite("last z");
   if (Status s = whitener_.Load(r); !s.ok()) return s;
-  // Samples are re-fitted and cleared when they reach kRefitSample.
-  variance_sample_.resize(r.BoundedCount(8, kRefitSample - 1, "variance sample"));
+  // Samples are re-fitted and cleared when they reach RefitSampleSize().
+  variance_sample_.resize(r.BoundedCount(8, kMaxRefitSample - 1, "variance sample"));
   r.FiniteDoubles(variance_sample_.data(), variance_sample_.size(), "variance sample");
-  arrival_sample_.resize(r.BoundedCount(8, kRefitSample - 1, "arrival sample"));
+  arrival_sample_.resize(r.BoundedCount(8, kMaxRefitSample - 1, "arrival sample"));
   r.FiniteDoubles(arrival_sample_.data(), arrival_sample_.size(), "arrival sample");
   variance_refitted_ = r.Bool();
   arrival_refitted_ = r.Bool();
@@ -1330,12 +1346,12 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
   regime_observations_ = r.Counter("regime observations");
   value_sum_ = r.Finite("sum of readings");
   count_chart_decided_ = r.Bool();
-  // (count, mean ratio) pairs, re-fitted and cleared at 2 kRefitSample values.
-  count_sample_.resize(r.BoundedCount(8, 2 * kRefitSample - 1, "count chart sample"));
+  // (count, mean ratio) pairs, re-fitted and cleared at 2 RefitSampleSize() values.
+  count_sample_.resize(r.BoundedCount(8, 2 * kMaxRefitSample - 1, "count chart sample"));
   r.FiniteDoubles(count_sample_.data(), count_sample_.size(), "count chart sample");
   count_refitted_ = r.Bool();
   if (Status s = health_.Load(r); !s.ok()) return s;
-  level_sample_.resize(r.BoundedCount(8, kRefitSample - 1, "adapt_thresholds sample"));
+  level_sample_.resize(r.BoundedCount(8, kMaxRefitSample - 1, "adapt_thresholds sample"));
   r.FiniteDoubles(level_sample_.data(), level_sample_.size(), "adapt_thresholds sample");
   adapted_h_ = r.Finite("adapted threshold");
   if (!r.ok()) return r.status();

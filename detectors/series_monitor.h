@@ -33,7 +33,10 @@
 // and arrival CUSUMs are designed for normal residuals and Poisson arrivals.
 // Real series have heavier tails and burstier arrivals, which would make them
 // fire far more often than designed. So once armed, each collects its first
-// kRefitSample increments; if their variance (times its long-run inflation)
+// RefitSampleSize() increments (kRefitSample, or as many as span the phase
+// profile's period, so that a weekday's and a Sunday's readings are both in a
+// weekly series' sample; at most kMaxRefitSample); if their variance (times
+// its long-run inflation)
 // is within 15% of the model's, the design stands; otherwise the decision
 // intervals are re-calibrated on their
 // empirical distribution by the same Markov chain (run_length_chain.h), then
@@ -42,7 +45,7 @@
 // kRefitCeiling times the design (common practice, no source). The level
 // detectors keep their designed thresholds (they see winsorised z), except
 // where the profile opts in with adapt_thresholds: then the CUSUM's decision
-// interval gets the same re-fit on its first kRefitSample winsorised z after
+// interval gets the same re-fit on its first RefitSampleSize() winsorised z after
 // warmup (model variance E[min(Z^2, kLevelClip^2)]), the larger of its two
 // sides' re-fits, so residuals that stay correlated or heavy-tailed after
 // whitening cannot break the false-alarm promise; the count CUSUM always gets
@@ -62,7 +65,7 @@
 // forecast with the phase profile's mean, as the time-varying-mean chart
 // (reference values scaled by mu_t / mu). Its design then gets the same
 // empirical re-fit as the variance and arrival CUSUMs, on its first
-// kRefitSample increments, since a seasonal mean and an estimated forecast
+// RefitSampleSize() increments, since a seasonal mean and an estimated forecast
 // make the exact chain's h only a design value. The other level detectors
 // keep watching z.
 //
@@ -383,7 +386,12 @@ class SeriesMonitor {
   // The count CUSUM's upper side reads a forecast below this fraction of its
   // design mean as this fraction (a forecast near zero would make any count a rise).
   static constexpr double kCountMeanFloor = 0.05;
+  // A re-fit sample holds at least kRefitSample readings and spans the phase
+  // profile's period (a week of 5-minute readings: 2016), so that every
+  // phase of the longest season is in it, up to kMaxRefitSample.
   static constexpr size_t kRefitSample = 1000;
+  static constexpr size_t kMaxRefitSample = 4000;
+  size_t RefitSampleSize() const;
   static constexpr double kRefitCeiling = 3.0;
   void StartForecaster();
   // Covariates: the values as of t into covariate_values_, then into the forecasters.

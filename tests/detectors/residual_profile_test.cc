@@ -69,10 +69,46 @@ TEST(ResidualProfileTest,
   EXPECT_GT(other_day_weekly,
             0.5 * odd_weekly);  // the other days dip less than half as much
   // Spreads are shrunk toward the phase's pooled spread, all finite and positive.
-  for (int b = 0; b < weekly.bins(); ++b) {
-    const double s = weekly.Sigma(b, 1.0);
-    EXPECT_TRUE(std::isfinite(s) && s > 0) << b;
+  for (int h = 0; h < kHoursPerWeek; ++h) {
+    const double s = weekly.Sigma(weekly.Bin(at(0, h)), 1.0);
+    EXPECT_TRUE(std::isfinite(s) && s > 0) << h;
   }
+}
+
+// Phase bins narrower than the long ones: a day's shape in half-hour bins,
+// each hour of the week's departure from it (hand-made, no source). Every
+// day +3 from 02:00 to 02:30 and nothing from 02:30 to 03:00; on the odd day
+// -2 from 12:00 to 18:00. Readings every 10 minutes for four weeks.
+TEST(ResidualProfileTest, HalfHourPhasesKeepASharpDailyShapeUnderHourLongWeeklyBins) {
+  const EventTime week = 7 * kMicrosPerDay;
+  ResidualProfile fine(week, kHoursPerWeek, 4.0, 48, kMicrosPerDay);
+  ResidualProfile hourly(week, kHoursPerWeek, 4.0, 24);
+  ASSERT_EQ(fine.fold_bins(), 48);
+  ASSERT_EQ(fine.fold_period(), kMicrosPerDay);
+  ASSERT_EQ(hourly.fold_period(), kMicrosPerDay);
+  Random random(9);
+  const EventTime step = 10 * kMicrosPerMinute;
+  for (EventTime t = step / 2; t < 4 * week; t += step) {
+    const EventTime in_day = t % kMicrosPerDay;
+    const int day = static_cast<int>((t % week) / kMicrosPerDay);
+    double r = 0.3 * random.Normal();
+    if (in_day >= 2 * kMicrosPerHour && in_day < 2 * kMicrosPerHour + 30 * kMicrosPerMinute)
+      r += 3.0;
+    if (day == 3 && in_day >= 12 * kMicrosPerHour && in_day < 18 * kMicrosPerHour) r -= 2.0;
+    fine.Update(fine.Bin(t), r, r, 1.0);
+    hourly.Update(hourly.Bin(t), r, r, 1.0);
+  }
+  auto at = [](int day, int hour, int minute) {
+    return (day * 24 + hour) * kMicrosPerHour + minute * kMicrosPerMinute;
+  };
+  for (int day : {0, 3, 5}) {
+    EXPECT_NEAR(fine.Mean(fine.Bin(at(day, 2, 10)), 1.0), 3.0, 0.4) << day;
+    EXPECT_NEAR(fine.Mean(fine.Bin(at(day, 2, 40)), 1.0), 0.0, 0.4) << day;
+    // Hour-wide phases can only give the hour's average to both halves.
+    EXPECT_NEAR(hourly.Mean(hourly.Bin(at(day, 2, 10)), 1.0), 1.5, 0.4) << day;
+  }
+  EXPECT_NEAR(fine.Mean(fine.Bin(at(3, 14, 10)), 1.0), -2.0, 0.4);
+  EXPECT_NEAR(fine.Mean(fine.Bin(at(4, 14, 10)), 1.0), 0.0, 0.4);
 }
 
 // Bins that differ only by noise: their own means scatter by 1 / sqrt(n) of

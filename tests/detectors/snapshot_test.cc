@@ -349,49 +349,93 @@ ResidualProfile TrainedProfile() {
 
 TEST(ForgedStateTest, ResidualProfileRefusesOtherBinCountsAndNegativeOrNonFiniteBins) {
   const ResidualProfile original = TrainedProfile();
-  // "PRF2", 24 bins (count, mean, variance ratio), 8 pooled bins.
+  // "PRF3", the pooled bins' season (8 hours) and count (8), 24 bins (count,
+  // mean, variance ratio), 8 pooled bins.
   auto load = [&](std::size_t at, std::uint64_t bits) {
     ResidualProfile fresh = UntrainedProfile();
     return LoadPatched(original, fresh, at, bits);
   };
-  EXPECT_TRUE(load(12, Bits(3.0)).ok());
-  EXPECT_TRUE(RefusedNaming(load(4, 25), "bins differ"));
-  EXPECT_FALSE(load(4, kHuge).ok());  // longer than the state: refused before allocating
-  EXPECT_TRUE(RefusedNaming(load(12, Bits(-1.0)), "bin count"));
-  EXPECT_TRUE(RefusedNaming(load(20, kNan), "bin mean"));
-  EXPECT_TRUE(RefusedNaming(load(28, Bits(-0.1)), "bin variance ratio"));
-  // Then the spreads between bins, each a flag, of means and of ratios: 788 on.
-  EXPECT_TRUE(RefusedNaming(load(789, Bits(-1.0)), "spread of means"));
-  EXPECT_TRUE(RefusedNaming(load(806, kNan), "spread of means"));
-  EXPECT_TRUE(RefusedNaming(load(814, Bits(-1.0)), "spread of ratios"));
-  // Then the moments of the squared readings (822 on) and the readings since
+  EXPECT_TRUE(load(28, Bits(3.0)).ok());
+  EXPECT_TRUE(RefusedNaming(load(4, 5 * kMicrosPerHour), "season out of range"));
+  EXPECT_TRUE(RefusedNaming(load(4, kMicrosPerDay), "season out of range"));
+  EXPECT_TRUE(RefusedNaming(load(12, 7), "season out of range"));
+  EXPECT_TRUE(RefusedNaming(load(20, 25), "bins differ"));
+  EXPECT_FALSE(load(20, kHuge).ok());  // longer than the state: refused before allocating
+  EXPECT_TRUE(RefusedNaming(load(28, Bits(-1.0)), "bin count"));
+  EXPECT_TRUE(RefusedNaming(load(36, kNan), "bin mean"));
+  EXPECT_TRUE(RefusedNaming(load(44, Bits(-0.1)), "bin variance ratio"));
+  // Then the spreads between bins, each a flag, of means and of ratios: 804 on.
+  EXPECT_TRUE(RefusedNaming(load(805, Bits(-1.0)), "spread of means"));
+  EXPECT_TRUE(RefusedNaming(load(822, kNan), "spread of means"));
+  EXPECT_TRUE(RefusedNaming(load(830, Bits(-1.0)), "spread of ratios"));
+  // Then the moments of the squared readings (838 on) and the readings since
   // the spreads were estimated (a u32).
-  EXPECT_TRUE(RefusedNaming(load(822, Bits(-1.0)), "kurtosis count"));
-  EXPECT_TRUE(RefusedNaming(load(838, kNan), "fourth moment"));
+  EXPECT_TRUE(RefusedNaming(load(838, Bits(-1.0)), "kurtosis count"));
+  EXPECT_TRUE(RefusedNaming(load(854, kNan), "fourth moment"));
 }
 
-// The layout before the spreads were kept ("PROF": the bins only) still loads:
-// the bins as saved; the spreads start unestimated and the next reading
-// estimates them again.
-TEST(ForgedStateTest, ResidualProfileReadsTheLayoutWithoutSpreads) {
+// The phase bins may be narrower than the long ones: a week of 7 x 4 long
+// bins over a day of 8 phase bins (each long bin spans two phases) saves its
+// geometry and loads into a profile made without it, as the monitor makes one.
+TEST(ForgedStateTest, ResidualProfileWithNarrowerPhaseBinsCarriesItsSeason) {
+  const EventTime week = 7 * kMicrosPerDay;
+  ResidualProfile original(week, 28, 3.0, 8, kMicrosPerDay);
+  ASSERT_EQ(original.fold_bins(), 8);
+  for (int i = 0; i < 2000; ++i) {
+    const EventTime t = i * 20 * kMicrosPerMinute;
+    original.Update(original.Bin(t), Wave(i), Wave(i), 1.0);
+  }
+  SnapshotWriter w;
+  original.Save(w);
+  ResidualProfile fresh(week, 28, 3.0, 8);  // 8 does not divide 28: one level until loaded
+  ASSERT_EQ(fresh.fold_bins(), 0);
+  SnapshotReader r(w.bytes());
+  ASSERT_TRUE(fresh.Load(r).ok());
+  EXPECT_TRUE(r.AtEnd());
+  EXPECT_EQ(fresh.fold_period(), kMicrosPerDay);
+  for (int h = 0; h < 7 * 24; ++h) {
+    const EventTime t = h * kMicrosPerHour + 1;
+    EXPECT_EQ(fresh.Bin(t), original.Bin(t));
+    EXPECT_EQ(fresh.Mean(fresh.Bin(t), 1.0), original.Mean(original.Bin(t), 1.0)) << h;
+    EXPECT_EQ(fresh.Sigma(fresh.Bin(t), 1.0), original.Sigma(original.Bin(t), 1.0)) << h;
+  }
+}
+
+// The layouts before the phase bins' season was kept ("PRF2") and before the
+// spreads were kept ("PROF": the bins only) still load, with phase bins as
+// wide as the long ones: the bins as saved; PROF's spreads start unestimated
+// and the next reading estimates them again.
+TEST(ForgedStateTest, ResidualProfileReadsTheLayoutsWithoutSeasonOrSpreads) {
   const ResidualProfile original = TrainedProfile();
   SnapshotWriter w;
   original.Save(w);
   const std::string now = w.Take();
-  ASSERT_EQ(now.substr(0, 4), "PRF2");
+  ASSERT_EQ(now.substr(0, 4), "PRF3");
+  const std::string rest = now.substr(4 + 16);  // without the season and its bins
+  {
+    ResidualProfile fresh = UntrainedProfile();
+    const std::string older = "PRF2" + rest;
+    SnapshotReader r(older);
+    ASSERT_TRUE(fresh.Load(r).ok());
+    EXPECT_TRUE(r.AtEnd());
+    SnapshotWriter again;
+    fresh.Save(again);
+    EXPECT_EQ(again.bytes(), now);
+  }
   // Tag, 24 bins and 8 pooled bins (each a count and 24 bytes a bin).
-  const std::size_t bins_end = 4 + 8 + 24 * 24 + 8 + 8 * 24;
-  const std::string old = "PROF" + now.substr(4, bins_end - 4);
+  const std::size_t bins_end = 8 + 24 * 24 + 8 + 8 * 24;
   ResidualProfile fresh = UntrainedProfile();
-  SnapshotReader r(old);
+  const std::string oldest = "PROF" + rest.substr(0, bins_end);
+  SnapshotReader r(oldest);
   ASSERT_TRUE(fresh.Load(r).ok());
   EXPECT_TRUE(r.AtEnd());
   SnapshotWriter again;
   fresh.Save(again);
-  EXPECT_EQ(again.bytes().substr(4, bins_end - 4), now.substr(4, bins_end - 4));
+  EXPECT_EQ(again.bytes().substr(0, 4 + 16 + bins_end), now.substr(0, 4 + 16 + bins_end));
   fresh.Update(0, 0.5, 0.5, 1.0);
-  for (int b = 0; b < 24; ++b) {
-    EXPECT_TRUE(std::isfinite(fresh.Mean(b, 1.0)) && fresh.Sigma(b, 1.0) > 0) << b;
+  for (int t = 0; t < 24; ++t) {
+    const int key = fresh.Bin(t * kMicrosPerHour);
+    EXPECT_TRUE(std::isfinite(fresh.Mean(key, 1.0)) && fresh.Sigma(key, 1.0) > 0) << t;
   }
 }
 
