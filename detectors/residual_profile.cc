@@ -1,6 +1,7 @@
 #include "detectors/residual_profile.h"
 
 #include <algorithm>
+#include <array>
 #include <cmath>
 #include <utility>
 
@@ -132,41 +133,37 @@ int ResidualProfile::Bin(EventTime t) const {
   if (folded_.empty()) return b;
   return b * fold_bins() + slot(fold_period_, fold_bins());
 }
-double ResidualProfile::LongMean(size_t b, double sigma_all) const {
-  const double prior = PriorMean(b, sigma_all);
+double ResidualProfile::LongMean(size_t b, double sigma_all, double prior,
+                                 double prior_ratio) const {
   const Bin_& x = bins_[b];
   if (x.n == 0) return prior;
   const double e = Effective(x.n, kWindow);
   if (!(sigma_all > 0)) return prior + e / (e + kPrior) * (x.mean - prior);
   return sigma_all * Shrink(x.mean / sigma_all, prior / sigma_all, spread_.mean,
-                            spread_.estimated, PriorRatio(b) / e, e);
+                            spread_.estimated, prior_ratio / e, e);
 }
-
 double ResidualProfile::Mean(int key, double sigma_all) const {
   const size_t b = LongBin(key);
-  const double mean = LongMean(b, sigma_all);
+  const double prior = PriorMean(b, sigma_all);
+  const double mean = LongMean(b, sigma_all, prior, PriorRatio(b));
   if (span_ == 1) return mean;
   // A long bin's value is the average over its phases: this phase's own
   // departure from that average is added back.
-  return mean + FoldedMean(Phase(key), sigma_all) - PriorMean(b, sigma_all);
-}
-double ResidualProfile::LongRatio(size_t b) const {
-  const double prior = PriorRatio(b);
+  return mean + FoldedMean(Phase(key), sigma_all) - prior;
+}double ResidualProfile::LongRatio(size_t b, double prior) const {
   const Bin_& x = bins_[b];
   if (x.n == 0) return prior;
   const double e = Effective(x.n, kWindow);
   return std::max(0.0, Shrink(x.s2, prior, spread_.ratio, spread_.estimated,
                               RatioSamplingFactor() * prior * prior / e, e));
 }
-
 double ResidualProfile::Ratio(int key) const {
   const size_t b = LongBin(key);
-  const double ratio = LongRatio(b);
+  const double prior = PriorRatio(b);
+  const double ratio = LongRatio(b, prior);
   if (span_ == 1) return ratio;
-  const double average = PriorRatio(b);
-  return average > kMinKurtosisRatio ? ratio * FoldedRatio(Phase(key)) / average : ratio;
-}
-template <typename Prior>
+  return prior > kMinKurtosisRatio ? ratio * FoldedRatio(Phase(key)) / prior : ratio;
+}template <typename Prior>
 ResidualProfile::Spread ResidualProfile::Between(const std::vector<Bin_>& bins, double window,
                                                  double sigma_all, double ratio_factor,
                                                  Prior prior) {
@@ -241,9 +238,30 @@ void ResidualProfile::Update(int key, double r, double a, double sigma_all) {
     folded_spread_ = Between(folded_, FoldedWindow(), sigma_all, RatioSamplingFactor(),
                              [](size_t) { return std::pair{0.0, 1.0}; });
   }
-  spread_ = Between(bins_, kWindow, sigma_all, RatioSamplingFactor(), [this, sigma_all](size_t b) {
-    return std::pair{PriorMean(b, sigma_all), PriorRatio(b)};
-  });
+  if (folded_.empty()) {
+    spread_ = Between(bins_, kWindow, sigma_all, RatioSamplingFactor(),
+                      [](size_t) { return std::pair{0.0, 1.0}; });
+    return;
+  }
+  // Each long bin's prior averages its phases' pooled values: those are
+  // worked out once here, not once for every long bin that spans them.
+  std::array<std::pair<double, double>, kMaxCachedPhases> phases;
+  const size_t cached = std::min(folded_.size(), phases.size());
+  for (size_t j = 0; j < cached; ++j) phases[j] = {FoldedMean(j, sigma_all), FoldedRatio(j)};
+  spread_ = Between(bins_, kWindow, sigma_all, RatioSamplingFactor(),
+                    [&](size_t b) -> std::pair<double, double> {
+                      const size_t first = (b % static_cast<size_t>(per_repeat_)) *
+                                           static_cast<size_t>(span_);
+                      if (first + static_cast<size_t>(span_) > cached) {
+                        return {PriorMean(b, sigma_all), PriorRatio(b)};
+                      }
+                      double mean = 0, ratio = 0;
+                      for (int i = 0; i < span_; ++i) {
+                        mean += phases[first + static_cast<size_t>(i)].first;
+                        ratio += phases[first + static_cast<size_t>(i)].second;
+                      }
+                      return {mean / span_, ratio / span_};
+                    });
 }
 void ResidualProfile::Save(SnapshotWriter& w) const {
   w.Tag("PRF3");

@@ -177,9 +177,11 @@ class ResidualProfile {
   // pooled values, or (one level) zero mean and the whole series' spread.
   double PriorMean(size_t b, double sigma_all) const;
   double PriorRatio(size_t b) const;
-  // Long bin b's shrunk mean and variance ratio to the whole-series scale.
-  double LongMean(size_t b, double sigma_all) const;
-  double LongRatio(size_t b) const;
+  // Long bin b's shrunk mean and variance ratio to the whole-series scale,
+  // given its priors.
+  double LongMean(size_t b, double sigma_all, double prior, double prior_ratio) const;
+  double LongRatio(size_t b, double prior) const;
+  static constexpr size_t kMaxCachedPhases = 64;  // phase values worked out once per pooling
   // The variance ratio at a key: its long bin's, shaped by its phase's.
   double Ratio(int key) const;
   // q = a / sigma_all; sigma and ratio: the bin's current spread, in units and

@@ -557,7 +557,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // variance alerts on the demo and on the airline data than it finds).
   const bool suspicious = Suspicious(kBaselineFraction);
   const int bin = profile_->Bin(from + (to - from) / 2);
-  const double v = u - profile_->Mean(bin, sigma);
+  const double phase_mean = profile_->Mean(bin, sigma);
+  const double v = u - phase_mean;
   const double a =
       identified ? whitener_.Whiten(to, v, arrival_.mean_gap(), sigma, !suspicious) : v;
   const double phase_sigma = PhaseSigma(bin);
@@ -574,7 +575,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   const double clip = Suspicious(kLearnFraction) ? 1.0 : 4.0;
   if (armed && std::abs(z) > clip) {
     y_fit =
-        f.value + (profile_->Mean(bin, sigma) + std::copysign(clip * phase_sigma, a)) * spread;
+        f.value + (phase_mean + std::copysign(clip * phase_sigma, a)) * spread;
   }
   (void)forecaster_->CommitUpdate(y_fit);
   if (!rivals_.empty()) {
