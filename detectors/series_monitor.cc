@@ -437,14 +437,21 @@ void SeriesMonitor::StartForecaster() {
       if (period <= shortest || period > 7 * kMicrosPerDay || period % shortest != 0)
         continue;
       const int repeats = static_cast<int>(period / shortest);
-      int widened = std::min(bins, kMaxLongPhaseBins / repeats);
-      while (widened > 1 && bins % widened != 0) --widened;
+      const int widened = std::min(bins, kMaxLongPhaseBins / repeats);
       if (widened < 1) continue;
       if (period > profile_period) {
         profile_period = period;
         per_repeat = widened;
       }
     }
+  }
+  // Long bins as narrow as the cap allows (coarser ones, say 80 minutes for
+  // a week of 10-minute readings, give more false alarms in the synthetic
+  // trials); the phase bins then a whole number of them each, rounded up from
+  // about four readings wide where room is left (36 -> 48 a day), else down.
+  if (per_repeat > 0 && bins % per_repeat != 0) {
+    const int up = per_repeat * (bins / per_repeat + 1);
+    bins = up <= kMaxPhaseBins ? up : per_repeat * (bins / per_repeat);
   }
   if (per_repeat > 0) {
     profile_.emplace(profile_period, per_repeat * static_cast<int>(profile_period / shortest),
