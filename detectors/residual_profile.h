@@ -68,6 +68,18 @@
 //
 // each level with its own tau_m^2 and tau_k^2.
 //
+// The phase bins may be narrower than the long ones: each long bin b then
+// spans S phase bins J(b) (a week of 5-minute readings: hour-wide long bins,
+// half-hour phases, S = 2), its prior is their average, and a reading at
+// long bin b and phase j expects
+//
+//   mean  = m~_b + mean_j - avg_{i in J(b)} mean_i
+//   ratio = k~_b * k_j / avg_{i in J(b)} k_i
+//
+// with m~_b and k~_b the long bin's shrunk values: the day's sharp shape from
+// the phases, each hour of the week's departure from it from the long bin. With
+// S = 1 this is the rule above. Bin(t) returns a key holding both indices.
+//
 // So a shape shared by every day is learned from every day, while what sets one
 // day of the week apart (a Sunday with no orders, say: the smooth day and week
 // terms of the forecaster, being additive, cannot turn the daily pattern off for
