@@ -677,7 +677,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
 }
 
 void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double forecast,
-                                double sigma, bool resolvable,
+                                double sigma, bool bocpd_sees,
                                 std::vector<SeriesEvent>* events) {
   const ProfileOptions& profile = design_->profile;
   const double clipped_z = std::clamp(last_z_, -kLevelClip, kLevelClip);
@@ -686,7 +686,7 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
     // BOCPD models the spread as well as the mean, so residuals pinned at the
     // resolution floor (all zero), or too discrete to be near Gaussian (low
     // counts), would look to it like a change; the mean detectors still watch them.
-    if (!resolvable && level_kinds_[i] == DetectorKind::kBocpd) continue;
+    if (!bocpd_sees && level_kinds_[i] == DetectorKind::kBocpd) continue;
     StatusOr<Alarm> result = VisitLevel(
         [&](auto& detector) -> StatusOr<Alarm> {
           using T = std::decay_t<decltype(detector)>;
@@ -855,7 +855,10 @@ std::pair<double, double> RefitSides(const std::vector<double>& scores,
 }  // namespace
 
 size_t SeriesMonitor::RefitSampleSize() const {
-  const double gap = arrival_.mean_gap();
+  // Samples hold observations: buckets where the series is bucketed, readings
+  // (at the arrival model's mean gap) where it is not.
+  const std::optional<EventTime>& every = design_->profile.every;
+  const double gap = every ? static_cast<double>(*every) : arrival_.mean_gap();
   if (!profile_ || !(gap > 0)) return kRefitSample;
   const double period = static_cast<double>(profile_->period()) / gap;
   return static_cast<size_t>(std::clamp(std::ceil(period), static_cast<double>(kRefitSample),

@@ -352,9 +352,10 @@ class SeriesMonitor {
   void Process(EventTime t, double value, std::vector<SeriesEvent>* events);
   void Model(EventTime from, EventTime to, double y, std::vector<SeriesEvent>* events);
   // y: the reading; expected: its forecast with the phase profile's mean
-  // (what the count CUSUM takes as the in-control mean).
+  // (what the count CUSUM takes as the in-control mean); bocpd_sees: whether
+  // BOCPD takes this reading (Model says when it does not).
   void DecideLevel(EventTime t, double y, double expected, double forecast,
-                   double sigma, bool resolvable, std::vector<SeriesEvent>* events);
+                   double sigma, bool bocpd_sees, std::vector<SeriesEvent>* events);
   // At arming: the count CUSUM in the CUSUM's place when the profile's
   // count_chart asks for it (detectors/profile.h), designed at the mean count.
   void ChooseCountChart();
