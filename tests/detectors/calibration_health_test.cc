@@ -139,5 +139,33 @@ TEST(CalibrationHealthTest, AdaptThresholdsRaisesTheCusumOnlyWhereResidualsMisbe
   }
 }
 
+// The re-fit sample spans the profile's period in observations: for a series
+// bucketed by the hour, a week is 168 buckets, so the sample is the minimum
+// 1000 buckets, however close together the raw readings come (events about
+// 30 s apart; counted by their gaps, a week would be 20,160 and the sample
+// would wait for the 4000 cap).
+TEST(CalibrationHealthTest, BucketedSeriesReFitAfterAThousandBucketsNotAThousandGaps) {
+  ProfileOptions profile;
+  profile.kind = SeriesKind::kCount;
+  profile.every = kMicrosPerHour;
+  profile.seasons = {kMicrosPerDay, 7 * kMicrosPerDay};
+  profile.warmup = 48;
+  profile.arl0 = 5000;
+  profile.adapt_thresholds = true;
+  auto design = ProfileDesign::Make(profile);
+  ASSERT_TRUE(design.ok()) << design.status().ToString();
+  SeriesMonitor monitor(&*design);
+  Random random(3);
+  std::vector<SeriesEvent> events;
+  const EventTime end = noise_streams::kStart + (48 + 1200) * kMicrosPerHour;
+  for (EventTime t = noise_streams::kStart; t < end;) {
+    t += static_cast<EventTime>(-std::log(random.UniformOpen()) * 30.0 * kMicrosPerSecond) + 1;
+    events.clear();
+    monitor.Observe(t, 1.0, &events);
+  }
+  EXPECT_FALSE(monitor.count_chart());  // about 120 a bucket: the normal CUSUM
+  EXPECT_GT(monitor.adapted_threshold(), 0.0);
+}
+
 }  // namespace
 }  // namespace plumbline
