@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <array>
 #include <cmath>
+#include <limits>
 #include <utility>
 
 #include "detectors/residual_scale.h"
@@ -17,7 +18,8 @@ ResidualProfile::ResidualProfile(EventTime period, int bins, double clip, int fo
       bins_(static_cast<size_t>(std::max(bins, 1))) {
   if (fold_period == 0 && fold_bins > 0 && fold_bins < this->bins() &&
       this->bins() % fold_bins == 0) {
-    fold_period = period / (this->bins() / fold_bins);  // phase bins as wide as the long ones
+    // Phase bins as wide as the long ones.
+    fold_period = period / (this->bins() / fold_bins);
   }
   (void)SetFold(fold_bins, fold_period);
 }
@@ -108,20 +110,25 @@ double ResidualProfile::FoldedMean(size_t j, double sigma_all) const {
                             folded_spread_.estimated, 1.0 / e, e);
 }
 
+template <typename Value>
+double ResidualProfile::PhaseAverage(size_t b, Value value) const {
+  const size_t first =
+      (b % static_cast<size_t>(per_repeat_)) * static_cast<size_t>(span_);
+  double sum = 0;
+  for (int i = 0; i < span_; ++i) sum += value(first + static_cast<size_t>(i));
+  return sum / span_;
+}
+
 double ResidualProfile::PriorMean(size_t b, double sigma_all) const {
   if (folded_.empty()) return 0.0;
-  const size_t first = (b % static_cast<size_t>(per_repeat_)) * static_cast<size_t>(span_);
-  double sum = 0;
-  for (int i = 0; i < span_; ++i) sum += FoldedMean(first + static_cast<size_t>(i), sigma_all);
-  return sum / span_;
+  return PhaseAverage(b, [&](size_t j) { return FoldedMean(j, sigma_all); });
 }
+
 double ResidualProfile::PriorRatio(size_t b) const {
   if (folded_.empty()) return 1.0;
-  const size_t first = (b % static_cast<size_t>(per_repeat_)) * static_cast<size_t>(span_);
-  double sum = 0;
-  for (int i = 0; i < span_; ++i) sum += FoldedRatio(first + static_cast<size_t>(i));
-  return sum / span_;
+  return PhaseAverage(b, [&](size_t j) { return FoldedRatio(j); });
 }
+
 int ResidualProfile::Bin(EventTime t) const {
   const auto slot = [t](EventTime period, int n) {
     EventTime within = t % period;
@@ -133,6 +140,7 @@ int ResidualProfile::Bin(EventTime t) const {
   if (folded_.empty()) return b;
   return b * fold_bins() + slot(fold_period_, fold_bins());
 }
+
 double ResidualProfile::LongMean(size_t b, double sigma_all, double prior,
                                  double prior_ratio) const {
   const Bin_& x = bins_[b];
@@ -142,6 +150,7 @@ double ResidualProfile::LongMean(size_t b, double sigma_all, double prior,
   return sigma_all * Shrink(x.mean / sigma_all, prior / sigma_all, spread_.mean,
                             spread_.estimated, prior_ratio / e, e);
 }
+
 double ResidualProfile::Mean(int key, double sigma_all) const {
   const size_t b = LongBin(key);
   const double prior = PriorMean(b, sigma_all);
@@ -150,20 +159,25 @@ double ResidualProfile::Mean(int key, double sigma_all) const {
   // A long bin's value is the average over its phases: this phase's own
   // departure from that average is added back.
   return mean + FoldedMean(Phase(key), sigma_all) - prior;
-}double ResidualProfile::LongRatio(size_t b, double prior) const {
+}
+
+double ResidualProfile::LongRatio(size_t b, double prior) const {
   const Bin_& x = bins_[b];
   if (x.n == 0) return prior;
   const double e = Effective(x.n, kWindow);
   return std::max(0.0, Shrink(x.s2, prior, spread_.ratio, spread_.estimated,
                               RatioSamplingFactor() * prior * prior / e, e));
 }
+
 double ResidualProfile::Ratio(int key) const {
   const size_t b = LongBin(key);
   const double prior = PriorRatio(b);
   const double ratio = LongRatio(b, prior);
   if (span_ == 1) return ratio;
   return prior > kMinKurtosisRatio ? ratio * FoldedRatio(Phase(key)) / prior : ratio;
-}template <typename Prior>
+}
+
+template <typename Prior>
 ResidualProfile::Spread ResidualProfile::Between(const std::vector<Bin_>& bins, double window,
                                                  double sigma_all, double ratio_factor,
                                                  Prior prior) {
@@ -190,6 +204,7 @@ ResidualProfile::Spread ResidualProfile::Between(const std::vector<Bin_>& bins, 
 double ResidualProfile::Sigma(int key, double sigma_all) const {
   return sigma_all * std::sqrt(Ratio(key));
 }
+
 void ResidualProfile::Fold(Bin_* b, double r, double center, double q, double sigma,
                            double ratio, double clip, double correction, double window) {
   b->n += 1;
@@ -203,6 +218,7 @@ void ResidualProfile::Fold(Bin_* b, double r, double center, double q, double si
     b->s2 += (clipped - b->s2) * weight;
   }
 }
+
 void ResidualProfile::Update(int key, double r, double a, double sigma_all) {
   if (!std::isfinite(r) || !std::isfinite(a) || !(sigma_all > 0)) return;
   const double q = a / sigma_all;
@@ -234,35 +250,28 @@ void ResidualProfile::Update(int key, double r, double a, double sigma_all) {
   // so it is done every kPoolEvery readings, not at each.
   if (++since_pool_ < kPoolEvery) return;
   since_pool_ = 0;
-  if (!folded_.empty()) {
-    folded_spread_ = Between(folded_, FoldedWindow(), sigma_all, RatioSamplingFactor(),
-                             [](size_t) { return std::pair{0.0, 1.0}; });
-  }
+  const auto neutral = [](size_t) { return std::pair{0.0, 1.0}; };  // zero mean, ratio 1
   if (folded_.empty()) {
-    spread_ = Between(bins_, kWindow, sigma_all, RatioSamplingFactor(),
-                      [](size_t) { return std::pair{0.0, 1.0}; });
+    spread_ = Between(bins_, kWindow, sigma_all, RatioSamplingFactor(), neutral);
     return;
   }
-  // Each long bin's prior averages its phases' pooled values: those are
-  // worked out once here, not once for every long bin that spans them.
-  std::array<std::pair<double, double>, kMaxCachedPhases> phases;
-  const size_t cached = std::min(folded_.size(), phases.size());
-  for (size_t j = 0; j < cached; ++j) phases[j] = {FoldedMean(j, sigma_all), FoldedRatio(j)};
+  folded_spread_ =
+      Between(folded_, FoldedWindow(), sigma_all, RatioSamplingFactor(), neutral);
+  // A long bin's prior depends on its position within a repeat alone: worked
+  // out once for each position, not once for every long bin.
+  std::array<std::pair<double, double>, kMaxCachedPriors> priors;
+  const size_t cached = std::min(static_cast<size_t>(per_repeat_), priors.size());
+  for (size_t p = 0; p < cached; ++p) {
+    priors[p] = {PriorMean(p, sigma_all), PriorRatio(p)};
+  }
   spread_ = Between(bins_, kWindow, sigma_all, RatioSamplingFactor(),
                     [&](size_t b) -> std::pair<double, double> {
-                      const size_t first = (b % static_cast<size_t>(per_repeat_)) *
-                                           static_cast<size_t>(span_);
-                      if (first + static_cast<size_t>(span_) > cached) {
-                        return {PriorMean(b, sigma_all), PriorRatio(b)};
-                      }
-                      double mean = 0, ratio = 0;
-                      for (int i = 0; i < span_; ++i) {
-                        mean += phases[first + static_cast<size_t>(i)].first;
-                        ratio += phases[first + static_cast<size_t>(i)].second;
-                      }
-                      return {mean / span_, ratio / span_};
+                      const size_t p = b % static_cast<size_t>(per_repeat_);
+                      if (p < cached) return priors[p];
+                      return {PriorMean(b, sigma_all), PriorRatio(b)};
                     });
 }
+
 void ResidualProfile::Save(SnapshotWriter& w) const {
   w.Tag("PRF3");
   w.I64(fold_period_);
@@ -299,11 +308,12 @@ Status ResidualProfile::Load(SnapshotReader& r) {
     const EventTime fold_period = r.Time("phase profile season");
     const std::uint64_t fold_bins = r.Count(24);
     if (!r.ok()) return r.status();
-    if (fold_bins > bins_.size() * 64 ||
-        (fold_bins > 0 && !SetFold(static_cast<int>(fold_bins), fold_period)) ||
-        (fold_bins == 0 && fold_period != 0)) {
-      return r.Fail("phase profile season out of range");
-    }
+    const bool valid =
+        fold_bins == 0
+            ? fold_period == 0
+            : fold_bins <= static_cast<std::uint64_t>(std::numeric_limits<int>::max()) &&
+                  SetFold(static_cast<int>(fold_bins), fold_period);
+    if (!valid) return r.Fail("phase profile season out of range");
     if (fold_bins == 0) (void)SetFold(0, 0);
   }
   for (std::vector<Bin_>* bins : {&bins_, &folded_}) {
@@ -327,7 +337,8 @@ Status ResidualProfile::Load(SnapshotReader& r) {
     kurtosis_.m1 = r.NonNegative("phase profile second moment");
     kurtosis_.m2 = r.NonNegative("phase profile fourth moment");
     since_pool_ = r.U32();
-    if (r.ok() && since_pool_ >= kPoolEvery) return r.Fail("phase profile pool count out of range");
+    if (r.ok() && since_pool_ >= kPoolEvery)
+      return r.Fail("phase profile pool count out of range");
   }
   return r.status();
 }

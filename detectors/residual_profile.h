@@ -193,7 +193,10 @@ class ResidualProfile {
   // given its priors.
   double LongMean(size_t b, double sigma_all, double prior, double prior_ratio) const;
   double LongRatio(size_t b, double prior) const;
-  static constexpr size_t kMaxCachedPhases = 64;  // phase values worked out once per pooling
+  // Averages value(j) over the phase bins long bin b spans (two levels only).
+  template <typename Value>
+  double PhaseAverage(size_t b, Value value) const;
+  static constexpr size_t kMaxCachedPriors = 64;  // long-bin priors kept while pooling
   // The variance ratio at a key: its long bin's, shaped by its phase's.
   double Ratio(int key) const;
   // q = a / sigma_all; sigma and ratio: the bin's current spread, in units and

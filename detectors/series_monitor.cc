@@ -1357,7 +1357,8 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
   regime_observations_ = r.Counter("regime observations");
   value_sum_ = r.Finite("sum of readings");
   count_chart_decided_ = r.Bool();
-  // (count, mean ratio) pairs, re-fitted and cleared at 2 RefitSampleSize() values.
+  // (count, unfloored mean ratio) pairs, re-fitted and cleared at 2 RefitSampleSize()
+  // values.
   count_sample_.resize(r.BoundedCount(8, 2 * kMaxRefitSample - 1, "count chart sample"));
   r.FiniteDoubles(count_sample_.data(), count_sample_.size(), "count chart sample");
   count_refitted_ = r.Bool();
