@@ -25,6 +25,7 @@ the chosen ports from the daemon's "ready" log line.
 """
 
 import argparse
+import atexit
 import http.client
 import http.server
 import json
@@ -115,12 +116,28 @@ def run_scenario(tool, description, scenarios, argv):
         shutil.rmtree(tmp, ignore_errors=True)
     return 0
 
+# Daemons started and not yet stopped. A check that fails part way (a
+# Failure, any exception, sys.exit) never reaches its stop(); these are killed
+# when the script exits, so no daemon outlives its test.
+_RUNNING = set()
+
+
+@atexit.register
+def _kill_leftover_daemons():
+    for process in list(_RUNNING):
+        if process.poll() is None:
+            process.kill()
+            process.wait()
+    _RUNNING.clear()
+
+
 class Daemon:
     def __init__(self, plumbline, config, tmp, name="serve"):
         self.log_path = os.path.join(tmp, name + ".log")
         self.log = open(self.log_path, "w", encoding="utf-8")
         self.process = subprocess.Popen([plumbline, "serve", "--config", config],
                                         stdout=subprocess.DEVNULL, stderr=self.log)
+        _RUNNING.add(self.process)
         deadline = time.time() + TIMEOUT
         while True:
             match = re.search(r"msg=ready tcp=([\d.]+):(\d+) http=([\d.]+):(\d+)", self.text())
@@ -170,6 +187,7 @@ class Daemon:
         started = time.time()
         self.process.send_signal(signal.SIGTERM)
         code = self.process.wait(timeout=TIMEOUT)
+        _RUNNING.discard(self.process)
         seconds = time.time() - started
         self.log.close()
         check(code == 0, "daemon exit status %d:\n%s" % (code, self.text()[-3000:]))
