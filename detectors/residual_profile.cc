@@ -219,7 +219,7 @@ void ResidualProfile::Fold(Bin_* b, double r, double center, double q, double si
   }
 }
 
-void ResidualProfile::Update(int key, double r, double a, double sigma_all) {
+void ResidualProfile::Update(int key, double r, double a, double sigma_all, bool long_bins) {
   if (!std::isfinite(r) || !std::isfinite(a) || !(sigma_all > 0)) return;
   const double q = a / sigma_all;
   const size_t b = LongBin(key);
@@ -235,8 +235,10 @@ void ResidualProfile::Update(int key, double r, double a, double sigma_all) {
          correction_, FoldedWindow());
   }
   const double ratio = Ratio(key);
-  Fold(&bins_[b], r, center, q, sigma_all * std::sqrt(ratio), ratio, clip_, correction_,
-       kWindow);
+  if (long_bins || folded_.empty()) {
+    Fold(&bins_[b], r, center, q, sigma_all * std::sqrt(ratio), ratio, clip_, correction_,
+         kWindow);
+  }
   // The squared readings' spread relative to their phase's variance, for the
   // sampling variance of s2 (heavy tails make it larger than normal theory's).
   if (ratio > kMinKurtosisRatio) {

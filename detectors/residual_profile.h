@@ -122,8 +122,11 @@ class ResidualProfile {
   double Sigma(int key, double sigma_all) const;
   // Folds in residual r and innovation a observed at `key`, given the current
   // whole-series scale, and every kPoolEvery readings estimates the between-bin
-  // spreads again.
-  void Update(int key, double r, double a, double sigma_all);
+  // spreads again. With long_bins false (two levels only) the long bins learn
+  // nothing from it, the phase bins do: the caller's forecaster has not yet
+  // seen a whole long period, so its residuals say nothing settled about one
+  // day of the week (SeriesMonitor).
+  void Update(int key, double r, double a, double sigma_all, bool long_bins = true);
   // Forgets everything learned (a planned change).
   void Reset();
   // Checkpoints (detectors/snapshot.h): Load expects an object built from the

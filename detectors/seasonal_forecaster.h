@@ -138,6 +138,7 @@ class SeasonalForecaster {
   bool has_data() const { return updates_ > 0; }
   long long updates() const { return updates_; }
   EventTime last_time() const { return t_ref_; }
+  EventTime first_time() const { return t_first_; }
 
   // Forecast at time t (t may be before the last update time; the trend then
   // runs backwards). Before any data: value 0, infinite variance factor.

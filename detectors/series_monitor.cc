@@ -602,9 +602,20 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
       std::vector<RivalForecaster>().swap(rivals_);
     }
   }
+  // A two-level profile's long bins learn only from residuals of a forecaster
+  // that has seen one whole profile period (a week). Before, its longer
+  // season's Fourier terms are not pinned down: they follow the latest readings
+  // (the first week's weekly terms soak up each day as it comes), and the
+  // residuals they leave say nothing settled about one day of the week. A long
+  // bin sees its hour of the week once a period, so a first Sunday learned so
+  // would be half of what it knows of Sundays when a two-week warmup ends (on
+  // the demo's compressor, a level alert on the first Sunday after warmup in
+  // many draws). The phase bins pool every repeat of the shorter season, so the
+  // first day is soon a small share of theirs, and they learn from the start.
   if (identified && !suspicious) {
     scale_.Update(a);
-    profile_->Update(bin, u, a, scale_.sigma());
+    profile_->Update(bin, u, a, scale_.sigma(),
+                     to - forecaster_->first_time() >= profile_->period());
   }
 
   if (regime_start_) {

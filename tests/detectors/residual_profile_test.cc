@@ -111,6 +111,37 @@ TEST(ResidualProfileTest, HalfHourPhasesKeepASharpDailyShapeUnderHourLongWeeklyB
   EXPECT_NEAR(fine.Mean(fine.Bin(at(4, 14, 10)), 1.0), 0.0, 0.4);
 }
 
+// Readings folded in with long_bins false teach the phase bins, not the long
+// ones: a Wednesday afternoon 2 below the rest is not learned from them, and
+// is from the same readings given with long_bins true (SeriesMonitor holds the
+// long bins back until its forecaster has seen a whole week).
+TEST(ResidualProfileTest, LongBinsHeldBackLearnOnlyThePhases) {
+  const EventTime week = 7 * kMicrosPerDay;
+  ResidualProfile held(week, kHoursPerWeek, 4.0, 48, kMicrosPerDay);
+  ResidualProfile learning(week, kHoursPerWeek, 4.0, 48, kMicrosPerDay);
+  Random random(21);
+  const EventTime step = 10 * kMicrosPerMinute;
+  for (EventTime t = step / 2; t < 3 * week; t += step) {
+    const EventTime in_day = t % kMicrosPerDay;
+    const int day = static_cast<int>((t % week) / kMicrosPerDay);
+    double r = 0.3 * random.Normal();
+    if (in_day >= 2 * kMicrosPerHour && in_day < 2 * kMicrosPerHour + 30 * kMicrosPerMinute)
+      r += 3.0;
+    if (day == 3 && in_day >= 12 * kMicrosPerHour && in_day < 18 * kMicrosPerHour) r -= 2.0;
+    held.Update(held.Bin(t), r, r, 1.0, /*long_bins=*/false);
+    learning.Update(learning.Bin(t), r, r, 1.0);
+  }
+  const EventTime wednesday_2pm = (3 * 24 + 14) * kMicrosPerHour + 10 * kMicrosPerMinute;
+  const EventTime monday_2am = 2 * kMicrosPerHour + 10 * kMicrosPerMinute;
+  // The daily shape is learned either way.
+  EXPECT_NEAR(held.Mean(held.Bin(monday_2am), 1.0), 3.0, 0.4);
+  EXPECT_NEAR(learning.Mean(learning.Bin(monday_2am), 1.0), 3.0, 0.4);
+  // Wednesday's departure only where the long bins learn; held back, the
+  // afternoon expects the average day (-2 / 7 from the Wednesday in it).
+  EXPECT_NEAR(learning.Mean(learning.Bin(wednesday_2pm), 1.0), -2.0, 0.4);
+  EXPECT_NEAR(held.Mean(held.Bin(wednesday_2pm), 1.0), -2.0 / 7.0, 0.2);
+}
+
 // Bins that differ only by noise: their own means scatter by 1 / sqrt(n) of
 // sigma, the pooled ones by less (limited translation lets each move at most
 // one standard error toward the prior, so not to zero).
