@@ -75,10 +75,22 @@ TEST(ResidualProfileTest,
   }
 }
 
+// Residuals at time t (hand-made, no source): noise of sd 0.3; every day +3
+// from 02:00 to 02:30 and nothing from 02:30 to 03:00; on the odd day, day 3
+// of the week, -2 from 12:00 to 18:00.
+double SpikeAndOddDay(EventTime t, Random& random) {
+  const EventTime in_day = t % kMicrosPerDay;
+  const int day = static_cast<int>((t % (7 * kMicrosPerDay)) / kMicrosPerDay);
+  double r = 0.3 * random.Normal();
+  if (in_day >= 2 * kMicrosPerHour && in_day < 2 * kMicrosPerHour + 30 * kMicrosPerMinute)
+    r += 3.0;
+  if (day == 3 && in_day >= 12 * kMicrosPerHour && in_day < 18 * kMicrosPerHour) r -= 2.0;
+  return r;
+}
+
 // Phase bins narrower than the long ones: a day's shape in half-hour bins,
-// each hour of the week's departure from it (hand-made, no source). Every
-// day +3 from 02:00 to 02:30 and nothing from 02:30 to 03:00; on the odd day
-// -2 from 12:00 to 18:00. Readings every 10 minutes for four weeks.
+// each hour of the week's departure from it. SpikeAndOddDay's residuals every
+// 10 minutes for four weeks.
 TEST(ResidualProfileTest, HalfHourPhasesKeepASharpDailyShapeUnderHourLongWeeklyBins) {
   const EventTime week = 7 * kMicrosPerDay;
   ResidualProfile fine(week, kHoursPerWeek, 4.0, 48, kMicrosPerDay);
@@ -89,12 +101,7 @@ TEST(ResidualProfileTest, HalfHourPhasesKeepASharpDailyShapeUnderHourLongWeeklyB
   Random random(9);
   const EventTime step = 10 * kMicrosPerMinute;
   for (EventTime t = step / 2; t < 4 * week; t += step) {
-    const EventTime in_day = t % kMicrosPerDay;
-    const int day = static_cast<int>((t % week) / kMicrosPerDay);
-    double r = 0.3 * random.Normal();
-    if (in_day >= 2 * kMicrosPerHour && in_day < 2 * kMicrosPerHour + 30 * kMicrosPerMinute)
-      r += 3.0;
-    if (day == 3 && in_day >= 12 * kMicrosPerHour && in_day < 18 * kMicrosPerHour) r -= 2.0;
+    const double r = SpikeAndOddDay(t, random);
     fine.Update(fine.Bin(t), r, r, 1.0);
     hourly.Update(hourly.Bin(t), r, r, 1.0);
   }
@@ -112,8 +119,8 @@ TEST(ResidualProfileTest, HalfHourPhasesKeepASharpDailyShapeUnderHourLongWeeklyB
 }
 
 // Readings folded in with long_bins false teach the phase bins, not the long
-// ones: a Wednesday afternoon 2 below the rest is not learned from them, and
-// is from the same readings given with long_bins true (SeriesMonitor holds the
+// ones: SpikeAndOddDay's afternoon 2 below the rest is not learned from them,
+// and is from the same readings given with long_bins true (SeriesMonitor holds the
 // long bins back until its forecaster has seen a whole week).
 TEST(ResidualProfileTest, LongBinsHeldBackLearnOnlyThePhases) {
   const EventTime week = 7 * kMicrosPerDay;
@@ -122,24 +129,19 @@ TEST(ResidualProfileTest, LongBinsHeldBackLearnOnlyThePhases) {
   Random random(21);
   const EventTime step = 10 * kMicrosPerMinute;
   for (EventTime t = step / 2; t < 3 * week; t += step) {
-    const EventTime in_day = t % kMicrosPerDay;
-    const int day = static_cast<int>((t % week) / kMicrosPerDay);
-    double r = 0.3 * random.Normal();
-    if (in_day >= 2 * kMicrosPerHour && in_day < 2 * kMicrosPerHour + 30 * kMicrosPerMinute)
-      r += 3.0;
-    if (day == 3 && in_day >= 12 * kMicrosPerHour && in_day < 18 * kMicrosPerHour) r -= 2.0;
+    const double r = SpikeAndOddDay(t, random);
     held.Update(held.Bin(t), r, r, 1.0, /*long_bins=*/false);
     learning.Update(learning.Bin(t), r, r, 1.0);
   }
-  const EventTime wednesday_2pm = (3 * 24 + 14) * kMicrosPerHour + 10 * kMicrosPerMinute;
-  const EventTime monday_2am = 2 * kMicrosPerHour + 10 * kMicrosPerMinute;
+  const EventTime odd_day_2pm = (3 * 24 + 14) * kMicrosPerHour + 10 * kMicrosPerMinute;
+  const EventTime day0_2am = 2 * kMicrosPerHour + 10 * kMicrosPerMinute;
   // The daily shape is learned either way.
-  EXPECT_NEAR(held.Mean(held.Bin(monday_2am), 1.0), 3.0, 0.4);
-  EXPECT_NEAR(learning.Mean(learning.Bin(monday_2am), 1.0), 3.0, 0.4);
-  // Wednesday's departure only where the long bins learn; held back, the
-  // afternoon expects the average day (-2 / 7 from the Wednesday in it).
-  EXPECT_NEAR(learning.Mean(learning.Bin(wednesday_2pm), 1.0), -2.0, 0.4);
-  EXPECT_NEAR(held.Mean(held.Bin(wednesday_2pm), 1.0), -2.0 / 7.0, 0.2);
+  EXPECT_NEAR(held.Mean(held.Bin(day0_2am), 1.0), 3.0, 0.4);
+  EXPECT_NEAR(learning.Mean(learning.Bin(day0_2am), 1.0), 3.0, 0.4);
+  // The odd day's departure only where the long bins learn; held back, the
+  // afternoon expects the average day (-2 / 7 from the odd day in it).
+  EXPECT_NEAR(learning.Mean(learning.Bin(odd_day_2pm), 1.0), -2.0, 0.4);
+  EXPECT_NEAR(held.Mean(held.Bin(odd_day_2pm), 1.0), -2.0 / 7.0, 0.2);
 }
 
 // Bins that differ only by noise: their own means scatter by 1 / sqrt(n) of
