@@ -51,6 +51,9 @@ void ResidualProfile::Reset() {
   spread_ = folded_spread_ = Spread{};
   kurtosis_ = Moments{};
   since_pool_ = 0;
+  std::vector<Rate>().swap(rates_);
+  rate_pool_ = RatePool{};
+  since_rate_pool_ = 0;
 }
 
 namespace {
@@ -159,6 +162,54 @@ double ResidualProfile::Mean(int key, double sigma_all) const {
   // A long bin's value is the average over its phases: this phase's own
   // departure from that average is added back.
   return mean + FoldedMean(Phase(key), sigma_all) - prior;
+}
+
+double ResidualProfile::PhaseMean(int key, double sigma_all) const {
+  return folded_.empty() ? 0.0 : FoldedMean(Phase(key), sigma_all);
+}
+
+void ResidualProfile::UpdateCount(int key, double count, double expected) {
+  if (folded_.empty() || !std::isfinite(count) || !std::isfinite(expected)) return;
+  if (rates_.empty()) rates_.resize(bins_.size());
+  Rate& rate = rates_[LongBin(key)];
+  constexpr double kKeep = 1.0 - 1.0 / kWindow;
+  rate.observed = kKeep * rate.observed + std::max(count, 0.0);
+  rate.expected = kKeep * rate.expected + std::max(expected, 0.0);
+  if (++since_rate_pool_ < kPoolEvery) return;
+  since_rate_pool_ = 0;
+  PoolRates();
+}
+
+void ResidualProfile::PoolRates() {
+  double observed = 0, expected = 0;
+  int bins = 0;
+  for (const Rate& rate : rates_) {
+    observed += rate.observed;
+    expected += rate.expected;
+    bins += rate.expected >= 1.0;
+  }
+  rate_pool_.estimated = bins >= kMinPooledBins && expected > 0;
+  if (!rate_pool_.estimated) return;
+  const double m = observed / expected;
+  double s2 = 0;
+  int weighted = 0;
+  for (const Rate& rate : rates_) {
+    if (!(rate.expected > 0)) continue;
+    const double d = rate.observed / rate.expected - m;
+    s2 += rate.expected * d * d;
+    ++weighted;
+  }
+  s2 /= expected;
+  rate_pool_.ratio = m;
+  rate_pool_.spread = std::max(0.0, s2 - m / (expected / weighted));
+}
+
+std::optional<double> ResidualProfile::CountRatio(int key) const {
+  if (!rate_pool_.estimated) return std::nullopt;
+  const Rate& rate = rates_[LongBin(key)];
+  const double m = rate_pool_.ratio, a = rate_pool_.spread;
+  if (!(rate.expected > 0) || !(a > 0)) return m;
+  return m + a / (a + m / rate.expected) * (rate.observed / rate.expected - m);
 }
 
 double ResidualProfile::LongRatio(size_t b, double prior) const {
@@ -275,7 +326,7 @@ void ResidualProfile::Update(int key, double r, double a, double sigma_all, bool
 }
 
 void ResidualProfile::Save(SnapshotWriter& w) const {
-  w.Tag("PRF3");
+  w.Tag("PRF4");
   w.I64(fold_period_);
   w.U64(folded_.size());
   for (const std::vector<Bin_>* bins : {&bins_, &folded_}) {
@@ -295,17 +346,28 @@ void ResidualProfile::Save(SnapshotWriter& w) const {
   w.F64(kurtosis_.m1);
   w.F64(kurtosis_.m2);
   w.U32(since_pool_);
+  w.U64(rates_.size());
+  for (const Rate& rate : rates_) {
+    w.F64(rate.observed);
+    w.F64(rate.expected);
+  }
+  w.Bool(rate_pool_.estimated);
+  w.F64(rate_pool_.ratio);
+  w.F64(rate_pool_.spread);
+  w.U32(since_rate_pool_);
 }
 
 Status ResidualProfile::Load(SnapshotReader& r) {
-  // "PRF3" records the phase bins' own season; "PRF2", the layout before that,
+  // "PRF4" adds the counts' ratios (before, they start empty); "PRF3" records
+  // the phase bins' own season; "PRF2", the layout before that,
   // had phase bins as wide as the long ones (the geometry made by the
   // constructor); "PROF", before the between-bin spreads were kept: they
   // start unestimated (the fixed prior weight) and are estimated again at the
   // next reading.
-  const bool geometry = r.NextTagIs("PRF3");
+  const bool rates = r.NextTagIs("PRF4");
+  const bool geometry = rates || r.NextTagIs("PRF3");
   const bool spreads = geometry || r.NextTagIs("PRF2");
-  r.Tag(geometry ? "PRF3" : spreads ? "PRF2" : "PROF");
+  r.Tag(rates ? "PRF4" : geometry ? "PRF3" : spreads ? "PRF2" : "PROF");
   if (geometry) {
     const EventTime fold_period = r.Time("phase profile season");
     const std::uint64_t fold_bins = r.Count(24);
@@ -341,6 +403,27 @@ Status ResidualProfile::Load(SnapshotReader& r) {
     since_pool_ = r.U32();
     if (r.ok() && since_pool_ >= kPoolEvery)
       return r.Fail("phase profile pool count out of range");
+  }
+  std::vector<Rate>().swap(rates_);
+  rate_pool_ = RatePool{};
+  since_rate_pool_ = 0;
+  if (rates) {
+    const std::uint64_t n = r.Count(16);
+    if (r.ok() && n != 0 && (folded_.empty() || n != bins_.size()))
+      return r.Fail("phase profile count bins differ");
+    rates_.resize(static_cast<size_t>(r.ok() ? n : 0));
+    for (Rate& rate : rates_) {
+      rate.observed = r.NonNegative("phase profile counts seen");
+      rate.expected = r.NonNegative("phase profile counts expected");
+    }
+    rate_pool_.estimated = r.Bool();
+    rate_pool_.ratio = r.NonNegative("phase profile count ratio");
+    rate_pool_.spread = r.NonNegative("phase profile count ratio spread");
+    since_rate_pool_ = r.U32();
+    if (r.ok() && since_rate_pool_ >= kPoolEvery)
+      return r.Fail("phase profile count pool out of range");
+    if (r.ok() && rate_pool_.estimated && rates_.empty())
+      return r.Fail("phase profile count ratios without counts");
   }
   return r.status();
 }

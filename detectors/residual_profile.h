@@ -80,6 +80,29 @@
 // the phases, each hour of the week's departure from it from the long bin. With
 // S = 1 this is the rule above. Bin(t) returns a key holding both indices.
 //
+// Counts (UpdateCount, CountRatio): a store shut on Sundays has no orders at
+// any hour of them, a departure that is a multiple of the day's shape (zero
+// times it), not an amount added to each hour. Each long bin b also keeps the
+// counts it saw, O_b, and what the forecaster and the phase bins alone expected
+// there, E_b (exponentially weighted sums, forgetting over kWindow readings),
+// and its expected count is the phases' times a ratio shrunk by empirical Bayes
+// toward the series' overall ratio (the global moment estimator for
+// observed/expected ratios of Marshall 1991, Applied Statistics 40:283-294, as
+// used for small-area disease rates; from memory):
+//
+//   m = sum O / sum E,   s^2 = sum E_b (O_b / E_b - m)^2 / sum E,
+//   A = max(0, s^2 - m / mean_b E_b),
+//   ratio_b = m + A / (A + m / E_b) (O_b / E_b - m)
+//
+// A is the spread of the true ratios between bins beyond the Poisson noise
+// of each bin's own ratio (m / E_b). A week of a shop shut on its seventh day,
+// twelve orders expected and none seen in each of its two open-hours bins,
+// halves their expected counts, and four weeks take them to an eighth (worked
+// in residual_profile_test), where an additive departure from four readings a
+// week is pooled back toward the other days' for much longer. Only the count
+// CUSUM reads the ratios (SeriesMonitor); the additive bins still serve the
+// other detectors.
+//
 // So a shape shared by every day is learned from every day, while what sets one
 // day of the week apart (a Sunday with no orders, say: the smooth day and week
 // terms of the forecaster, being additive, cannot turn the daily pattern off for
@@ -87,6 +110,7 @@
 #pragma once
 
 #include <cstdint>
+#include <optional>
 #include <vector>
 
 #include "detectors/event_time.h"
@@ -127,6 +151,15 @@ class ResidualProfile {
   // seen a whole long period, so its residuals say nothing settled about one
   // day of the week (SeriesMonitor).
   void Update(int key, double r, double a, double sigma_all, bool long_bins = true);
+  // The phase bins' expected residual at `key`, without its long bin's
+  // departure (two levels; zero with one).
+  double PhaseMean(int key, double sigma_all) const;
+  // Counts (two levels only; a no-op with one): folds in a count and what the
+  // forecaster and phase bins alone expected of it (>= 0) at `key`'s long bin.
+  void UpdateCount(int key, double count, double expected);
+  // The long bin's shrunk ratio of counts to that expectation, once kMinPooledBins
+  // bins have expected at least one count; before, none.
+  std::optional<double> CountRatio(int key) const;
   // Forgets everything learned (a planned change).
   void Reset();
   // Checkpoints (detectors/snapshot.h): Load expects an object built from the
@@ -164,6 +197,19 @@ class ResidualProfile {
   std::vector<Bin_> bins_;
   std::vector<Bin_> folded_;  // the shorter season's phases; empty for one level
   Spread spread_, folded_spread_;
+  // Counts seen and expected at each long bin (empty until UpdateCount), and
+  // the pooled ratio m and between-bin spread A (header comment).
+  struct Rate {
+    double observed = 0, expected = 0;
+  };
+  std::vector<Rate> rates_;
+  struct RatePool {
+    double ratio = 1, spread = 0;
+    bool estimated = false;
+  };
+  RatePool rate_pool_;
+  std::uint32_t since_rate_pool_ = 0;
+  void PoolRates();
   // Running moments of the squared standardised readings over their phase's
   // variance ratio: m2 / m1^2 - 1 is the sampling factor of s2.
   struct Moments {

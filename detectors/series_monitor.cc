@@ -612,10 +612,20 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // the demo's compressor, a level alert on the first Sunday after warmup in
   // many draws). The phase bins pool every repeat of the shorter season, so the
   // first day is soon a small share of theirs, and they learn from the start.
+  // A count's expectation for the count CUSUM: the phases' times its long
+  // bin's ratio of counts to them, once learned (residual_profile.h: a shut
+  // day is a multiple of the day's shape, not an amount added to each hour).
+  // Both as they stood before this reading.
+  const bool count = design_->profile.kind == SeriesKind::kCount;
+  const double count_base =
+      count ? f.value + profile_->PhaseMean(bin, sigma) * spread : 0.0;
+  const std::optional<double> count_ratio =
+      count ? profile_->CountRatio(bin) : std::nullopt;
   if (identified && !suspicious) {
+    const bool long_bins = to - forecaster_->first_time() >= profile_->period();
+    if (count && long_bins) profile_->UpdateCount(bin, y, count_base);
     scale_.Update(a);
-    profile_->Update(bin, u, a, scale_.sigma(),
-                     to - forecaster_->first_time() >= profile_->period());
+    profile_->Update(bin, u, a, scale_.sigma(), long_bins);
   }
 
   if (regime_start_) {
@@ -651,6 +661,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // one busy hour like a new level). BOCPD, which models both, skips those
   // readings too, unless it is the only level detector (rather than go blind).
   const double expected = f.value + profile_->Mean(bin, sigma) * spread;
+  const double expected_count =
+      count_ratio ? *count_ratio * std::max(count_base, 0.0) : expected;
   const bool spread_seen = phase_sigma > 1.5 * design_->scale.floor;
   const bool near_normal =
       design_->profile.kind != SeriesKind::kCount || expected >= kLowCountMean;
@@ -663,7 +675,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   }
   if (observations_ >= level_hold_until_) {
     const size_t before = events->size();
-    DecideLevel(to, y, expected, f.value, sigma * spread,
+    DecideLevel(to, y, expected_count, f.value, sigma * spread,
                 spread_seen && (near_normal || level_.size() == 1), events);
     if (events->size() > before) return;
   }

@@ -9,6 +9,7 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <optional>
 
 #include "detectors/random.h"
 
@@ -142,6 +143,46 @@ TEST(ResidualProfileTest, LongBinsHeldBackLearnOnlyThePhases) {
   // afternoon expects the average day (-2 / 7 from the odd day in it).
   EXPECT_NEAR(learning.Mean(learning.Bin(odd_day_2pm), 1.0), -2.0, 0.4);
   EXPECT_NEAR(held.Mean(held.Bin(odd_day_2pm), 1.0), -2.0 / 7.0, 0.2);
+}
+
+// Hourly counts, worked by hand (no source): exactly 3 an hour from 08:00 to
+// 16:00 on six days, none on the seventh, while the phases expect 3 at those
+// hours every day. Fourteen four-hour bins expect counts, each E = 3 (1 + k +
+// k^2 + k^3) = 11.9103 after a week (k = 1 - 1/200, its visits forgotten in
+// turn); twelve see all of them, two none. m = 12/14, s^2 = (12 (1 - m)^2 +
+// 2 m^2) / 14 = 0.122449, A = s^2 - m / E = 0.0504825, C = A / (A + m / E) =
+// 0.412273: the shut day's ratio m (1 - C) = 0.503766, the open days' m + C (1
+// - m) = 0.916039. After four weeks (E = 46.2413, C = 0.848620): 0.129754 and
+// 0.978374. One week halves the shut day's expectation; each further week
+// moves it closer to none.
+TEST(ResidualProfileTest, CountsLearnAShutDayWeekByWeek) {
+  const EventTime week = 7 * kMicrosPerDay;
+  ResidualProfile profile(week, 42, 4.0, 6);
+  const EventTime shut_day = 6 * kMicrosPerDay;
+  const EventTime ten = 10 * kMicrosPerHour;
+  EXPECT_FALSE(profile.CountRatio(profile.Bin(shut_day + ten)).has_value());
+  auto feed = [&](int weeks) {
+    for (EventTime t = kMicrosPerHour / 2; t < weeks * week; t += kMicrosPerHour) {
+      const EventTime in_day = t % kMicrosPerDay;
+      const bool open = in_day >= 8 * kMicrosPerHour && in_day < 16 * kMicrosPerHour;
+      const double expected = open ? 3.0 : 0.0;
+      const bool shut = t % week >= shut_day;
+      profile.UpdateCount(profile.Bin(t), shut ? 0.0 : expected, expected);
+    }
+  };
+  auto ratio = [&](EventTime t) { return profile.CountRatio(profile.Bin(t)).value_or(-1); };
+  feed(1);
+  EXPECT_NEAR(ratio(shut_day + ten), 0.503766, 1e-5);
+  for (int day = 0; day < 6; ++day) {
+    EXPECT_NEAR(ratio(day * kMicrosPerDay + ten), 0.916039, 1e-5) << day;
+  }
+  feed(3);
+  EXPECT_NEAR(ratio(shut_day + ten), 0.129754, 1e-5);
+  EXPECT_NEAR(ratio(2 * kMicrosPerDay + ten), 0.978374, 1e-5);
+  // A one-level profile keeps no counts.
+  ResidualProfile flat(kMicrosPerDay, 6, 4.0);
+  flat.UpdateCount(0, 3.0, 1.0);
+  EXPECT_FALSE(flat.CountRatio(0).has_value());
 }
 
 // Bins that differ only by noise: their own means scatter by 1 / sqrt(n) of

@@ -405,23 +405,27 @@ TEST(ForgedStateTest, ResidualProfileWithNarrowerPhaseBinsCarriesItsSeason) {
 // spreads were kept ("PROF": the bins only) still load, with phase bins as
 // wide as the long ones: the bins as saved; PROF's spreads start unestimated
 // and the next reading estimates them again.
-TEST(ForgedStateTest, ResidualProfileReadsTheLayoutsWithoutSeasonOrSpreads) {
+TEST(ForgedStateTest, ResidualProfileReadsTheLayoutsWithoutCountsSeasonOrSpreads) {
   const ResidualProfile original = TrainedProfile();
   SnapshotWriter w;
   original.Save(w);
   const std::string now = w.Take();
-  ASSERT_EQ(now.substr(0, 4), "PRF3");
-  const std::string rest = now.substr(4 + 16);  // without the season and its bins
-  {
+  ASSERT_EQ(now.substr(0, 4), "PRF4");
+  // The counts' part, none learned here: no bins (a count), the pool's flag,
+  // ratio and spread, and its reading count.
+  constexpr std::size_t kNoCounts = 8 + 1 + 8 + 8 + 4;
+  const std::string body = now.substr(4, now.size() - 4 - kNoCounts);
+  for (const std::string& older : {"PRF3" + body, "PRF2" + body.substr(16)}) {
+    // PRF2 lacks the season and its bins as well.
     ResidualProfile fresh = UntrainedProfile();
-    const std::string older = "PRF2" + rest;
     SnapshotReader r(older);
-    ASSERT_TRUE(fresh.Load(r).ok());
+    ASSERT_TRUE(fresh.Load(r).ok()) << older.substr(0, 4);
     EXPECT_TRUE(r.AtEnd());
     SnapshotWriter again;
     fresh.Save(again);
-    EXPECT_EQ(again.bytes(), now);
+    EXPECT_EQ(again.bytes(), now) << older.substr(0, 4);
   }
+  const std::string rest = body.substr(16);
   // Tag, 24 bins and 8 pooled bins (each a count and 24 bytes a bin).
   const std::size_t bins_end = 8 + 24 * 24 + 8 + 8 * 24;
   ResidualProfile fresh = UntrainedProfile();
@@ -437,6 +441,37 @@ TEST(ForgedStateTest, ResidualProfileReadsTheLayoutsWithoutSeasonOrSpreads) {
     const int key = fresh.Bin(t * kMicrosPerHour);
     EXPECT_TRUE(std::isfinite(fresh.Mean(key, 1.0)) && fresh.Sigma(key, 1.0) > 0) << t;
   }
+}
+
+// Counts' ratios survive a round trip; a forged count of their bins, a
+// negative count seen and a pool flag without counts are refused.
+TEST(ForgedStateTest, ResidualProfileCarriesItsCountRatios) {
+  ResidualProfile original = TrainedProfile();
+  for (int i = 0; i < 400; ++i) {
+    const EventTime t = i * 20 * kMicrosPerMinute;
+    original.UpdateCount(original.Bin(t), (t % kMicrosPerDay) < 8 * kMicrosPerHour ? 0 : 3, 2.0);
+  }
+  ASSERT_TRUE(original.CountRatio(0).has_value());
+  SnapshotWriter w;
+  original.Save(w);
+  const std::string now = w.Take();
+  ResidualProfile fresh = UntrainedProfile();
+  SnapshotReader r(now);
+  ASSERT_TRUE(fresh.Load(r).ok());
+  EXPECT_TRUE(r.AtEnd());
+  for (int h = 0; h < 24; ++h) {
+    const int key = fresh.Bin(h * kMicrosPerHour);
+    EXPECT_EQ(fresh.CountRatio(key), original.CountRatio(key)) << h;
+  }
+  // The counts' part starts after the bins' count (8) and 24 bins of 16 bytes.
+  const std::size_t counts = now.size() - (8 + 24 * 16 + 1 + 8 + 8 + 4);
+  auto load = [&](std::size_t at, std::uint64_t bits) {
+    ResidualProfile forged = UntrainedProfile();
+    return LoadPatched(original, forged, at, bits);
+  };
+  EXPECT_TRUE(RefusedNaming(load(counts, 23), "count bins differ"));
+  EXPECT_TRUE(RefusedNaming(load(counts + 8, Bits(-1.0)), "counts seen"));
+  EXPECT_TRUE(RefusedNaming(load(counts + 16, kNan), "counts expected"));
 }
 
 TEST(ForgedStateTest, WhitenerRefusesOverflowingCountsAndAPersistenceOfOneOrMore) {
