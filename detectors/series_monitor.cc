@@ -602,6 +602,15 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
       std::vector<RivalForecaster>().swap(rivals_);
     }
   }
+  // A count's expectation for the count CUSUM: the phases' times its long
+  // bin's ratio of counts to them, once learned (residual_profile.h: a shut
+  // day is a multiple of the day's shape, not an amount added to each hour).
+  // Both as they stood before this reading.
+  const bool count = design_->profile.kind == SeriesKind::kCount;
+  const double count_base =
+      count ? f.value + profile_->PhaseMean(bin, sigma) * spread : 0.0;
+  const std::optional<double> count_ratio =
+      count ? profile_->CountRatio(bin) : std::nullopt;
   // A two-level profile's long bins learn only from residuals of a forecaster
   // that has seen one whole profile period (a week). Before, its longer
   // season's Fourier terms are not pinned down: they follow the latest readings
@@ -612,15 +621,6 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // the demo's compressor, a level alert on the first Sunday after warmup in
   // many draws). The phase bins pool every repeat of the shorter season, so the
   // first day is soon a small share of theirs, and they learn from the start.
-  // A count's expectation for the count CUSUM: the phases' times its long
-  // bin's ratio of counts to them, once learned (residual_profile.h: a shut
-  // day is a multiple of the day's shape, not an amount added to each hour).
-  // Both as they stood before this reading.
-  const bool count = design_->profile.kind == SeriesKind::kCount;
-  const double count_base =
-      count ? f.value + profile_->PhaseMean(bin, sigma) * spread : 0.0;
-  const std::optional<double> count_ratio =
-      count ? profile_->CountRatio(bin) : std::nullopt;
   if (identified && !suspicious) {
     const bool long_bins = to - forecaster_->first_time() >= profile_->period();
     if (count && long_bins) profile_->UpdateCount(bin, y, count_base);
