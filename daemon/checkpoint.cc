@@ -323,18 +323,18 @@ void Engine::SaveSeries(
 }
 
 std::optional<std::string> Engine::SaveOneSeries(std::string_view name) const {
-  auto it = series_.find(name);
-  if (it == series_.end()) return std::nullopt;
+  const Series* series = Lookup(name);
+  if (!series) return std::nullopt;
   SnapshotWriter w;
-  SaveProfile(it->second->design->profile, w);
-  it->second->monitor->Save(w);
+  SaveProfile(series->design->profile, w);
+  series->monitor->Save(w);
   return w.Take();
 }
 
 void Engine::ForgetSeries(const std::vector<std::string>& names) {
   std::size_t forgotten = 0;
   for (const std::string& name : names) {
-    forgotten += series_.erase(name);
+    forgotten += Drop(name);
     covariates_->Forget(name);  // its observations went with its state
   }
   if (forgotten == 0) return;
@@ -396,9 +396,8 @@ Status Engine::RestoreSeries(std::string_view name, std::string_view state,
   } else {
     ++report->kept;
   }
-  Series* raw = series.get();
+  Series* raw = Adopt(std::move(series));
   Wire(raw);  // annotations, and the covariates it reads and publishes
-  series_[raw->name] = std::move(series);
   Schedule(raw);
   return Status::Ok();
 }

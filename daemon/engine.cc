@@ -183,6 +183,23 @@ void Engine::StartMonitor(Series* series) {
   Wire(series);
 }
 
+Engine::Series* Engine::Adopt(std::unique_ptr<Series> series) {
+  Series* raw = series.get();
+  auto [it, inserted] = series_.try_emplace(raw->name);
+  if (!inserted) index_.Erase(it->second.get());
+  it->second = std::move(series);
+  index_.Insert(raw);
+  return raw;
+}
+
+bool Engine::Drop(std::string_view name) {
+  Series* series = Lookup(name);
+  if (!series) return false;
+  index_.Erase(series);
+  series_.erase(series_.find(name));
+  return true;
+}
+
 void Engine::Wire(Series* series) {
   series->monitor->SetAnnotations(AnnotationsFor(config_, series->name));
   series->monitor->SetObservationListener(
@@ -195,8 +212,8 @@ void Engine::Wire(Series* series) {
 void Engine::SetObservationListener(std::string series, ObservationListener* listener) {
   listened_series_ = std::move(series);
   listener_ = listener;
-  if (auto it = series_.find(listened_series_); it != series_.end() && it->second->monitor)
-    it->second->monitor->SetObservationListener(listener_);
+  if (Series* series = Lookup(listened_series_); series && series->monitor)
+    series->monitor->SetObservationListener(listener_);
 }
 
 const ProfileDesign* Engine::DesignFor(const ProfileOptions* profile) {
@@ -216,20 +233,19 @@ const ProfileDesign* Engine::DesignFor(const ProfileOptions* profile) {
 IngestOutcome Engine::Ingest(std::string_view name, EventTime time, double value,
                              std::vector<Alert>* out) {
   if (!std::isfinite(value)) return IngestOutcome::kNotFinite;
-  auto it = series_.find(name);
-  if (it == series_.end()) {
+  Series* series = Lookup(name);
+  if (!series) {
     if (series_.size() >= options_.max_series) return IngestOutcome::kTooManySeries;
     const ProfileOptions* profile = MatchProfile(config_, name);
     if (!profile) return IngestOutcome::kNoProfile;
     const ProfileDesign* design = DesignFor(profile);
     if (!design) return IngestOutcome::kNoProfile;
-    auto series = std::make_unique<Series>();
-    series->name = std::string(name);
-    series->design = design;
-    StartMonitor(series.get());
-    it = series_.emplace(series->name, std::move(series)).first;
+    auto fresh = std::make_unique<Series>();
+    fresh->name = std::string(name);
+    fresh->design = design;
+    StartMonitor(fresh.get());
+    series = Adopt(std::move(fresh));
   }
-  Series* series = it->second.get();
   scratch_.clear();
   // The series' own event clock: a reading past its silence deadline shows
   // the silence first (replay's AdvanceClock before this reading has already
@@ -278,11 +294,11 @@ void Engine::AdvanceClock(EventTime now, std::vector<Alert>* out) {
 
 void Engine::AdvanceSeriesClock(std::string_view name, EventTime now,
                                 std::vector<Alert>* out) {
-  auto it = series_.find(name);
-  if (it == series_.end()) return;
+  Series* series = Lookup(name);
+  if (!series) return;
   scratch_.clear();
-  it->second->monitor->AdvanceClock(now, &scratch_);
-  Emit(*it->second, scratch_, out);
+  series->monitor->AdvanceClock(now, &scratch_);
+  Emit(*series, scratch_, out);
 }
 
 void Engine::Finish(std::vector<Alert>* out) {
@@ -363,6 +379,7 @@ ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
     const ProfileDesign* design = profile ? DesignFor(profile) : nullptr;
     if (!design) {
       ++report.dropped;
+      index_.Erase(&series);
       it = series_.erase(it);
       continue;
     }
@@ -432,8 +449,8 @@ void Engine::Emit(const Series& series, const std::vector<SeriesEvent>& events,
 }
 
 const SeriesMonitor* Engine::Find(std::string_view name) const {
-  auto it = series_.find(name);
-  return it == series_.end() ? nullptr : it->second->monitor.get();
+  const Series* series = Lookup(name);
+  return series ? series->monitor.get() : nullptr;
 }
 
 }  // namespace plumbline

@@ -16,6 +16,7 @@
 #include <vector>
 
 #include "config/config.h"
+#include "daemon/name_index.h"
 #include "detectors/covariate.h"
 #include "detectors/series_monitor.h"
 #include "detectors/severity.h"
@@ -163,6 +164,12 @@ class Engine {
   void StartMonitor(Series* series);
   // Gives a series' monitor the annotations and covariates the config holds now.
   void Wire(Series* series);
+  // The series named `name`, or nullptr: one probe of index_.
+  Series* Lookup(std::string_view name) const { return index_.Find(name); }
+  // Takes `series` in, replacing any series of the same name; returns it.
+  Series* Adopt(std::unique_ptr<Series> series);
+  // Drops the series named `name`; true if there was one.
+  bool Drop(std::string_view name);
 
   Config config_;
   EngineOptions options_;
@@ -180,8 +187,11 @@ class Engine {
       return std::hash<std::string_view>{}(name);
     }
   };
+  // Owns the series; iteration (checkpoints, flushes) follows its order.
   std::unordered_map<std::string, std::unique_ptr<Series>, NameHash, std::equal_to<>>
       series_;
+  // The same series, for the per-reading lookup (daemon/name_index.h).
+  NameIndex<Series> index_;
   // Silence deadlines, earliest first, about one entry per series: a reading
   // moves a series' deadline later without a new entry; when the old entry
   // comes due it is re-queued at the current deadline (or the silence fires).
