@@ -448,6 +448,12 @@ void Engine::Emit(const Series& series, const std::vector<SeriesEvent>& events,
   }
 }
 
+void Engine::Prefetch(std::string_view series, EventTime time) const {
+  if (const Series* found = Lookup(series); found && found->monitor) {
+    found->monitor->Prefetch(time);
+  }
+}
+
 const SeriesMonitor* Engine::Find(std::string_view name) const {
   const Series* series = Lookup(name);
   return series ? series->monitor.get() : nullptr;

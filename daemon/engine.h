@@ -143,6 +143,16 @@ class Engine {
 
   std::size_t series_count() const { return series_.size(); }
   const SeriesMonitor* Find(std::string_view series) const;
+  // Starts loading the state a reading of `series` at `time` will touch into
+  // the caches (SeriesMonitor::Prefetch); a hint that changes nothing. Once the
+  // series outgrow the caches each reading waits on memory for its series'
+  // state; callers that hold the next readings (replay's parsed chunk, a
+  // shard's batch) call it kPrefetchAhead readings ahead to overlap the waits.
+  void Prefetch(std::string_view series, EventTime time) const;
+  // Far enough ahead that the loads finish before the reading is reached (a
+  // reading takes a few microseconds), near enough that they are not evicted
+  // first; 4, 8 and 16 measured alike on 10,000 series.
+  static constexpr std::size_t kPrefetchAhead = 8;
   // Tells `listener` (not owned; null: nobody) of every observation of the
   // series named `series`, now and after it is created or restarted.
   void SetObservationListener(std::string series, ObservationListener* listener);

@@ -124,6 +124,10 @@ class InputStream {
     return queue_.empty() ? nullptr : &queue_.front();
   }
   void Pop() { queue_.pop_front(); }
+  // The reading `k` places after the head if it is parsed already, else null.
+  const OwnedReading* Ahead(std::size_t k) const {
+    return k < queue_.size() ? &queue_[k] : nullptr;
+  }
 
  private:
   std::string path_;
@@ -282,6 +286,13 @@ int RunReplay(const Args& args) {
       }
     }
     if (!head) break;
+    // The series' state of a later reading starts loading now (Engine::Prefetch;
+    // one input only: with several, the merge order is not known that far ahead).
+    if (streams.size() == 1) {
+      if (const OwnedReading* ahead = next->Ahead(Engine::kPrefetchAhead)) {
+        engine.Prefetch(ahead->series, ahead->time);
+      }
+    }
     engine.AdvanceClock(head->time, &out);
     // The forecast for the report is made before the model sees the reading.
     const TracePoint point =

@@ -236,8 +236,13 @@ void Shard::Process(ReadingBatch& batch) {
   std::uint64_t counts[5] = {};  // index: IngestOutcome
   std::vector<IngestTicket::Refusal> refusals;
   const std::size_t series_before = engine.series_count();
-  for (const ReadingBatch::Entry& entry : batch.entries) {
+  for (std::size_t k = 0; k < batch.entries.size(); ++k) {
+    const ReadingBatch::Entry& entry = batch.entries[k];
     const std::string_view name = batch.name(entry);
+    if (k + Engine::kPrefetchAhead < batch.entries.size()) {
+      const ReadingBatch::Entry& ahead = batch.entries[k + Engine::kPrefetchAhead];
+      engine.Prefetch(batch.name(ahead), ahead.time);
+    }
     // The forecast for this reading, made before the model sees it.
     const TracePoint point =
         options_.recent_points > 0

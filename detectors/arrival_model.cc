@@ -6,6 +6,7 @@
 #include <numbers>
 
 #include "detectors/calibration_memo.h"
+#include "detectors/prefetch.h"
 #include "detectors/run_length_chain.h"
 
 namespace plumbline {
@@ -95,6 +96,13 @@ EventTime ArrivalShape::BinEnd(EventTime t, int bin) const {
   const bool last =
       bin + 1 == static_cast<int>(p_.size());  // takes the period's remainder
   return t - within + (last ? period_ : (bin + 1) * width_);
+}
+
+void ArrivalShape::Prefetch(EventTime t) const {
+  const size_t b = static_cast<size_t>(Bin(t));
+  __builtin_prefetch(&events_[b]);
+  __builtin_prefetch(&exposure_[b]);
+  __builtin_prefetch(&p_[b]);
 }
 
 void ArrivalShape::AddExposure(EventTime from, EventTime to, double weight) {
@@ -280,6 +288,12 @@ EventTime ArrivalModel::NextArrivalQuantile(double q) const {
   const double operational = theta_ * -std::log1p(-q);
   if (shape_) return shape_->WallTimeAfter(last_, operational);
   return last_ + static_cast<EventTime>(operational);
+}
+
+void ArrivalModel::Prefetch(EventTime t) const {
+  if (!shape_) return;
+  shape_->Prefetch(last_);
+  shape_->Prefetch(t);
 }
 
 EventTime ArrivalModel::TimeAfterMeanGaps(EventTime from, double mean_gaps) const {

@@ -135,6 +135,8 @@ class ArrivalShape {
   EventTime WallTimeAfter(EventTime from, double operational) const;
   bool learned() const { return exposure_total_ >= static_cast<double>(period_); }
   double relative_intensity(int bin) const { return learned() ? p_[bin] : 1.0; }
+  // Starts loading the bins an arrival at `t` touches into the caches.
+  void Prefetch(EventTime t) const;
   // Checkpoints (detectors/snapshot.h): Load expects an object built from the
   // same options and overwrites its state; Corruption on a mismatch.
   void Save(SnapshotWriter& w) const;
@@ -170,6 +172,8 @@ class ArrivalModel {
   // Records a reading arriving at time t (>= the previous). The alarm fires with
   // direction kDown when readings became rarer, kUp when they came faster.
   Alarm Observe(EventTime t);
+  // Starts loading the state an arrival at `t` touches into the caches.
+  void Prefetch(EventTime t) const;
 
   // Armed once warm and, with a season, once its shape has been seen whole.
   bool armed() const { return gaps_ > options_.warmup && (!shape_ || shape_->learned()); }

@@ -6,6 +6,7 @@
 #include <limits>
 #include <utility>
 
+#include "detectors/prefetch.h"
 #include "detectors/residual_scale.h"
 
 namespace plumbline {
@@ -142,6 +143,15 @@ int ResidualProfile::Bin(EventTime t) const {
   const int b = slot(period_, bins());
   if (folded_.empty()) return b;
   return b * fold_bins() + slot(fold_period_, fold_bins());
+}
+
+void ResidualProfile::Prefetch(int key) const {
+  const size_t b = LongBin(key);
+  if (b < bins_.size()) __builtin_prefetch(&bins_[b]);
+  if (!folded_.empty()) {
+    const size_t first = (b % static_cast<size_t>(per_repeat_)) * static_cast<size_t>(span_);
+    PrefetchRange(&folded_[first], sizeof(Bin_) * static_cast<size_t>(span_));
+  }
 }
 
 double ResidualProfile::LongMean(size_t b, double sigma_all, double prior,

@@ -140,6 +140,8 @@ class ResidualProfile {
 
   // The key of t's bins (its long bin and, with two levels, its phase bin).
   int Bin(EventTime t) const;
+  // Starts loading the bins a reading at key `key` touches into the caches.
+  void Prefetch(int key) const;
   // The expected residual and its spread at the bins of `key`. `sigma_all` is
   // the whole-series scale the bins are shrunk toward.
   double Mean(int key, double sigma_all) const;

@@ -8,6 +8,8 @@
 #include <limits>
 #include <numbers>
 
+#include "detectors/prefetch.h"
+
 namespace plumbline {
 namespace {
 
@@ -304,6 +306,13 @@ StatusOr<Forecast> SeasonalForecaster::BeginUpdate(EventTime from, EventTime to)
   pending_.xpx = x_.dot(px_);
   pending_.forecast = x_.dot(theta_);
   return Forecast{pending_.forecast, pending_.xpx};
+}
+
+void SeasonalForecaster::Prefetch() const {
+  PrefetchRange(theta_.data(), sizeof(double) * static_cast<std::size_t>(theta_.size()));
+  PrefetchRange(p_lower_.data(), sizeof(double) * static_cast<std::size_t>(p_lower_.size()));
+  PrefetchRange(x_.data(), sizeof(double) * static_cast<std::size_t>(x_.size()));
+  PrefetchRange(px_.data(), sizeof(double) * static_cast<std::size_t>(px_.size()));
 }
 
 Status SeasonalForecaster::CommitUpdate(double y) {

@@ -133,6 +133,9 @@ class SeasonalForecaster {
   // Update sets theta_0 = (y_1, 0, ..., 0) and the prior.
   explicit SeasonalForecaster(const SeasonalForecasterOptions& options);
 
+  // Starts loading the state an update touches into the caches (a hint only).
+  void Prefetch() const;
+
   // Number of coefficients n.
   int dimension() const { return static_cast<int>(theta_.size()); }
   bool has_data() const { return updates_ > 0; }

@@ -5,6 +5,7 @@
 #include <limits>
 #include <numbers>
 
+#include "detectors/prefetch.h"
 #include "detectors/run_length_chain.h"
 
 namespace plumbline {
@@ -155,6 +156,18 @@ SeriesMonitor::SeriesMonitor(const ProfileDesign* design)
   BuildLevelDetectors(design->level);
   firings_.resize(level_.size());
   threshold_fraction_.assign(level_.size(), 0.0);
+}
+
+void SeriesMonitor::Prefetch(EventTime t) const {
+  // The monitor itself, but of its ring of recent times only the slot written next.
+  const char* self = reinterpret_cast<const char*>(this);
+  PrefetchRange(self, static_cast<size_t>(reinterpret_cast<const char*>(&recent_times_) - self));
+  __builtin_prefetch(&recent_times_[(observations_ + 1) % recent_times_.size()]);
+  __builtin_prefetch(&regime_observations_);
+  if (forecaster_) forecaster_->Prefetch();
+  if (profile_) profile_->Prefetch(profile_->Bin(t));
+  arrival_.Prefetch(t);
+  if (!level_.empty()) PrefetchRange(level_.data(), sizeof(LevelDetector) * level_.size());
 }
 
 std::optional<EventTime> SeriesMonitor::silence_deadline() const {

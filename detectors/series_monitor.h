@@ -231,6 +231,10 @@ class SeriesMonitor {
   void AdvanceClock(EventTime now, std::vector<SeriesEvent>* events);
   // When AdvanceClock would next report silence; nullopt when it cannot yet.
   std::optional<EventTime> silence_deadline() const;
+  // Starts loading the state a reading at `t` touches into the caches, so a
+  // caller that knows the next readings can overlap their memory waits (a
+  // hint only: it changes nothing).
+  void Prefetch(EventTime t) const;
   // Swaps in `design` (which must outlive the monitor) for a new false-alarm
   // budget or decision rule (arl0, shift, detectors, agree, agree_within,
   // cooldown, warmup, silence_after) while keeping what the series taught the
