@@ -52,15 +52,62 @@ Matrix& CovarianceWorkspace(int n) {
 }  // namespace
 
 void PackedSymmetricTimesVector(const double* lower, int n, const double* x, double* y) {
-  for (int i = 0; i < n; ++i) y[i] = 0.0;
-  const double* column = lower;  // column j from P(j, j)
-  for (int j = 0; j < n; column += n - j, ++j) {
-    const double xj = x[j];
-    // Above the diagonal P(i, j) = P(j, i), row j of the triangle: in column
-    // i at offset j - i, so n - i - 1 further on from one column to the next.
-    const double* transposed = lower + j;
-    for (int i = 0; i < j; transposed += n - i - 1, ++i) y[i] += *transposed * xj;
-    Eigen::Map<Vector>(y + j, n - j) += xj * Eigen::Map<const Vector>(column, n - j);
+  // Row by row, each y_i in its own accumulator: terms j < i come from row i
+  // of the triangle (one entry per column), terms j >= i from column i, in that
+  // order. Four rows at a time give the processor four independent sums.
+  // Plain multiply then add, with no fused multiply-add (this function is not
+  // built for wider instruction sets), so each sum rounds as Eigen's does.
+  int i = 0;
+  for (; i + 4 <= n; i += 4) {
+    double a0 = 0.0, a1 = 0.0, a2 = 0.0, a3 = 0.0;
+    const double* c = lower;
+    for (int j = 0; j < i; c += n - j, ++j) {  // P(i + r, j) at column j, row i + r
+      const double* e = c + (i - j);
+      const double xj = x[j];
+      a0 += e[0] * xj;
+      a1 += e[1] * xj;
+      a2 += e[2] * xj;
+      a3 += e[3] * xj;
+    }
+    // The 4 x 4 diagonal block: P(i + r, i + q) is in column i + min(r, q).
+    const double* c0 = c;
+    const double* c1 = c0 + (n - i);
+    const double* c2 = c1 + (n - i - 1);
+    const double* c3 = c2 + (n - i - 2);
+    a0 += c0[0] * x[i];
+    a1 += c0[1] * x[i];
+    a2 += c0[2] * x[i];
+    a3 += c0[3] * x[i];
+    a0 += c0[1] * x[i + 1];
+    a1 += c1[0] * x[i + 1];
+    a2 += c1[1] * x[i + 1];
+    a3 += c1[2] * x[i + 1];
+    a0 += c0[2] * x[i + 2];
+    a1 += c1[1] * x[i + 2];
+    a2 += c2[0] * x[i + 2];
+    a3 += c2[1] * x[i + 2];
+    a0 += c0[3] * x[i + 3];
+    a1 += c1[2] * x[i + 3];
+    a2 += c2[1] * x[i + 3];
+    a3 += c3[0] * x[i + 3];
+    for (int j = i + 4; j < n; ++j) {  // P(i + r, j) = P(j, i + r), in column i + r
+      const double xj = x[j];
+      a0 += c0[j - i] * xj;
+      a1 += c1[j - i - 1] * xj;
+      a2 += c2[j - i - 2] * xj;
+      a3 += c3[j - i - 3] * xj;
+    }
+    y[i] = a0;
+    y[i + 1] = a1;
+    y[i + 2] = a2;
+    y[i + 3] = a3;
+  }
+  for (; i < n; ++i) {
+    double a = 0.0;
+    const double* c = lower;
+    for (int j = 0; j < i; c += n - j, ++j) a += c[i - j] * x[j];
+    for (int j = i; j < n; ++j) a += c[j - i] * x[j];  // c: column i now
+    y[i] = a;
   }
 }
 
