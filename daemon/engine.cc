@@ -1,5 +1,6 @@
 #include "daemon/engine.h"
 
+#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <mutex>
@@ -273,7 +274,8 @@ void Engine::Schedule(Series* series) {
   }
 }
 
-void Engine::AdvanceClock(EventTime now, std::vector<Alert>* out) {
+void Engine::AdvanceClock(EventTime now, std::vector<Alert>* out,
+                          std::vector<EventTime>* keys) {
   while (!deadlines_.empty() && deadlines_.top().first <= now) {
     auto [queued, series] = deadlines_.top();
     deadlines_.pop();
@@ -288,7 +290,9 @@ void Engine::AdvanceClock(EventTime now, std::vector<Alert>* out) {
     }
     scratch_.clear();
     series->monitor->AdvanceClock(now, &scratch_);
+    const std::size_t before = out->size();
     Emit(*series, scratch_, out);
+    if (keys) keys->insert(keys->end(), out->size() - before, queued);
   }
 }
 
@@ -302,7 +306,12 @@ void Engine::AdvanceSeriesClock(std::string_view name, EventTime now,
 }
 
 void Engine::Finish(std::vector<Alert>* out) {
-  for (auto& [name, series] : series_) {
+  std::vector<Series*> by_name;
+  by_name.reserve(series_.size());
+  for (auto& [name, series] : series_) by_name.push_back(series.get());
+  std::sort(by_name.begin(), by_name.end(),
+            [](const Series* a, const Series* b) { return a->name < b->name; });
+  for (Series* series : by_name) {
     scratch_.clear();
     series->monitor->Flush(&scratch_);
     Emit(*series, scratch_, out);

@@ -94,15 +94,21 @@ class Engine {
   // series must come in time order, up to its profile's `lateness`.
   IngestOutcome Ingest(std::string_view series, EventTime time, double value,
                        std::vector<Alert>* out);
-  // Reports silences due at `now` (one clock for every series: replay's).
-  void AdvanceClock(EventTime now, std::vector<Alert>* out);
+  // Reports silences due at `now` (one clock for every series: replay's), in
+  // the order of their queued deadlines, ties by series name. If `keys` is
+  // given, the queued deadline of each alert appended is appended to it (so
+  // engines that split the series between them can merge their silences into
+  // this order: SilenceOrder).
+  void AdvanceClock(EventTime now, std::vector<Alert>* out,
+                    std::vector<EventTime>* keys = nullptr);
   // Reports the silence of one series if due at `now` (its own clock: serve,
   // where independent inputs run at different speeds). Unknown names are
   // ignored. Ingest itself reports a series' silence when a reading of it
   // comes past its deadline.
   void AdvanceSeriesClock(std::string_view series, EventTime now,
                           std::vector<Alert>* out);
-  // End of input: releases readings held for reordering.
+  // End of input: releases readings held for reordering, series by series in
+  // name order.
   void Finish(std::vector<Alert>* out);
   // Replaces the profiles (a reload) without losing series state: a series
   // whose matching profile has the same settings as before (every key but
@@ -206,7 +212,13 @@ class Engine {
   // moves a series' deadline later without a new entry; when the old entry
   // comes due it is re-queued at the current deadline (or the silence fires).
   using Deadline = std::pair<EventTime, Series*>;
-  std::priority_queue<Deadline, std::vector<Deadline>, std::greater<>> deadlines_;
+  // Earliest first; ties by name, so the order does not depend on addresses.
+  struct LaterDeadline {
+    bool operator()(const Deadline& a, const Deadline& b) const {
+      return a.first != b.first ? a.first > b.first : a.second->name > b.second->name;
+    }
+  };
+  std::priority_queue<Deadline, std::vector<Deadline>, LaterDeadline> deadlines_;
   std::vector<SeriesEvent> scratch_;
   Status design_status_;
   std::string listened_series_;

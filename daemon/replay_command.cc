@@ -17,9 +17,12 @@
 #include <memory>
 #include <optional>
 #include <sys/stat.h>
+#include <thread>
 
 #include "config/config.h"
 #include "daemon/command_line.h"
+#include "daemon/covariate_groups.h"
+#include "daemon/design_cache.h"
 #include "daemon/engine.h"
 #include "daemon/http_api.h"
 #include "daemon/reading_parser.h"
@@ -53,7 +56,17 @@ const std::vector<OptionSpec> kReplayOptions = {
      "a line per bucket) to --trace-to",
      "NAME"},
     {"trace-to", true, false, "where --trace writes its CSV", "FILE"},
+    {"threads", true, false,
+     "engines run side by side, each on its share of the series (placed as serve "
+     "places them on shards); the alerts and their order are the same as with one. "
+     "Default 1; 0: one per core. Not with --report",
+     "N"},
 };
+
+// Readings a threaded replay reads ahead and hands to its engines at once.
+constexpr std::size_t kThreadedBlock = std::size_t{1} << 16;
+// At most this many engines (threads) for --threads.
+constexpr unsigned kMaxThreads = 64;
 
 const std::vector<OptionSpec> kForecastOptions = {
     {"config", true, false, "profiles and detector settings (YAML)", "FILE"},
@@ -124,6 +137,12 @@ class InputStream {
     return queue_.empty() ? nullptr : &queue_.front();
   }
   void Pop() { queue_.pop_front(); }
+  // Removes and returns the head; precondition: Head() returned non-null.
+  OwnedReading Take() {
+    OwnedReading head = std::move(queue_.front());
+    queue_.pop_front();
+    return head;
+  }
   // The reading `k` places after the head if it is parsed already, else null.
   const OwnedReading* Ahead(std::size_t k) const {
     return k < queue_.size() ? &queue_[k] : nullptr;
@@ -199,6 +218,22 @@ int RunReplay(const Args& args) {
     std::fprintf(stderr, "plumbline replay: --trace and --trace-to go together\n");
     return 2;
   }
+  unsigned threads = 1;
+  if (auto text = parsed->Get("threads")) {
+    char* end = nullptr;
+    const long n = std::strtol(text->c_str(), &end, 10);
+    if (text->empty() || end != text->c_str() + text->size() || n < 0 || n > kMaxThreads) {
+      std::fprintf(stderr, "plumbline replay: --threads must be a whole number in [0, %u]\n",
+                   kMaxThreads);
+      return 2;
+    }
+    threads = n == 0 ? std::max(1u, std::thread::hardware_concurrency())
+                     : static_cast<unsigned>(n);
+  }
+  if (threads > 1 && report_path) {
+    std::fprintf(stderr, "plumbline replay: --report needs one thread (leave out --threads)\n");
+    return 2;
+  }
   std::unique_ptr<std::FILE, int (*)(std::FILE*)> trace_file(nullptr, &std::fclose);
   std::optional<ObservationTracer> tracer;
   if (trace_path) {
@@ -247,8 +282,29 @@ int RunReplay(const Args& args) {
   const bool json = parsed->Has("json");
   const bool colour = !json && WantsColour(stdout);
   const bool progress = ::isatty(STDERR_FILENO) != 0;
-  Engine engine(std::move(config).value());
-  if (tracer) engine.SetObservationListener(tracer->series(), &*tracer);
+  // One engine per thread. With several, each holds the series serve would
+  // place on its shard (a series with the covariates it reads), and they share
+  // one calibration per profile.
+  const Config engine_config = std::move(config).value();
+  auto designs = std::make_shared<DesignCache>();
+  EngineOptions engine_options;
+  if (threads > 1) {
+    engine_options.make_design = [designs](const ProfileOptions& profile) {
+      return designs->Make(profile);
+    };
+  }
+  std::vector<std::unique_ptr<Engine>> engines;
+  for (unsigned k = 0; k < threads; ++k) {
+    engines.push_back(std::make_unique<Engine>(engine_config, engine_options));
+  }
+  const CovariateGroups groups(engine_config);
+  const auto owner = [&](std::string_view series) {
+    return threads == 1 ? 0u : static_cast<unsigned>(groups.RouteHash(series) % threads);
+  };
+  Engine& engine = *engines[0];
+  if (tracer) {
+    engines[owner(tracer->series())]->SetObservationListener(tracer->series(), &*tracer);
+  }
   std::vector<Alert> out;
   std::map<std::string, std::uint64_t> alerts_by_kind, events_by_type;
   std::uint64_t readings = 0;
@@ -272,10 +328,25 @@ int RunReplay(const Args& args) {
     out.clear();
   };
 
+  auto refuse = [&](const InputStream& stream, const OwnedReading& reading,
+                    IngestOutcome outcome) {
+    ++rejected[std::string(ToString(outcome))];
+    if (first_errors.size() < 10) {
+      first_errors.push_back({stream.path(), reading.line, std::string(ToString(outcome)),
+                              "series \"" + reading.series + "\" at " +
+                                  FormatRfc3339(reading.time)});
+    }
+  };
+  auto show_progress = [&]() {
+    std::uint64_t done = 0;
+    for (auto& stream : streams) done += stream->bytes_read();
+    PrintProgress(done, total_bytes, readings);
+  };
+
   if (!quiet && !json) {
     std::printf("%-20s  %-13s %s\n", "detected_at", "kind", "series, change and size");
   }
-  while (true) {
+  while (threads == 1) {
     InputStream* next = nullptr;
     const OwnedReading* head = nullptr;
     for (auto& stream : streams) {  // earliest head wins; ties go to the earlier input
@@ -303,29 +374,131 @@ int RunReplay(const Args& args) {
       ++readings;
       if (report_path) recorder.AddPoint(head->series, point);
     } else {
-      ++rejected[std::string(ToString(outcome))];
-      if (first_errors.size() < 10) {
-        first_errors.push_back({next->path(), head->line, std::string(ToString(outcome)),
-                                "series \"" + head->series + "\" at " +
-                                    FormatRfc3339(head->time)});
-      }
+      refuse(*next, *head, outcome);
     }
     next->Pop();
     publish();
-    if (progress && (readings & 0xFFFF) == 0) {
-      std::uint64_t done = 0;
-      for (auto& stream : streams) done += stream->bytes_read();
-      PrintProgress(done, total_bytes, readings);
-    }
+    if (progress && (readings & 0xFFFF) == 0) show_progress();
   }
-  engine.Finish(&out);
+
+  // Threaded: the merged readings are read kThreadedBlock at a time, and every
+  // engine walks the whole block. Each advances its clock at every reading, as
+  // the one engine would, and ingests its own series' readings. Their alerts
+  // are then put back into the one engine's order: by reading; at a reading,
+  // the silences its clock raised (by queued deadline, then series name:
+  // Engine::AdvanceClock's order) before what the reading itself raised.
+  // Only the first-errors list may order a bad line and a refused reading
+  // differently, as lines are parsed a block ahead.
+  struct BlockEntry {
+    OwnedReading reading;
+    const InputStream* stream;
+  };
+  struct Tagged {
+    std::size_t index;  // in the block
+    int phase;          // 0: the clock's silences, 1: the reading's own alerts
+    EventTime key;      // phase 0: the queued deadline
+    Alert alert;
+  };
+  struct EngineRound {
+    std::vector<std::size_t> own;  // block indices of this engine's readings
+    std::vector<Tagged> out;
+    std::vector<std::pair<std::size_t, IngestOutcome>> refused;
+    std::uint64_t accepted = 0;
+  };
+  std::vector<BlockEntry> block;
+  std::vector<EngineRound> rounds(threads);
+  const auto run_engine = [&](unsigned k) {
+    Engine& e = *engines[k];
+    EngineRound& round = rounds[k];
+    std::vector<Alert> raised_here;
+    std::vector<EventTime> keys;
+    std::size_t next_own = 0;
+    for (std::size_t i = 0; i < block.size(); ++i) {
+      const OwnedReading& reading = block[i].reading;
+      raised_here.clear();
+      keys.clear();
+      e.AdvanceClock(reading.time, &raised_here, &keys);
+      for (std::size_t j = 0; j < raised_here.size(); ++j) {
+        round.out.push_back({i, 0, keys[j], std::move(raised_here[j])});
+      }
+      if (next_own >= round.own.size() || round.own[next_own] != i) continue;
+      if (next_own + Engine::kPrefetchAhead < round.own.size()) {
+        const OwnedReading& ahead = block[round.own[next_own + Engine::kPrefetchAhead]].reading;
+        e.Prefetch(ahead.series, ahead.time);
+      }
+      ++next_own;
+      raised_here.clear();
+      const IngestOutcome outcome =
+          e.Ingest(reading.series, reading.time, reading.value, &raised_here);
+      for (Alert& a : raised_here) round.out.push_back({i, 1, 0, std::move(a)});
+      if (outcome == IngestOutcome::kAccepted) {
+        ++round.accepted;
+      } else {
+        round.refused.emplace_back(i, outcome);
+      }
+    }
+  };
+  while (threads > 1) {
+    block.clear();
+    for (EngineRound& round : rounds) round = EngineRound{};
+    while (block.size() < kThreadedBlock) {
+      InputStream* next = nullptr;
+      const OwnedReading* head = nullptr;
+      for (auto& stream : streams) {  // earliest head wins; ties go to the earlier input
+        const OwnedReading* candidate = stream->Head();
+        if (candidate && (!head || candidate->time < head->time)) {
+          head = candidate;
+          next = stream.get();
+        }
+      }
+      if (!head) break;
+      rounds[owner(head->series)].own.push_back(block.size());
+      block.push_back({next->Take(), next});
+    }
+    if (block.empty()) break;
+    std::vector<std::thread> workers;
+    for (unsigned k = 1; k < threads; ++k) workers.emplace_back(run_engine, k);
+    run_engine(0);
+    for (std::thread& worker : workers) worker.join();
+    std::vector<Tagged> merged;
+    std::vector<std::pair<std::size_t, IngestOutcome>> refused;
+    for (EngineRound& round : rounds) {
+      std::move(round.out.begin(), round.out.end(), std::back_inserter(merged));
+      refused.insert(refused.end(), round.refused.begin(), round.refused.end());
+      readings += round.accepted;
+    }
+    std::stable_sort(merged.begin(), merged.end(), [](const Tagged& a, const Tagged& b) {
+      if (a.index != b.index) return a.index < b.index;
+      if (a.phase != b.phase) return a.phase < b.phase;
+      if (a.key != b.key) return a.key < b.key;
+      return a.alert.series < b.alert.series;
+    });
+    for (Tagged& t : merged) out.push_back(std::move(t.alert));
+    publish();
+    std::sort(refused.begin(), refused.end(),
+              [](const auto& a, const auto& b) { return a.first < b.first; });
+    for (const auto& [i, outcome] : refused) refuse(*block[i].stream, block[i].reading, outcome);
+    if (progress) show_progress();
+  }
+
+  if (threads == 1) {
+    engine.Finish(&out);
+  } else {  // each engine flushes in name order: merged, the one engine's order
+    for (auto& e : engines) e->Finish(&out);
+    std::stable_sort(out.begin(), out.end(),
+                     [](const Alert& a, const Alert& b) { return a.series < b.series; });
+  }
   publish();
   if (progress) std::fprintf(stderr, "\r\033[K");
   std::fclose(alerts_file);
   if (events_file) std::fclose(events_file);
-  if (!engine.design_status().ok()) {
+  std::size_t series_count = 0;
+  for (auto& e : engines) series_count += e->series_count();
+  for (auto& e : engines) {
+    if (e->design_status().ok()) continue;
     std::fprintf(stderr, "plumbline replay: a profile could not be calibrated: %s\n",
-                 engine.design_status().ToString().c_str());
+                 e->design_status().ToString().c_str());
+    break;
   }
 
   const double seconds =
@@ -334,7 +507,7 @@ int RunReplay(const Args& args) {
   std::uint64_t alerts_total = 0;
   for (const auto& [kind, n] : alerts_by_kind) alerts_total += n;
   std::fprintf(stderr, "\nreplay summary\n  readings   %llu accepted from %zu file(s), %zu series\n",
-               static_cast<unsigned long long>(readings), inputs.size(), engine.series_count());
+               static_cast<unsigned long long>(readings), inputs.size(), series_count);
   std::fprintf(stderr, "  alerts     %llu", static_cast<unsigned long long>(alerts_total));
   for (const auto& [kind, n] : alerts_by_kind) {
     std::fprintf(stderr, "  %s %llu", kind.c_str(), static_cast<unsigned long long>(n));

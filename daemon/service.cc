@@ -4,6 +4,7 @@
 #include <cmath>
 
 #include "daemon/access.h"
+#include "daemon/design_cache.h"
 #include "daemon/http_api.h"
 #include "daemon/kafka_alert_sink.h"
 #include "daemon/log.h"
@@ -18,30 +19,6 @@ using SteadyTime = std::chrono::steady_clock::time_point;
 constexpr std::size_t kDispatcherQueueBatches = 1024;
 // Alerts and events kept for GET /v1/alerts.
 constexpr std::size_t kRecentAlerts = 10000;
-
-}  // namespace
-
-// Profile designs made once and shared by all shards (a design is read-only
-// once made). Thread-safe: the mutex is held while calibrating, so shards
-// asking for the same profile wait for the one calibration.
-class DesignCache {
- public:
-  StatusOr<ProfileDesign> Make(const ProfileOptions& profile) {
-    std::lock_guard<std::mutex> lock(mutex_);
-    for (const auto& [options, design] : made_) {
-      if (SameProfileSettings(options, profile)) return design;
-    }
-    auto design = ProfileDesign::Make(profile);
-    if (design.ok()) made_.emplace_back(profile, *design);
-    return design;
-  }
-
- private:
-  std::mutex mutex_;  // guards made_
-  std::vector<std::pair<ProfileOptions, ProfileDesign>> made_;
-};
-
-namespace {
 
 // Calibrates every profile (once, into the cache), so a profile that cannot
 // be designed is refused at start or reload instead of dropping its series.

@@ -15,7 +15,7 @@
 #               lines; PLUMBLINE_ASAN_CXXFLAGS="-O1 -g" for lines), only the
 #               programs ctest starts (target plumbline_test_programs).
 #   build-tsan  ThreadSanitizer: the engine, shard, service and input tests
-#               (the code with threads and queues)
+#               (the code with threads and queues), and replay --threads
 # No benchmarks or developer tools are built. Any sanitizer report fails the
 # test that raised it, so this script fails too.
 # Measured cold (no ccache) on two cores shared with other builds (load 3 to 7):
@@ -67,14 +67,24 @@ for variant in "${variants[@]}"; do
     tsan)
       tsan_tests=(engine_test shard_test service_test inputs_test)
       configure "$dir" -DPLUMBLINE_TSAN=ON -DCMAKE_BUILD_TYPE=RelWithDebInfo
-      cmake --build "$dir" -j "$jobs" --target "${tsan_tests[@]}"
-      echo "run-sanitizers: ThreadSanitizer, engine, shard, service and input tests"
+      cmake --build "$dir" -j "$jobs" --target "${tsan_tests[@]}" plumbline
+      echo "run-sanitizers: ThreadSanitizer, engine, shard, service and input tests," \
+        "and replay --threads"
       # Two lanes of about equal length where there are two cores (measured
       # alone: service 161 s, inputs 140 s, shard 84 s, engine 37 s under load):
       # the four one after another were the longest stretch of the run.
-      lane() { for test in "$@"; do "$dir/tests/daemon/$test" --gtest_brief=1 || return 1; done; }
+      lane() {
+        for test in "$@"; do
+          if [[ $test == replay_threads ]]; then  # engines on threads, one merge
+            /usr/bin/python3 tests/e2e/check_threads.py --plumbline "$dir/daemon/plumbline" \
+              --fixture replay-fixtures/harbourside || return 1
+          else
+            "$dir/tests/daemon/$test" --gtest_brief=1 || return 1
+          fi
+        done
+      }
       if ((jobs >= 2)); then
-        lane service_test engine_test &
+        lane service_test engine_test replay_threads &
         first=$!
         lane inputs_test shard_test &
         second=$!
@@ -83,7 +93,7 @@ for variant in "${variants[@]}"; do
         wait "$second" || status=1
         ((status == 0)) || { echo "run-sanitizers: a ThreadSanitizer test failed" >&2; exit 1; }
       else
-        lane "${tsan_tests[@]}"
+        lane "${tsan_tests[@]}" replay_threads
       fi
       ;;
     *) echo "run-sanitizers: unknown variant '$variant' (asan | tsan)" >&2; exit 2 ;;
