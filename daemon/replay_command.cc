@@ -158,6 +158,21 @@ class InputStream {
   bool done_ = false;
 };
 
+// The input whose next reading comes first (ties go to the earlier input), or
+// null once every input is done.
+InputStream* Earliest(const std::vector<std::unique_ptr<InputStream>>& streams) {
+  InputStream* next = nullptr;
+  const OwnedReading* head = nullptr;
+  for (const auto& stream : streams) {
+    const OwnedReading* candidate = stream->Head();
+    if (candidate && (!head || candidate->time < head->time)) {
+      head = candidate;
+      next = stream.get();
+    }
+  }
+  return next;
+}
+
 void PrintProgress(std::uint64_t done, std::uint64_t total, std::uint64_t readings) {
   const double fraction = total ? static_cast<double>(done) / static_cast<double>(total) : 1.0;
   const int width = 30, filled = static_cast<int>(fraction * width);
@@ -347,16 +362,9 @@ int RunReplay(const Args& args) {
     std::printf("%-20s  %-13s %s\n", "detected_at", "kind", "series, change and size");
   }
   while (threads == 1) {
-    InputStream* next = nullptr;
-    const OwnedReading* head = nullptr;
-    for (auto& stream : streams) {  // earliest head wins; ties go to the earlier input
-      const OwnedReading* candidate = stream->Head();
-      if (candidate && (!head || candidate->time < head->time)) {
-        head = candidate;
-        next = stream.get();
-      }
-    }
-    if (!head) break;
+    InputStream* next = Earliest(streams);
+    if (!next) break;
+    const OwnedReading* head = next->Head();
     // The series' state of a later reading starts loading now (Engine::Prefetch;
     // one input only: with several, the merge order is not known that far ahead).
     if (streams.size() == 1) {
@@ -442,17 +450,9 @@ int RunReplay(const Args& args) {
     block.clear();
     for (EngineRound& round : rounds) round = EngineRound{};
     while (block.size() < kThreadedBlock) {
-      InputStream* next = nullptr;
-      const OwnedReading* head = nullptr;
-      for (auto& stream : streams) {  // earliest head wins; ties go to the earlier input
-        const OwnedReading* candidate = stream->Head();
-        if (candidate && (!head || candidate->time < head->time)) {
-          head = candidate;
-          next = stream.get();
-        }
-      }
-      if (!head) break;
-      rounds[owner(head->series)].own.push_back(block.size());
+      InputStream* next = Earliest(streams);
+      if (!next) break;
+      rounds[owner(next->Head()->series)].own.push_back(block.size());
       block.push_back({next->Take(), next});
     }
     if (block.empty()) break;
@@ -625,16 +625,9 @@ int RunForecast(const Args& args) {
   Engine engine(std::move(config).value());
   std::vector<Alert> out;  // the replay's alerts: not printed
   while (true) {
-    InputStream* next = nullptr;
-    const OwnedReading* head = nullptr;
-    for (auto& stream : streams) {  // earliest head wins, as in replay
-      const OwnedReading* candidate = stream->Head();
-      if (candidate && (!head || candidate->time < head->time)) {
-        head = candidate;
-        next = stream.get();
-      }
-    }
-    if (!head) break;
+    InputStream* next = Earliest(streams);  // as in replay
+    if (!next) break;
+    const OwnedReading* head = next->Head();
     engine.AdvanceClock(head->time, &out);
     engine.Ingest(head->series, head->time, head->value, &out);
     next->Pop();
