@@ -337,13 +337,7 @@ void Engine::ForgetSeries(const std::vector<std::string>& names) {
     forgotten += Drop(name);
     covariates_->Forget(name);  // its observations went with its state
   }
-  if (forgotten == 0) return;
-  // Deadlines may name forgotten series: rebuild them.
-  deadlines_ = {};
-  for (auto& [name, series] : series_) {
-    series->scheduled.reset();
-    Schedule(series.get());
-  }
+  if (forgotten > 0) RescheduleAll();  // deadlines may name forgotten series
 }
 
 std::vector<CovariateObservation> Engine::CovariateHistory(std::string_view name) const {

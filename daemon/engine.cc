@@ -190,7 +190,16 @@ Engine::Series* Engine::Adopt(std::unique_ptr<Series> series) {
   if (!inserted) index_.Erase(it->second.get());
   it->second = std::move(series);
   index_.Insert(raw);
+  if (!inserted) RescheduleAll();  // the queue may name the series replaced
   return raw;
+}
+
+void Engine::RescheduleAll() {
+  deadlines_ = {};
+  for (auto& [name, series] : series_) {
+    series->scheduled.reset();
+    Schedule(series.get());
+  }
 }
 
 bool Engine::Drop(std::string_view name) {
@@ -405,12 +414,7 @@ ReconfigureReport Engine::Reconfigure(Config config, std::vector<Alert>* out) {
     }
     return true;
   });
-  // Deadlines may name dropped or restarted series: rebuild them.
-  deadlines_ = {};
-  for (auto& [name, series] : series_) {
-    series->scheduled.reset();
-    Schedule(series.get());
-  }
+  RescheduleAll();  // deadlines may name dropped or restarted series
   return report;
 }
 

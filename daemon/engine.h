@@ -186,6 +186,8 @@ class Engine {
   Series* Adopt(std::unique_ptr<Series> series);
   // Drops the series named `name`; true if there was one.
   bool Drop(std::string_view name);
+  // Rebuilds the deadline queue from the series there are (after some went).
+  void RescheduleAll();
 
   Config config_;
   EngineOptions options_;

@@ -4,6 +4,7 @@
 // against real brokers: tests/e2e/check_kafka.py, tests/e2e/check_mqtt.py.
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <cstdlib>
 #include <string>
 #include <vector>
@@ -189,6 +190,32 @@ TEST(EngineForgetTest, ForgottenSeriesAreGoneAndSavedOnesRestoreAsTheyWere) {
   ASSERT_TRUE(engine.RestoreSeries("coldstore/a", *saved, &report).ok());
   EXPECT_EQ(report.kept, 1u);
   EXPECT_EQ(engine.SaveOneSeries("coldstore/a"), saved);
+}
+
+// Restoring a series the engine already runs (a partition that comes back)
+// replaces it; the silence queue must not keep the replaced one (it did: the
+// queue held its address, read when the deadline came due). Under ASan a
+// dangling entry fails here; without it, the silence must still come once.
+TEST(EngineForgetTest, RestoringOverARunningSeriesKeepsOneSilenceAndNoStaleEntry) {
+  Config config;
+  config.series.push_back(ProfileOptions{});
+  config.series.back().match = "**";
+  config.series.back().seasons = {};
+  config.series.back().warmup = 10;
+  config.series.back().silence_after = 10 * kMicrosPerMinute;
+  Engine engine(config);
+  std::vector<Alert> out;
+  for (int i = 0; i < 40; ++i) engine.Ingest("coldstore/a", i * kMicrosPerMinute, 20.0 + (i % 3), &out);
+  const auto saved = engine.SaveOneSeries("coldstore/a");
+  ASSERT_TRUE(saved.has_value());
+  ReconfigureReport report;
+  ASSERT_TRUE(engine.RestoreSeries("coldstore/a", *saved, &report).ok());
+  out.clear();
+  engine.AdvanceClock(100 * kMicrosPerMinute, &out);
+  const auto silences = std::count_if(out.begin(), out.end(), [](const Alert& a) {
+    return a.kind == AlertKind::kSilence && a.event == EventType::kAlert;
+  });
+  EXPECT_EQ(silences, 1);
 }
 
 }  // namespace
