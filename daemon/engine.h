@@ -96,9 +96,9 @@ class Engine {
                        std::vector<Alert>* out);
   // Reports silences due at `now` (one clock for every series: replay's), in
   // the order of their queued deadlines, ties by series name. If `keys` is
-  // given, the queued deadline of each alert appended is appended to it (so
-  // engines that split the series between them can merge their silences into
-  // this order: SilenceOrder).
+  // given, the queued deadline of each alert appended is appended to it, so
+  // engines that split the series between them can merge their silences back
+  // into this order (replay --threads).
   void AdvanceClock(EventTime now, std::vector<Alert>* out,
                     std::vector<EventTime>* keys = nullptr);
   // Reports the silence of one series if due at `now` (its own clock: serve,
