@@ -167,13 +167,18 @@ inputs:
             std::string::npos);
 }
 
-TEST(EngineForgetTest, ForgottenSeriesAreGoneAndSavedOnesRestoreAsTheyWere) {
+// One profile for every series: no season, a short warmup.
+Config EveryNameConfig() {
   Config config;
   config.series.push_back(ProfileOptions{});
   config.series.back().match = "**";
   config.series.back().seasons = {};
   config.series.back().warmup = 10;
-  Engine engine(config);
+  return config;
+}
+
+TEST(EngineForgetTest, ForgottenSeriesAreGoneAndSavedOnesRestoreAsTheyWere) {
+  Engine engine(EveryNameConfig());
   std::vector<Alert> out;
   for (int i = 0; i < 40; ++i) {
     for (const char* name : {"coldstore/a", "coldstore/b"}) {
@@ -197,15 +202,13 @@ TEST(EngineForgetTest, ForgottenSeriesAreGoneAndSavedOnesRestoreAsTheyWere) {
 // queue held its address, read when the deadline came due). Under ASan a
 // dangling entry fails here; without it, the silence must still come once.
 TEST(EngineForgetTest, RestoringOverARunningSeriesKeepsOneSilenceAndNoStaleEntry) {
-  Config config;
-  config.series.push_back(ProfileOptions{});
-  config.series.back().match = "**";
-  config.series.back().seasons = {};
-  config.series.back().warmup = 10;
+  Config config = EveryNameConfig();
   config.series.back().silence_after = 10 * kMicrosPerMinute;
   Engine engine(config);
   std::vector<Alert> out;
-  for (int i = 0; i < 40; ++i) engine.Ingest("coldstore/a", i * kMicrosPerMinute, 20.0 + (i % 3), &out);
+  for (int i = 0; i < 40; ++i) {
+    engine.Ingest("coldstore/a", i * kMicrosPerMinute, 20.0 + (i % 3), &out);
+  }
   const auto saved = engine.SaveOneSeries("coldstore/a");
   ASSERT_TRUE(saved.has_value());
   ReconfigureReport report;
