@@ -90,7 +90,7 @@ void ResidualWhitener::Restart() {
   state_variance_ = c_;
 }
 
-double ResidualWhitener::StepResponse() const {
+ResidualWhitener::SteadyState ResidualWhitener::Steady() const {
   // Steady state of the filter at one mean gap (the Riccati recursion
   // converges geometrically; 200 rounds are far more than enough for phi <= 0.98).
   const double phi2 = phi_ * phi_;
@@ -101,9 +101,27 @@ double ResidualWhitener::StepResponse() const {
     variance = predicted * (1.0 - c_) / (predicted + (1.0 - c_));
   }
   const double spread = predicted + (1.0 - c_);
-  if (!(spread > 0)) return 1.0;
-  const double gain = predicted / spread;
-  return (1.0 - phi_) / ((1.0 - phi_ + gain * phi_) * std::sqrt(spread));
+  if (!(spread > 0)) return {};
+  return {predicted / spread, spread};
+}
+
+double ResidualWhitener::StepResponse() const {
+  const SteadyState s = Steady();
+  return (1.0 - phi_) / ((1.0 - phi_ + s.gain * phi_) * std::sqrt(s.spread));
+}
+
+double ResidualWhitener::MeanStepResponse(long long n) const {
+  // The filter of the header run on a unit step: innovation 1 - phi m, then
+  // m moves toward the step by the gain.
+  const SteadyState s = Steady();
+  n = std::max(1LL, n);
+  double m = 0.0, sum = 0.0;
+  for (long long i = 0; i < n; ++i) {
+    const double innovation = 1.0 - phi_ * m;
+    sum += innovation;
+    m = phi_ * m + s.gain * innovation;
+  }
+  return sum / (static_cast<double>(n) * std::sqrt(s.spread));
 }
 
 void ResidualWhitener::Save(SnapshotWriter& w) const {

@@ -73,11 +73,22 @@ class ResidualWhitener {
   // relative to sqrt(g0) units: a lasting shift d in u shows in the output as
   // d * StepResponse() after the filter settles.
   double StepResponse() const;
+  // The mean output per unit step in u over the first n >= 1 observations at
+  // or after the step (one mean gap apart, the filter in its steady state):
+  // the first innovations carry more of a step than the settled
+  // StepResponse(), so a detector's shift estimate, the mean of its input
+  // since the change, divided by this is the step in u.
+  double MeanStepResponse(long long n) const;
   // Checkpoints (detectors/snapshot.h): Load overwrites the whole state.
   void Save(SnapshotWriter& w) const;
   Status Load(SnapshotReader& r);
 
  private:
+  struct SteadyState {
+    double gain = 1.0;    // K
+    double spread = 1.0;  // F, a fraction of g0
+  };
+  SteadyState Steady() const;
   void Learn(double x2, double x1, double u, bool have_two);
   void Refit();
 

@@ -783,8 +783,17 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
   e.detected_at = t;
   e.change_at = alarm.change_at;
   e.detectors = mask;
-  e.magnitude_sd = alarm.shift;
-  e.magnitude = alarm.shift * sigma;
+  // The detectors on z see whitened residuals, where a step shows at its full
+  // size only in the first innovations and then as StepResponse() of it
+  // (residual_whitener.h). Their shift estimate is the mean of z since
+  // change_at: divided by the whitener's mean response over as many
+  // observations, it is the step in the readings, which the alert reports and
+  // the forecaster moves by. The count CUSUM reads the counts themselves.
+  const double response = std::holds_alternative<PoissonCusum>(level_[best])
+                              ? 1.0
+                              : whitener_.MeanStepResponse(ObservationsSince(alarm.change_at));
+  e.magnitude_sd = alarm.shift / response;
+  e.magnitude = e.magnitude_sd * sigma;
   e.before = forecast;
   e.after = forecast + e.magnitude;
   events->push_back(e);
@@ -1080,16 +1089,19 @@ bool SeriesMonitor::Suspicious(double fraction_of_threshold) const {
   return false;
 }
 
-void SeriesMonitor::StartRegime(EventTime change_at) {
-  // Observations already in the new regime: those at or after change_at among
-  // the recent ones (the ring holds the last 256).
+long long SeriesMonitor::ObservationsSince(EventTime change_at) const {
+  // Those at or after change_at among the recent ones (the ring holds the last 256).
   long long inside = 0;
   const long long available = std::min<long long>(observations_, recent_times_.size());
   for (long long k = 0; k < available; ++k) {
     if (recent_times_[(observations_ - k) % recent_times_.size()] >= change_at) ++inside;
   }
+  return inside;
+}
+
+void SeriesMonitor::StartRegime(EventTime change_at) {
   regime_start_ = change_at;
-  regime_observations_ = inside;
+  regime_observations_ = ObservationsSince(change_at);  // already in the new regime
 }
 
 std::vector<SeriesMonitor::DetectorSnapshot> SeriesMonitor::DetectorSnapshots() const {

@@ -365,6 +365,8 @@ class SeriesMonitor {
   void ChooseCountChart();
   // Feeds the count CUSUM's re-fit sample; re-fits once it is full.
   void CollectCountIncrements(double count, double down_ratio, PoissonCusum& chart);
+  // Observations at or after change_at among the last 256.
+  long long ObservationsSince(EventTime change_at) const;
   void StartRegime(EventTime change_at);
   // Annotations.
   void ApplyPlannedChange(const Annotation& change);
