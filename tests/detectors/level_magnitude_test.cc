@@ -21,31 +21,16 @@ namespace {
 
 using namespace noise_streams;
 
-// Median magnitude (in units of the noise's sd) of the first level alert
-// after a 3-sd upward step, over 40 seeded trials.
+// Median magnitude (in units of the noise's sd) of the first upward level
+// alert after a 3-sd upward step, over 40 seeded trials.
 double MedianMagnitudeOfThreeSigmaStep(Noise noise) {
   auto design = ProfileDesign::Make(ProfileFor(noise));
   EXPECT_TRUE(design.ok());
   std::vector<double> magnitudes;
   for (int trial = 0; trial < 40; ++trial) {
-    SeriesMonitor monitor(&*design);
-    NoiseSource source(noise, 5000 + static_cast<std::uint64_t>(trial));
-    const int change = 3000 + 11 * trial;
-    EventTime t = kStart;
-    std::vector<SeriesEvent> events;
-    bool found = false;
-    for (int i = 0; i < change + 200 && !found; ++i) {
-      t = NextTime(source, t);
-      const double mean = Mean(noise, t) + (i >= change ? 3.0 : 0.0);
-      events.clear();
-      monitor.Observe(t, source.Next(mean), &events);
-      for (const SeriesEvent& e : events) {
-        if (i >= change && e.type == EventType::kAlert && e.kind == AlertKind::kLevel) {
-          magnitudes.push_back(e.magnitude);
-          found = true;
-        }
-      }
-    }
+    const auto alert = FirstAlertAfterStep(*design, noise, 5000 + static_cast<std::uint64_t>(trial),
+                                           3000 + 11 * trial, 3.0, 200);
+    if (alert) magnitudes.push_back(alert->event.magnitude);
   }
   EXPECT_GE(magnitudes.size(), 38u) << Name(noise);
   std::sort(magnitudes.begin(), magnitudes.end());

@@ -31,28 +31,10 @@ double MedianDelayOfTwoSigmaStep(Noise noise) {
   EXPECT_TRUE(design.ok());
   const double sd = noise == Noise::kPoisson ? std::sqrt(2.0) : 1.0;
   std::vector<double> delays;
-  int missed = 0;
   for (int trial = 0; trial < 100; ++trial) {
-    SeriesMonitor monitor(&*design);
-    NoiseSource source(noise, 1000 + static_cast<std::uint64_t>(trial));
-    const int change = 3000 + 7 * trial;
-    EventTime t = kStart;
-    std::vector<SeriesEvent> events;
-    bool found = false;
-    for (int i = 0; i < change + 400 && !found; ++i) {
-      t = NextTime(source, t);
-      const double mean = Mean(noise, t) + (i >= change ? 2.0 * sd : 0.0);
-      events.clear();
-      monitor.Observe(t, source.Next(mean), &events);
-      for (const SeriesEvent& e : events) {
-        if (i >= change && e.type == EventType::kAlert && e.kind == AlertKind::kLevel &&
-            e.direction == Direction::kUp) {
-          delays.push_back(i - change + 1);
-          found = true;
-        }
-      }
-    }
-    missed += !found;
+    const auto alert = FirstAlertAfterStep(*design, noise, 1000 + static_cast<std::uint64_t>(trial),
+                                           3000 + 7 * trial, 2.0 * sd, 400);
+    if (alert) delays.push_back(alert->delay);
   }
   std::sort(delays.begin(), delays.end());
   const double median = delays.empty() ? 1e9 : delays[delays.size() / 2];

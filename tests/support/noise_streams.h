@@ -7,10 +7,12 @@
 #include <cmath>
 #include <cstdint>
 #include <numbers>
+#include <optional>
 
 #include "detectors/event_time.h"
 #include "detectors/profile.h"
 #include "detectors/random.h"
+#include "detectors/series_monitor.h"
 
 namespace plumbline::noise_streams {
 
@@ -76,6 +78,34 @@ inline constexpr EventTime kStart = 1'772'323'200LL * kMicrosPerSecond;  // 2026
 inline EventTime NextTime(NoiseSource& source, EventTime t) {
   return t + 10 * kMicrosPerMinute +
          static_cast<EventTime>((source.Uniform() - 0.5) * 4.0 * kMicrosPerMinute);
+}
+
+// The first upward level alert on a stream of `noise` (seed) whose mean steps
+// up by `step` at reading `change`, looked for through `after` readings past
+// it; delay counts readings from the first shifted one, inclusive.
+struct StepAlert {
+  int delay = 0;
+  SeriesEvent event;
+};
+inline std::optional<StepAlert> FirstAlertAfterStep(const ProfileDesign& design, Noise noise,
+                                                    std::uint64_t seed, int change, double step,
+                                                    int after) {
+  SeriesMonitor monitor(&design);
+  NoiseSource source(noise, seed);
+  EventTime t = kStart;
+  std::vector<SeriesEvent> events;
+  for (int i = 0; i < change + after; ++i) {
+    t = NextTime(source, t);
+    events.clear();
+    monitor.Observe(t, source.Next(Mean(noise, t) + (i >= change ? step : 0.0)), &events);
+    for (const SeriesEvent& e : events) {
+      if (i >= change && e.type == EventType::kAlert && e.kind == AlertKind::kLevel &&
+          e.direction == Direction::kUp) {
+        return StepAlert{i - change + 1, e};
+      }
+    }
+  }
+  return std::nullopt;
 }
 
 }  // namespace plumbline::noise_streams
