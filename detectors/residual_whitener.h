@@ -29,8 +29,8 @@
 // With c = 1 this is a = (u - phi^L u_prev) / sqrt(1 - phi^2L): the plain
 // continuous-time AR(1) whitening. A lasting step of size d in u reaches the
 // output as a step of d * StepResponse() once the filter settles (the first
-// innovations carry more of it), which the monitor uses to turn a detector's
-// shift estimate back into units.
+// innovations carry more of it; MeanStepResponse(n) averages the first n),
+// which the monitor uses to turn a detector's shift estimate back into units.
 //
 // Estimation: running means over the last ~kWindow in-control residuals of
 // u_t u_{t-1}, u_t u_{t-2} and u_t^2, each residual Huber-clipped at 3 sigma so
