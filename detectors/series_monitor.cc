@@ -798,9 +798,10 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
   // change_at: divided by the whitener's mean response over as many
   // observations, it is the step in the readings, which the alert reports and
   // the forecaster moves by. The count CUSUM reads the counts themselves.
-  const double response = std::holds_alternative<PoissonCusum>(level_[best])
-                              ? 1.0
-                              : whitener_.MeanStepResponse(ObservationsSince(alarm.change_at));
+  const double response =
+      std::holds_alternative<PoissonCusum>(level_[best])
+          ? 1.0
+          : whitener_.MeanStepResponse(ObservationsSince(alarm.change_at));
   e.magnitude_sd = alarm.shift / response;
   e.magnitude = e.magnitude_sd * sigma;
   e.before = forecast;

@@ -6,12 +6,12 @@
 // (the median within 25% of the true step) is our own, no source: the
 // detectors' shift estimates are means over short excursions that start where
 // the detector thinks the change began. Invented data.
+#include <gtest/gtest.h>
+
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <vector>
-
-#include <gtest/gtest.h>
 
 #include "detectors/series_monitor.h"
 #include "tests/support/noise_streams.h"
@@ -28,15 +28,16 @@ double MedianMagnitudeOfThreeSigmaStep(Noise noise) {
   EXPECT_TRUE(design.ok());
   std::vector<double> magnitudes;
   for (int trial = 0; trial < 40; ++trial) {
-    const auto alert = FirstAlertAfterStep(*design, noise, 5000 + static_cast<std::uint64_t>(trial),
-                                           3000 + 11 * trial, 3.0, 200);
+    const auto alert =
+        FirstAlertAfterStep(*design, noise, 5000 + static_cast<std::uint64_t>(trial),
+                            3000 + 11 * trial, 3.0, 200);
     if (alert) magnitudes.push_back(alert->event.magnitude);
   }
   EXPECT_GE(magnitudes.size(), 38u) << Name(noise);
   std::sort(magnitudes.begin(), magnitudes.end());
   const double median = magnitudes.empty() ? 0.0 : magnitudes[magnitudes.size() / 2];
-  std::printf("[figures] %s: 3-sd step, %zu alerts, median magnitude %.2f sd\n", Name(noise),
-              magnitudes.size(), median);
+  std::printf("[figures] %s: 3-sd step, %zu alerts, median magnitude %.2f sd\n",
+              Name(noise), magnitudes.size(), median);
   return median;
 }
 
@@ -44,7 +45,8 @@ TEST(LevelMagnitudeTest, AStepOnIndependentNoiseIsReportedAtItsSize) {
   EXPECT_NEAR(MedianMagnitudeOfThreeSigmaStep(Noise::kGaussian), 3.0, 0.75);
 }
 
-TEST(LevelMagnitudeTest, AStepOnAutocorrelatedNoiseIsReportedAtItsSizeNotItsWhitenedSize) {
+TEST(LevelMagnitudeTest,
+     AStepOnAutocorrelatedNoiseIsReportedAtItsSizeNotItsWhitenedSize) {
   EXPECT_NEAR(MedianMagnitudeOfThreeSigmaStep(Noise::kAutoregressive), 3.0, 0.75);
 }
 

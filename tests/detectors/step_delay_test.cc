@@ -32,8 +32,9 @@ double MedianDelayOfTwoSigmaStep(Noise noise) {
   const double sd = noise == Noise::kPoisson ? std::sqrt(2.0) : 1.0;
   std::vector<double> delays;
   for (int trial = 0; trial < 100; ++trial) {
-    const auto alert = FirstAlertAfterStep(*design, noise, 1000 + static_cast<std::uint64_t>(trial),
-                                           3000 + 7 * trial, 2.0 * sd, 400);
+    const auto alert =
+        FirstAlertAfterStep(*design, noise, 1000 + static_cast<std::uint64_t>(trial),
+                            3000 + 7 * trial, 2.0 * sd, 400);
     if (alert) delays.push_back(alert->delay);
   }
   std::sort(delays.begin(), delays.end());

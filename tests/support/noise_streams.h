@@ -87,9 +87,9 @@ struct StepAlert {
   int delay = 0;
   SeriesEvent event;
 };
-inline std::optional<StepAlert> FirstAlertAfterStep(const ProfileDesign& design, Noise noise,
-                                                    std::uint64_t seed, int change, double step,
-                                                    int after) {
+inline std::optional<StepAlert> FirstAlertAfterStep(const ProfileDesign& design,
+                                                    Noise noise, std::uint64_t seed,
+                                                    int change, double step, int after) {
   SeriesMonitor monitor(&design);
   NoiseSource source(noise, seed);
   EventTime t = kStart;
