@@ -568,8 +568,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // down; Durbin & Koopman 2001, "Time Series Analysis by State Space Methods",
   // ch. 5, diffuse initialisation), so they feed neither the scale nor the detectors.
   const bool identified = forecaster_->updates() >= forecaster_->dimension();
-  const bool armed = identified && observations_ > design_->profile.warmup &&
-                     scale_.count() >= kMinScaleResiduals && sigma > 0;
+  const bool scale_known = scale_.count() >= kMinScaleResiduals && sigma > 0;
+  const bool armed = identified && observations_ > design_->profile.warmup && scale_known;
   // The scale, phase profile and whitening hold still while a level detector
   // is on its way to a threshold, so a level change being tested for is not
   // learned away first. Not while the variance CUSUM is: a scale held still
@@ -588,8 +588,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // draws with a false alert 12 -> 7 and 11 -> 6.
   const double phase_sigma = PhaseSigma(bin);
   const bool spread_seen = phase_sigma > 1.5 * design_->scale.floor;
-  const bool pinned = !spread_seen && scale_.count() >= kMinScaleResiduals && sigma > 0;
-  const double a = identified && !pinned
+  const double a = identified && (spread_seen || !scale_known)
                        ? whitener_.Whiten(to, v, arrival_.mean_gap(), sigma, !suspicious)
                        : v;
   const double z = armed && phase_sigma > 0 ? a / phase_sigma : 0.0;
