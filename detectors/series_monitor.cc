@@ -152,7 +152,10 @@ SeriesMonitor::SeriesMonitor(const ProfileDesign* design)
       scale_(design->scale),
       arrival_(design->arrival),
       variance_(design->variance),
-      intake_(design->profile.kind, design->profile.gaps, design->profile.every) {
+      intake_(design->profile.kind, design->profile.gaps, design->profile.every),
+      level_sample_(-kLevelClip, kLevelClip),
+      variance_sample_(0.0, design->variance.cap),
+      arrival_sample_(0.0, design->arrival.gap_cap) {
   BuildLevelDetectors(design->level);
   firings_.resize(level_.size());
   threshold_fraction_.assign(level_.size(), 0.0);
@@ -924,28 +927,28 @@ void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
   // budget (1/4 per family, see the header), so it is fitted to 8 x arl0.
   const double side_arl0 = 8.0 * design_->profile.arl0;
   if (!variance_refitted_ && std::isfinite(variance_q)) {
-    variance_sample_.push_back(variance_q);
+    variance_sample_.Add(variance_q);
     if (variance_sample_.size() >= RefitSampleSize()) {
       const VarianceCusumOptions& o = design_->variance;
       const auto [up_h, down_h] =
-          RefitSides(variance_sample_, CappedChiSquareVariance(o.cap), o.k_up(),
+          RefitSides(variance_sample_.Values(), CappedChiSquareVariance(o.cap), o.k_up(),
                      o.k_down(), o.up_h, o.down_h, side_arl0, kRefitCeiling);
       variance_.SetDecisionIntervals(up_h, down_h);
       variance_refitted_ = true;
-      std::vector<double>().swap(variance_sample_);
+      variance_sample_.Release();
     }
   }
   if (!arrival_refitted_ && std::isfinite(arrival_score)) {
-    arrival_sample_.push_back(arrival_score);
+    arrival_sample_.Add(arrival_score);
     if (arrival_sample_.size() >= RefitSampleSize()) {
       const ArrivalModelOptions& o = design_->arrival;
       const auto [slower_h, faster_h] = RefitSides(
-          arrival_sample_, CappedExponentialVariance(o.gap_cap),
+          arrival_sample_.Values(), CappedExponentialVariance(o.gap_cap),
           ArrivalModelOptions::kSlowerReference, ArrivalModelOptions::kFasterReference,
           o.slower_h, o.faster_h, side_arl0, kRefitCeiling);
       arrival_.SetDecisionIntervals(slower_h, faster_h);
       arrival_refitted_ = true;
-      std::vector<double>().swap(arrival_sample_);
+      arrival_sample_.Release();
     }
   }
 }
@@ -1030,25 +1033,26 @@ void SeriesMonitor::CollectCountIncrements(double count, double down_ratio,
 
 void SeriesMonitor::CollectLevelSample(double clipped_z) {
   if (adapted_h_ > 0) return;
-  level_sample_.push_back(clipped_z);
+  level_sample_.Add(clipped_z);
   if (level_sample_.size() < RefitSampleSize()) return;
+  const std::vector<double> sample = level_sample_.Values();
   for (std::size_t i = 0; i < level_.size(); ++i) {
     Cusum* cusum = std::get_if<Cusum>(&level_[i]);
     if (cusum == nullptr) continue;
     const CusumOptions& o = cusum->options();
     const auto [upper, lower] =
-        RefitSides(level_sample_, ResidualScale::ClippedSecondMoment(kLevelClip), o.k,
+        RefitSides(sample, ResidualScale::ClippedSecondMoment(kLevelClip), o.k,
                    -o.k, o.h, o.h, 2.0 * design_->level.per_detector_arl0, kRefitCeiling);
     adapted_h_ = std::max(upper, lower);
     cusum->SetDecisionInterval(adapted_h_);
   }
   if (adapted_h_ <= 0) adapted_h_ = -1;  // no CUSUM to adapt: stop collecting
-  std::vector<double>().swap(level_sample_);
+  level_sample_.Release();
 }
 
 void SeriesMonitor::BuildLevelDetectors(const DetectorDesign& d) {
   adapted_h_ = 0.0;
-  level_sample_.clear();
+  level_sample_.Release();
   count_chart_decided_ = false;
   count_refitted_ = false;
   count_sample_.clear();
@@ -1081,8 +1085,8 @@ void SeriesMonitor::Retune(const ProfileDesign* design) {
   variance_ = VarianceCusum(design->variance);
   arrival_.SetDecisionIntervals(design->arrival.slower_h, design->arrival.faster_h);
   variance_refitted_ = arrival_refitted_ = false;
-  variance_sample_.clear();
-  arrival_sample_.clear();
+  variance_sample_ = QuantisedSample(0.0, design->variance.cap);
+  arrival_sample_ = QuantisedSample(0.0, design->arrival.gap_cap);
 }
 
 void SeriesMonitor::ResetLevelDetectors() {
@@ -1269,8 +1273,8 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
   w.I64(rate_hold_until_);
   w.F64(last_z_);
   whitener_.Save(w);
-  w.DoubleVector(variance_sample_);
-  w.DoubleVector(arrival_sample_);
+  w.DoubleVector(variance_sample_.Values());
+  w.DoubleVector(arrival_sample_.Values());
   w.Bool(variance_refitted_);
   w.Bool(arrival_refitted_);
   w.Bool(silent_);
@@ -1284,9 +1288,24 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
   w.DoubleVector(count_sample_);
   w.Bool(count_refitted_);
   health_.Save(w);
-  w.DoubleVector(level_sample_);
+  w.DoubleVector(level_sample_.Values());
   w.F64(adapted_h_);
 }
+
+namespace {
+
+// A re-fit sample, saved as the values it reads back (a checkpoint's format
+// does not depend on how a sample is held).
+void LoadSample(SnapshotReader& r, std::size_t max, const char* what,
+                QuantisedSample* sample) {
+  std::vector<double> values(r.BoundedCount(8, max, what));
+  r.FiniteDoubles(values.data(), values.size(), what);
+  sample->Release();
+  sample->Reserve(values.size());
+  for (double x : values) sample->Add(x);
+}
+
+}  // namespace
 
 Status SeriesMonitor::Load(SnapshotReader& r) {
   r.Tag("SMON");
@@ -1396,10 +1415,8 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
   last_z_ = r.Finite("last z");
   if (Status s = whitener_.Load(r); !s.ok()) return s;
   // Samples are re-fitted and cleared when they reach RefitSampleSize().
-  variance_sample_.resize(r.BoundedCount(8, kMaxRefitSample - 1, "variance sample"));
-  r.FiniteDoubles(variance_sample_.data(), variance_sample_.size(), "variance sample");
-  arrival_sample_.resize(r.BoundedCount(8, kMaxRefitSample - 1, "arrival sample"));
-  r.FiniteDoubles(arrival_sample_.data(), arrival_sample_.size(), "arrival sample");
+  LoadSample(r, kMaxRefitSample - 1, "variance sample", &variance_sample_);
+  LoadSample(r, kMaxRefitSample - 1, "arrival sample", &arrival_sample_);
   variance_refitted_ = r.Bool();
   arrival_refitted_ = r.Bool();
   silent_ = r.Bool();
@@ -1420,8 +1437,7 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
   r.FiniteDoubles(count_sample_.data(), count_sample_.size(), "count chart sample");
   count_refitted_ = r.Bool();
   if (Status s = health_.Load(r); !s.ok()) return s;
-  level_sample_.resize(r.BoundedCount(8, kMaxRefitSample - 1, "adapt_thresholds sample"));
-  r.FiniteDoubles(level_sample_.data(), level_sample_.size(), "adapt_thresholds sample");
+  LoadSample(r, kMaxRefitSample - 1, "adapt_thresholds sample", &level_sample_);
   adapted_h_ = r.Finite("adapted threshold");
   if (!r.ok()) return r.status();
   if (adapted_h_ > 0) {

@@ -138,6 +138,7 @@
 #include "detectors/page_hinkley.h"
 #include "detectors/poisson_cusum.h"
 #include "detectors/profile.h"
+#include "detectors/quantised_sample.h"
 #include "detectors/residual_profile.h"
 #include "detectors/residual_scale.h"
 #include "detectors/residual_whitener.h"
@@ -489,13 +490,13 @@ class SeriesMonitor {
   std::vector<double> count_sample_;
   bool count_refitted_ = false;
   CalibrationHealth health_;
-  std::vector<double> level_sample_;  // winsorised z for adapt_thresholds
+  QuantisedSample level_sample_;      // winsorised z for adapt_thresholds
   double adapted_h_ = 0.0;            // 0: the design's h
   void CollectLevelSample(double clipped_z);
   ResidualWhitener whitener_;
   std::vector<double> threshold_fraction_;  // per level detector, at its last update
-  std::vector<double> variance_sample_;     // capped z^2, until re-fitted
-  std::vector<double> arrival_sample_;      // arrival scores X, until re-fitted
+  QuantisedSample variance_sample_;         // capped z^2, until re-fitted
+  QuantisedSample arrival_sample_;          // arrival scores X, until re-fitted
   bool variance_refitted_ = false, arrival_refitted_ = false;
   bool silent_ = false;
   bool has_reading_ = false;
