@@ -34,8 +34,7 @@ namespace plumbline {
 class QuantisedSample {
  public:
   // An empty sample of values in [low, high] (low < high).
-  QuantisedSample(double low, double high)
-      : low_(low), step_((high - low) / kTop) {}
+  QuantisedSample(double low, double high) : low_(low), step_((high - low) / kTop) {}
 
   // Appends x, clamped into [low, high] and rounded to the nearest level.
   void Add(double x) {

@@ -1041,8 +1041,8 @@ void SeriesMonitor::CollectLevelSample(double clipped_z) {
     if (cusum == nullptr) continue;
     const CusumOptions& o = cusum->options();
     const auto [upper, lower] =
-        RefitSides(sample, ResidualScale::ClippedSecondMoment(kLevelClip), o.k,
-                   -o.k, o.h, o.h, 2.0 * design_->level.per_detector_arl0, kRefitCeiling);
+        RefitSides(sample, ResidualScale::ClippedSecondMoment(kLevelClip), o.k, -o.k, o.h,
+                   o.h, 2.0 * design_->level.per_detector_arl0, kRefitCeiling);
     adapted_h_ = std::max(upper, lower);
     cusum->SetDecisionInterval(adapted_h_);
   }

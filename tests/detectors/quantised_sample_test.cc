@@ -72,7 +72,8 @@ TEST(QuantisedSampleTest, RefittedThresholdIsWithinTheSearchToleranceOfTheOrigin
     std::vector<double> original;
     for (int i = 0; i < 2000; ++i) {
       const double z = random.Normal() * 1.1;  // wider than the model: a re-fit is needed
-      const double x = squares ? std::min(z * z, cap) : std::min(random.Exponential(1.0), cap);
+      const double x =
+          squares ? std::min(z * z, cap) : std::min(random.Exponential(1.0), cap);
       original.push_back(x - k);
       sample.Add(x);
     }
