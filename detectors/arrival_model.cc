@@ -179,15 +179,15 @@ void ArrivalShape::Refresh() {
       parent[j] = (parent_events[j] + prior_events) / (parent[j] + prior_exposure);
     }
   }
-  double sum = 0;
-  for (size_t b = 0; b < p_.size(); ++b) {
+  const auto raw = [&](size_t b) {
     const double prior_rate =
         fold_bins_ > 0 ? parent[b % static_cast<size_t>(fold_bins_)] : rate;
-    p_[b] = (events_[b] + prior_exposure * prior_rate) / (exposure_[b] + prior_exposure);
-    sum += p_[b];
-  }
+    return (events_[b] + prior_exposure * prior_rate) / (exposure_[b] + prior_exposure);
+  };
+  double sum = 0;
+  for (size_t b = 0; b < p_.size(); ++b) sum += raw(b);
   const double mean = sum / static_cast<double>(p_.size());
-  for (double& v : p_) v /= mean;
+  for (size_t b = 0; b < p_.size(); ++b) p_[b] = static_cast<float>(raw(b) / mean);
 }
 
 double ArrivalShape::Operational(EventTime from, EventTime to) const {
@@ -317,7 +317,7 @@ void ArrivalShape::Save(SnapshotWriter& w) const {
   w.Tag("SHAP");
   w.DoubleVector(events_);
   w.DoubleVector(exposure_);
-  w.DoubleVector(p_);
+  w.DoubleVector(std::vector<double>(p_.begin(), p_.end()));
   w.F64(exposure_total_);
   w.I64(anchor_);
   w.F64(weight_);
@@ -331,7 +331,8 @@ Status ArrivalShape::Load(SnapshotReader& r) {
   const std::size_t bins = p_.size();
   events_ = r.DoubleVector();
   exposure_ = r.DoubleVector();
-  p_ = r.DoubleVector();
+  const std::vector<double> p = r.DoubleVector();
+  p_.assign(p.begin(), p.end());
   if (r.ok() && (events_.size() != bins || exposure_.size() != bins || p_.size() != bins)) {
     return r.Fail("arrival shape bins differ");
   }

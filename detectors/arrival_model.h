@@ -154,7 +154,10 @@ class ArrivalShape {
   EventTime width_;  // bin width
   double memory_;    // microseconds
   int fold_bins_;    // 0 = one-level pooling
-  std::vector<double> events_, exposure_, p_;
+  std::vector<double> events_, exposure_;  // doubles: weights grow up to 1e100
+  // Relative intensities, derived from the two above at each refresh; single
+  // precision is ample for a ratio estimated from a few events a bin.
+  std::vector<float> p_;
   std::vector<double> parent_scratch_, parent_events_scratch_;  // Refresh's, sized once
   double exposure_total_ = 0.0;             // unforgotten, for `learned`
   EventTime anchor_ = 0;                    // weights grow as exp((t - anchor) / memory)

@@ -269,14 +269,16 @@ double ResidualProfile::Sigma(int key, double sigma_all) const {
 void ResidualProfile::Fold(Bin_* b, double r, double center, double q, double sigma,
                            double ratio, double clip, double correction, double window) {
   b->n += 1;
-  const double weight = 1.0 / std::min(b->n, window);
+  const double weight = 1.0 / std::min(static_cast<double>(b->n), window);
   const double limit = 4.0 * sigma;
-  b->mean += (std::clamp(r, center - limit, center + limit) - b->mean) * weight;
+  const double mean = b->mean;
+  b->mean = static_cast<float>(mean + (std::clamp(r, center - limit, center + limit) - mean) * weight);
   const double clipped = std::min(q * q, clip * clip * ratio) * correction;
   if (b->n == 1) {
-    b->s2 = clipped;
+    b->s2 = static_cast<float>(clipped);
   } else {
-    b->s2 += (clipped - b->s2) * weight;
+    const double s2 = b->s2;
+    b->s2 = static_cast<float>(s2 + (clipped - s2) * weight);
   }
 }
 
