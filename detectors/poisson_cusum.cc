@@ -5,10 +5,12 @@
 #include <cassert>
 #include <cmath>
 #include <cstdint>
+#include <limits>
 #include <vector>
 
 #include "detectors/eigen_types.h"
 #include "detectors/option_checks.h"
+#include "detectors/prediction.h"
 
 namespace plumbline {
 
@@ -494,6 +496,35 @@ StatusOr<PoissonCusumDesign> CalibratePoissonCusum(double mu0, double mu1, doubl
   design.arl0 = *in_control;
   design.arl1 = *out_of_control;
   return design;
+}
+
+double PoissonMidPQuantileResidual(double y, double mean) {
+  if (!(mean > 0) || !std::isfinite(mean) || std::isnan(y)) {
+    return std::numeric_limits<double>::quiet_NaN();
+  }
+  // Counts beyond this are far in the upper tail of any mean the monitor asks
+  // about (below kLowCountMean); the mass is summed term by term up to them.
+  constexpr double kMaxCount = 100000;
+  const long long count = static_cast<long long>(std::clamp(std::floor(y), 0.0, kMaxCount));
+  double mass = std::exp(-mean), below = 0;
+  for (long long k = 0; k < count; ++k) {
+    below += mass;
+    mass *= mean / static_cast<double>(k + 1);
+  }
+  const double at = mass;
+  // P(Y > count): the terms fall at least geometrically once past the mean.
+  double above = 0, term = mass;
+  for (long long k = count + 1;; ++k) {
+    term *= mean / static_cast<double>(k);
+    above += term;
+    if (!(term > above * 1e-17) || k > count + 100000) break;
+  }
+  // A tail that underflows (a count hundreds of sd from its mean) is held at
+  // 1e-300, where NormalQuantile gives its largest answer, about 20 sd.
+  constexpr double kSmallestTail = 1e-300;
+  const double lower = below + 0.5 * at, upper = above + 0.5 * at;
+  return lower < 0.5 ? NormalQuantile(std::max(lower, kSmallestTail))
+                     : -NormalQuantile(std::max(upper, kSmallestTail));
 }
 
 }  // namespace plumbline

@@ -260,4 +260,20 @@ StatusOr<PoissonCusumDesign> CalibratePoissonCusum(
     double mu0, double mu1, double arl0,
     PoissonSignalRule rule = PoissonSignalRule::kAtLeast, int k_denominator = 0);
 
+// The mid-p quantile residual of a count y under Poisson(mean): with F the
+// Poisson distribution function and p its mass,
+//
+//   r = Phi^-1( F(y - 1) + p(y) / 2 ),
+//
+// taken as -Phi^-1( P(Y > y) + p(y) / 2 ) where that tail is the smaller, so a
+// count far above its mean keeps full precision. It is the randomised quantile
+// residual of Dunn and Smyth (1996, "Randomized quantile residuals", J. Comput.
+// Graph. Statist. 5:236-244; from memory) with the uniform draw replaced by its
+// mean (mid-p), so replay stays deterministic. Near N(0, 1) in its tails
+// however small the mean, where (y - mean) / sqrt(mean) is not: a count of 2
+// at mean 0.4 gives 1.81 here and 2.53 there, a count of 3 gives 2.63 and 4.11.
+// y is rounded down to a whole count at least 0; mean must be > 0 (NaN otherwise).
+// Checked against scipy (tests/reference/poisson_quantile_residual.py).
+double PoissonMidPQuantileResidual(double y, double mean);
+
 }  // namespace plumbline

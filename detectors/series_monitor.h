@@ -67,7 +67,11 @@
 // empirical re-fit as the variance and arrival CUSUMs, on its first
 // RefitSampleSize() increments, since a seasonal mean and an estimated forecast
 // make the exact chain's h only a design value. The other level detectors
-// keep watching z.
+// keep watching z, except where a count series expects fewer than
+// kLowCountMean events at a reading (a quiet hour): there z is skewed, and
+// they read instead the count's mid-p quantile residual under Poisson at the
+// expected count m (PoissonMidPQuantileResidual), times sqrt(m) over the
+// phase's own spread, so counts more variable than Poisson keep their width.
 //
 // Learning while testing: while any level detector is past kBaselineFraction of
 // its threshold, the residual scale, the phase profile and the autocorrelation

@@ -11,6 +11,7 @@
 
 #include "detectors/random.h"
 #include "detectors/snapshot.h"
+#include "tests/reference/poisson_quantile_residual.inc"
 
 namespace plumbline {
 namespace {
@@ -683,6 +684,52 @@ TEST(PoissonCusumTest, EnumsRoundTripThroughText) {
   }
   EXPECT_FALSE(PoissonSignalRuleFromString(">=").has_value());
   EXPECT_FALSE(PoissonCusumSideFromString("both").has_value());
+}
+
+// Mid-p quantile residuals against scipy.stats (tests/reference/
+// poisson_quantile_residual.py): means from 0.05 to 9.5, counts from 0 to far
+// in the upper tail, where the upper-tail form keeps the precision.
+TEST(PoissonMidPQuantileResidualTest, AgreesWithScipy) {
+  using namespace poisson_quantile_residual_reference;
+  for (const Case& c : kCasesTable) {
+    EXPECT_NEAR(PoissonMidPQuantileResidual(c.count, c.mean), c.residual,
+                1e-9 * std::max(1.0, std::abs(c.residual)))
+        << "mean " << c.mean << " count " << c.count;
+  }
+}
+
+// What the monitor relies on: residuals of counts drawn at their mean are
+// near centred and no wider than N(0, 1), and their upper tail is no heavier
+// than the normal one where (y - mean) / sqrt(mean) is far heavier. Mid-p
+// narrows small counts (by the exact sums: mean 0.064 and variance 0.55 at
+// mean 0.4; 0.015 and 0.87 at 2; 0.001 and 0.98 at 9.5), so the level
+// detectors are more cautious at quiet hours. Invented draws.
+TEST(PoissonMidPQuantileResidualTest, CountsAtTheirMeanGiveNearStandardResiduals) {
+  Random random(31);
+  for (const double mean : {0.4, 2.0, 9.5}) {
+    const int n = 200000;
+    double sum = 0, squares = 0;
+    int beyond = 0, beyond_naive = 0;
+    for (int i = 0; i < n; ++i) {
+      const double y = static_cast<double>(random.Poisson(mean));
+      const double r = PoissonMidPQuantileResidual(y, mean);
+      sum += r;
+      squares += r * r;
+      beyond += r > 2.5;
+      beyond_naive += (y - mean) / std::sqrt(mean) > 2.5;
+    }
+    const double average = sum / n, variance = squares / n - average * average;
+    EXPECT_NEAR(average, 0.0, 0.1) << mean;
+    EXPECT_GT(variance, 0.5) << mean;
+    EXPECT_LT(variance, 1.02) << mean;
+    // P(Z > 2.5) = 0.0062 for N(0, 1).
+    EXPECT_LT(static_cast<double>(beyond) / n, 0.0062 * 1.6) << mean;
+    if (mean < 1) {
+      EXPECT_GT(beyond_naive, 3 * beyond) << mean;
+    }
+  }
+  EXPECT_TRUE(std::isnan(PoissonMidPQuantileResidual(1.0, 0.0)));
+  EXPECT_GT(PoissonMidPQuantileResidual(5000.0, 0.4), 19.0);  // tail underflow held finite
 }
 
 }  // namespace

@@ -50,19 +50,28 @@ def main():
     parser.add_argument("--plumbline", required=True)
     parser.add_argument("--seeds", type=int, default=20, help="how many realisations")
     parser.add_argument("--first", type=int, default=1, help="the first seed")
+    parser.add_argument("--seed-list", help="comma-separated seeds instead of --first/--seeds")
+    parser.add_argument("--require", action="append", default=[],
+                        help="an expected entry (say door-openings-steady) that must pass in "
+                             "every realisation, else exit 1 (repeatable; a regression test)")
     args = parser.parse_args()
+    seeds = ([int(x) for x in args.seed_list.split(",")] if args.seed_list
+             else list(range(args.first, args.first + args.seeds)))
+    failed_required = []
 
     entries = collections.Counter()
     unmatched = collections.Counter()
     clean = 0
     with tempfile.TemporaryDirectory(prefix="plumbline-seeds-") as work:
-        for seed in range(args.first, args.first + args.seeds):
+        for seed in seeds:
             verdict = one_seed(os.path.abspath(args.plumbline), seed, work)
             extra = []
             for check in verdict["checks"]:
                 name = check["check"].split(":")[0]
                 if check["passed"]:
                     entries[name] += 1
+                elif name in args.require:
+                    failed_required.append(f"seed {seed}: {name}")
                 if name == "unmatched alerts forbidden":
                     for line in check["details"]:
                         m = ALERT.search(line)
@@ -72,7 +81,7 @@ def main():
             clean += verdict["failed"] == 0
             print(f"seed {seed}: {verdict['passed']} passed, {verdict['failed']} failed"
                   + (f"; unexplained: {', '.join(extra)}" if extra else ""), flush=True)
-    n = args.seeds
+    n = len(seeds)
     print(f"\n{clean} of {n} realisations pass every check")
     print("passed, by check:")
     for name, count in sorted(entries.items()):
@@ -80,7 +89,13 @@ def main():
     print(f"unexplained alerts after warmup ({sum(unmatched.values())} in {n} realisations):")
     for what, count in unmatched.most_common():
         print(f"  {count:3d}  {what}")
+    if args.require:
+        for line in failed_required:
+            print(f"required entry failed: {line}")
+        print(f"required ({', '.join(args.require)}): "
+              + ("FAILED" if failed_required else f"passed in all {n} realisations"))
+    return 1 if failed_required else 0
 
 
 if __name__ == "__main__":
-    main()
+    sys.exit(main())
