@@ -505,7 +505,8 @@ double PoissonMidPQuantileResidual(double y, double mean) {
   // Counts beyond this are far in the upper tail of any mean the monitor asks
   // about (below kLowCountMean); the mass is summed term by term up to them.
   constexpr double kMaxCount = 100000;
-  const long long count = static_cast<long long>(std::clamp(std::floor(y), 0.0, kMaxCount));
+  const long long count =
+      static_cast<long long>(std::clamp(std::floor(y), 0.0, kMaxCount));
   double mass = std::exp(-mean), below = 0;
   for (long long k = 0; k < count; ++k) {
     below += mass;

@@ -272,7 +272,8 @@ void ResidualProfile::Fold(Bin_* b, double r, double center, double q, double si
   const double weight = 1.0 / std::min(static_cast<double>(b->n), window);
   const double limit = 4.0 * sigma;
   const double mean = b->mean;
-  b->mean = static_cast<float>(mean + (std::clamp(r, center - limit, center + limit) - mean) * weight);
+  b->mean = static_cast<float>(
+      mean + (std::clamp(r, center - limit, center + limit) - mean) * weight);
   const double clipped = std::min(q * q, clip * clip * ratio) * correction;
   if (b->n == 1) {
     b->s2 = static_cast<float>(clipped);

@@ -698,7 +698,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
     variance_alarm = variance_.Update(z, to);
   }
   // Where a count series expects few events, z is skewed: a count of 2 where
-  // 0.4 is expected stands 2.5 spreads up though one reading in eighteen is
+  // 0.4 is expected stands 2.5 spreads up though one reading in sixteen is
   // that high, and a quiet night of such readings walks the Gaussian level
   // detectors to a false rise (on the demo's door openings, Saturday nights).
   // There they read the count's mid-p quantile residual under Poisson at the

@@ -729,7 +729,8 @@ TEST(PoissonMidPQuantileResidualTest, CountsAtTheirMeanGiveNearStandardResiduals
     }
   }
   EXPECT_TRUE(std::isnan(PoissonMidPQuantileResidual(1.0, 0.0)));
-  EXPECT_GT(PoissonMidPQuantileResidual(5000.0, 0.4), 19.0);  // tail underflow held finite
+  EXPECT_GT(PoissonMidPQuantileResidual(5000.0, 0.4),
+            19.0);  // tail underflow held finite
 }
 
 }  // namespace
