@@ -331,7 +331,13 @@ Status ArrivalShape::Load(SnapshotReader& r) {
   const std::size_t bins = p_.size();
   events_ = r.DoubleVector();
   exposure_ = r.DoubleVector();
+  // Relative intensities are single precision: finite, >= 0 and within it.
   const std::vector<double> p = r.DoubleVector();
+  for (double v : p) {
+    if (r.ok() && !(v >= 0 && v <= std::numeric_limits<float>::max())) {
+      return r.Fail("arrival shape intensity out of range");
+    }
+  }
   p_.assign(p.begin(), p.end());
   if (r.ok() && (events_.size() != bins || exposure_.size() != bins || p_.size() != bins)) {
     return r.Fail("arrival shape bins differ");

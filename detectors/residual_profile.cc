@@ -396,9 +396,18 @@ Status ResidualProfile::Load(SnapshotReader& r) {
   for (std::vector<Bin_>* bins : {&bins_, &folded_}) {
     if (r.Count(24) != bins->size()) return r.Fail("phase profile bins differ");
     for (Bin_& b : *bins) {
-      b.n = r.NonNegative("phase profile bin count");
-      b.mean = r.Finite("phase profile bin mean");
-      b.s2 = r.NonNegative("phase profile bin variance ratio");
+      // Bins are single precision: a value beyond it is refused, not made
+      // infinite (which would save a state that cannot be loaded).
+      const double n = r.NonNegative("phase profile bin count");
+      const double mean = r.Finite("phase profile bin mean");
+      const double s2 = r.NonNegative("phase profile bin variance ratio");
+      constexpr double kLargest = std::numeric_limits<float>::max();
+      if (r.ok() && (n > kLargest || std::abs(mean) > kLargest || s2 > kLargest)) {
+        return r.Fail("phase profile bin out of single-precision range");
+      }
+      b.n = static_cast<float>(n);
+      b.mean = static_cast<float>(mean);
+      b.s2 = static_cast<float>(s2);
     }
   }
   spread_ = folded_spread_ = Spread{};
