@@ -364,6 +364,12 @@ TEST(ForgedStateTest, ResidualProfileRefusesOtherBinCountsAndNegativeOrNonFinite
   EXPECT_TRUE(RefusedNaming(load(28, Bits(-1.0)), "bin count"));
   EXPECT_TRUE(RefusedNaming(load(36, kNan), "bin mean"));
   EXPECT_TRUE(RefusedNaming(load(44, Bits(-0.1)), "bin variance ratio"));
+  // Bins are single precision since 2ad64d4: a value beyond it is refused
+  // rather than kept as an infinity that saves a state nothing can load
+  // (snapshot_decoder_fuzzer found that in seconds).
+  EXPECT_TRUE(RefusedNaming(load(28, Bits(1e39)), "single-precision range"));
+  EXPECT_TRUE(RefusedNaming(load(36, Bits(-1e300)), "single-precision range"));
+  EXPECT_TRUE(RefusedNaming(load(44, Bits(4e38)), "single-precision range"));
   // Then the spreads between bins, each a flag, of means and of ratios: 804 on.
   EXPECT_TRUE(RefusedNaming(load(805, Bits(-1.0)), "spread of means"));
   EXPECT_TRUE(RefusedNaming(load(822, kNan), "spread of means"));
