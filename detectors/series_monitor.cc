@@ -712,8 +712,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // Poisson(2) null streams (false_alarm_test) 22 -> 2 alerts in 198,000
   // readings, and a 2-sd step is found after 8 readings instead of 7
   // (step_delay_test). The count CUSUM reads the count itself, unchanged.
-  if (!near_normal &&
-      phase_sigma > 0) {  // a count series expecting fewer than kLowCountMean
+  // !near_normal: a count series expecting fewer than kLowCountMean.
+  if (!near_normal && phase_sigma > 0) {
     const double mean = std::max(expected, kCountMeanFloor);
     last_z_ = PoissonMidPQuantileResidual(std::max(0.0, std::round(y)), mean) *
               std::sqrt(mean) / (phase_sigma * spread);
