@@ -179,6 +179,8 @@ void ArrivalShape::Refresh() {
       parent[j] = (parent_events[j] + prior_events) / (parent[j] + prior_exposure);
     }
   }
+  // Each bin's rate is computed twice, for the mean and then for p, so that p
+  // is rounded to single precision once and no scratch of doubles is kept.
   const auto raw = [&](size_t b) {
     const double prior_rate =
         fold_bins_ > 0 ? parent[b % static_cast<size_t>(fold_bins_)] : rate;

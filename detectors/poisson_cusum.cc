@@ -502,8 +502,10 @@ double PoissonMidPQuantileResidual(double y, double mean) {
   if (!(mean > 0) || !std::isfinite(mean) || std::isnan(y)) {
     return std::numeric_limits<double>::quiet_NaN();
   }
-  // Counts beyond this are far in the upper tail of any mean the monitor asks
-  // about (below kLowCountMean); the mass is summed term by term up to them.
+  // Called per reading, so the mass is summed term by term without the
+  // allocations of PoissonTable (the chain's tables above). Counts beyond this
+  // are far in the upper tail of any mean the monitor asks about (below
+  // kLowCountMean).
   constexpr double kMaxCount = 100000;
   const long long count =
       static_cast<long long>(std::clamp(std::floor(y), 0.0, kMaxCount));
@@ -513,19 +515,20 @@ double PoissonMidPQuantileResidual(double y, double mean) {
     mass *= mean / static_cast<double>(k + 1);
   }
   const double at = mass;
-  // P(Y > count): the terms fall at least geometrically once past the mean.
+  // A tail that underflows (a count hundreds of sd from its mean) is held at
+  // 1e-300, where NormalQuantile gives its largest answer, about 20 sd.
+  constexpr double kSmallestTail = 1e-300;
+  const double lower = below + 0.5 * at;
+  if (lower < 0.5) return NormalQuantile(std::max(lower, kSmallestTail));
+  // At or above the median the upper tail P(Y > count) is the smaller one, and
+  // its terms fall at least geometrically (count + 1 exceeds the mean there).
   double above = 0, term = mass;
   for (long long k = count + 1;; ++k) {
     term *= mean / static_cast<double>(k);
     above += term;
     if (!(term > above * 1e-17) || k > count + 100000) break;
   }
-  // A tail that underflows (a count hundreds of sd from its mean) is held at
-  // 1e-300, where NormalQuantile gives its largest answer, about 20 sd.
-  constexpr double kSmallestTail = 1e-300;
-  const double lower = below + 0.5 * at, upper = above + 0.5 * at;
-  return lower < 0.5 ? NormalQuantile(std::max(lower, kSmallestTail))
-                     : -NormalQuantile(std::max(upper, kSmallestTail));
+  return -NormalQuantile(std::max(above + 0.5 * at, kSmallestTail));
 }
 
 }  // namespace plumbline

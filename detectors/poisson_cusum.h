@@ -272,7 +272,9 @@ StatusOr<PoissonCusumDesign> CalibratePoissonCusum(
 // mean (mid-p), so replay stays deterministic. Near N(0, 1) in its tails
 // however small the mean, where (y - mean) / sqrt(mean) is not: a count of 2
 // at mean 0.4 gives 1.81 here and 2.53 there, a count of 3 gives 2.63 and 4.11.
-// y is rounded down to a whole count at least 0; mean must be > 0 (NaN otherwise).
+// y is rounded down to a whole count at least 0; mean must be > 0 (NaN
+// otherwise) and below about 700, where exp(-mean) still holds a double (the
+// monitor asks below kLowCountMean).
 // Checked against scipy (tests/reference/poisson_quantile_residual.py).
 double PoissonMidPQuantileResidual(double y, double mean);
 
