@@ -1,6 +1,8 @@
 // CalibrationHealth: how the standardised residuals z that a series' level
 // detectors see actually behave, against what their thresholds assume
-// (independent N(0,1)). Not thread-safe; owned by one shard, inside the
+// (independent N(0,1)). Where a count series expects few events, what they
+// see, and so what this measures, is the reading's quantile residual
+// (SeriesMonitor::Model). Not thread-safe; owned by one shard, inside the
 // series' SeriesMonitor.
 //
 // Figures, each an exponentially weighted mean over about the last `memory`

@@ -668,7 +668,6 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   }
   if (!armed) return;
   if (!count_chart_decided_) ChooseCountChart();
-  health_.Add(z);
 
   // The variance chart sees this reading before the level detectors, but they
   // decide first when both fire on it: a level shift inflates z^2, so a reading
@@ -718,6 +717,9 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
     last_z_ = PoissonMidPQuantileResidual(std::max(0.0, std::round(y)), mean) *
               std::sqrt(mean) / (phase_sigma * spread);
   }
+  // Health is of what the level detectors read: at a quiet count reading, the
+  // quantile residual.
+  health_.Add(last_z_);
   if (observations_ >= level_hold_until_) {
     const size_t before = events->size();
     DecideLevel(to, y, expected_count, f.value, sigma * spread,

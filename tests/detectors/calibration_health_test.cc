@@ -109,6 +109,29 @@ TEST(CalibrationHealthTest, MonitorsReportWhitenedResidualsAsCloseToTheAssumptio
   }
 }
 
+// Health is of what the level detectors read. On a count series expecting a
+// few events a reading (Poisson, mean 1 to 3), that is each reading's quantile
+// residual rather than its standardised residual: the monitor's health equals
+// one fed every armed reading's last_z(), which is the detectors' input.
+TEST(CalibrationHealthTest, CountSeriesHealthIsOfTheQuantileResidualsTheDetectorsRead) {
+  struct Recorder : ObservationListener {
+    CalibrationHealth health;
+    void Observed(const SeriesMonitor& monitor, EventTime, double) override {
+      if (monitor.armed()) health.Add(monitor.last_z());
+    }
+  } recorder;
+  auto design = ProfileDesign::Make(noise_streams::ProfileFor(Noise::kPoisson));
+  ASSERT_TRUE(design.ok());
+  SeriesMonitor monitor(&*design);
+  monitor.SetObservationListener(&recorder);
+  RunNull(monitor, Noise::kPoisson, 6000, 5);
+  ASSERT_GT(monitor.health().count(), 4000);
+  EXPECT_EQ(monitor.health().count(), recorder.health.count());
+  EXPECT_DOUBLE_EQ(monitor.health().variance(), recorder.health.variance());
+  EXPECT_DOUBLE_EQ(monitor.health().lag1(), recorder.health.lag1());
+  EXPECT_DOUBLE_EQ(monitor.health().tail_share(), recorder.health.tail_share());
+}
+
 TEST(CalibrationHealthTest, AdaptThresholdsRaisesTheCusumOnlyWhereResidualsMisbehave) {
   for (Noise noise : {Noise::kGaussian, Noise::kStudentT}) {
     SCOPED_TRACE(noise_streams::Name(noise));
