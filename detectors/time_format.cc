@@ -105,6 +105,20 @@ TimeTextError ParseRfc3339Into(std::string_view text, EventTime* out) {
 // [-]digits[.digits][(e|E)[+|-]digits], converted exactly and floored to the
 // microsecond.
 TimeTextError ParseEpochSecondsInto(std::string_view text, EventTime* out) {
+  // Whole seconds of up to 12 digits, the usual case: exact, and far from
+  // overflow (under 1e18 microseconds), so only the range check remains.
+  if (!text.empty() && text.size() <= 12) {
+    std::int64_t seconds = 0;
+    std::size_t i = 0;
+    for (; i < text.size() && IsDigit(text[i]); ++i)
+      seconds = seconds * 10 + (text[i] - '0');
+    if (i == text.size()) {
+      const EventTime value = seconds * kMicrosPerSecond;
+      if (value > kMaxTextTime) return TimeTextError::kOutOfRange;
+      *out = value;
+      return TimeTextError::kOk;
+    }
+  }
   std::size_t pos = 0;
   const std::size_t n = text.size();
   const bool negative = pos < n && text[pos] == '-';

@@ -5,6 +5,7 @@
 #include <cstdint>
 #include <cstdio>
 #include <limits>
+#include <random>
 #include <string>
 #include <vector>
 
@@ -231,6 +232,32 @@ TEST(ParseTimeTest, EpochSecondsAreExactAndFlooredToTheMicrosecond) {
   EXPECT_EQ(MustParse("0.1"), 100000);
   EXPECT_EQ(MustParse("1772366400.000001"), 1772366400000001);
   EXPECT_EQ(MustParse("0001772366400"), 1772366400000000);
+}
+
+// Whole seconds of up to 12 digits take a shorter path; it must agree with
+// the general one (the same number with a zero fraction) on every length,
+// leading zeros and the range's edge included.
+TEST(ParseTimeTest, WholeEpochSecondsAgreeWithTheGeneralParse) {
+  std::mt19937_64 random(17);
+  std::vector<std::string> texts = {
+      "0", "7", "000000000001", "253402300799", "253402300800", "999999999999"};
+  for (int digits = 1; digits <= 13; ++digits) {
+    for (int k = 0; k < 200; ++k) {
+      std::string text;
+      for (int d = 0; d < digits; ++d)
+        text.push_back(static_cast<char>('0' + random() % 10));
+      texts.push_back(text);
+    }
+  }
+  for (const std::string& text : texts) {
+    EventTime whole = 0, general = 0;
+    const TimeTextError a = ParseTimeInto(text, &whole);
+    const TimeTextError b = ParseTimeInto(text + ".0", &general);
+    ASSERT_EQ(a, b) << text;
+    if (a == TimeTextError::kOk) ASSERT_EQ(whole, general) << text;
+  }
+  EXPECT_EQ(ErrorOf("253402300800"), TimeTextError::kOutOfRange);
+  EXPECT_EQ(MustParse("253402300799"), kMaxTextTime - 999999);
 }
 
 TEST(ParseTimeTest, EpochSecondsAcceptTheJsonExponentForm) {
