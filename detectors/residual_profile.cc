@@ -266,6 +266,45 @@ double ResidualProfile::Sigma(int key, double sigma_all) const {
   return sigma_all * std::sqrt(Ratio(key));
 }
 
+ResidualProfile::Expectation ResidualProfile::MeanAndSigma(int key,
+                                                           double sigma_all) const {
+  const size_t b = LongBin(key);
+  // Mean and Ratio, sharing PriorMean's and PriorRatio's phase values (summed
+  // in the same order) and this phase's own.
+  double prior_mean = 0.0, prior_ratio = 1.0, phase_mean = 0.0, phase_ratio = 1.0;
+  if (!folded_.empty()) {
+    const size_t first =
+        (b % static_cast<size_t>(per_repeat_)) * static_cast<size_t>(span_);
+    const size_t j = Phase(key);
+    bool spanned = false;
+    double mean_sum = 0, ratio_sum = 0;
+    for (int i = 0; i < span_; ++i) {
+      const size_t p = first + static_cast<size_t>(i);
+      const double m = FoldedMean(p, sigma_all), r = FoldedRatio(p);
+      if (p == j) {
+        phase_mean = m;
+        phase_ratio = r;
+        spanned = true;
+      }
+      mean_sum += m;
+      ratio_sum += r;
+    }
+    prior_mean = mean_sum / span_;
+    prior_ratio = ratio_sum / span_;
+    if (!spanned && span_ != 1) {
+      phase_mean = FoldedMean(j, sigma_all);
+      phase_ratio = FoldedRatio(j);
+    }
+  }
+  double mean = LongMean(b, sigma_all, prior_mean, prior_ratio);
+  double ratio = LongRatio(b, prior_ratio);
+  if (span_ != 1) {
+    mean = mean + phase_mean - prior_mean;
+    if (prior_ratio > kMinKurtosisRatio) ratio = ratio * phase_ratio / prior_ratio;
+  }
+  return {mean, sigma_all * std::sqrt(ratio)};
+}
+
 void ResidualProfile::Fold(Bin_* b, double r, double center, double q, double sigma,
                            double ratio, double clip, double correction, double window) {
   b->n += 1;

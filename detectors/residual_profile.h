@@ -146,6 +146,13 @@ class ResidualProfile {
   // the whole-series scale the bins are shrunk toward.
   double Mean(int key, double sigma_all) const;
   double Sigma(int key, double sigma_all) const;
+  // Both at once, each phase bin's shrunk values worked out once (the same
+  // numbers, bit for bit, as Mean and Sigma).
+  struct Expectation {
+    double mean;
+    double sigma;
+  };
+  Expectation MeanAndSigma(int key, double sigma_all) const;
   // Folds in residual r and innovation a observed at `key`, given the current
   // whole-series scale, and every kPoolEvery readings estimates the between-bin
   // spreads again. With long_bins false (two levels only) the long bins learn

@@ -580,7 +580,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // variance alerts on the demo and on the airline data than it finds).
   const bool suspicious = Suspicious(kBaselineFraction);
   const int bin = profile_->Bin(from + (to - from) / 2);
-  const double phase_mean = profile_->Mean(bin, sigma);
+  const ResidualProfile::Expectation phase = profile_->MeanAndSigma(bin, sigma);
+  const double phase_mean = phase.mean;
   const double v = u - phase_mean;
   // A phase whose spread sits at the resolution floor (a shut hour, zero every
   // week), once the scale is known, is not whitened and does not teach the
@@ -589,7 +590,8 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // otherwise carry into the shut ones, there divided by the floor. Measured
   // on the demo's pallets over two sets of 24 draws (harbourside_seeds.py):
   // draws with a false alert 12 -> 7 and 11 -> 6.
-  const double phase_sigma = PhaseSigma(bin);
+  const double phase_sigma =
+      std::max(phase.sigma, design_->scale.floor);  // PhaseSigma(bin)
   const bool spread_seen = phase_sigma > 1.5 * design_->scale.floor;
   const double a = identified && (spread_seen || !scale_known)
                        ? whitener_.Whiten(to, v, arrival_.mean_gap(), sigma, !suspicious)
