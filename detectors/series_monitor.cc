@@ -686,7 +686,10 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // in its spread (runs of zeros at quiet hours look like a narrower spread,
   // one busy hour like a new level). BOCPD, which models both, skips those
   // readings too, unless it is the only level detector (rather than go blind).
-  const double expected = f.value + profile_->Mean(bin, sigma) * spread;
+  // The reading's expectation as it stood before the reading, as count_base
+  // is: the forecast and phase mean the residual was taken from, not the
+  // profile after this reading has moved it toward itself.
+  const double expected = f.value + phase_mean * spread;
   const double expected_count =
       count_ratio ? *count_ratio * std::max(count_base, 0.0) : expected;
   const bool near_normal =
