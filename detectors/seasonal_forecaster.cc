@@ -321,7 +321,7 @@ StatusOr<Forecast> SeasonalForecaster::UpdateWith(EventTime t, double y, bool in
   Status committed = CommitUpdate(y);
   if (!committed.ok()) return committed;
   // The first update's forecast is the prior's, centred on the reading itself.
-  if (first) return Forecast{y, pending_.xpx};
+  if (first) return Forecast{y, pending_.xpx, std::numeric_limits<double>::infinity()};
   return begun;
 }
 
@@ -331,7 +331,10 @@ StatusOr<Forecast> SeasonalForecaster::BeginUpdate(EventTime from, EventTime to)
     return Status::OutOfRange("reading is earlier than the forecaster's last update");
   }
   pending_ = Pending{true, from, to, 0.0, std::numeric_limits<double>::infinity()};
-  if (updates_ == 0) return Forecast{0.0, std::numeric_limits<double>::infinity()};
+  if (updates_ == 0) {
+    return Forecast{0.0, std::numeric_limits<double>::infinity(),
+                    std::numeric_limits<double>::infinity()};
+  }
   // Past kMaxForgettingExponent memories the old information is gone to double
   // precision anyway; the clamp keeps P / lambda finite after a very long gap.
   const double lambda = std::exp(
@@ -352,7 +355,12 @@ StatusOr<Forecast> SeasonalForecaster::BeginUpdate(EventTime from, EventTime to)
   PackedSymmetricTimesVector(p_lower_.data(), dimension(), x_.data(), px_.data());
   pending_.xpx = x_.dot(px_);
   pending_.forecast = x_.dot(theta_);
-  return Forecast{pending_.forecast, pending_.xpx};
+  // The Kalman filter's steady state for a random-walk level with drift q in
+  // unit noise: predicted variance q/2 + sqrt(q + q^2/4) (Harvey 1989, section
+  // 4.1, the local level model; MEM).
+  const double q = LevelDrift(elapsed);
+  const double floor = q > 0 ? 0.5 * q + std::sqrt(q + 0.25 * q * q) : 0.0;
+  return Forecast{pending_.forecast, pending_.xpx, std::max(pending_.xpx - floor, 0.0)};
 }
 
 void SeasonalForecaster::Prefetch() const {

@@ -118,6 +118,12 @@ struct SeasonalForecasterOptions {
 struct Forecast {
   double value = 0.0;
   double parameter_variance_factor = 0.0;
+  // The same less what a level that wanders (level_noise) leaves in it for
+  // good: q/2 + sqrt(q + q^2/4) for a drift q per reading, the steady state of
+  // a random-walk level observed in unit noise (zero without level_noise). How
+  // much the model has still to learn about its coefficients, in units of the
+  // noise variance. Infinite before the first update.
+  double unsettled_variance_factor = 0.0;
 };
 
 // y = P x for the symmetric n x n matrix P given by its lower triangle packed

@@ -276,7 +276,10 @@ class SeriesMonitor {
   const ProfileOptions& profile() const { return design_->profile; }
   const ArrivalModel& arrivals() const { return arrival_; }
   long long observations() const { return observations_; }
-  bool armed() const { return observations_ > design_->profile.warmup; }
+  // Whether the level and spread detectors watched the latest observation:
+  // past warmup, and the model knew its coefficients better than one
+  // reading's noise (see Model). After a restore, warmup alone until the next.
+  bool armed() const { return observations_ > design_->profile.warmup && settled_; }
   bool silent() const { return silent_; }
   double last_z() const { return last_z_; }
   // Null: none (the default). Not saved with the state.
@@ -503,6 +506,9 @@ class SeriesMonitor {
   QuantisedSample arrival_sample_;          // arrival scores X, until re-fitted
   bool variance_refitted_ = false, arrival_refitted_ = false;
   bool silent_ = false;
+  // The latest observation's unsettled variance factor < 1. Not saved: a restored series
+  // counts as settled until its next observation says.
+  bool settled_ = false;
   bool has_reading_ = false;
   EventTime last_reading_ = 0;
 
