@@ -276,9 +276,9 @@ class SeriesMonitor {
   const ProfileOptions& profile() const { return design_->profile; }
   const ArrivalModel& arrivals() const { return arrival_; }
   long long observations() const { return observations_; }
-  // Whether the level and spread detectors watched the latest observation:
-  // past warmup, and the model knew its coefficients better than one
-  // reading's noise (see Model). After a restore, warmup alone until the next.
+  // Whether the level and spread detectors watch the series now: past warmup,
+  // and the model has known its coefficients better than one reading's noise
+  // since it started or a planned change reopened it (see Model).
   bool armed() const { return observations_ > design_->profile.warmup && settled_; }
   bool silent() const { return silent_; }
   double last_z() const { return last_z_; }
@@ -506,8 +506,8 @@ class SeriesMonitor {
   QuantisedSample arrival_sample_;          // arrival scores X, until re-fitted
   bool variance_refitted_ = false, arrival_refitted_ = false;
   bool silent_ = false;
-  // The latest observation's unsettled variance factor < 1. Not saved: a restored series
-  // counts as settled until its next observation says.
+  // The unsettled variance factor has been < 1 since the model started or was
+  // last reopened (saved; a checkpoint from before counts as settled).
   bool settled_ = false;
   bool has_reading_ = false;
   EventTime last_reading_ = 0;

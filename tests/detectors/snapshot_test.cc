@@ -535,7 +535,7 @@ TEST(ForgedStateTest, SeriesMonitorRefusesOversizedBuffersAndCountsOutOfRange) {
     return LoadPatched(original, fresh, at, bits);
   };
   {
-    // Before the forecaster starts: "SMON", no forecaster (1 byte), then the
+    // Before the forecaster starts: "SMN2", no forecaster (1 byte), then the
     // held observations (count at 5; from, to, value, covariates).
     SeriesMonitor early(&*design);
     for (int i = 0; i < 3; ++i) early.Observe(readings[i].time, readings[i].value, &ignored);
@@ -557,7 +557,8 @@ TEST(ForgedStateTest, SeriesMonitorRefusesOversizedBuffersAndCountsOutOfRange) {
   EXPECT_TRUE(RefusedNaming(load(armed, health - 34, kHuge), "recent observation time"));
   EXPECT_TRUE(RefusedNaming(load(armed, health - 18, kNan), "sum of readings"));
   EXPECT_FALSE(load(armed, health - 9, 5000).ok());  // runs past the end
-  EXPECT_TRUE(RefusedNaming(load(armed, bytes.size() - 8, kNan), "adapted threshold"));
+  // The adapted threshold (8 bytes), then the settled flag (1).
+  EXPECT_TRUE(RefusedNaming(load(armed, bytes.size() - 9, kNan), "adapted threshold"));
   // Around the intake: the reorder buffer's newest and released times before
   // it, the observation count after it (the intake is 72 bytes).
   const std::size_t intake = bytes.find("INTK");
@@ -699,6 +700,40 @@ TEST(SeriesMonitorCheckpointTest, TruncatedStateIsRefusedAtEveryLength) {
     SnapshotReader reader(std::string_view(bytes).substr(0, length));
     EXPECT_FALSE(restored.Load(reader).ok()) << length;
   }
+}
+
+// Whether the model has settled is kept ("SMN2"): a monitor saved while its
+// model is still unsettled comes back unarmed. A state of the format before
+// ("SMON", without the flag) still loads, and counts as settled.
+TEST(SeriesMonitorCheckpointTest, SettledFlagIsKeptAndOlderStatesCountAsSettled) {
+  ProfileOptions profile;
+  profile.seasons = {kMicrosPerDay};
+  profile.warmup = 20;
+  auto design = ProfileDesign::Make(profile);
+  ASSERT_TRUE(design.ok());
+  // Readings 10 minutes apart: 30 of them (5 hours) are past warmup but far
+  // from a day, so the daily terms are not known yet.
+  SeriesMonitor early(&*design);
+  std::vector<SeriesEvent> ignored;
+  const auto readings = synthetic::MakeSyntheticStream({}, 30, 5);
+  for (const auto& r : readings) early.Observe(r.time, r.value, &ignored);
+  ASSERT_GT(early.observations(), profile.warmup);
+  ASSERT_FALSE(early.armed());
+  std::string bytes = Saved(early);
+  {
+    SeriesMonitor restored(&*design);
+    SnapshotReader reader(bytes);
+    ASSERT_TRUE(restored.Load(reader).ok()) << reader.status().ToString();
+    EXPECT_FALSE(restored.armed());
+  }
+  ASSERT_EQ(bytes.substr(0, 4), "SMN2");
+  bytes.replace(0, 4, "SMON");
+  bytes.pop_back();  // the flag
+  SeriesMonitor old(&*design);
+  SnapshotReader reader(bytes);
+  ASSERT_TRUE(old.Load(reader).ok()) << reader.status().ToString();
+  EXPECT_TRUE(reader.AtEnd());
+  EXPECT_TRUE(old.armed());
 }
 
 TEST(SeriesMonitorCheckpointTest, StateOfAnotherDesignIsRefused) {
