@@ -59,7 +59,7 @@ struct ProfileOptions {
   SeriesKind kind = SeriesKind::kGauge;
   std::vector<EventTime> seasons = {kMicrosPerDay, 7 * kMicrosPerDay};  // periods; {} for none
   GapPolicy gaps = GapPolicy::kSkip;
-  int warmup = 48;        // readings before the detectors arm, >= 4
+  int warmup = 48;        // readings before the detectors may arm (Model), >= 4
   double arl0 = 5000;     // target in-control average run length, in readings, [10, 1e7]
   double shift = 1.0;     // smallest shift worth catching, in residual sd, (0, 10]
   std::vector<DetectorKind> detectors = {DetectorKind::kCusum, DetectorKind::kPageHinkley};
