@@ -254,7 +254,9 @@ TEST(ParseTimeTest, WholeEpochSecondsAgreeWithTheGeneralParse) {
     const TimeTextError a = ParseTimeInto(text, &whole);
     const TimeTextError b = ParseTimeInto(text + ".0", &general);
     ASSERT_EQ(a, b) << text;
-    if (a == TimeTextError::kOk) ASSERT_EQ(whole, general) << text;
+    if (a == TimeTextError::kOk) {
+      ASSERT_EQ(whole, general) << text;
+    }
   }
   EXPECT_EQ(ErrorOf("253402300800"), TimeTextError::kOutOfRange);
   EXPECT_EQ(MustParse("253402300799"), kMaxTextTime - 999999);
