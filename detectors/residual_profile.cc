@@ -165,13 +165,7 @@ double ResidualProfile::LongMean(size_t b, double sigma_all, double prior,
 }
 
 double ResidualProfile::Mean(int key, double sigma_all) const {
-  const size_t b = LongBin(key);
-  const double prior = PriorMean(b, sigma_all);
-  const double mean = LongMean(b, sigma_all, prior, PriorRatio(b));
-  if (span_ == 1) return mean;
-  // A long bin's value is the average over its phases: this phase's own
-  // departure from that average is added back.
-  return mean + FoldedMean(Phase(key), sigma_all) - prior;
+  return MeanAndSigma(key, sigma_all).mean;
 }
 
 double ResidualProfile::PhaseMean(int key, double sigma_all) const {
@@ -230,12 +224,19 @@ double ResidualProfile::LongRatio(size_t b, double prior) const {
                               RatioSamplingFactor() * prior * prior / e, e));
 }
 
+double ResidualProfile::PhaseShaped(double long_ratio, double prior_ratio,
+                                    double phase_ratio) const {
+  if (span_ == 1) return long_ratio;
+  return prior_ratio > kMinKurtosisRatio ? long_ratio * phase_ratio / prior_ratio
+                                         : long_ratio;
+}
+
 double ResidualProfile::Ratio(int key) const {
   const size_t b = LongBin(key);
   const double prior = PriorRatio(b);
   const double ratio = LongRatio(b, prior);
   if (span_ == 1) return ratio;
-  return prior > kMinKurtosisRatio ? ratio * FoldedRatio(Phase(key)) / prior : ratio;
+  return PhaseShaped(ratio, prior, FoldedRatio(Phase(key)));
 }
 
 template <typename Prior>
@@ -263,7 +264,7 @@ ResidualProfile::Spread ResidualProfile::Between(const std::vector<Bin_>& bins, 
 }
 
 double ResidualProfile::Sigma(int key, double sigma_all) const {
-  return sigma_all * std::sqrt(Ratio(key));
+  return MeanAndSigma(key, sigma_all).sigma;
 }
 
 ResidualProfile::Expectation ResidualProfile::MeanAndSigma(int key,
@@ -297,11 +298,10 @@ ResidualProfile::Expectation ResidualProfile::MeanAndSigma(int key,
     }
   }
   double mean = LongMean(b, sigma_all, prior_mean, prior_ratio);
-  double ratio = LongRatio(b, prior_ratio);
-  if (span_ != 1) {
-    mean = mean + phase_mean - prior_mean;
-    if (prior_ratio > kMinKurtosisRatio) ratio = ratio * phase_ratio / prior_ratio;
-  }
+  // A long bin's value is the average over its phases: this phase's own
+  // departure from that average is added back.
+  if (span_ != 1) mean = mean + phase_mean - prior_mean;
+  const double ratio = PhaseShaped(LongRatio(b, prior_ratio), prior_ratio, phase_ratio);
   return {mean, sigma_all * std::sqrt(ratio)};
 }
 

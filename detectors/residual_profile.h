@@ -146,8 +146,8 @@ class ResidualProfile {
   // the whole-series scale the bins are shrunk toward.
   double Mean(int key, double sigma_all) const;
   double Sigma(int key, double sigma_all) const;
-  // Both at once, each phase bin's shrunk values worked out once (the same
-  // numbers, bit for bit, as Mean and Sigma).
+  // Both at once, each phase bin's shrunk values worked out once (Mean and
+  // Sigma are its two halves).
   struct Expectation {
     double mean;
     double sigma;
@@ -261,6 +261,9 @@ class ResidualProfile {
   static constexpr size_t kMaxCachedPriors = 64;  // long-bin priors kept while pooling
   // The variance ratio at a key: its long bin's, shaped by its phase's.
   double Ratio(int key) const;
+  // A long bin's ratio shaped by one of its phases: times the phase's ratio
+  // over the average of the long bin's phases (with two levels and S > 1).
+  double PhaseShaped(double long_ratio, double prior_ratio, double phase_ratio) const;
   // q = a / sigma_all; sigma and ratio: the bin's current spread, in units and
   // as a ratio; r is clipped within 4 sigma of center.
   static void Fold(Bin_* b, double r, double center, double q, double sigma, double ratio,

@@ -536,9 +536,13 @@ void SeriesMonitor::ScoreRivals(EventTime from, EventTime to, double y) {
 }
 
 double SeriesMonitor::PhaseSigma(int bin) const {
+  return Floored(profile_->Sigma(bin, scale_.sigma()));
+}
+
+double SeriesMonitor::Floored(double phase_sigma) const {
   // A phase whose residuals never vary (a count that is zero every night) has a
   // spread near zero in the profile; the series' resolution floors it.
-  return std::max(profile_->Sigma(bin, scale_.sigma()), design_->scale.floor);
+  return std::max(phase_sigma, design_->scale.floor);
 }
 
 void SeriesMonitor::Model(EventTime from, EventTime to, double y,
@@ -605,8 +609,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // otherwise carry into the shut ones, there divided by the floor. Measured
   // on the demo's pallets over two sets of 24 draws (harbourside_seeds.py):
   // draws with a false alert 12 -> 7 and 11 -> 6.
-  const double phase_sigma =
-      std::max(phase.sigma, design_->scale.floor);  // PhaseSigma(bin)
+  const double phase_sigma = Floored(phase.sigma);  // PhaseSigma(bin)
   const bool spread_seen = phase_sigma > 1.5 * design_->scale.floor;
   const double a = identified && (spread_seen || !scale_known)
                        ? whitener_.Whiten(to, v, arrival_.mean_gap(), sigma, !suspicious)

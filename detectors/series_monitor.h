@@ -390,6 +390,8 @@ class SeriesMonitor {
   void ResetLevelDetectors();
   // level_ and level_kinds_ anew from a design, in its detectors' order.
   void BuildLevelDetectors(const DetectorDesign& d);
+  // A phase's spread from the profile, floored at the series' resolution.
+  double Floored(double phase_sigma) const;
   // True while any level detector is past the given fraction of its threshold:
   // baselines then hold still rather than learn the change being tested for.
   bool Suspicious(double fraction_of_threshold) const;
