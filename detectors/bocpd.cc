@@ -1017,6 +1017,7 @@ StatusOr<Alarm> Bocpd::Update(double x, EventTime time) {
     alarm.fired = !above_;
     const ChangeEstimate estimate = EstimateChange();
     alarm.change_at = estimate.change_at;
+    alarm.length = estimate.run_length;
     alarm.direction = estimate.direction;
     alarm.shift = estimate.shift;
   }

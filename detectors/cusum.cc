@@ -72,6 +72,7 @@ StatusOr<Alarm> Cusum::Update(double x, EventTime time) {
     alarm.fired = true;
     alarm.direction = up ? Direction::kUp : Direction::kDown;
     alarm.change_at = side.start;
+    alarm.length = side.length;
     alarm.shift = up ? excursion_mean : -excursion_mean;
     ++alarms_;
     Restart();
@@ -113,6 +114,7 @@ StatusOr<Alarm> OneSidedCusum::Update(double x, EventTime time) {
     alarm.fired = true;
     alarm.direction = Direction::kUp;
     alarm.change_at = side_.start;
+    alarm.length = side_.length;
     alarm.shift =
         options_.k + (side_.value - side_.origin) / static_cast<double>(side_.length);
     ++alarms_;

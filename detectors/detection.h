@@ -2,6 +2,7 @@
 // per-series pipeline can treat them alike. Plain value types; thread-compatible.
 #pragma once
 
+#include <cstdint>
 #include <optional>
 #include <string_view>
 
@@ -22,6 +23,8 @@ struct Alarm {
   EventTime change_at = 0;          // estimated first time of the new regime
   double shift = 0.0;               // estimated shift of the mean, in input units (signed)
   double statistic = 0.0;           // the decision statistic at this update
+  // On a firing: the detector's readings from change_at through this one.
+  std::int64_t length = 0;
 };
 
 }  // namespace plumbline

@@ -88,6 +88,7 @@ StatusOr<Alarm> Ewma::Update(double x, EventTime time) {
     alarm.fired = true;
     alarm.direction = up ? Direction::kUp : Direction::kDown;
     alarm.change_at = run.start;
+    alarm.length = run.length;
     alarm.shift = run.sum_x / static_cast<double>(run.length);
     ++alarms_;
     Restart();

@@ -87,6 +87,7 @@ StatusOr<Alarm> PageHinkley::Update(double x, EventTime time) {
     alarm.fired = true;
     alarm.direction = up ? Direction::kUp : Direction::kDown;
     alarm.change_at = side.start;
+    alarm.length = side.length;
     alarm.shift = ShiftEstimate(side);
     ++alarms_;
     Restart();

@@ -300,6 +300,7 @@ StatusOr<Alarm> PoissonCusum::Update(double count, EventTime time, double mean_r
     alarm.fired = true;
     alarm.direction = up ? Direction::kUp : Direction::kDown;
     alarm.change_at = side.start;
+    alarm.length = side.length;
     alarm.shift = side.excess / static_cast<double>(side.length);
     ++alarms_;
     Restart();

@@ -162,11 +162,7 @@ SeriesMonitor::SeriesMonitor(const ProfileDesign* design)
 }
 
 void SeriesMonitor::Prefetch(EventTime t) const {
-  // The monitor itself, but of its ring of recent times only the slot written next.
-  const char* self = reinterpret_cast<const char*>(this);
-  PrefetchRange(self, static_cast<size_t>(reinterpret_cast<const char*>(&recent_times_) - self));
-  __builtin_prefetch(&recent_times_[(observations_ + 1) % recent_times_.size()]);
-  __builtin_prefetch(&regime_observations_);
+  PrefetchRange(reinterpret_cast<const char*>(this), sizeof(*this));
   if (forecaster_) forecaster_->Prefetch();
   if (profile_) profile_->Prefetch(profile_->Bin(t));
   arrival_.Prefetch(t);
@@ -554,7 +550,6 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   if (Unlearned(to)) return;
   ++observations_;
   value_sum_ += y;
-  recent_times_[observations_ % recent_times_.size()] = to;
   JoinCovariates(to);
   if (!forecaster_) {
     probe_.push_back({from, to, y, covariate_values_});
@@ -770,7 +765,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
       design_->profile.cooldown > 0 ? design_->profile.cooldown : design_->profile.warmup;
   variance_hold_until_ = observations_ + hold;
   level_hold_until_ = std::max(level_hold_until_, observations_ + 20);
-  StartRegime(variance_alarm.change_at);
+  StartRegime(variance_alarm.change_at, ReadingsSince(variance_alarm, observations_));
 }
 
 void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double forecast,
@@ -838,6 +833,7 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
 
   const Alarm alarm =
       firings_[best].alarm;  // a copy: ResetLevelDetectors clears firings_
+  const long long readings = ReadingsSince(alarm, firings_[best].observation);
   SeriesEvent e;
   e.kind = AlertKind::kLevel;
   e.direction = alarm.direction;
@@ -853,7 +849,7 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
   const double response =
       std::holds_alternative<PoissonCusum>(level_[best])
           ? 1.0
-          : whitener_.MeanStepResponse(ObservationsSince(alarm.change_at));
+          : whitener_.MeanStepResponse(std::min(readings, kStepResponseReadings));
   e.magnitude_sd = alarm.shift / response;
   e.magnitude = e.magnitude_sd * sigma;
   e.before = forecast;
@@ -868,7 +864,7 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
   const long long hold = profile.cooldown > 0 ? profile.cooldown : profile.warmup;
   level_hold_until_ = observations_ + hold;
   variance_hold_until_ = std::max(variance_hold_until_, observations_ + hold);
-  StartRegime(alarm.change_at);
+  StartRegime(alarm.change_at, readings);
 }
 
 namespace {
@@ -1152,19 +1148,13 @@ bool SeriesMonitor::Suspicious(double fraction_of_threshold) const {
   return false;
 }
 
-long long SeriesMonitor::ObservationsSince(EventTime change_at) const {
-  // Those at or after change_at among the recent ones (the ring holds the last 256).
-  long long inside = 0;
-  const long long available = std::min<long long>(observations_, recent_times_.size());
-  for (long long k = 0; k < available; ++k) {
-    if (recent_times_[(observations_ - k) % recent_times_.size()] >= change_at) ++inside;
-  }
-  return inside;
+long long SeriesMonitor::ReadingsSince(const Alarm& alarm, long long fired_at) const {
+  return std::max<long long>(alarm.length, 1) + std::max(observations_ - fired_at, 0LL);
 }
 
-void SeriesMonitor::StartRegime(EventTime change_at) {
+void SeriesMonitor::StartRegime(EventTime change_at, long long readings) {
   regime_start_ = change_at;
-  regime_observations_ = ObservationsSince(change_at);  // already in the new regime
+  regime_observations_ = readings;  // already in the new regime
 }
 
 std::vector<SeriesMonitor::DetectorSnapshot> SeriesMonitor::DetectorSnapshots() const {
@@ -1270,7 +1260,7 @@ EventTime ReorderTime(SnapshotReader& r, std::string_view what) {
 }  // namespace
 
 void SeriesMonitor::Save(SnapshotWriter& w) const {
-  w.Tag("SMN2");  // "SMON" before settled_ was kept
+  w.Tag("SMN3");  // "SMN2" kept a ring of recent observation times; "SMON" no settled_
   w.Bool(forecaster_.has_value());
   if (forecaster_) {
     forecaster_->Save(w);
@@ -1307,6 +1297,7 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
     VisitLevel([&w](const auto& d) { d.Save(w); }, level_[i]);
     w.I64(firings_[i].observation);
     SaveAlarm(firings_[i].alarm, w);
+    w.I64(firings_[i].alarm.length);
     w.F64(threshold_fraction_[i]);
   }
   w.U64(pending_.size());
@@ -1331,7 +1322,6 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
   w.Bool(has_reading_);
   w.I64(last_reading_);
   w.OptionalI64(regime_start_);
-  for (EventTime t : recent_times_) w.I64(t);
   w.I64(regime_observations_);
   w.F64(value_sum_);
   w.Bool(count_chart_decided_);
@@ -1340,7 +1330,7 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
   health_.Save(w);
   w.DoubleVector(level_sample_.Values());
   w.F64(adapted_h_);
-  w.Bool(settled_);  // "SMN2"
+  w.Bool(settled_);  // since "SMN2"
 }
 
 namespace {
@@ -1359,10 +1349,13 @@ void LoadSample(SnapshotReader& r, std::size_t max, const char* what,
 }  // namespace
 
 Status SeriesMonitor::Load(SnapshotReader& r) {
-  // "SMN2" adds settled_ at the end; a "SMON" state counts as settled, as its
-  // series armed on warmup alone.
-  const bool with_settled = r.NextTagIs("SMN2");
-  r.Tag(with_settled ? "SMN2" : "SMON");
+  // "SMN3" keeps each pending level firing's length instead of a ring of the
+  // last 256 observation times (from which an older state's lengths are
+  // worked out below); "SMN2" added settled_ at the end, and a "SMON" state
+  // counts as settled, as its series armed on warmup alone.
+  const bool with_lengths = r.NextTagIs("SMN3");
+  const bool with_settled = with_lengths || r.NextTagIs("SMN2");
+  r.Tag(with_lengths ? "SMN3" : with_settled ? "SMN2" : "SMON");
   forecaster_.reset();
   rivals_.clear();
   if (r.Bool()) {
@@ -1440,6 +1433,7 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
       return r.Fail("level firing observation out of range");
     }
     LoadAlarm(&firings_[i].alarm, r);
+    if (with_lengths) firings_[i].alarm.length = r.Counter("level firing length");
     threshold_fraction_[i] = r.NonNegative("level threshold fraction");
   }
   pending_.resize(r.Count(16));
@@ -1481,7 +1475,22 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
       (*regime_start_ < -SnapshotReader::kMaxTime || *regime_start_ > SnapshotReader::kMaxTime)) {
     return r.Fail("regime start is out of the time range");
   }
-  for (EventTime& t : recent_times_) t = r.Time("recent observation time");
+  if (!with_lengths) {
+    // The ring of the last 256 observation times: a firing's length is the
+    // number of them at or after its change_at, less those since it fired.
+    std::array<EventTime, 256> recent{};
+    for (EventTime& t : recent) t = r.Time("recent observation time");
+    for (Firing& firing : firings_) {
+      if (firing.observation < 0) continue;
+      long long inside = 0;
+      const long long available = std::min<long long>(observations_, recent.size());
+      for (long long k = 0; k < available; ++k) {
+        inside += recent[static_cast<size_t>((observations_ - k) % 256)] >=
+                  firing.alarm.change_at;
+      }
+      firing.alarm.length = std::max(inside - (observations_ - firing.observation), 1LL);
+    }
+  }
   regime_observations_ = r.Counter("regime observations");
   value_sum_ = r.Finite("sum of readings");
   count_chart_decided_ = r.Bool();

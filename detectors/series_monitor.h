@@ -373,9 +373,11 @@ class SeriesMonitor {
   void ChooseCountChart();
   // Feeds the count CUSUM's re-fit sample; re-fits once it is full.
   void CollectCountIncrements(double count, double down_ratio, PoissonCusum& chart);
-  // Observations at or after change_at among the last 256.
-  long long ObservationsSince(EventTime change_at) const;
-  void StartRegime(EventTime change_at);
+  // Readings from an alarm's change_at through the current one: the firing
+  // detector's count (Alarm::length) plus those since it fired, at
+  // observation fired_at.
+  long long ReadingsSince(const Alarm& alarm, long long fired_at) const;
+  void StartRegime(EventTime change_at, long long readings);
   // Annotations.
   void ApplyPlannedChange(const Annotation& change);
   void Annotate(std::vector<SeriesEvent>* events, std::size_t first) const;
@@ -400,6 +402,10 @@ class SeriesMonitor {
   static constexpr double kBaselineFraction = 0.25;
   static constexpr double kLearnFraction = 0.5;
   static constexpr double kLevelClip = 4.0;
+  // A level alert's step in the readings is the detector's shift over the
+  // whitener's mean step response over the readings since change_at, at most
+  // this many: it has long settled by then (persistence <= kMaxPhi).
+  static constexpr long long kStepResponseReadings = 256;
   // The count CUSUM's upper side reads a forecast below this fraction of its
   // design mean as this fraction (a forecast near zero would make any count a rise).
   static constexpr double kCountMeanFloor = 0.05;
@@ -516,7 +522,6 @@ class SeriesMonitor {
 
   // Regime bookkeeping for retrain events.
   std::optional<EventTime> regime_start_;
-  std::array<EventTime, 256> recent_times_{};  // ring of recent observation times
   long long regime_observations_ = 0;
 };
 

@@ -105,11 +105,18 @@ Alarm VarianceCusum::Step(double z, EventTime time) {
   };
   if (up_.statistic > options_.up_h) {
     if (SpreadExplainsExcursion()) {
-      alarm = {true, Direction::kUp, up_.start, std::sqrt(spread(up_)), up_.statistic};
+      alarm = {true,          Direction::kUp,
+               up_.start,     std::sqrt(spread(up_)),
+               up_.statistic, static_cast<std::int64_t>(up_.n)};
       Reset();
     }
   } else if (down_.statistic > options_.down_h) {
-    alarm = {true, Direction::kDown, down_.start, std::sqrt(spread(down_)), down_.statistic};
+    alarm = {true,
+             Direction::kDown,
+             down_.start,
+             std::sqrt(spread(down_)),
+             down_.statistic,
+             static_cast<std::int64_t>(down_.n)};
     Reset();
   }
   return alarm;

@@ -535,7 +535,7 @@ TEST(ForgedStateTest, SeriesMonitorRefusesOversizedBuffersAndCountsOutOfRange) {
     return LoadPatched(original, fresh, at, bits);
   };
   {
-    // Before the forecaster starts: "SMN2", no forecaster (1 byte), then the
+    // Before the forecaster starts: "SMN3", no forecaster (1 byte), then the
     // held observations (count at 5; from, to, value, covariates).
     SeriesMonitor early(&*design);
     for (int i = 0; i < 3; ++i) early.Observe(readings[i].time, readings[i].value, &ignored);
@@ -548,13 +548,12 @@ TEST(ForgedStateTest, SeriesMonitorRefusesOversizedBuffersAndCountsOutOfRange) {
   SeriesMonitor armed(&*design);
   for (const auto& r : readings) armed.Observe(r.time, r.value, &ignored);
   const std::string bytes = Saved(armed);
-  // Near the tail: ... the recent observation times (256), the regime's
-  // observations; then the sum of readings (8 bytes), a flag (1), the empty
-  // count-chart sample (8), a flag (1) and the calibration health ("HLTH").
+  // Near the tail: ... the regime's start, the regime's observations; then
+  // the sum of readings (8 bytes), a flag (1), the empty count-chart sample
+  // (8), a flag (1) and the calibration health ("HLTH").
   const std::size_t health = bytes.rfind("HLTH");
   ASSERT_NE(health, std::string::npos);
   EXPECT_TRUE(RefusedNaming(load(armed, health - 26, kMinusOne), "regime observations"));
-  EXPECT_TRUE(RefusedNaming(load(armed, health - 34, kHuge), "recent observation time"));
   EXPECT_TRUE(RefusedNaming(load(armed, health - 18, kNan), "sum of readings"));
   EXPECT_FALSE(load(armed, health - 9, 5000).ok());  // runs past the end
   // The adapted threshold (8 bytes), then the settled flag (1).
@@ -569,6 +568,11 @@ TEST(ForgedStateTest, SeriesMonitorRefusesOversizedBuffersAndCountsOutOfRange) {
   EXPECT_TRUE(RefusedNaming(load(armed, intake - 8, U64At(bytes, intake - 16) + 1),
                             "released reading is newer"));
   EXPECT_TRUE(load(armed, intake - 8, U64At(bytes, intake - 16) - 1).ok());
+  // The last level detector's firing: its length (8 bytes), then its
+  // threshold fraction (8), before the empty list of held readings (8) and
+  // the reorder times.
+  ASSERT_EQ(U64At(bytes, intake - 24), 0u);
+  EXPECT_TRUE(RefusedNaming(load(armed, intake - 40, kMinusOne), "level firing length"));
 }
 
 struct Case {
@@ -702,13 +706,17 @@ TEST(SeriesMonitorCheckpointTest, TruncatedStateIsRefusedAtEveryLength) {
   }
 }
 
-// Whether the model has settled is kept ("SMN2"): a monitor saved while its
-// model is still unsettled comes back unarmed. A state of the format before
-// ("SMON", without the flag) still loads, and counts as settled.
+// Whether the model has settled is kept (since "SMN2"): a monitor saved while
+// its model is still unsettled comes back unarmed. States of the formats
+// before still load: "SMN2", with a ring of the last 256 observation times
+// where "SMN3" keeps each pending level firing's length, and "SMON", without
+// the flag, which counts as settled.
 TEST(SeriesMonitorCheckpointTest, SettledFlagIsKeptAndOlderStatesCountAsSettled) {
   ProfileOptions profile;
   profile.seasons = {kMicrosPerDay};
   profile.warmup = 20;
+  profile.detectors = {
+      DetectorKind::kCusum};  // one firing record, just before the whitener
   auto design = ProfileDesign::Make(profile);
   ASSERT_TRUE(design.ok());
   // Readings 10 minutes apart: 30 of them (5 hours) are past warmup but far
@@ -726,7 +734,24 @@ TEST(SeriesMonitorCheckpointTest, SettledFlagIsKeptAndOlderStatesCountAsSettled)
     ASSERT_TRUE(restored.Load(reader).ok()) << reader.status().ToString();
     EXPECT_FALSE(restored.armed());
   }
-  ASSERT_EQ(bytes.substr(0, 4), "SMN2");
+  ASSERT_EQ(bytes.substr(0, 4), "SMN3");
+  // As "SMN2": without the firing's length (8 bytes before its threshold
+  // fraction, the empty list of held readings and the two reorder times
+  // before the intake, "INTK"), with the ring of times before the regime's
+  // observations (26 bytes before "HLTH").
+  const std::size_t intake = bytes.find("INTK");
+  ASSERT_NE(intake, std::string::npos);
+  bytes.erase(intake - 40, 8);
+  const std::size_t ring_end = bytes.rfind("HLTH") - 26;
+  bytes.insert(ring_end, std::string(256 * 8, '\0'));
+  bytes.replace(0, 4, "SMN2");
+  {
+    SeriesMonitor restored(&*design);
+    SnapshotReader reader(bytes);
+    ASSERT_TRUE(restored.Load(reader).ok()) << reader.status().ToString();
+    EXPECT_TRUE(reader.AtEnd());
+    EXPECT_FALSE(restored.armed());
+  }
   bytes.replace(0, 4, "SMON");
   bytes.pop_back();  // the flag
   SeriesMonitor old(&*design);
