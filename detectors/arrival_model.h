@@ -158,7 +158,6 @@ class ArrivalShape {
   // Relative intensities, derived from the two above at each refresh; single
   // precision is ample for a ratio estimated from a few events a bin.
   std::vector<float> p_;
-  std::vector<double> parent_scratch_, parent_events_scratch_;  // Refresh's, sized once
   double exposure_total_ = 0.0;             // unforgotten, for `learned`
   EventTime anchor_ = 0;                    // weights grow as exp((t - anchor) / memory)
   double weight_ = 1.0;                     // weight of the latest contribution
