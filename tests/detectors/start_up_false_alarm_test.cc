@@ -1,0 +1,74 @@
+// The false-alarm promise in the first weeks after warmup (issue 10's
+// acceptance counts over 200,000 readings, where false_alarm_test passes; a
+// user meets the first weeks first). Labelled pending: it fails today, and
+// says by how much. Seeded synthetic streams (tests/support/noise_streams.h).
+#include <cstdint>
+#include <cstdio>
+#include <vector>
+
+#include <gtest/gtest.h>
+
+#include "detectors/series_monitor.h"
+#include "tests/support/noise_streams.h"
+
+namespace plumbline {
+namespace {
+
+using namespace noise_streams;
+
+struct StartUp {
+  int alerts = 0;
+  int variance = 0;
+  long long readings = 0;
+};
+
+// Readings from the end of warmup to 3,000 (three weeks of 10-minute
+// readings) of 100 streams of one family, every alert kind counted.
+StartUp StartUpAlerts(Noise noise) {
+  auto design = ProfileDesign::Make(ProfileFor(noise));
+  EXPECT_TRUE(design.ok());
+  StartUp s;
+  const int warmup = design->profile.warmup;
+  for (std::uint64_t seed = 2000; seed < 2100; ++seed) {
+    SeriesMonitor monitor(&*design);
+    NoiseSource source(noise, seed);
+    EventTime t = kStart;
+    std::vector<SeriesEvent> events;
+    for (int i = 0; i < 3000; ++i) {
+      t = NextTime(source, t);
+      events.clear();
+      monitor.Observe(t, source.Next(Mean(noise, t)), &events);
+      if (i < warmup) continue;
+      ++s.readings;
+      for (const SeriesEvent& e : events) {
+        if (e.type != EventType::kAlert) continue;
+        ++s.alerts;
+        s.variance += e.kind == AlertKind::kVariance;
+      }
+    }
+  }
+  std::printf("[figures] %s, readings %d-3000 of 100 streams: %d alerts = %.2f / arl0, "
+              "%d of them variance\n",
+              Name(noise), warmup, s.alerts, s.alerts * 5000.0 / s.readings, s.variance);
+  return s;
+}
+
+// On 4 December: Gaussian 0.27 / arl0; AR(1) 1.95, mostly level alerts while
+// the whitener's correlation estimate, a mean over all residuals so far,
+// still lags (0.30 on average over readings 100-300, against 0.5); Student-t
+// 2.81, 125 of its 166 alerts from the variance chart, which is designed for
+// normal residuals and fires on heavy tails until its re-fit on a full
+// sample some 1,000 readings after warmup; Poisson 0.14.
+TEST(StartUpFalseAlarmTest, TheFirstWeeksKeepTheFalseAlarmPromise) {
+  for (Noise noise :
+       {Noise::kGaussian, Noise::kAutoregressive, Noise::kStudentT, Noise::kPoisson}) {
+    const StartUp s = StartUpAlerts(noise);
+    const double budget = static_cast<double>(s.readings) / 5000.0;
+    EXPECT_LE(s.alerts, 1.5 * budget) << Name(noise);
+    // The variance pair holds a quarter of the budget (series_monitor.cc).
+    EXPECT_LE(s.variance, 1.5 * budget / 4.0) << Name(noise);
+  }
+}
+
+}  // namespace
+}  // namespace plumbline
