@@ -1485,7 +1485,7 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
       long long inside = 0;
       const long long available = std::min<long long>(observations_, recent.size());
       for (long long k = 0; k < available; ++k) {
-        inside += recent[static_cast<size_t>((observations_ - k) % 256)] >=
+        inside += recent[static_cast<size_t>(observations_ - k) % recent.size()] >=
                   firing.alarm.change_at;
       }
       firing.alarm.length = std::max(inside - (observations_ - firing.observation), 1LL);

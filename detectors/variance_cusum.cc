@@ -103,20 +103,23 @@ Alarm VarianceCusum::Step(double z, EventTime time) {
     const double m = s.sum / s.n;
     return std::max(s.sum_sq / s.n - m * m, 0.0);
   };
+  auto fire = [&](Direction direction, const Side& s) {
+    Alarm a;
+    a.fired = true;
+    a.direction = direction;
+    a.change_at = s.start;
+    a.shift = std::sqrt(spread(s));
+    a.statistic = s.statistic;
+    a.length = static_cast<std::int64_t>(s.n);
+    return a;
+  };
   if (up_.statistic > options_.up_h) {
     if (SpreadExplainsExcursion()) {
-      alarm = {true,          Direction::kUp,
-               up_.start,     std::sqrt(spread(up_)),
-               up_.statistic, static_cast<std::int64_t>(up_.n)};
+      alarm = fire(Direction::kUp, up_);
       Reset();
     }
   } else if (down_.statistic > options_.down_h) {
-    alarm = {true,
-             Direction::kDown,
-             down_.start,
-             std::sqrt(spread(down_)),
-             down_.statistic,
-             static_cast<std::int64_t>(down_.n)};
+    alarm = fire(Direction::kDown, down_);
     Reset();
   }
   return alarm;
