@@ -164,14 +164,12 @@ void ArrivalShape::Refresh() {
   // kShapePrior pseudo-events at the mean rate, weighted like a new event.
   const double prior_events = kShapePrior * weight_;
   const double prior_exposure = prior_events / rate;
-  // With two levels, each bin's prior rate is its phase's pooled rate.
-  // Scratch shared by every shape on this thread (a series' state would
+  // With two levels, each bin's prior rate is its phase's pooled rate. The
+  // tables are shared by every shape on this thread (a series' state would
   // otherwise carry two tables it only needs while refreshing).
-  thread_local std::vector<double> parent_scratch, parent_events_scratch;
-  std::vector<double>& parent = parent_scratch;
+  thread_local std::vector<double> parent, parent_events;
   if (fold_bins_ > 0) {
     const size_t fold = static_cast<size_t>(fold_bins_);
-    std::vector<double>& parent_events = parent_events_scratch;
     parent.assign(fold, 0.0);
     parent_events.assign(fold, 0.0);
     for (size_t b = 0; b < p_.size(); ++b) {

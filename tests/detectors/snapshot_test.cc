@@ -715,8 +715,8 @@ TEST(SeriesMonitorCheckpointTest, SettledFlagIsKeptAndOlderStatesCountAsSettled)
   ProfileOptions profile;
   profile.seasons = {kMicrosPerDay};
   profile.warmup = 20;
-  profile.detectors = {
-      DetectorKind::kCusum};  // one firing record, just before the whitener
+  // One level detector: its firing record is the last before the held readings.
+  profile.detectors = {DetectorKind::kCusum};
   auto design = ProfileDesign::Make(profile);
   ASSERT_TRUE(design.ok());
   // Readings 10 minutes apart: 30 of them (5 hours) are past warmup but far
