@@ -373,14 +373,16 @@ int RunReplay(const Args& args) {
       }
     }
     engine.AdvanceClock(head->time, &out);
-    // The forecast for the report is made before the model sees the reading.
-    const TracePoint point =
-        report_path ? TracePointBefore(engine.Find(head->series), head->time, head->value)
-                    : TracePoint{};
+    const TraceBefore trace =
+        report_path ? TraceStateBefore(engine.Find(head->series)) : TraceBefore{};
     const IngestOutcome outcome = engine.Ingest(head->series, head->time, head->value, &out);
     if (outcome == IngestOutcome::kAccepted) {
       ++readings;
-      if (report_path) recorder.AddPoint(head->series, point);
+      if (report_path) {
+        // The report's forecast, as the model made it before the reading.
+        recorder.AddPoint(head->series, TracePointAfter(engine.Find(head->series), trace,
+                                                        head->time, head->value));
+      }
     } else {
       refuse(*next, *head, outcome);
     }

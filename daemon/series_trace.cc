@@ -7,21 +7,37 @@
 
 namespace plumbline {
 
-TracePoint TracePointBefore(const SeriesMonitor* monitor, EventTime time, double value) {
+TraceBefore TraceStateBefore(const SeriesMonitor* monitor) {
+  if (monitor == nullptr) return {};
+  const SeasonalForecaster* forecaster = monitor->forecaster();
+  return {monitor->scale().sigma(), forecaster ? forecaster->updates() : 0};
+}
+
+TracePoint TracePointAfter(const SeriesMonitor* monitor, const TraceBefore& before,
+                           EventTime time, double value) {
   TracePoint point;
   point.time = time;
   point.value = value;
-  if (monitor == nullptr) return point;
+  if (monitor == nullptr || before.updates == 0) return point;
   const ProfileOptions& profile = monitor->profile();
   const bool on_reading_scale = profile.kind != SeriesKind::kMeter && !profile.every;
   const SeasonalForecaster* forecaster = monitor->forecaster();
-  if (!on_reading_scale || forecaster == nullptr || !forecaster->has_data()) return point;
-  const Forecast forecast = forecaster->Predict(time);
-  const double sigma = monitor->scale().sigma();
-  point.forecast = static_cast<float>(forecast.value);
-  point.band = static_cast<float>(
-      kBandZ * sigma *
-      std::sqrt(1.0 + std::max(0.0, forecast.parameter_variance_factor)));
+  if (!on_reading_scale || forecaster == nullptr) return point;
+  const SeasonalForecaster::Begun begun = forecaster->last_begun();
+  double forecast = 0.0, factor = 0.0;
+  if (forecaster->updates() > before.updates && begun.from == time && begun.to == time) {
+    forecast = begun.value;
+    factor = begun.parameter_variance_factor;
+  } else if (forecaster->last_time() < time) {
+    const Forecast f = forecaster->Predict(time);
+    forecast = f.value;
+    factor = f.parameter_variance_factor;
+  } else {
+    return point;
+  }
+  point.forecast = static_cast<float>(forecast);
+  point.band =
+      static_cast<float>(kBandZ * before.sigma * std::sqrt(1.0 + std::max(0.0, factor)));
   return point;
 }
 

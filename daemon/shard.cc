@@ -243,11 +243,8 @@ void Shard::Process(ReadingBatch& batch) {
       const ReadingBatch::Entry& ahead = batch.entries[k + Engine::kPrefetchAhead];
       engine.Prefetch(batch.name(ahead), ahead.time);
     }
-    // The forecast for this reading, made before the model sees it.
-    const TracePoint point =
-        options_.recent_points > 0
-            ? TracePointBefore(engine.Find(name), entry.time, entry.value)
-            : TracePoint{};
+    const TraceBefore trace =
+        options_.recent_points > 0 ? TraceStateBefore(engine.Find(name)) : TraceBefore{};
     const IngestOutcome outcome = engine.Ingest(name, entry.time, entry.value, &out_);
     ++counts[static_cast<int>(outcome)];
     if (outcome != IngestOutcome::kAccepted) {
@@ -268,7 +265,12 @@ void Shard::Process(ReadingBatch& batch) {
     if (extras.readings == 1 || entry.time > extras.newest) extras.newest = entry.time;
     extras.arrived = arrived;
     state_.ScheduleSilence(it->first, &extras);
-    extras.points.Push(point, options_.recent_points);
+    if (options_.recent_points > 0) {
+      // The forecast for this reading, as the model made it before the reading.
+      extras.points.Push(
+          TracePointAfter(engine.Find(name), trace, entry.time, entry.value),
+          options_.recent_points);
+    }
   }
   processed_.fetch_add(batch.size());
   if (observer_) {

@@ -49,6 +49,20 @@ Matrix& CovarianceWorkspace(int n) {
   return p;
 }
 
+// x' P x from the packed lower triangle in one pass, for forecasts away from
+// an update (Predict, PredictInterval): unpacking P and multiplying the full
+// matrix for it took a tenth of `serve`'s time, as every reading's chart
+// point asks for one (perf, 1,000 series at 250,000 readings a second).
+double PackedQuadraticForm(const double* lower, int n, const double* x) {
+  double sum = 0.0;
+  for (int j = 0; j < n; lower += n - j, ++j) {  // column j: P(j..n-1, j)
+    double off_diagonal = 0.0;
+    for (int i = j + 1; i < n; ++i) off_diagonal += lower[i - j] * x[i];
+    sum += x[j] * (lower[0] * x[j] + 2.0 * off_diagonal);
+  }
+  return sum;
+}
+
 }  // namespace
 
 void PackedSymmetricTimesVector(const double* lower, int n, const double* x, double* y) {
@@ -231,8 +245,9 @@ Forecast SeasonalForecaster::PredictInterval(EventTime from, EventTime to) const
   const double lambda =
       std::exp(-static_cast<double>(std::max<EventTime>(to - t_ref_, 0)) /
                static_cast<double>(options_.memory));
-  return {x_.dot(theta_), x_.dot(Unpacked().selfadjointView<Eigen::Lower>() * x_) / lambda +
-                              x_[0] * x_[0] * LevelDrift(to - t_ref_)};
+  return {x_.dot(theta_),
+          PackedQuadraticForm(p_lower_.data(), dimension(), x_.data()) / lambda +
+              x_[0] * x_[0] * LevelDrift(to - t_ref_)};
 }
 
 Forecast SeasonalForecaster::Predict(EventTime t) const {
@@ -243,8 +258,9 @@ Forecast SeasonalForecaster::Predict(EventTime t) const {
                static_cast<double>(options_.memory));
   Forecast f;
   f.value = x_.dot(theta_);
-  f.parameter_variance_factor = x_.dot(Unpacked().selfadjointView<Eigen::Lower>() * x_) / lambda +
-                                x_[0] * x_[0] * LevelDrift(t - t_ref_);
+  f.parameter_variance_factor =
+      PackedQuadraticForm(p_lower_.data(), dimension(), x_.data()) / lambda +
+      x_[0] * x_[0] * LevelDrift(t - t_ref_);
   return f;
 }
 

@@ -178,6 +178,17 @@ class SeasonalForecaster {
   // when y is not finite or no update is pending.
   StatusOr<Forecast> BeginUpdate(EventTime from, EventTime to);
   Status CommitUpdate(double y);
+  // The forecast the last BeginUpdate made, of the observation over [from,
+  // to], as it stood before that observation was folded in (the variance
+  // factor as BeginUpdate's). For showing a reading's forecast once it is in;
+  // meaningless unless the model had data before that update.
+  struct Begun {
+    EventTime from = 0, to = 0;
+    double value = 0.0, parameter_variance_factor = 0.0;
+  };
+  Begun last_begun() const {
+    return {pending_.from, pending_.to, pending_.forecast, pending_.xpx};
+  }
 
   // Moves the level by delta (units of y) and adds level_variance to its
   // variance (at most up to half the covariance bound below), so the model

@@ -6,7 +6,11 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <numbers>
+#include <vector>
 
+#include "config/config.h"
+#include "daemon/engine.h"
 #include "daemon/replay_report.h"
 #include "daemon/series_trace.h"
 #include "daemon/terminal.h"
@@ -38,8 +42,87 @@ TEST(PointRingTest, CapacityZeroKeepsNothing) {
 }
 
 TEST(PointRingTest, PointWithoutForecastSaysSo) {
-  EXPECT_FALSE(TracePointBefore(nullptr, 5, 2.0).has_forecast());
-  EXPECT_EQ(TracePointBefore(nullptr, 5, 2.0).value, 2.0);
+  EXPECT_FALSE(
+      TracePointAfter(nullptr, TraceStateBefore(nullptr), 5, 2.0).has_forecast());
+  EXPECT_EQ(TracePointAfter(nullptr, TraceStateBefore(nullptr), 5, 2.0).value, 2.0);
+}
+
+// A gauge fed one reading a minute (a daily cycle and a deterministic wobble),
+// with `lateness` for reordering; the trace point of each reading next to the
+// forecast the model would have made for it just before it was fed.
+struct TracedReading {
+  TracePoint point;
+  bool expected = false;  // the model had data before the reading
+  double forecast = 0.0, band = 0.0;
+};
+std::vector<TracedReading> TraceGauge(EventTime lateness, int readings) {
+  ProfileOptions profile;
+  profile.match = "**";
+  profile.seasons = {kMicrosPerDay};
+  profile.lateness = lateness;
+  Config config;
+  config.series = {profile};
+  Engine engine(config);
+  const EventTime start = 1'772'323'200LL * kMicrosPerSecond;
+  std::vector<TracedReading> traced;
+  std::vector<Alert> alerts;
+  for (int i = 0; i < readings; ++i) {
+    const EventTime t = start + i * kMicrosPerMinute + (i % 7) * kMicrosPerSecond;
+    const double value = 20.0 + 3.0 * std::sin(2.0 * std::numbers::pi * i / 1440.0) +
+                         0.3 * std::sin(i * 1.7);
+    TracedReading r;
+    const SeriesMonitor* before = engine.Find("line/temp");
+    if (before && before->forecaster() && before->forecaster()->has_data()) {
+      const Forecast f = before->forecaster()->Predict(t);
+      r.expected = true;
+      r.forecast = f.value;
+      r.band = kBandZ * before->scale().sigma() *
+               std::sqrt(1.0 + std::max(0.0, f.parameter_variance_factor));
+    }
+    const TraceBefore state = TraceStateBefore(before);
+    EXPECT_EQ(engine.Ingest("line/temp", t, value, &alerts), IngestOutcome::kAccepted);
+    r.point = TracePointAfter(engine.Find("line/temp"), state, t, value);
+    traced.push_back(r);
+  }
+  return traced;
+}
+
+TEST(TracePointTest, ForecastIsTheOneTheModelMadeBeforeTheReading) {
+  // Without reordering each reading is folded in at once, and its point takes
+  // the forecast that update began with: the one Predict gave just before.
+  const std::vector<TracedReading> traced = TraceGauge(0, 600);
+  ASSERT_FALSE(traced.front().point.has_forecast());  // nothing learned yet
+  int compared = 0;
+  for (const TracedReading& r : traced) {
+    EXPECT_EQ(r.point.has_forecast(), r.expected) << r.point.time;
+    if (!r.expected || !r.point.has_forecast()) continue;
+    ++compared;
+    EXPECT_NEAR(r.point.forecast, r.forecast, 1e-5 * std::abs(r.forecast))
+        << r.point.time;
+    EXPECT_NEAR(r.point.band, r.band, 1e-5 * r.band + 1e-9) << r.point.time;
+  }
+  // All but the first few, which the monitor holds while it sizes its model.
+  EXPECT_GE(compared, 590);
+}
+
+TEST(TracePointTest, ReadingHeldForReorderingStillGetsAForecast) {
+  // With 10 minutes of lateness a reading waits until readings 10 minutes newer
+  // have come; its point then carries the forecast made when it arrived, from
+  // a model that has not reached its time.
+  const std::vector<TracedReading> traced = TraceGauge(10 * kMicrosPerMinute, 600);
+  int with_forecast = 0;
+  for (const TracedReading& r : traced) {
+    if (r.point.has_forecast()) {
+      ++with_forecast;
+      EXPECT_TRUE(std::isfinite(r.point.band) && r.point.band >= 0) << r.point.time;
+    } else {
+      EXPECT_EQ(with_forecast, 0)
+          << "a reading after the first forecast lost its own, at " << r.point.time;
+    }
+  }
+  // All but the first few: the monitor holds some while it sizes its model,
+  // and the model's first update waits for the lateness.
+  EXPECT_GE(with_forecast, 575);
 }
 
 TEST(DecimateTest, KeepsEverySpikeAndStaysWithinTheBudget) {
