@@ -4,7 +4,12 @@
 // formats.
 #include <algorithm>
 #include <chrono>
+#include <future>
+#include <memory>
+#include <string>
 #include <unordered_map>
+#include <utility>
+#include <vector>
 
 #include "daemon/log.h"
 #include "daemon/service.h"
@@ -50,6 +55,10 @@ Status Service::StartCheckpoints() {
     }
     checkpoint = std::move(parsed).value();
   }
+  // The records hold their own copies: the file's bytes go before the
+  // monitors are built, so a restart does not need room for both.
+  const std::size_t payload_bytes = payload.ok() ? payload->size() : 0;
+  if (payload.ok()) std::string().swap(*payload);
   // Series from the checkpoint, to their shards.
   auto records = std::make_shared<std::vector<CheckpointSeries>>(std::move(checkpoint.series));
   std::unordered_map<std::string_view, std::uint64_t> wal_done;  // per restored series
@@ -58,31 +67,47 @@ Status Service::StartCheckpoints() {
     by_shard[shards_->ShardFor((*records)[i].name)].push_back(i);
     wal_done[(*records)[i].name] = (*records)[i].wal_done;
   }
-  ReconfigureReport total;
-  std::size_t refused = 0;
+  // Every shard restores its series at the same time, each record's state
+  // freed once its monitor is built (the records and the monitors would
+  // otherwise both be held whole).
+  using Part = std::pair<ReconfigureReport, std::size_t>;  // and the refused
+  std::vector<std::future<Part>> parts;
   const EventTime now = deps_.clock->Now();
   for (std::size_t shard = 0; shard < shards_->size() && !records->empty(); ++shard) {
-    auto part = shards_->shard(shard).Ask<std::pair<ReconfigureReport, std::size_t>>(
-        [records, indices = by_shard[shard], now](ShardState& state) {
-          ReconfigureReport report;
-          std::size_t bad = 0;
+    auto promise = std::make_shared<std::promise<Part>>();
+    parts.push_back(promise->get_future());
+    const bool posted = shards_->shard(shard).Post(
+        [records, indices = std::move(by_shard[shard]), now, promise](ShardState& state) {
+          Part part;
           for (std::size_t i : indices) {
-            const Status status = state.RestoreSeries((*records)[i], now, &report);
+            CheckpointSeries& record = (*records)[i];
+            const Status status = state.RestoreSeries(record, now, &part.first);
             if (!status.ok()) {
-              ++bad;
+              ++part.second;
               LogWarning("series not restored",
-                         {{"series", (*records)[i].name}, {"reason", status.message()}});
+                         {{"series", record.name}, {"reason", status.message()}});
             }
+            std::string().swap(record.engine_state);
+            std::vector<CovariateObservation>().swap(record.covariate_history);
           }
-          return std::make_pair(report, bad);
-        },
-        kShardCheckpointWait);
-    if (!part) return Status::Unavailable("a shard did not restore its series in time");
-    total.kept += part->first.kept;
-    total.retuned += part->first.retuned;
-    total.restarted += part->first.restarted;
-    total.dropped += part->first.dropped;
-    refused += part->second;
+          promise->set_value(part);
+        });
+    if (!posted)
+      return Status::Unavailable("a shard stopped before restoring its series");
+  }
+  ReconfigureReport total;
+  std::size_t refused = 0;
+  const auto restore_deadline = std::chrono::steady_clock::now() + kShardCheckpointWait;
+  for (std::future<Part>& part : parts) {
+    if (part.wait_until(restore_deadline) != std::future_status::ready) {
+      return Status::Unavailable("a shard did not restore its series in time");
+    }
+    const Part answer = part.get();
+    total.kept += answer.first.kept;
+    total.retuned += answer.first.retuned;
+    total.restarted += answer.first.restarted;
+    total.dropped += answer.first.dropped;
+    refused += answer.second;
   }
   if (payload.ok()) {
     LogInfo("checkpoint restored", {{"generation", store->generation()},
@@ -92,7 +117,7 @@ Status Service::StartCheckpoints() {
                                     {"restarted", total.restarted},
                                     {"dropped", total.dropped},
                                     {"refused", refused},
-                                    {"bytes", payload->size()},
+                                    {"bytes", payload_bytes},
                                     {"seconds", SecondsSince(begun)}});
   }
   // The log's tail: every record after the checkpoint, in order. A stream's
