@@ -92,6 +92,9 @@ StatusOr<Checkpoint> ParseCheckpointPayload(
 // The frame around a payload, and its check (Corruption, or
 // FailedPrecondition for another format version).
 std::string FrameCheckpoint(std::string_view payload, std::uint64_t generation);
+// The same for a payload in pieces (concatenated in order), each freed once
+// copied into the frame: a checkpoint needs room for one copy, not three.
+std::string FrameCheckpoint(std::vector<std::string>* pieces, std::uint64_t generation);
 struct UnframedCheckpoint {
   std::uint64_t generation = 0;
   std::uint32_t version = kCheckpointFormatVersion;  // of the payload
@@ -126,12 +129,16 @@ class CheckpointStore {
 
   // Writes `payload` as the next generation, over the older file.
   Status Save(std::string_view payload);
+  // The same for a payload in pieces, each freed once in the frame.
+  Status Save(std::vector<std::string>* pieces);
 
   std::string Path(int slot) const;
   std::uint64_t generation() const { return generation_; }
   std::uint32_t format_version() const { return format_version_; }
 
  private:
+  // Writes a framed checkpoint as the next generation.
+  Status Write(std::string_view framed);
   std::string directory_;
   FileSystem* file_system_;
   std::uint64_t generation_ = 0;  // of the newest good file

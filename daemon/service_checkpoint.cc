@@ -221,24 +221,34 @@ Status Service::SaveCheckpoint() {
   std::uint64_t series = 0;
   CheckpointHead head;
   head.wal_done = UINT64_MAX;
-  std::vector<std::string> parts;
+  // The payload in pieces: its head first (filled in below), then each
+  // shard's records. The shards write theirs at the same time.
+  std::vector<std::string> parts(1);
   std::unique_lock<std::shared_mutex> gate(wal_->stream_gate());
+  std::vector<std::future<ShardPart>> answers;
   for (std::size_t i = 0; i < shards_->size(); ++i) {
     Shard& shard = shards_->shard(i);
-    auto part = shard.Ask<ShardPart>(
-        [&shard](ShardState& state) {
-          ShardPart p;
-          p.wal_done = shard.WalDoneThrough();
-          SnapshotWriter w;
-          state.SaveSeries(p.wal_done, &w, &p.count);
-          p.records = w.Take();
-          return p;
-        },
-        kShardCheckpointWait);
-    if (!part) return Status::Unavailable("a shard did not write its series in time");
-    series += part->count;
-    head.wal_done = std::min(head.wal_done, part->wal_done);
-    parts.push_back(std::move(part->records));
+    auto promise = std::make_shared<std::promise<ShardPart>>();
+    answers.push_back(promise->get_future());
+    const bool posted = shard.Post([&shard, promise](ShardState& state) {
+      ShardPart p;
+      p.wal_done = shard.WalDoneThrough();
+      SnapshotWriter w;
+      state.SaveSeries(p.wal_done, &w, &p.count);
+      p.records = w.Take();
+      promise->set_value(std::move(p));
+    });
+    if (!posted) return Status::Unavailable("a shard stopped before writing its series");
+  }
+  const auto deadline = std::chrono::steady_clock::now() + kShardCheckpointWait;
+  for (std::future<ShardPart>& answer : answers) {
+    if (answer.wait_until(deadline) != std::future_status::ready) {
+      return Status::Unavailable("a shard did not write its series in time");
+    }
+    ShardPart part = answer.get();
+    series += part.count;
+    head.wal_done = std::min(head.wal_done, part.wal_done);
+    parts.push_back(std::move(part.records));
   }
   // The stream table claims lines durable: everything it counts must be in
   // the log on disk before the checkpoint says so.
@@ -255,10 +265,11 @@ Status Service::SaveCheckpoint() {
   if (!dispatcher_->Flush(std::chrono::steady_clock::now() + kShardCheckpointWait)) {
     return Status::Unavailable("alerts not delivered in time for the checkpoint");
   }
-  std::string payload = CheckpointPayloadHead(head, series);
-  for (const std::string& part : parts) payload += part;
+  parts[0] = CheckpointPayloadHead(head, series);
+  std::size_t payload_bytes = 0;
+  for (const std::string& part : parts) payload_bytes += part.size();
   const double snapshot_seconds = SecondsSince(begun);
-  Status status = checkpoints_->Save(payload);
+  Status status = checkpoints_->Save(&parts);
   if (!status.ok()) {
     LogError("checkpoint failed", {{"reason", status.message()}});
     return status;
@@ -268,7 +279,7 @@ Status Service::SaveCheckpoint() {
   older_wal_done_ = head.wal_done;
   LogInfo("checkpoint saved", {{"generation", checkpoints_->generation()},
                                {"series", series},
-                               {"bytes", payload.size()},
+                               {"bytes", payload_bytes},
                                {"snapshot_seconds", snapshot_seconds},
                                {"seconds", SecondsSince(begun)},
                                {"wal_bytes", wal_->bytes_written()},

@@ -327,6 +327,34 @@ TEST(CheckpointFormatTest, VersionOneRecordsAreReadWithoutCovariateObservations)
   EXPECT_FALSE(ParseCheckpointPayload(v2, 3).ok());  // a version this build does not read
 }
 
+TEST(CheckpointFormatTest, FrameFromPiecesIsTheFrameOfTheirConcatenation) {
+  // daemon/checkpoint.h: "PLUMBCKP", u32 version, u32 CRC-32C of the rest,
+  // u64 generation, u64 payload length, payload (little-endian).
+  std::vector<std::string> pieces = {"PLCK head", std::string(1000, 'a'), "", "tail"};
+  std::string whole;
+  for (const std::string& piece : pieces) whole += piece;
+  const std::string framed = FrameCheckpoint(whole, 9);
+  EXPECT_EQ(FrameCheckpoint(&pieces, 9), framed);
+  for (const std::string& piece : pieces)
+    EXPECT_TRUE(piece.empty());  // freed once copied
+  ASSERT_EQ(framed.size(), 32 + whole.size());
+  EXPECT_EQ(framed.substr(0, 8), "PLUMBCKP");
+  SnapshotWriter rest;
+  rest.U64(9);
+  rest.U64(whole.size());
+  const std::uint32_t crc = Crc32c(rest.bytes() + whole);
+  for (int i = 0; i < 4; ++i) {
+    EXPECT_EQ(static_cast<unsigned char>(framed[12 + i]), (crc >> (8 * i)) & 0xff) << i;
+  }
+  auto unframed = UnframeCheckpoint(framed);
+  ASSERT_TRUE(unframed.ok()) << unframed.status().message();
+  EXPECT_EQ(unframed->generation, 9u);
+  EXPECT_EQ(unframed->payload, whole);
+  std::string flipped = framed;
+  flipped.back() ^= 1;
+  EXPECT_FALSE(UnframeCheckpoint(flipped).ok());
+}
+
 TEST(CheckpointFormatTest, ObservationsRoundTripAndForgedOnesAreRefused) {
   CheckpointSeries s;
   s.name = kPallets;

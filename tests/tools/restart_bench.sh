@@ -5,6 +5,7 @@
 # STEPS readings each), stops the daemon with SIGTERM (which writes a
 # checkpoint), starts it again on the same state directory and reports
 #   - the checkpoint's size and the daemon's peak resident memory before the stop,
+#     and while it stops (writing the checkpoint),
 #   - "restore": the daemon's own figure for reading, checking and restoring
 #     the checkpoint (its "checkpoint restored" log line),
 #   - "ready": from the second start to the moment /readyz answers 200,
@@ -50,9 +51,19 @@ wait_ready
 "$gen" --port "$tcp" --http-port "$http" --connections 8 --series "$series" \
   --steps "$steps" --shift-step "$steps" --linger 0 >"$work/load.txt"
 first_rss=$(peak_rss_mib "$pid")
+# The high-water mark as the daemon stops: writing the checkpoint at SIGTERM
+# needs memory beside the state, and the last sample before exit holds it.
+(
+  last=$first_rss
+  while v=$(peak_rss_mib "$pid" 2>/dev/null) && [[ -n "$v" ]]; do last=$v; sleep 0.05; done
+  echo "$last" >"$work/stop_peak"
+) &
+sampler=$!
 stop_begun=$(date +%s.%N)
 kill -TERM "$pid"
 wait "$pid" || true
+wait "$sampler" || true
+stop_rss=$(cat "$work/stop_peak")
 stop_seconds=$(echo "$(date +%s.%N) - $stop_begun" | bc)
 checkpoint_bytes=$(stat -c %s "$work"/state/checkpoint-*.plc | sort -n | tail -1)
 
@@ -70,5 +81,6 @@ wait "$pid" || true
 echo "load: $(cat "$work/load.txt")"
 echo "series=$series steps=$steps checkpoint_bytes=$checkpoint_bytes" \
   "bytes_per_series=$((checkpoint_bytes / series)) first_peak_rss_mib=$first_rss" \
+  "stopping_peak_rss_mib=$stop_rss" \
   "sigterm_seconds=$stop_seconds restore_seconds=${restore:-?}" \
   "ready_seconds=$ready_seconds restarted_peak_rss_mib=$second_rss"
