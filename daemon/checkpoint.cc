@@ -110,46 +110,41 @@ StatusOr<Checkpoint> ParseCheckpointPayload(std::string_view payload,
 
 namespace {
 
-// A frame's header for a payload of `size` bytes, with room reserved for the
-// payload; the check is left zero for PatchCheck.
-std::string FrameHeader(std::uint64_t generation, std::size_t size) {
-  SnapshotWriter w;
-  w.Tag(kMagic.substr(0, 4));
-  w.Tag(kMagic.substr(4, 4));
-  w.U32(kCheckpointFormatVersion);
-  w.U32(0);  // the check
-  w.U64(generation);
-  w.U64(size);
-  std::string out = w.Take();
-  out.reserve(kHeaderBytes + size);  // the payload is copied in once
-  return out;
+// A frame's header (everything before the payload) for a payload in pieces.
+std::string FrameHead(std::span<const std::string_view> payload,
+                      std::uint64_t generation) {
+  std::size_t size = 0;
+  for (std::string_view piece : payload) size += piece.size();
+  SnapshotWriter rest;
+  rest.U64(generation);
+  rest.U64(size);
+  std::uint32_t crc = Crc32c(rest.bytes());  // of everything after the check
+  for (std::string_view piece : payload) crc = Crc32c(piece, crc);
+  SnapshotWriter head;
+  head.Tag(kMagic.substr(0, 4));
+  head.Tag(kMagic.substr(4, 4));
+  head.U32(kCheckpointFormatVersion);
+  head.U32(crc);
+  return std::string(head.bytes()) + std::string(rest.bytes());
 }
 
-// Writes the CRC-32C of everything after the check into it.
-void PatchCheck(std::string* framed) {
-  const std::uint32_t crc = Crc32c(std::string_view(*framed).substr(16));
-  for (int i = 0; i < 4; ++i)
-    (*framed)[12 + i] = static_cast<char>((crc >> (8 * i)) & 0xff);
+std::vector<std::string_view> Views(const std::vector<std::string>& pieces) {
+  return std::vector<std::string_view>(pieces.begin(), pieces.end());
 }
 
 }  // namespace
 
 std::string FrameCheckpoint(std::string_view payload, std::uint64_t generation) {
-  std::string out = FrameHeader(generation, payload.size());
+  std::string out = FrameHead(std::span<const std::string_view>(&payload, 1), generation);
+  out.reserve(kHeaderBytes + payload.size());  // the payload is copied once
   out.append(payload);
-  PatchCheck(&out);
   return out;
 }
 
-std::string FrameCheckpoint(std::vector<std::string>* pieces, std::uint64_t generation) {
-  std::size_t size = 0;
-  for (const std::string& piece : *pieces) size += piece.size();
-  std::string out = FrameHeader(generation, size);
-  for (std::string& piece : *pieces) {
-    out += piece;
-    std::string().swap(piece);
-  }
-  PatchCheck(&out);
+std::string FrameCheckpoint(const std::vector<std::string>& pieces,
+                            std::uint64_t generation) {
+  std::string out = FrameHead(Views(pieces), generation);
+  for (const std::string& piece : pieces) out += piece;
   return out;
 }
 
@@ -268,16 +263,21 @@ StatusOr<std::string> CheckpointStore::Load(std::vector<std::string>* skipped) {
 }
 
 Status CheckpointStore::Save(std::string_view payload) {
-  return Write(FrameCheckpoint(payload, generation_ + 1));
+  return Write(std::span<const std::string_view>(&payload, 1));
 }
 
 Status CheckpointStore::Save(std::vector<std::string>* pieces) {
-  return Write(FrameCheckpoint(pieces, generation_ + 1));
+  const Status status = Write(Views(*pieces));
+  std::vector<std::string>().swap(*pieces);
+  return status;
 }
 
-Status CheckpointStore::Write(std::string_view framed) {
+Status CheckpointStore::Write(std::span<const std::string_view> payload) {
   const int slot = 1 - newest_slot_;
-  if (Status s = file_system_->ReplaceFile(Path(slot), framed); !s.ok()) return s;
+  const std::string head = FrameHead(payload, generation_ + 1);
+  std::vector<std::string_view> file{head};
+  file.insert(file.end(), payload.begin(), payload.end());
+  if (Status s = file_system_->ReplaceFileFromPieces(Path(slot), file); !s.ok()) return s;
   ++generation_;
   newest_slot_ = slot;
   return Status::Ok();

@@ -39,6 +39,7 @@
 
 #include <cstdint>
 #include <memory>
+#include <span>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -92,9 +93,9 @@ StatusOr<Checkpoint> ParseCheckpointPayload(
 // The frame around a payload, and its check (Corruption, or
 // FailedPrecondition for another format version).
 std::string FrameCheckpoint(std::string_view payload, std::uint64_t generation);
-// The same for a payload in pieces (concatenated in order), each freed once
-// copied into the frame: a checkpoint needs room for one copy, not three.
-std::string FrameCheckpoint(std::vector<std::string>* pieces, std::uint64_t generation);
+// The same for a payload in pieces (concatenated in order).
+std::string FrameCheckpoint(const std::vector<std::string>& pieces,
+                            std::uint64_t generation);
 struct UnframedCheckpoint {
   std::uint64_t generation = 0;
   std::uint32_t version = kCheckpointFormatVersion;  // of the payload
@@ -129,7 +130,8 @@ class CheckpointStore {
 
   // Writes `payload` as the next generation, over the older file.
   Status Save(std::string_view payload);
-  // The same for a payload in pieces, each freed once in the frame.
+  // The same for a payload in pieces (concatenated in order), written to the
+  // file one after the other and then freed: no joined copy is made.
   Status Save(std::vector<std::string>* pieces);
 
   std::string Path(int slot) const;
@@ -137,8 +139,8 @@ class CheckpointStore {
   std::uint32_t format_version() const { return format_version_; }
 
  private:
-  // Writes a framed checkpoint as the next generation.
-  Status Write(std::string_view framed);
+  // Writes the payload, framed, as the next generation.
+  Status Write(std::span<const std::string_view> payload);
   std::string directory_;
   FileSystem* file_system_;
   std::uint64_t generation_ = 0;  // of the newest good file

@@ -118,6 +118,17 @@ class PosixWritableFile : public WritableFile {
   std::string path_;
 };
 
+}  // namespace
+
+Status FileSystem::ReplaceFileFromPieces(const std::string& path,
+                                         std::span<const std::string_view> pieces) {
+  std::string joined;
+  for (std::string_view piece : pieces) joined += piece;
+  return ReplaceFile(path, joined);
+}
+
+namespace {
+
 class PosixFileSystem : public FileSystem {
  public:
   StatusOr<std::unique_ptr<WritableFile>> OpenAppend(const std::string& path) override {
@@ -135,11 +146,19 @@ class PosixFileSystem : public FileSystem {
   }
 
   Status ReplaceFile(const std::string& path, std::string_view contents) override {
+    return ReplaceFileFromPieces(path, std::span<const std::string_view>(&contents, 1));
+  }
+
+  Status ReplaceFileFromPieces(const std::string& path,
+                               std::span<const std::string_view> pieces) override {
     const std::string temporary = path + ".tmp";
     const int fd =
         ::open(temporary.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0640);
     if (fd < 0) return Errno("cannot create", temporary, errno);
-    Status status = WriteAll(fd, contents, temporary);
+    Status status;
+    for (std::string_view piece : pieces) {
+      if (status.ok()) status = WriteAll(fd, piece, temporary);
+    }
     if (status.ok() && ::fsync(fd) != 0) status = Errno("cannot fsync", temporary, errno);
     if (::close(fd) != 0 && status.ok()) status = Errno("cannot close", temporary, errno);
     if (status.ok() && ::rename(temporary.c_str(), path.c_str()) != 0) {

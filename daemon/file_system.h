@@ -5,6 +5,7 @@
 #pragma once
 
 #include <memory>
+#include <span>
 #include <string>
 #include <string_view>
 
@@ -35,6 +36,12 @@ class FileSystem {
   // it, fsync, rename over `path`, fsync the directory. On failure the old
   // file is untouched and the temporary file removed.
   virtual Status ReplaceFile(const std::string& path, std::string_view contents) = 0;
+  // The same with the contents in pieces, written one after the other so
+  // that they need not be joined in memory first. By default (a file system
+  // that does not say otherwise) the pieces are joined and given to
+  // ReplaceFile.
+  virtual Status ReplaceFileFromPieces(const std::string& path,
+                                       std::span<const std::string_view> pieces);
   // The whole file (at most 16 MiB). NotFound when it does not exist.
   virtual StatusOr<std::string> ReadFile(const std::string& path) = 0;
   // Creates `path` and its missing parents (mode 0750). Ok when it exists.

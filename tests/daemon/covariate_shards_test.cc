@@ -20,9 +20,11 @@
 #include "daemon/checkpoint.h"
 #include "daemon/covariate_groups.h"
 #include "daemon/engine.h"
+#include "daemon/file_system.h"
 #include "daemon/shard.h"
 #include "detectors/random.h"
 #include "tests/support/shard_run.h"
+#include "tests/support/temp_dir.h"
 
 namespace plumbline {
 namespace {
@@ -334,9 +336,7 @@ TEST(CheckpointFormatTest, FrameFromPiecesIsTheFrameOfTheirConcatenation) {
   std::string whole;
   for (const std::string& piece : pieces) whole += piece;
   const std::string framed = FrameCheckpoint(whole, 9);
-  EXPECT_EQ(FrameCheckpoint(&pieces, 9), framed);
-  for (const std::string& piece : pieces)
-    EXPECT_TRUE(piece.empty());  // freed once copied
+  EXPECT_EQ(FrameCheckpoint(pieces, 9), framed);
   ASSERT_EQ(framed.size(), 32 + whole.size());
   EXPECT_EQ(framed.substr(0, 8), "PLUMBCKP");
   SnapshotWriter rest;
@@ -353,6 +353,27 @@ TEST(CheckpointFormatTest, FrameFromPiecesIsTheFrameOfTheirConcatenation) {
   std::string flipped = framed;
   flipped.back() ^= 1;
   EXPECT_FALSE(UnframeCheckpoint(flipped).ok());
+}
+
+TEST(CheckpointFormatTest, StoreWritesPiecesAsTheFrameOfTheirConcatenation) {
+  // Save writes the pieces to the file one after the other (no joined copy)
+  // and frees them; the file holds exactly the frame of their concatenation.
+  const std::string dir = test_support::FreshTempDir("checkpoint_pieces");
+  std::vector<std::string> pieces = {"PLCK head", std::string(100000, 'b'), "", "tail"};
+  std::string whole;
+  for (const std::string& piece : pieces) whole += piece;
+  CheckpointStore store(dir, FileSystem::Default());
+  ASSERT_TRUE(store.Save(&pieces).ok());
+  EXPECT_TRUE(pieces.empty());
+  auto file = ReadWholeFile(store.Path(0), 1 << 20);
+  ASSERT_TRUE(file.ok()) << file.status().message();
+  EXPECT_EQ(*file, FrameCheckpoint(whole, 1));
+  std::vector<std::string> skipped;
+  CheckpointStore reader(dir, FileSystem::Default());
+  auto payload = reader.Load(&skipped);
+  ASSERT_TRUE(payload.ok()) << payload.status().message();
+  EXPECT_EQ(*payload, whole);
+  EXPECT_TRUE(skipped.empty());
 }
 
 TEST(CheckpointFormatTest, ObservationsRoundTripAndForgedOnesAreRefused) {
