@@ -141,13 +141,6 @@ std::string FrameCheckpoint(std::string_view payload, std::uint64_t generation) 
   return out;
 }
 
-std::string FrameCheckpoint(const std::vector<std::string>& pieces,
-                            std::uint64_t generation) {
-  std::string out = FrameHead(Views(pieces), generation);
-  for (const std::string& piece : pieces) out += piece;
-  return out;
-}
-
 StatusOr<UnframedCheckpoint> UnframeCheckpoint(std::string_view file) {
   if (file.size() < kHeaderBytes || file.substr(0, kMagic.size()) != kMagic) {
     return Status::Corruption("not a checkpoint (too short or no PLUMBCKP header)");

@@ -93,9 +93,6 @@ StatusOr<Checkpoint> ParseCheckpointPayload(
 // The frame around a payload, and its check (Corruption, or
 // FailedPrecondition for another format version).
 std::string FrameCheckpoint(std::string_view payload, std::uint64_t generation);
-// The same for a payload in pieces (concatenated in order).
-std::string FrameCheckpoint(const std::vector<std::string>& pieces,
-                            std::uint64_t generation);
 struct UnframedCheckpoint {
   std::uint64_t generation = 0;
   std::uint32_t version = kCheckpointFormatVersion;  // of the payload
