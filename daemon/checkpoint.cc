@@ -125,7 +125,7 @@ std::string FrameHead(std::span<const std::string_view> payload,
   head.Tag(kMagic.substr(4, 4));
   head.U32(kCheckpointFormatVersion);
   head.U32(crc);
-  return std::string(head.bytes()) + std::string(rest.bytes());
+  return head.bytes() + rest.bytes();
 }
 
 std::vector<std::string_view> Views(const std::vector<std::string>& pieces) {

@@ -74,10 +74,8 @@ Status Service::StartCheckpoints() {
   std::vector<std::future<Part>> parts;
   const EventTime now = deps_.clock->Now();
   for (std::size_t shard = 0; shard < shards_->size() && !records->empty(); ++shard) {
-    auto promise = std::make_shared<std::promise<Part>>();
-    parts.push_back(promise->get_future());
-    const bool posted = shards_->shard(shard).Post(
-        [records, indices = std::move(by_shard[shard]), now, promise](ShardState& state) {
+    auto part = shards_->shard(shard).AskLater<Part>(
+        [records, indices = std::move(by_shard[shard]), now](ShardState& state) {
           Part part;
           for (std::size_t i : indices) {
             CheckpointSeries& record = (*records)[i];
@@ -90,10 +88,10 @@ Status Service::StartCheckpoints() {
             std::string().swap(record.engine_state);
             std::vector<CovariateObservation>().swap(record.covariate_history);
           }
-          promise->set_value(part);
+          return part;
         });
-    if (!posted)
-      return Status::Unavailable("a shard stopped before restoring its series");
+    if (!part) return Status::Unavailable("a shard stopped before restoring its series");
+    parts.push_back(std::move(*part));
   }
   ReconfigureReport total;
   std::size_t refused = 0;
@@ -228,17 +226,16 @@ Status Service::SaveCheckpoint() {
   std::vector<std::future<ShardPart>> answers;
   for (std::size_t i = 0; i < shards_->size(); ++i) {
     Shard& shard = shards_->shard(i);
-    auto promise = std::make_shared<std::promise<ShardPart>>();
-    answers.push_back(promise->get_future());
-    const bool posted = shard.Post([&shard, promise](ShardState& state) {
+    auto answer = shard.AskLater<ShardPart>([&shard](ShardState& state) {
       ShardPart p;
       p.wal_done = shard.WalDoneThrough();
       SnapshotWriter w;
       state.SaveSeries(p.wal_done, &w, &p.count);
       p.records = w.Take();
-      promise->set_value(std::move(p));
+      return p;
     });
-    if (!posted) return Status::Unavailable("a shard stopped before writing its series");
+    if (!answer) return Status::Unavailable("a shard stopped before writing its series");
+    answers.push_back(std::move(*answer));
   }
   const auto deadline = std::chrono::steady_clock::now() + kShardCheckpointWait;
   for (std::future<ShardPart>& answer : answers) {

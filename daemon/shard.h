@@ -188,11 +188,12 @@ class Shard {
   // False when the shard has stopped (the task will not run).
   bool Post(std::function<void(ShardState&)> task);
 
-  // Runs `question` on the shard thread and waits up to `timeout` for its
-  // answer; nullopt on timeout or when the shard has stopped.
+  // Runs `question` on the shard thread; its answer comes through the future
+  // (so several shards can be asked at once). Never blocks; nullopt when the
+  // shard has stopped.
   template <typename Result>
-  std::optional<Result> Ask(std::function<Result(ShardState&)> question,
-                            std::chrono::milliseconds timeout) {
+  std::optional<std::future<Result>> AskLater(
+      std::function<Result(ShardState&)> question) {
     auto promise = std::make_shared<std::promise<Result>>();
     std::future<Result> answer = promise->get_future();
     if (!Post([promise, question = std::move(question)](ShardState& state) {
@@ -200,8 +201,19 @@ class Shard {
         })) {
       return std::nullopt;
     }
-    if (answer.wait_for(timeout) != std::future_status::ready) return std::nullopt;
-    return answer.get();
+    return answer;
+  }
+
+  // Runs `question` on the shard thread and waits up to `timeout` for its
+  // answer; nullopt on timeout or when the shard has stopped.
+  template <typename Result>
+  std::optional<Result> Ask(std::function<Result(ShardState&)> question,
+                            std::chrono::milliseconds timeout) {
+    std::optional<std::future<Result>> answer = AskLater(std::move(question));
+    if (!answer || answer->wait_for(timeout) != std::future_status::ready) {
+      return std::nullopt;
+    }
+    return answer->get();
   }
 
   // Looks at the wall clock now (as the periodic tick does). For tests.

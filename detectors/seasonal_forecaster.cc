@@ -50,9 +50,10 @@ Matrix& CovarianceWorkspace(int n) {
 }
 
 // x' P x from the packed lower triangle in one pass, for forecasts away from
-// an update (Predict, PredictInterval): unpacking P and multiplying the full
-// matrix for it took a tenth of `serve`'s time, as every reading's chart
-// point asks for one (perf, 1,000 series at 250,000 readings a second).
+// an update (Predict, PredictInterval): no unpacked copy of P and no full
+// matrix product (those took a tenth of `serve`'s time when every reading's
+// chart point made its own forecast; perf, 1,000 series at 250,000 readings
+// a second).
 double PackedQuadraticForm(const double* lower, int n, const double* x) {
   double sum = 0.0;
   for (int j = 0; j < n; lower += n - j, ++j) {  // column j: P(j..n-1, j)
@@ -250,19 +251,7 @@ Forecast SeasonalForecaster::PredictInterval(EventTime from, EventTime to) const
               x_[0] * x_[0] * LevelDrift(to - t_ref_)};
 }
 
-Forecast SeasonalForecaster::Predict(EventTime t) const {
-  if (updates_ == 0) return {0.0, std::numeric_limits<double>::infinity()};
-  FillRegressors(t, &x_);
-  const double lambda =
-      std::exp(-static_cast<double>(std::max<EventTime>(t - t_ref_, 0)) /
-               static_cast<double>(options_.memory));
-  Forecast f;
-  f.value = x_.dot(theta_);
-  f.parameter_variance_factor =
-      PackedQuadraticForm(p_lower_.data(), dimension(), x_.data()) / lambda +
-      x_[0] * x_[0] * LevelDrift(t - t_ref_);
-  return f;
-}
+Forecast SeasonalForecaster::Predict(EventTime t) const { return PredictInterval(t, t); }
 
 Matrix& SeasonalForecaster::Unpacked() const {
   const int n = dimension();
