@@ -7,9 +7,13 @@
 // of event time apart (a daily and a weekly season and N(0, 1) noise, seeded);
 // a connection sends step by step, so each series is in time order. --rate is
 // the total readings per second (0: as fast as the daemon takes them, TCP flow
-// control being the limit). From step --shift-step on, every --shift-every-th
-// series steps up by --shift noise sd. The send time of each of their shifted
-// readings is kept, and the alert log (--alerts, the daemon's
+// control being the limit, in writes of 512 lines). At a set rate each
+// connection writes --write-ms worth of its share at a time, the connections
+// in turn, so the daemon sees a steady stream rather than every connection's
+// lines at the same instant (a reading would then wait behind the whole burst,
+// which is the sender's doing, not the daemon's). From step --shift-step on, every
+// --shift-every-th series steps up by --shift noise sd. The send time of each of their
+// shifted readings is kept, and the alert log (--alerts, the daemon's
 // <storage.directory>/alerts.jsonl) is followed: an alert on a shifted series
 // whose detected_at is one of those readings counts one latency, from just
 // before that reading's batch was written to the socket to the moment the
@@ -18,7 +22,7 @@
 // usage: load_generator --port 7411 [--host 127.0.0.1] [--connections 8]
 //          [--series 1000] [--steps 600] [--spacing 60] [--rate 0]
 //          [--shift-step 400] [--shift-every 10] [--shift 6] [--alerts FILE]
-//          [--linger 2] [--http-port 7412]
+//          [--linger 2] [--http-port 7412] [--write-ms 1]
 // With --http-port the run ends when the daemon's /metrics count
 // plumbline_readings_accepted_total has grown by every reading sent (readings
 // held in its queues are not yet ingested); otherwise at the last byte sent.
@@ -64,10 +68,21 @@ struct Options {
   std::string alerts;
   double linger = 2.0;
   int http_port = 0;
+  double write_ms =
+      1.0;  // with --rate: how much of a connection's schedule one write carries
 };
 
 constexpr std::int64_t kStart = 1'772'323'200;  // 2026-03-01T00:00:00Z
-constexpr int kLinesPerWrite = 512;
+constexpr int kMaxLinesPerWrite = 512;
+
+// Lines in one write to the socket. At full speed the largest writes; at a
+// set rate, --write-ms worth of the connection's share (at least one line),
+// so a reading does not queue behind a burst of the lines sent with it.
+int LinesPerWrite(const Options& o) {
+  if (o.rate <= 0.0) return kMaxLinesPerWrite;
+  const double lines = o.rate / o.connections * o.write_ms / 1000.0;
+  return static_cast<int>(std::clamp(std::round(lines), 1.0, double{kMaxLinesPerWrite}));
+}
 
 bool ParseOptions(int argc, char** argv, Options* o) {
   for (int i = 1; i + 1 < argc; i += 2) {
@@ -99,13 +114,15 @@ bool ParseOptions(int argc, char** argv, Options* o) {
       o->linger = std::atof(value);
     } else if (key == "--http-port") {
       o->http_port = std::atoi(value);
+    } else if (key == "--write-ms") {
+      o->write_ms = std::atof(value);
     } else {
       std::fprintf(stderr, "load_generator: unknown option %s\n", key.c_str());
       return false;
     }
   }
   return o->connections >= 1 && o->series >= o->connections && o->steps >= 1 &&
-         o->spacing >= 1 && o->shift_every >= 1;
+         o->spacing >= 1 && o->shift_every >= 1 && o->write_ms > 0.0;
 }
 
 int Connect(const Options& o, int port) {
@@ -150,7 +167,15 @@ void Sender(const Options& o, int connection, SendLog* log, std::atomic<long>* t
   std::vector<double> level(mine.size());
   for (std::size_t i = 0; i < mine.size(); ++i) level[i] = 20.0 + (mine[i] % 50);
   const double per_second = o.rate / o.connections;  // this connection's share
-  const Clock::time_point began = Clock::now();
+  const int lines_per_write = LinesPerWrite(o);
+  // At a set rate the connections take turns: each starts its schedule a
+  // share of one write's interval after the one before, instead of all
+  // writing at the same instants.
+  const double offset =
+      per_second > 0.0 ? lines_per_write / per_second * connection / o.connections : 0.0;
+  const Clock::time_point began =
+      Clock::now() +
+      std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(offset));
   long lines = 0;
   std::string text;
   std::vector<std::pair<int, std::int64_t>> pending;  // shifted readings in `text`
@@ -185,7 +210,7 @@ void Sender(const Options& o, int connection, SendLog* log, std::atomic<long>* t
       text.append(line, static_cast<std::size_t>(n));
       if (shifted) pending.emplace_back(mine[i], t);
       ++lines;
-      if (++in_text == kLinesPerWrite) {
+      if (++in_text == lines_per_write) {
         flush();
         in_text = 0;
       }
@@ -244,7 +269,8 @@ int main(int argc, char** argv) {
         stderr,
         "usage: load_generator --port P [--host H] [--connections C] [--series S]\n"
         "  [--steps N] [--spacing SEC] [--rate READINGS_PER_S] [--shift-step K]\n"
-        "  [--shift-every M] [--shift SD] [--alerts FILE] [--linger SEC]\n");
+        "  [--shift-every M] [--shift SD] [--alerts FILE] [--linger SEC]\n"
+        "  [--http-port P] [--write-ms MS]\n");
     return 2;
   }
   SendLog log;
