@@ -32,11 +32,22 @@ bool Wanted(const Alert& alert, bool events) {
 AlertLog::AlertLog(std::string path, FileSystem* file_system, PipelineObserver* observer)
     : path_(std::move(path)), observer_(observer) {
   auto file = file_system->OpenAppend(path_);
-  if (file.ok()) {
-    file_ = std::move(file).value();
-  } else {
+  if (!file.ok()) {
     Fail(file.status());
+    return;
   }
+  file_ = std::move(file).value();
+  syncer_ = std::thread([this] { SyncLoop(); });
+}
+
+AlertLog::~AlertLog() {
+  {
+    std::lock_guard<std::mutex> lock(mutex_);
+    stop_ = true;
+  }
+  work_.notify_all();
+  if (syncer_.joinable()) syncer_.join();
+  if (file_) file_->Close();
 }
 
 void AlertLog::Fail(const Status& status) {
@@ -48,12 +59,20 @@ void AlertLog::Fail(const Status& status) {
   LogError("alert log failed; alerts are no longer written to it (restart after fixing)",
            {{"sink", "alert_log"}, {"path", path_}, {"error", status.message()}});
   if (observer_) observer_->OnSinkFailure("alert_log");
-  if (file_) file_->Close();
-  file_.reset();
+  {
+    std::lock_guard<std::mutex> lock(mutex_);
+    failure_reported_ = true;
+  }
+  synced_.notify_all();
 }
 
 void AlertLog::Deliver(const std::vector<Alert>& alerts) {
-  if (!file_) {
+  bool failed;
+  {
+    std::lock_guard<std::mutex> lock(mutex_);
+    failed = !failure_.ok();
+  }
+  if (failed) {
     if (observer_) observer_->OnSinkFailure("alert_log");
     return;
   }
@@ -62,9 +81,40 @@ void AlertLog::Deliver(const std::vector<Alert>& alerts) {
     lines += AlertToJson(alert);
     lines.push_back('\n');
   }
-  Status status = file_->Append(lines);
-  if (status.ok()) status = file_->Sync();
-  if (!status.ok()) Fail(status);
+  if (Status status = file_->Append(lines); !status.ok()) {
+    Fail(status);
+    return;
+  }
+  {
+    std::lock_guard<std::mutex> lock(mutex_);
+    ++appended_;
+  }
+  work_.notify_one();
+}
+
+void AlertLog::SyncLoop() {
+  std::unique_lock<std::mutex> lock(mutex_);
+  while (true) {
+    work_.wait(lock, [this] { return stop_ || appended_ > synced_through_; });
+    if (appended_ == synced_through_ || !failure_.ok()) return;  // stopping
+    const std::uint64_t through = appended_;
+    lock.unlock();
+    const Status status = file_->Sync();
+    if (!status.ok()) {
+      Fail(status);
+      return;
+    }
+    lock.lock();
+    synced_through_ = through;
+    synced_.notify_all();
+  }
+}
+
+bool AlertLog::Flush(std::chrono::steady_clock::time_point deadline) {
+  std::unique_lock<std::mutex> lock(mutex_);
+  const std::uint64_t through = appended_;
+  return synced_.wait_until(
+      lock, deadline, [&] { return synced_through_ >= through || failure_reported_; });
 }
 
 bool AlertLog::Healthy(std::string* why) const {

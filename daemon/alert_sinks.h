@@ -3,9 +3,14 @@
 // them to each sink in turn and keeps a bounded ring of recent alerts for the
 // API. Sinks:
 //
-//   AlertLog      JSON lines (AlertToJson), appended and fsynced once per batch.
-//                 The first failure is sticky: it is logged once, counted, shown
-//                 by Healthy() (and so on /readyz), and nothing more is written.
+//   AlertLog      JSON lines (AlertToJson), appended once per batch (readers
+//                 of the file see a batch at once) and fsynced by its own
+//                 thread, one fsync for every batch appended meanwhile (group
+//                 commit), so a slow disk never holds the next batch or the
+//                 other sinks back; Flush waits for the fsync (a checkpoint
+//                 does before it counts the alerts as delivered). The first
+//                 failure is sticky: it is logged once, counted, shown by
+//                 Healthy() (and so on /readyz), and nothing more is written.
 //   StdoutSink    one readable line per alert (AlertToText), flushed.
 //   WebhookSink   an HTTP POST of each alert as one JSON object, from its own
 //                 thread and bounded queue, so a slow or dead receiver never
@@ -68,22 +73,39 @@ class AlertSink {
 
 class AlertLog : public AlertSink {
  public:
-  // Opens (creating) `path` for appending. The status is the open's; on
-  // failure the sink is unhealthy from the start.
+  // Opens (creating) `path` for appending and starts the fsync thread. On
+  // failure to open the sink is unhealthy from the start.
   AlertLog(std::string path, FileSystem* file_system, PipelineObserver* observer);
+  ~AlertLog() override;  // a last fsync, then the file is closed
   std::string_view name() const override { return "alert_log"; }
+  // Appends the batch; the fsync follows on the log's own thread.
   void Deliver(const std::vector<Alert>& alerts) override;
+  // Waits until every batch appended before the call is fsynced (or the log
+  // has failed: a failed log holds nothing back, and says so in Healthy).
+  // False when `deadline` came first.
+  bool Flush(std::chrono::steady_clock::time_point deadline) override;
+  void Drain(std::chrono::steady_clock::time_point deadline) override { Flush(deadline); }
   bool Healthy(std::string* why) const override;
   const std::string& path() const { return path_; }
 
  private:
   void Fail(const Status& status);
+  void SyncLoop();
 
   const std::string path_;
   PipelineObserver* const observer_;
+  // Appended to by the dispatcher thread, fsynced by syncer_ (both are safe
+  // on one descriptor at the same time); closed only once syncer_ has ended.
   std::unique_ptr<WritableFile> file_;
-  mutable std::mutex mutex_;  // guards failure_
-  Status failure_;            // sticky: the first error
+  mutable std::mutex mutex_;          // guards what follows
+  std::condition_variable work_;      // a batch was appended, or stop_
+  std::condition_variable synced_;    // synced_through_ grew, or a failure was reported
+  std::uint64_t appended_ = 0;        // batches appended so far
+  std::uint64_t synced_through_ = 0;  // of those, fsynced
+  bool stop_ = false;
+  Status failure_;                 // sticky: the first error
+  bool failure_reported_ = false;  // logged and counted (Flush waits for that)
+  std::thread syncer_;
 };
 
 class StdoutSink : public AlertSink {

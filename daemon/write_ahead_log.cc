@@ -218,6 +218,9 @@ std::uint64_t WriteAheadLog::Rotate() {
 }
 
 void WriteAheadLog::Run() {
+  // When the last fsync began: the next waits until kMinSyncGap after it,
+  // gathering what comes meanwhile (unless the log is stopping).
+  std::chrono::steady_clock::time_point last_sync{};
   while (true) {
     std::string chunk;
     std::uint64_t through = 0, rotate_first = 0;
@@ -226,6 +229,10 @@ void WriteAheadLog::Run() {
       std::unique_lock<std::mutex> lock(mutex_);
       work_.wait(lock, [this] { return !buffer_.empty() || rotate_first_ != 0 || stop_; });
       if (buffer_.empty() && rotate_first_ == 0 && stop_) return;
+      if (sync_) {
+        work_.wait_until(lock, last_sync + kMinSyncGap, [this] { return stop_; });
+        last_sync = std::chrono::steady_clock::now();
+      }
       chunk.swap(buffer_);
       through = next_ - 1;
       rotate_first = rotate_first_;
