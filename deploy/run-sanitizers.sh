@@ -14,7 +14,7 @@
 #               Built at -O1 without debug info (reports name functions, not
 #               lines; PLUMBLINE_ASAN_CXXFLAGS="-O1 -g" for lines), only the
 #               programs ctest starts (target plumbline_test_programs).
-#   build-tsan  ThreadSanitizer: the engine, shard, service and input tests
+#   build-tsan  ThreadSanitizer: the engine, shard, service, input and sink tests
 #               (the code with threads and queues), and replay --threads
 # No benchmarks or developer tools are built. Any sanitizer report fails the
 # test that raised it, so this script fails too.
@@ -65,10 +65,10 @@ for variant in "${variants[@]}"; do
       ctest --test-dir "$dir" --output-on-failure -j "$jobs" -LE 'pending|reference|fuzz|trials'
       ;;
     tsan)
-      tsan_tests=(engine_test shard_test service_test inputs_test)
+      tsan_tests=(engine_test shard_test service_test inputs_test alert_sinks_test)
       configure "$dir" -DPLUMBLINE_TSAN=ON -DCMAKE_BUILD_TYPE=RelWithDebInfo
       cmake --build "$dir" -j "$jobs" --target "${tsan_tests[@]}" plumbline
-      echo "run-sanitizers: ThreadSanitizer, engine, shard, service and input tests," \
+      echo "run-sanitizers: ThreadSanitizer, engine, shard, service, input and sink tests," \
         "and replay --threads"
       # Two lanes of about equal length where there are two cores (measured
       # alone: service 161 s, inputs 140 s, shard 84 s, engine 37 s under load):
@@ -86,7 +86,7 @@ for variant in "${variants[@]}"; do
       if ((jobs >= 2)); then
         lane service_test engine_test replay_threads &
         first=$!
-        lane inputs_test shard_test &
+        lane inputs_test shard_test alert_sinks_test &
         second=$!
         status=0
         wait "$first" || status=1

@@ -13,7 +13,9 @@
 #include <boost/asio/ip/tcp.hpp>
 #include <boost/beast/core.hpp>
 #include <boost/beast/http.hpp>
+#include <chrono>
 #include <cmath>
+#include <condition_variable>
 #include <filesystem>
 #include <fstream>
 #include <mutex>
@@ -55,11 +57,25 @@ Alert MakeAlert(int i) {
   return a;
 }
 
-// A file system whose appends or syncs fail on demand; otherwise POSIX.
+// A file system whose appends or syncs fail on demand, or whose syncs wait
+// until released; otherwise POSIX.
 class FaultyFileSystem : public FileSystem {
  public:
   std::atomic<bool> fail_sync{false};
   std::atomic<int> appends{0};
+  std::atomic<int> syncs{0};
+
+  void HoldSyncs() {
+    std::lock_guard<std::mutex> lock(mutex_);
+    held_ = true;
+  }
+  void ReleaseSyncs() {
+    {
+      std::lock_guard<std::mutex> lock(mutex_);
+      held_ = false;
+    }
+    released_.notify_all();
+  }
 
   StatusOr<std::unique_ptr<WritableFile>> OpenAppend(const std::string& path) override {
     auto file = FileSystem::Default()->OpenAppend(path);
@@ -86,6 +102,13 @@ class FaultyFileSystem : public FileSystem {
       return inner_->Append(data);
     }
     Status Sync() override {
+      {
+        std::unique_lock<std::mutex> lock(fs_->mutex_);
+        // Bounded, so that a broken log fails the test instead of hanging it.
+        fs_->released_.wait_for(lock, std::chrono::seconds(20),
+                                [this] { return !fs_->held_; });
+      }
+      ++fs_->syncs;
       if (fs_->fail_sync) return Status::IoError("injected fsync failure");
       return inner_->Sync();
     }
@@ -95,6 +118,10 @@ class FaultyFileSystem : public FileSystem {
     FaultyFileSystem* fs_;
     std::unique_ptr<WritableFile> inner_;
   };
+
+  std::mutex mutex_;
+  std::condition_variable released_;
+  bool held_ = false;
 };
 
 class CountingObserver : public PipelineObserver {
@@ -139,6 +166,9 @@ TEST(AlertLogTest, FailedFsyncIsStickyReportedAndNotRetried) {
   EXPECT_TRUE(log.Healthy(nullptr));
   fs.fail_sync = true;
   log.Deliver({MakeAlert(2)});
+  // The fsync runs on the log's thread; Flush waits for it (a failed log
+  // holds nothing back, so Flush answers true).
+  EXPECT_TRUE(log.Flush(std::chrono::steady_clock::now() + std::chrono::seconds(20)));
   std::string why;
   EXPECT_FALSE(log.Healthy(&why));
   EXPECT_NE(why.find("injected fsync failure"), std::string::npos) << why;
@@ -149,6 +179,33 @@ TEST(AlertLogTest, FailedFsyncIsStickyReportedAndNotRetried) {
   EXPECT_FALSE(log.Healthy(nullptr));
   const auto failures = observer.Failures();
   EXPECT_EQ(failures, (std::vector<std::string>{"alert_log", "alert_log"}));
+}
+
+TEST(AlertLogTest, BatchesAreReadableBeforeTheirFsyncWhichFlushWaitsFor) {
+  const std::string dir = TempDir("log_group");
+  FaultyFileSystem fs;
+  AlertLog log(dir + "/alerts.jsonl", &fs, nullptr);
+  const auto soon = [] {
+    return std::chrono::steady_clock::now() + std::chrono::milliseconds(50);
+  };
+  const auto later = [] {
+    return std::chrono::steady_clock::now() + std::chrono::seconds(20);
+  };
+  fs.HoldSyncs();  // the disk is slow
+  log.Deliver({MakeAlert(1)});
+  log.Deliver({MakeAlert(2)});  // not held behind the first batch's fsync
+  log.Deliver({MakeAlert(3)});
+  EXPECT_EQ(Lines(dir + "/alerts.jsonl").size(), 3u);
+  EXPECT_FALSE(log.Flush(soon()));  // not yet durable
+  fs.ReleaseSyncs();
+  EXPECT_TRUE(log.Flush(later()));
+  // The first fsync was held; the batches appended meanwhile share one more.
+  EXPECT_GE(fs.syncs, 1);
+  EXPECT_LE(fs.syncs, 2);
+  EXPECT_TRUE(log.Healthy(nullptr));
+  log.Deliver({MakeAlert(4)});
+  EXPECT_TRUE(log.Flush(later()));
+  EXPECT_EQ(Lines(dir + "/alerts.jsonl").size(), 4u);
 }
 
 TEST(AlertLogTest, UnopenableFileIsUnhealthyFromTheStart) {
