@@ -589,26 +589,36 @@ Status KafkaInput::SavePartitions(const std::vector<std::int32_t>& partitions) {
   }
   std::vector<std::string> records(due.size());
   std::vector<std::uint64_t> counts(due.size(), 0);
+  // Every shard writes its series at the same time. Each task owns its names:
+  // one that outlives a timeout below must not point into this frame.
+  using Part = std::vector<std::pair<std::string, std::uint64_t>>;
+  std::vector<std::future<Part>> parts;
   for (std::size_t s = 0; s < shard_count; ++s) {
-    using Part = std::vector<std::pair<std::string, std::uint64_t>>;
     // The answer comes after the shard published the alerts of every
     // reading judged before it.
-    auto part = shards_->shard(s).Ask<Part>(
-        [&names, s](ShardState& state) {
+    auto part =
+        shards_->shard(s).AskLater<Part>([mine = std::move(names[s])](ShardState& state) {
           Part out;
-          for (const std::vector<std::string>& partition_names : names[s]) {
+          for (const std::vector<std::string>& partition_names : mine) {
             SnapshotWriter w;
             std::uint64_t count = 0;
             state.SaveNamedSeries(partition_names, &w, &count);
             out.emplace_back(w.Take(), count);
           }
           return out;
-        },
-        std::chrono::duration_cast<std::chrono::milliseconds>(kDrainWait));
-    if (!part) return Status::Unavailable("a shard did not write its series in time");
+        });
+    if (!part) return Status::Unavailable("a shard stopped before writing its series");
+    parts.push_back(std::move(*part));
+  }
+  const auto deadline = std::chrono::steady_clock::now() + kDrainWait;
+  for (std::future<Part>& part : parts) {
+    if (part.wait_until(deadline) != std::future_status::ready) {
+      return Status::Unavailable("a shard did not write its series in time");
+    }
+    const Part answer = part.get();
     for (std::size_t i = 0; i < due.size(); ++i) {
-      records[i] += (*part)[i].first;
-      counts[i] += (*part)[i].second;
+      records[i] += answer[i].first;
+      counts[i] += answer[i].second;
     }
   }
   // The alerts of those readings leave before the state that claims them.
@@ -694,28 +704,38 @@ void KafkaInput::Assign(rd_kafka_topic_partition_list_t* partitions) {
   for (std::size_t i = 0; i < records->size(); ++i) {
     by_shard[shards_->ShardFor((*records)[i].name)].push_back(i);
   }
+  // Every shard restores its series at the same time, each record's state
+  // freed once its monitor is built.
+  std::vector<std::future<std::uint64_t>> answers;
   for (std::size_t s = 0; s < shards_->size(); ++s) {
     if (by_shard[s].empty()) continue;
-    auto done = shards_->shard(s).Ask<std::uint64_t>(
-        [records, indices = by_shard[s], now](ShardState& state) {
+    auto answer = shards_->shard(s).AskLater<std::uint64_t>(
+        [records, indices = std::move(by_shard[s]), now](ShardState& state) {
           std::vector<std::string> names;
           for (std::size_t i : indices) names.push_back((*records)[i].name);
           state.ForgetSeries(names);  // a stale copy, if any
           ReconfigureReport report;
           std::uint64_t count = 0;
           for (std::size_t i : indices) {
-            const Status status = state.RestoreSeries((*records)[i], now, &report);
+            CheckpointSeries& record = (*records)[i];
+            const Status status = state.RestoreSeries(record, now, &report);
             if (status.ok()) {
               ++count;
             } else {
               LogWarning("series not restored",
-                         {{"series", (*records)[i].name}, {"reason", status.message()}});
+                         {{"series", record.name}, {"reason", status.message()}});
             }
+            std::string().swap(record.engine_state);
+            std::vector<CovariateObservation>().swap(record.covariate_history);
           }
           return count;
-        },
-        std::chrono::duration_cast<std::chrono::milliseconds>(kDrainWait));
-    if (done) restored += *done;
+        });
+    if (answer) answers.push_back(std::move(*answer));
+  }
+  const auto deadline = std::chrono::steady_clock::now() + kDrainWait;
+  for (std::future<std::uint64_t>& answer : answers) {
+    if (answer.wait_until(deadline) == std::future_status::ready)
+      restored += answer.get();
   }
   restored_series_.fetch_add(restored);
   partition_count_ = owned_.size();
