@@ -659,11 +659,50 @@ constexpr std::size_t kLanePad = kBlock;
 
 }  // namespace
 
-RunLengthPosterior::RunLengthPosterior(const BocpdOptions& options)
-    : RunLengthPosterior(options, bocpd_internal::BestIsa()) {}
+std::shared_ptr<const RunLengthTables> RunLengthTables::Make(
+    const BocpdOptions& options) {
+  auto t = std::make_shared<RunLengthTables>();
+  t->kappa0 = options.kappa0;
+  t->alpha0 = options.alpha0;
+  t->cap = options.max_run_length;
+  // kLanePad entries of a harmless dummy on either side, for the dummy lanes
+  // of the update loop.
+  const auto states = static_cast<std::size_t>(t->cap) + 1;
+  t->step_by_age.assign(states + 2 * kLanePad, 0.5);
+  t->half_ratio_by_age.assign(states + 2 * kLanePad, 0.25);
+  t->log_ml_next_by_age.assign(states + 2 * kLanePad, 0.0);
+  t->minus_alpha_next_by_age.assign(states + 2 * kLanePad, -1.0);
+  // L_m = log Gamma(alpha_m) - log Gamma(alpha0) - (m/2) log(2 pi)
+  //       - (1/2) log(kappa_m / kappa0)
+  const double alpha0 = t->alpha0, kappa0 = t->kappa0;
+  const double log_gamma_alpha0 = LogGamma(alpha0);
+  auto log_ml = [&](double m) {
+    return LogGamma(alpha0 + 0.5 * m) - log_gamma_alpha0 -
+           0.5 * m * std::log(2.0 * std::numbers::pi) - 0.5 * std::log1p(m / kappa0);
+  };
+  for (std::size_t age = 0; age < states; ++age) {
+    const double n = static_cast<double>(t->cap) - static_cast<double>(age);
+    const double step = 1.0 / (kappa0 + n + 1.0);
+    t->step_by_age[kLanePad + age] = step;
+    t->half_ratio_by_age[kLanePad + age] = std::fma(step, -0.5, 0.5);  // exact product
+    t->log_ml_next_by_age[kLanePad + age] = log_ml(n + 1.0);
+    t->minus_alpha_next_by_age[kLanePad + age] = -(alpha0 + 0.5 * (n + 1.0));
+  }
+  return t;
+}
+
+bool RunLengthTables::Fits(const BocpdOptions& options) const {
+  return kappa0 == options.kappa0 && alpha0 == options.alpha0 &&
+         cap == options.max_run_length;
+}
 
 RunLengthPosterior::RunLengthPosterior(const BocpdOptions& options,
-                                       bocpd_internal::Isa isa)
+                                       std::shared_ptr<const RunLengthTables> tables)
+    : RunLengthPosterior(options, bocpd_internal::BestIsa(), std::move(tables)) {}
+
+RunLengthPosterior::RunLengthPosterior(const BocpdOptions& options,
+                                       bocpd_internal::Isa isa,
+                                       std::shared_ptr<const RunLengthTables> tables)
     : mu0_(options.mu0),
       kappa0_(options.kappa0),
       alpha0_(options.alpha0),
@@ -674,29 +713,10 @@ RunLengthPosterior::RunLengthPosterior(const BocpdOptions& options,
       hazard_(options.hazard),
       tolerance_(options.prune_tolerance),
       cap_(options.max_run_length),
-      isa_(bocpd_internal::Supported(isa) ? isa : bocpd_internal::Isa::kPortable) {
-  // Tables by age = R - n, with kLanePad entries of a harmless dummy on either
-  // side for the dummy lanes of the update loop.
+      isa_(bocpd_internal::Supported(isa) ? isa : bocpd_internal::Isa::kPortable),
+      tables_(tables && tables->Fits(options) ? std::move(tables)
+                                              : RunLengthTables::Make(options)) {
   const auto states = static_cast<std::size_t>(cap_) + 1;
-  step_by_age_.assign(states + 2 * kLanePad, 0.5);
-  half_ratio_by_age_.assign(states + 2 * kLanePad, 0.25);
-  log_ml_next_by_age_.assign(states + 2 * kLanePad, 0.0);
-  minus_alpha_next_by_age_.assign(states + 2 * kLanePad, -1.0);
-  // L_m = log Gamma(alpha_m) - log Gamma(alpha0) - (m/2) log(2 pi)
-  //       - (1/2) log(kappa_m / kappa0)
-  const double log_gamma_alpha0 = LogGamma(alpha0_);
-  auto log_ml = [&](double m) {
-    return LogGamma(alpha0_ + 0.5 * m) - log_gamma_alpha0 -
-           0.5 * m * std::log(2.0 * std::numbers::pi) - 0.5 * std::log1p(m / kappa0_);
-  };
-  for (std::size_t age = 0; age < states; ++age) {
-    const double n = static_cast<double>(cap_) - static_cast<double>(age);
-    const double step = 1.0 / (kappa0_ + n + 1.0);
-    step_by_age_[kLanePad + age] = step;
-    half_ratio_by_age_[kLanePad + age] = std::fma(step, -0.5, 0.5);  // exact product
-    log_ml_next_by_age_[kLanePad + age] = log_ml(n + 1.0);
-    minus_alpha_next_by_age_[kLanePad + age] = -(alpha0_ + 0.5 * (n + 1.0));
-  }
   // Slot buffers: 2 (R + 1) + 1 slots, and kLanePad more for the dummy lanes
   // after the last state.
   slots_ = 2 * states + 1;
@@ -784,10 +804,10 @@ void RunLengthPosterior::Update(double x) {
   if (oldest == static_cast<std::int64_t>(n) - 1) {
     // Lane l holds age R - oldest + l - first (dummies reach into the padding).
     const std::size_t start = kLanePad + static_cast<std::size_t>(cap_ - oldest) - first;
-    arrays.step = &step_by_age_[start];
-    arrays.half_ratio = &half_ratio_by_age_[start];
-    arrays.log_ml_next = &log_ml_next_by_age_[start];
-    arrays.minus_alpha_next = &minus_alpha_next_by_age_[start];
+    arrays.step = &tables_->step_by_age[start];
+    arrays.half_ratio = &tables_->half_ratio_by_age[start];
+    arrays.log_ml_next = &tables_->log_ml_next_by_age[start];
+    arrays.minus_alpha_next = &tables_->minus_alpha_next_by_age[start];
   } else {
     for (std::size_t slot = lane0; slot < lane0 + lanes; ++slot) {
       std::size_t age = 0;  // a dummy lane: any finite constants
@@ -795,10 +815,10 @@ void RunLengthPosterior::Update(double x) {
         age = kLanePad + static_cast<std::size_t>(cap_ - (readings_ - birth_[slot]));
       }
       const std::size_t lane = slot - lane0;
-      gather_step_[lane] = step_by_age_[age];
-      gather_half_ratio_[lane] = half_ratio_by_age_[age];
-      gather_log_ml_next_[lane] = log_ml_next_by_age_[age];
-      gather_minus_alpha_next_[lane] = minus_alpha_next_by_age_[age];
+      gather_step_[lane] = tables_->step_by_age[age];
+      gather_half_ratio_[lane] = tables_->half_ratio_by_age[age];
+      gather_log_ml_next_[lane] = tables_->log_ml_next_by_age[age];
+      gather_minus_alpha_next_[lane] = tables_->minus_alpha_next_by_age[age];
     }
     arrays.step = gather_step_.data();
     arrays.half_ratio = gather_half_ratio_.data();
@@ -864,8 +884,9 @@ void RunLengthPosterior::SlideCapState(std::size_t slot, double log_joint) {
   // Same probability (log P = log_joint - s_t), now from R readings:
   // g = log_joint - L_R + alpha_R log beta. (Age 1 holds the constants of R - 1
   // readings, whose "next" is R.)
-  log_mass_[slot] = log_joint - log_ml_next_by_age_[kLanePad + 1] -
-                    minus_alpha_next_by_age_[kLanePad + 1] * std::log(beta_[slot]);
+  log_mass_[slot] =
+      log_joint - tables_->log_ml_next_by_age[kLanePad + 1] -
+      tables_->minus_alpha_next_by_age[kLanePad + 1] * std::log(beta_[slot]);
   ++birth_[slot];
 }
 
@@ -979,9 +1000,9 @@ StatusOr<Bocpd> Bocpd::Create(const BocpdOptions& options) {
   return Bocpd(options);
 }
 
-Bocpd::Bocpd(const BocpdOptions& options)
+Bocpd::Bocpd(const BocpdOptions& options, std::shared_ptr<const RunLengthTables> tables)
     : options_(options),
-      posterior_(options),
+      posterior_(options, std::move(tables)),
       times_(static_cast<std::size_t>(options.window)),
       snapshots_(static_cast<std::size_t>(options.window) + 1) {}
 

@@ -838,6 +838,7 @@ StatusOr<DetectorDesign> DesignDetectors(double arl0, double shift,
         design.bocpd.arl0 = per;
         if (!design.bocpd.IsValid(&why))
           return Status::FailedPrecondition("bocpd: " + why);
+        design.bocpd_tables = RunLengthTables::Make(design.bocpd);
         break;
       }
     }

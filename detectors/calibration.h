@@ -118,6 +118,7 @@
 
 #include <cstdint>
 #include <functional>
+#include <memory>
 #include <string>
 #include <vector>
 
@@ -256,6 +257,7 @@ struct DetectorDesign {
   CusumOptions cusum;
   PageHinkleyOptions page_hinkley;
   BocpdOptions bocpd;
+  std::shared_ptr<const RunLengthTables> bocpd_tables;  // made for bocpd (has_bocpd)
   EwmaOptions ewma;
   bool page_hinkley_extrapolated = false;  // threshold read beyond the table
   bool bocpd_extrapolated = false;

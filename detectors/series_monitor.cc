@@ -1113,7 +1113,7 @@ void SeriesMonitor::BuildLevelDetectors(const DetectorDesign& d) {
         level_.emplace_back(PageHinkley(d.page_hinkley));
         break;
       case DetectorKind::kBocpd:
-        level_.emplace_back(BoxedBocpd(Bocpd(d.bocpd)));
+        level_.emplace_back(BoxedBocpd(Bocpd(d.bocpd, d.bocpd_tables)));
         break;
       case DetectorKind::kEwma:
         level_.emplace_back(Ewma(d.ewma));

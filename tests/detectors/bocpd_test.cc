@@ -566,6 +566,47 @@ TEST(BocpdTest, AvxBuildsAgreeBitForBit) {
   }
 }
 
+// The per-run-length tables depend only on the prior and the cap, so the
+// series of a profile share one (RunLengthTables): a posterior on shared
+// tables agrees bit for bit with one that made its own, and tables made for
+// another prior or cap are not taken.
+TEST(BocpdTest, SharedTablesGiveTheSamePosteriorAndOthersAreNotTaken) {
+  const BocpdOptions o = EveryPathOptions();
+  const auto shared = RunLengthTables::Make(o);
+  EXPECT_TRUE(shared->Fits(o));
+  BocpdOptions other_cap = o;
+  other_cap.max_run_length = o.max_run_length + 1;
+  BocpdOptions other_prior = o;
+  other_prior.alpha0 = 2.0 * o.alpha0;
+  EXPECT_FALSE(shared->Fits(other_cap));
+  EXPECT_FALSE(shared->Fits(other_prior));
+  RunLengthPosterior own(o), on_shared(o, shared), copy_of_shared(on_shared);
+  // Given the first options' tables, these must make their own.
+  RunLengthPosterior cap_own(other_cap), cap_given(other_cap, shared);
+  RunLengthPosterior prior_own(other_prior), prior_given(other_prior, shared);
+  const auto same = [](const RunLengthPosterior& a, const RunLengthPosterior& b) {
+    if (a.size() != b.size() || a.log_evidence() != b.log_evidence()) return false;
+    for (int i = 0; i < a.size(); ++i) {
+      if (a.run_length(i) != b.run_length(i) || a.probability(i) != b.probability(i) ||
+          a.mean(i) != b.mean(i) || a.variance(i) != b.variance(i)) {
+        return false;
+      }
+    }
+    return true;
+  };
+  for (double x : EveryPathStream(2000, 23)) {
+    for (RunLengthPosterior* p : {&own, &on_shared, &copy_of_shared, &cap_own, &cap_given,
+                                  &prior_own, &prior_given}) {
+      p->Update(x);
+    }
+    ASSERT_TRUE(same(own, on_shared)) << "t=" << own.readings();
+    ASSERT_TRUE(same(own, copy_of_shared)) << "t=" << own.readings();
+    ASSERT_TRUE(same(cap_own, cap_given)) << "t=" << own.readings();
+    ASSERT_TRUE(same(prior_own, prior_given)) << "t=" << own.readings();
+  }
+  EXPECT_EQ(cap_given.max_run_length(), other_cap.max_run_length);
+}
+
 // Common practice, no source: the portable build (separate rounding of each
 // product) agrees with the processor's best build to rounding: every
 // probability within 1e-12, the log evidence within 1e-12 relative, the same
