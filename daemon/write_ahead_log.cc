@@ -42,8 +42,12 @@ StatusOr<std::string> ReadAll(const std::string& path) {
 
 }  // namespace
 
-WriteAheadLog::WriteAheadLog(std::string directory, FileSystem* file_system, bool sync)
-    : directory_(std::move(directory)), file_system_(file_system), sync_(sync) {}
+WriteAheadLog::WriteAheadLog(std::string directory, FileSystem* file_system, bool sync,
+                             std::size_t max_buffer_bytes)
+    : directory_(std::move(directory)),
+      file_system_(file_system),
+      sync_(sync),
+      max_buffer_bytes_(max_buffer_bytes) {}
 
 WriteAheadLog::~WriteAheadLog() { Stop(); }
 
@@ -153,6 +157,7 @@ void WriteAheadLog::Stop() {
     stop_ = true;
   }
   work_.notify_all();
+  room_.notify_all();
   if (writer_.joinable()) writer_.join();
   if (file_) {
     (void)file_->Close();
@@ -164,8 +169,12 @@ std::uint64_t WriteAheadLog::Append(std::string payload_tail, std::string_view s
                                     WalRecord::Type type) {
   std::uint64_t sequence = 0;
   {
-    std::lock_guard<std::mutex> lock(mutex_);
+    std::unique_lock<std::mutex> lock(mutex_);
+    room_.wait(lock, [this] {
+      return buffer_.size() < max_buffer_bytes_ || stop_ || !failure_.ok();
+    });
     sequence = next_++;
+    if (!failure_.ok()) return sequence;  // never durable: not kept
     SnapshotWriter head;
     head.U64(sequence);
     head.U8(static_cast<std::uint8_t>(type));
@@ -234,6 +243,7 @@ void WriteAheadLog::Run() {
         last_sync = std::chrono::steady_clock::now();
       }
       chunk.swap(buffer_);
+      room_.notify_all();
       through = next_ - 1;
       rotate_first = rotate_first_;
       rotate_offset = rotate_offset_;
@@ -263,6 +273,8 @@ void WriteAheadLog::Run() {
       std::lock_guard<std::mutex> lock(mutex_);
       if (!status.ok()) {
         if (failure_.ok()) failure_ = status;
+        std::string().swap(buffer_);  // nothing more becomes durable
+        room_.notify_all();
       } else {
         durable_ = std::max(durable_, through);
         bytes_ += chunk.size();

@@ -78,9 +78,16 @@ class WriteAheadLog {
  public:
   static constexpr std::chrono::microseconds kMinSyncGap{2000};
 
+  // Records appended and not yet handed to the disk, at most (one record may
+  // go past it): an Append beyond waits for the writer, so a disk slower than
+  // the readings slows the inputs instead of growing memory (DESIGN.md,
+  // bounded queues). 64 MiB is some seconds of the fastest ingest measured.
+  static constexpr std::size_t kDefaultMaxBufferBytes = std::size_t{64} << 20;
+
   // `file_system` must outlive the log. With `sync` false the log is written
   // but not fsynced (it then survives a killed process, not a lost machine).
-  WriteAheadLog(std::string directory, FileSystem* file_system, bool sync = true);
+  WriteAheadLog(std::string directory, FileSystem* file_system, bool sync = true,
+                std::size_t max_buffer_bytes = kDefaultMaxBufferBytes);
   ~WriteAheadLog();  // Stop
 
   // Reads every segment in order and calls `each` per record. Torn or
@@ -94,7 +101,9 @@ class WriteAheadLog {
   // Stops the writer after it has written everything appended.
   void Stop();
 
-  // Append a record; returns its sequence. Never blocks on the disk.
+  // Append a record; returns its sequence. Blocks only while the records not
+  // yet handed to the disk hold max_buffer_bytes. After a write failure the
+  // record is not kept (nothing more becomes durable; see failure()).
   std::uint64_t AppendBatch(const ReadingBatch& batch, std::string_view stream);
   std::uint64_t AppendMark(std::string_view stream, std::uint64_t lines);
   std::uint64_t AppendResume(std::string_view stream, std::uint64_t lines);
@@ -141,10 +150,13 @@ class WriteAheadLog {
   const std::string directory_;
   FileSystem* const file_system_;
   const bool sync_;
+  const std::size_t max_buffer_bytes_;
 
   mutable std::mutex mutex_;  // guards everything below
   std::condition_variable work_;
   std::condition_variable durable_changed_;
+  std::condition_variable
+      room_;  // buffer_ was handed to the writer, or a failure, or stop_
   std::string buffer_;                   // records not yet handed to the writer
   std::size_t rotate_offset_ = 0;        // buffer_ offset where a new segment starts
   std::uint64_t rotate_first_ = 0;       // its first sequence; 0: no rotation asked

@@ -15,6 +15,7 @@
 #include <boost/asio/read.hpp>
 #include <boost/asio/write.hpp>
 #include <chrono>
+#include <condition_variable>
 #include <cstdio>
 #include <filesystem>
 #include <fstream>
@@ -275,6 +276,104 @@ std::map<std::string, std::uint64_t> FollowStreams(const WriteAheadLog& wal,
 
 std::uint64_t EpochOf(const std::map<std::string, std::uint64_t>& streams) {
   return streams.size() == 1 ? ParseFollowStreamName(streams.begin()->first)->epoch : 99;
+}
+
+// POSIX, except that appends wait while held (a disk slower than the readings).
+class HeldAppendFileSystem : public FileSystem {
+ public:
+  void Hold(bool held) {
+    {
+      std::lock_guard<std::mutex> lock(mutex_);
+      held_ = held;
+    }
+    released_.notify_all();
+  }
+  bool Waiting() {
+    std::lock_guard<std::mutex> lock(mutex_);
+    return waiting_ > 0;
+  }
+  StatusOr<std::unique_ptr<WritableFile>> OpenAppend(const std::string& path) override {
+    auto file = FileSystem::Default()->OpenAppend(path);
+    if (!file.ok()) return file.status();
+    return std::unique_ptr<WritableFile>(new File(this, std::move(file).value()));
+  }
+  Status ReplaceFile(const std::string& p, std::string_view c) override {
+    return FileSystem::Default()->ReplaceFile(p, c);
+  }
+  StatusOr<std::string> ReadFile(const std::string& p) override {
+    return FileSystem::Default()->ReadFile(p);
+  }
+  Status CreateDirectories(const std::string& p) override {
+    return FileSystem::Default()->CreateDirectories(p);
+  }
+
+ private:
+  class File : public WritableFile {
+   public:
+    File(HeldAppendFileSystem* fs, std::unique_ptr<WritableFile> inner)
+        : fs_(fs), inner_(std::move(inner)) {}
+    Status Append(std::string_view d) override {
+      std::unique_lock<std::mutex> lock(fs_->mutex_);
+      ++fs_->waiting_;
+      // Bounded, so that a broken log fails the test instead of hanging it.
+      fs_->released_.wait_for(lock, std::chrono::seconds(20),
+                              [this] { return !fs_->held_; });
+      --fs_->waiting_;
+      lock.unlock();
+      return inner_->Append(d);
+    }
+    Status Sync() override { return inner_->Sync(); }
+    Status Close() override { return inner_->Close(); }
+
+   private:
+    HeldAppendFileSystem* fs_;
+    std::unique_ptr<WritableFile> inner_;
+  };
+
+  std::mutex mutex_;
+  std::condition_variable released_;
+  bool held_ = false;
+  int waiting_ = 0;
+};
+
+// The records not yet handed to the disk are bounded: past the bound an
+// append waits for the writer (the inputs slow down), and nothing is lost.
+TEST(WriteAheadLogTest, AppendsWaitWhileTheUnwrittenRecordsFillTheBound) {
+  const std::string dir = TempDir("wal_bound");
+  HeldAppendFileSystem fs;
+  constexpr int kMarks = 100;
+  {
+    WriteAheadLog wal(dir, &fs, /*sync=*/false, /*max_buffer_bytes=*/256);
+    ASSERT_TRUE(wal.Start(1).ok());
+    fs.Hold(true);
+    wal.AppendMark("sensor", 1);  // the writer takes it and waits on the disk
+    ASSERT_TRUE(WaitFor([&] { return fs.Waiting(); }));
+    std::atomic<int> appended{1};
+    std::thread producer([&] {
+      for (int line = 2; line <= kMarks; ++line) {
+        wal.AppendMark("sensor", static_cast<std::uint64_t>(line));
+        ++appended;
+      }
+    });
+    std::this_thread::sleep_for(std::chrono::milliseconds(100));
+    const int while_held = appended;
+    EXPECT_LT(while_held, kMarks);  // waiting, not buffering all of them
+    EXPECT_GT(while_held, 2);       // the bound holds several records
+    fs.Hold(false);
+    producer.join();
+    EXPECT_EQ(appended, kMarks);
+    EXPECT_TRUE(
+        wal.WaitDurable(wal.next_sequence() - 1, std::chrono::milliseconds(20000)));
+  }
+  WriteAheadLog again(dir, FileSystem::Default(), /*sync=*/false);
+  std::vector<std::uint64_t> lines;
+  std::vector<std::string> problems;
+  ASSERT_TRUE(
+      again.Replay([&](const WalRecord& r) { lines.push_back(r.lines); }, &problems)
+          .ok());
+  EXPECT_TRUE(problems.empty());
+  ASSERT_EQ(lines.size(), static_cast<std::size_t>(kMarks));
+  for (int i = 0; i < kMarks; ++i) EXPECT_EQ(lines[i], static_cast<std::uint64_t>(i + 1));
 }
 
 TEST(FileFollowerTest, WithALogTheOffsetIsItsStreamMarkAcrossRestartsTruncationAndReplacement) {
