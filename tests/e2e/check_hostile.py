@@ -225,7 +225,8 @@ def scenario_overload(args, tmp):
     daemon = Daemon(args.plumbline, config, tmp)
     baseline = rss_kib(daemon.process.pid, "VmRSS")
     # Each TCP sender offers its whole stream at once; the HTTP posters keep
-    # posting (a refused body is posted again) until the TCP streams are in.
+    # posting (a refused body is posted again) until the TCP streams are in
+    # and a body has been refused (or 10 s have passed).
     tcp_lines = 60000
     streams = [csv("tcp%d/load" % k, 0, tcp_lines, step=30) for k in range(2)]
     stop = threading.Event()
@@ -269,6 +270,15 @@ def scenario_overload(args, tmp):
     for t in senders:
         t.join(TIMEOUT)
     check(not any(t.is_alive() for t in senders), "TCP senders stuck")
+    # The senders' streams may sit in the sockets' buffers within
+    # milliseconds, before a poster has asked twice; the posters keep on
+    # until one is refused (which the checks below require) or 10 s pass.
+    deadline = time.time() + 10
+    while time.time() < deadline:
+        with lock:
+            if totals["http_503"] > 0:
+                break
+        time.sleep(0.01)
     stop.set()
     offering = time.time() - started
     for t in others:
