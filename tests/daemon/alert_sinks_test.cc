@@ -25,6 +25,7 @@
 #include <utility>  // before any Asio header (Boost 1.74 under C++20)
 #include <vector>
 
+#include "tests/support/interposed_file_system.h"
 #include "tests/support/temp_dir.h"
 
 namespace plumbline {
@@ -57,14 +58,29 @@ Alert MakeAlert(int i) {
   return a;
 }
 
-// A file system whose appends or syncs fail on demand, or whose syncs wait
-// until released; otherwise POSIX.
-class FaultyFileSystem : public FileSystem {
+// A file system whose syncs fail on demand or wait until released, counting
+// appends and syncs; otherwise POSIX.
+class FaultyFileSystem : public test_support::InterposedFileSystem {
  public:
   std::atomic<bool> fail_sync{false};
   std::atomic<int> appends{0};
   std::atomic<int> syncs{0};
 
+  FaultyFileSystem() {
+    before_append = [this](std::string_view) {
+      ++appends;
+      return Status::Ok();
+    };
+    before_sync = [this] {
+      {
+        std::unique_lock<std::mutex> lock(mutex_);
+        // Bounded, so that a broken log fails the test instead of hanging it.
+        released_.wait_for(lock, std::chrono::seconds(20), [this] { return !held_; });
+      }
+      ++syncs;
+      return fail_sync ? Status::IoError("injected fsync failure") : Status::Ok();
+    };
+  }
   void HoldSyncs() {
     std::lock_guard<std::mutex> lock(mutex_);
     held_ = true;
@@ -77,48 +93,7 @@ class FaultyFileSystem : public FileSystem {
     released_.notify_all();
   }
 
-  StatusOr<std::unique_ptr<WritableFile>> OpenAppend(const std::string& path) override {
-    auto file = FileSystem::Default()->OpenAppend(path);
-    if (!file.ok()) return file.status();
-    return std::unique_ptr<WritableFile>(new Faulty(this, std::move(file).value()));
-  }
-  Status ReplaceFile(const std::string& path, std::string_view contents) override {
-    return FileSystem::Default()->ReplaceFile(path, contents);
-  }
-  StatusOr<std::string> ReadFile(const std::string& path) override {
-    return FileSystem::Default()->ReadFile(path);
-  }
-  Status CreateDirectories(const std::string& path) override {
-    return FileSystem::Default()->CreateDirectories(path);
-  }
-
  private:
-  class Faulty : public WritableFile {
-   public:
-    Faulty(FaultyFileSystem* fs, std::unique_ptr<WritableFile> inner)
-        : fs_(fs), inner_(std::move(inner)) {}
-    Status Append(std::string_view data) override {
-      ++fs_->appends;
-      return inner_->Append(data);
-    }
-    Status Sync() override {
-      {
-        std::unique_lock<std::mutex> lock(fs_->mutex_);
-        // Bounded, so that a broken log fails the test instead of hanging it.
-        fs_->released_.wait_for(lock, std::chrono::seconds(20),
-                                [this] { return !fs_->held_; });
-      }
-      ++fs_->syncs;
-      if (fs_->fail_sync) return Status::IoError("injected fsync failure");
-      return inner_->Sync();
-    }
-    Status Close() override { return inner_->Close(); }
-
-   private:
-    FaultyFileSystem* fs_;
-    std::unique_ptr<WritableFile> inner_;
-  };
-
   std::mutex mutex_;
   std::condition_variable released_;
   bool held_ = false;

@@ -33,6 +33,7 @@
 #include "daemon/tcp_listener.h"
 #include "daemon/write_ahead_log.h"
 #include "detectors/time_format.h"
+#include "tests/support/interposed_file_system.h"
 #include "tests/support/temp_dir.h"
 
 namespace plumbline {
@@ -279,8 +280,18 @@ std::uint64_t EpochOf(const std::map<std::string, std::uint64_t>& streams) {
 }
 
 // POSIX, except that appends wait while held (a disk slower than the readings).
-class HeldAppendFileSystem : public FileSystem {
+class HeldAppendFileSystem : public test_support::InterposedFileSystem {
  public:
+  HeldAppendFileSystem() {
+    before_append = [this](std::string_view) {
+      std::unique_lock<std::mutex> lock(mutex_);
+      ++waiting_;
+      // Bounded, so that a broken log fails the test instead of hanging it.
+      released_.wait_for(lock, std::chrono::seconds(20), [this] { return !held_; });
+      --waiting_;
+      return Status::Ok();
+    };
+  }
   void Hold(bool held) {
     {
       std::lock_guard<std::mutex> lock(mutex_);
@@ -292,44 +303,8 @@ class HeldAppendFileSystem : public FileSystem {
     std::lock_guard<std::mutex> lock(mutex_);
     return waiting_ > 0;
   }
-  StatusOr<std::unique_ptr<WritableFile>> OpenAppend(const std::string& path) override {
-    auto file = FileSystem::Default()->OpenAppend(path);
-    if (!file.ok()) return file.status();
-    return std::unique_ptr<WritableFile>(new File(this, std::move(file).value()));
-  }
-  Status ReplaceFile(const std::string& p, std::string_view c) override {
-    return FileSystem::Default()->ReplaceFile(p, c);
-  }
-  StatusOr<std::string> ReadFile(const std::string& p) override {
-    return FileSystem::Default()->ReadFile(p);
-  }
-  Status CreateDirectories(const std::string& p) override {
-    return FileSystem::Default()->CreateDirectories(p);
-  }
 
  private:
-  class File : public WritableFile {
-   public:
-    File(HeldAppendFileSystem* fs, std::unique_ptr<WritableFile> inner)
-        : fs_(fs), inner_(std::move(inner)) {}
-    Status Append(std::string_view d) override {
-      std::unique_lock<std::mutex> lock(fs_->mutex_);
-      ++fs_->waiting_;
-      // Bounded, so that a broken log fails the test instead of hanging it.
-      fs_->released_.wait_for(lock, std::chrono::seconds(20),
-                              [this] { return !fs_->held_; });
-      --fs_->waiting_;
-      lock.unlock();
-      return inner_->Append(d);
-    }
-    Status Sync() override { return inner_->Sync(); }
-    Status Close() override { return inner_->Close(); }
-
-   private:
-    HeldAppendFileSystem* fs_;
-    std::unique_ptr<WritableFile> inner_;
-  };
-
   std::mutex mutex_;
   std::condition_variable released_;
   bool held_ = false;

@@ -17,6 +17,7 @@
 
 #include "daemon/log.h"
 #include "detectors/time_format.h"
+#include "tests/support/interposed_file_system.h"
 #include "tests/support/temp_dir.h"
 
 namespace plumbline {
@@ -27,40 +28,14 @@ std::string TempDir(const std::string& name) {
 }
 
 // POSIX, except that fsync fails once told to.
-class FailingSyncFileSystem : public FileSystem {
+class FailingSyncFileSystem : public test_support::InterposedFileSystem {
  public:
   std::atomic<bool> fail{false};
-  StatusOr<std::unique_ptr<WritableFile>> OpenAppend(const std::string& path) override {
-    auto file = FileSystem::Default()->OpenAppend(path);
-    if (!file.ok()) return file.status();
-    return std::unique_ptr<WritableFile>(new File(this, std::move(file).value()));
+  FailingSyncFileSystem() {
+    before_sync = [this] {
+      return fail ? Status::IoError("injected: no space left on device") : Status::Ok();
+    };
   }
-  Status ReplaceFile(const std::string& p, std::string_view c) override {
-    return FileSystem::Default()->ReplaceFile(p, c);
-  }
-  StatusOr<std::string> ReadFile(const std::string& p) override {
-    return FileSystem::Default()->ReadFile(p);
-  }
-  Status CreateDirectories(const std::string& p) override {
-    return FileSystem::Default()->CreateDirectories(p);
-  }
-
- private:
-  class File : public WritableFile {
-   public:
-    File(FailingSyncFileSystem* fs, std::unique_ptr<WritableFile> inner)
-        : fs_(fs), inner_(std::move(inner)) {}
-    Status Append(std::string_view d) override { return inner_->Append(d); }
-    Status Sync() override {
-      return fs_->fail ? Status::IoError("injected: no space left on device")
-                       : inner_->Sync();
-    }
-    Status Close() override { return inner_->Close(); }
-
-   private:
-    FailingSyncFileSystem* fs_;
-    std::unique_ptr<WritableFile> inner_;
-  };
 };
 
 constexpr char kProfiles[] =
