@@ -239,7 +239,7 @@ using AlignedDoubles = std::vector<double, CacheLineAllocator<double>>;
 // before a reading, indexed by kLanePad + R - n (descending n, after kLanePad
 // entries of padding, and as many after), so that states without gaps read a
 // contiguous slice. They depend only on the prior and the cap, so the series
-// of one profile share one table (ProfileDesign) instead of each computing
+// of one profile share one table (DetectorDesign::bocpd_tables) instead of each computing
 // and holding its own (4 (R + 17) doubles: 10 KB at the default cap).
 struct RunLengthTables {
   // Precondition: options.IsValid(nullptr).
