@@ -88,7 +88,7 @@ StatusOr<Checkpoint> ParseCheckpointPayload(std::string_view payload,
   for (CheckpointSeries& s : out) {
     s.name = r.String();
     s.wal_done = r.U64();
-    s.engine_state = r.String();
+    s.engine_state = r.StringView();
     s.has_extras = r.Bool();
     s.readings = r.I64();
     s.last_time = r.I64();
@@ -197,7 +197,8 @@ std::string ReadHead(const std::string& path, std::size_t bytes) {
 
 }  // namespace
 
-StatusOr<std::string> CheckpointStore::Load(std::vector<std::string>* skipped) {
+StatusOr<CheckpointStore::Loaded> CheckpointStore::Load(
+    std::vector<std::string>* skipped) {
   // The headers first: a file of another format version refuses the start
   // (a downgrade must not overwrite it), and the generations say which file
   // to read whole first. Only the newest file that checks out is read whole
@@ -226,15 +227,16 @@ StatusOr<std::string> CheckpointStore::Load(std::vector<std::string>* skipped) {
   });
   for (const Candidate& candidate : order) {
     const int slot = candidate.slot;
-    // However large: FileSystem::ReadFile stops at 16 MiB.
-    auto file = ReadWholeFile(Path(slot), std::numeric_limits<std::size_t>::max());
+    // However large (FileSystem::ReadFile stops at 16 MiB), and mapped rather
+    // than read into a buffer.
+    auto file = MappedFile::Open(Path(slot));
     if (!file.ok()) {
       if (file.status().code() != Status::Code::kNotFound && skipped) {
         skipped->push_back(file.status().message());
       }
       continue;
     }
-    auto framed = UnframeCheckpoint(*file);
+    auto framed = UnframeCheckpoint(file->bytes());
     if (!framed.ok()) {
       if (framed.status().code() == Status::Code::kFailedPrecondition) {
         return Status::FailedPrecondition(Path(slot) + ": " + framed.status().message());
@@ -245,12 +247,7 @@ StatusOr<std::string> CheckpointStore::Load(std::vector<std::string>* skipped) {
     generation_ = framed->generation;
     format_version_ = framed->version;
     newest_slot_ = slot;
-    // The payload is the file after its header: keep the file's string
-    // rather than copy gigabytes into a new one.
-    const std::size_t header = framed->payload.data() - file->data();
-    std::string best = std::move(file).value();
-    best.erase(0, header);
-    return best;
+    return Loaded{std::move(file).value(), framed->payload};
   }
   return Status::NotFound("no checkpoint in " + directory_);
 }
@@ -336,13 +333,14 @@ ProfileOptions LoadProfile(SnapshotReader& r) {
 
 }  // namespace
 
-void Engine::SaveSeries(
-    const std::function<void(const std::string& name, std::string state)>& each) const {
+void Engine::SaveSeries(const std::function<void(const std::string& name,
+                                                 std::string_view state)>& each) const {
+  SnapshotWriter w;  // one buffer for all of them
   for (const auto& [name, series] : series_) {
-    SnapshotWriter w;
+    w.Clear();
     SaveProfile(series->design->profile, w);
     series->monitor->Save(w);
-    each(name, w.Take());
+    each(name, w.bytes());
   }
 }
 
@@ -420,21 +418,25 @@ Status Engine::RestoreSeries(std::string_view name, std::string_view state,
   return Status::Ok();
 }
 
-void ShardState::SaveSeries(std::uint64_t wal_done, SnapshotWriter* w,
+void ShardState::SaveSeries(std::uint64_t wal_done, std::vector<std::string>* pieces,
                             std::uint64_t* count) const {
-  engine_->SaveSeries([&](const std::string& name, std::string state) {
-    WriteCheckpointSeries(ToCheckpointSeries(name, wal_done, std::move(state)), *w);
+  SnapshotWriter w;
+  engine_->SaveSeries([&](const std::string& name, std::string_view state) {
+    if (w.bytes().empty()) w.Reserve(kCheckpointPiece + 2 * state.size() + 4096);
+    WriteCheckpointSeries(ToCheckpointSeries(name, wal_done, state), w);
     ++*count;
+    if (w.bytes().size() >= kCheckpointPiece) pieces->push_back(w.Take());
   });
+  if (!w.bytes().empty()) pieces->push_back(w.Take());
 }
 
 CheckpointSeries ShardState::ToCheckpointSeries(const std::string& name,
                                                 std::uint64_t wal_done,
-                                                std::string engine_state) const {
+                                                std::string_view engine_state) const {
   CheckpointSeries s;
   s.name = name;
   s.wal_done = wal_done;
-  s.engine_state = std::move(engine_state);
+  s.engine_state = engine_state;
   s.covariate_history = engine_->CovariateHistory(name);
   if (const SeriesExtras* extras = Find(name)) {
     s.has_extras = true;
@@ -451,7 +453,7 @@ void ShardState::SaveNamedSeries(const std::vector<std::string>& names,
   for (const std::string& name : names) {
     std::optional<std::string> state = engine_->SaveOneSeries(name);
     if (!state) continue;
-    WriteCheckpointSeries(ToCheckpointSeries(name, 0, std::move(*state)), *w);
+    WriteCheckpointSeries(ToCheckpointSeries(name, 0, *state), *w);
     ++*count;
   }
 }

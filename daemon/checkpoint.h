@@ -62,11 +62,13 @@ struct CheckpointHead {
   std::vector<std::pair<std::string, std::uint64_t>> streams;  // lines per stream
 };
 
-// One series as the payload holds it.
+// One series as the payload holds it. Its engine state is a view: into the
+// payload it was parsed from, or the writer's string, which must outlive it
+// (a restart reads a million of them without copying each).
 struct CheckpointSeries {
   std::string name;
   std::uint64_t wal_done = 0;  // its shard's batches through this are in its state
-  std::string engine_state;  // Engine::SaveSeries
+  std::string_view engine_state;  // Engine::SaveSeries
   long long readings = 0;    // SeriesExtras
   EventTime last_time = 0;
   double last_value = 0.0;
@@ -83,6 +85,7 @@ void WriteCheckpointSeries(const CheckpointSeries& series, SnapshotWriter& w);
 // after it.
 std::string CheckpointPayloadHead(const CheckpointHead& head, std::uint64_t series);
 // Parses a whole payload written in format `version` (one this build reads).
+// The records' engine states view `payload`, which must outlive them.
 struct Checkpoint {
   CheckpointHead head;
   std::vector<CheckpointSeries> series;
@@ -119,11 +122,17 @@ class CheckpointStore {
   CheckpointStore(std::string directory, FileSystem* file_system);
 
   // Reads both generations; returns the newest good payload (its format
-  // version in format_version()). NotFound when there is none (a first
+  // version in format_version()), in the file it was read from, mapped into
+  // memory (MappedFile: a checkpoint can be gigabytes, and neither a copy nor
+  // a zeroed buffer of it is made). NotFound when there is none (a first
   // start), FailedPrecondition when a file is of a version this build does
   // not read. Every file passed over is described in *skipped (path and
   // reason), for the log.
-  StatusOr<std::string> Load(std::vector<std::string>* skipped);
+  struct Loaded {
+    MappedFile file;
+    std::string_view payload;  // into file
+  };
+  StatusOr<Loaded> Load(std::vector<std::string>* skipped);
 
   // Writes `payload` as the next generation, over the older file.
   Status Save(std::string_view payload);

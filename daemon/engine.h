@@ -122,9 +122,9 @@ class Engine {
 
   // Checkpoints (daemon/checkpoint.h). Calls `each(name, state)` for every
   // series; `state` holds the profile settings it runs under and its monitor
-  // (detectors/snapshot.h encoding).
-  void SaveSeries(
-      const std::function<void(const std::string& name, std::string state)>& each) const;
+  // (detectors/snapshot.h encoding), and is valid during the call.
+  void SaveSeries(const std::function<void(const std::string& name,
+                                           std::string_view state)>& each) const;
   // Restores one series saved by SaveSeries, judged against the profile that
   // matches its name now as Reconfigure judges a reload: same settings, kept;
   // same model settings, retuned; otherwise restarted (it learns afresh from

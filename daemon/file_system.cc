@@ -1,6 +1,7 @@
 #include "daemon/file_system.h"
 
 #include <fcntl.h>
+#include <sys/mman.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
@@ -9,6 +10,7 @@
 #include <cstring>
 #include <filesystem>
 #include <system_error>
+#include <utility>
 
 namespace plumbline {
 namespace {
@@ -27,10 +29,9 @@ StatusOr<std::string> ReadWholeFile(const std::string& path, std::size_t max_byt
     if (errno == ENOENT) return Status::NotFound("no file " + path);
     return Errno("cannot open", path, errno);
   }
-  // Read straight into a string of the file's size (a checkpoint can be
-  // gigabytes: growing a string by chunks copies it about twice over and
-  // faults in every page it leaves behind); a file that grows meanwhile is
-  // read on to its end.
+  // Read straight into a string of the file's size (growing a string by
+  // chunks copies it about twice over and faults in every page it leaves
+  // behind); a file that grows meanwhile is read on to its end.
   std::string contents;
   struct stat info {};
   if (::fstat(fd, &info) == 0 && info.st_size > 0) {
@@ -59,6 +60,51 @@ StatusOr<std::string> ReadWholeFile(const std::string& path, std::size_t max_byt
   contents.resize(size);
   ::close(fd);
   return contents;
+}
+
+StatusOr<MappedFile> MappedFile::Open(const std::string& path) {
+  const int fd = ::open(path.c_str(), O_RDONLY | O_CLOEXEC);
+  if (fd < 0) {
+    if (errno == ENOENT) return Status::NotFound("no file " + path);
+    return Errno("cannot open", path, errno);
+  }
+  struct stat info {};
+  if (::fstat(fd, &info) != 0) {
+    const int error = errno;
+    ::close(fd);
+    return Errno("cannot stat", path, error);
+  }
+  if (info.st_size <= 0) {
+    ::close(fd);
+    return MappedFile();
+  }
+  const auto size = static_cast<std::size_t>(info.st_size);
+  // MAP_POPULATE reads the pages in with one call instead of a fault per page.
+  void* data = ::mmap(nullptr, size, PROT_READ, MAP_PRIVATE | MAP_POPULATE, fd, 0);
+  const int error = errno;
+  ::close(fd);  // the mapping keeps the file
+  if (data == MAP_FAILED) return Errno("cannot map", path, error);
+  return MappedFile(static_cast<const char*>(data), size);
+}
+
+MappedFile::MappedFile(MappedFile&& other) noexcept
+    : data_(std::exchange(other.data_, nullptr)), size_(std::exchange(other.size_, 0)) {}
+
+MappedFile& MappedFile::operator=(MappedFile&& other) noexcept {
+  if (this != &other) {
+    Unmap();
+    data_ = std::exchange(other.data_, nullptr);
+    size_ = std::exchange(other.size_, 0);
+  }
+  return *this;
+}
+
+MappedFile::~MappedFile() { Unmap(); }
+
+void MappedFile::Unmap() {
+  if (data_ != nullptr) ::munmap(const_cast<char*>(data_), size_);
+  data_ = nullptr;
+  size_ = 0;
 }
 
 namespace {

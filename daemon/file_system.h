@@ -51,6 +51,34 @@ class FileSystem {
   static FileSystem* Default();
 };
 
+// A whole file mapped read-only into memory (POSIX mmap, private, pages read
+// in at once): its bytes without a copy in the heap. The pages are the page
+// cache's, so under memory pressure the kernel drops and re-reads them rather
+// than swap a copy. The file must not be truncated while mapped (reading past
+// its new end faults); Plumbline's state files are only ever replaced whole,
+// by rename, which leaves a mapped file intact. Move-only; unmapped when
+// destroyed.
+class MappedFile {
+ public:
+  // NotFound when `path` does not exist; an empty file maps to no bytes.
+  static StatusOr<MappedFile> Open(const std::string& path);
+
+  MappedFile() = default;
+  MappedFile(MappedFile&& other) noexcept;
+  MappedFile& operator=(MappedFile&& other) noexcept;
+  MappedFile(const MappedFile&) = delete;
+  MappedFile& operator=(const MappedFile&) = delete;
+  ~MappedFile();
+
+  std::string_view bytes() const { return {data_, size_}; }
+
+ private:
+  MappedFile(const char* data, std::size_t size) : data_(data), size_(size) {}
+  void Unmap();
+  const char* data_ = nullptr;
+  std::size_t size_ = 0;
+};
+
 // The whole file at `path` through POSIX read, refused (IoError) once it grows
 // past max_bytes; NotFound when it does not exist. FileSystem::Default()'s
 // ReadFile is this with 16 MiB.

@@ -664,14 +664,18 @@ void KafkaInput::Assign(rd_kafka_topic_partition_list_t* partitions) {
       ours.push_back(partitions->elems[i].partition);
     }
   }
-  auto loaded = store_->Load(ours);
-  if (!loaded.ok()) {
+  auto stored = store_->Load(ours);
+  if (!stored.ok()) {
     // Without their state these partitions would be judged afresh: leave them
     // unread until the next rebalance.
-    Fail(loaded.status());
+    Fail(stored.status());
     rd_kafka_assign(consumer_, nullptr);
     return;
   }
+  // The records view these bytes, which the shards' tasks hold until the
+  // last record is restored.
+  auto loaded = std::make_shared<const std::map<std::int32_t, std::string>>(
+      std::move(stored).value());
   std::uint64_t restored = 0;
   const EventTime now = WallClockNow();
   auto records = std::make_shared<std::vector<CheckpointSeries>>();
@@ -710,7 +714,7 @@ void KafkaInput::Assign(rd_kafka_topic_partition_list_t* partitions) {
   for (std::size_t s = 0; s < shards_->size(); ++s) {
     if (by_shard[s].empty()) continue;
     auto answer = shards_->shard(s).AskLater<std::uint64_t>(
-        [records, indices = std::move(by_shard[s]), now](ShardState& state) {
+        [records, loaded, indices = std::move(by_shard[s]), now](ShardState& state) {
           std::vector<std::string> names;
           for (std::size_t i : indices) names.push_back((*records)[i].name);
           state.ForgetSeries(names);  // a stale copy, if any
@@ -725,7 +729,7 @@ void KafkaInput::Assign(rd_kafka_topic_partition_list_t* partitions) {
               LogWarning("series not restored",
                          {{"series", record.name}, {"reason", status.message()}});
             }
-            std::string().swap(record.engine_state);
+            record.engine_state = {};
             std::vector<CovariateObservation>().swap(record.covariate_history);
           }
           return count;

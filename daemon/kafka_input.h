@@ -103,6 +103,7 @@ struct PartitionState {
   std::int64_t next_offset = 0;
   std::vector<struct CheckpointSeries> series;
 };
+// The records' engine states view `record`, which must outlive them.
 StatusOr<PartitionState> DecodePartitionState(std::string_view record,
                                               const std::string& topic,
                                               std::int32_t partition);

@@ -19,7 +19,7 @@ namespace {
 
 // A shard's answer to a checkpoint: its series records and their count.
 struct ShardPart {
-  std::string records;
+  std::vector<std::string> records;  // ShardState::SaveSeries's pieces
   std::uint64_t count = 0;
   std::uint64_t wal_done = 0;
 };
@@ -40,14 +40,19 @@ Status Service::StartCheckpoints() {
   auto store = std::make_unique<CheckpointStore>(options.state_directory, deps_.file_system);
   const auto begun = std::chrono::steady_clock::now();
   std::vector<std::string> skipped;
-  auto payload = store->Load(&skipped);
+  auto loaded = store->Load(&skipped);
   for (const std::string& why : skipped) LogWarning("checkpoint skipped", {{"reason", why}});
-  if (!payload.ok() && payload.status().code() != Status::Code::kNotFound) {
-    return payload.status();  // another format version: refused, never overwritten
+  if (!loaded.ok() && loaded.status().code() != Status::Code::kNotFound) {
+    return loaded.status();  // another format version: refused, never overwritten
   }
+  // The records view the mapped file, which the shards' tasks hold until the
+  // last record is restored (a task may outlive a timed-out wait below).
+  std::shared_ptr<const CheckpointStore::Loaded> file;
+  const bool restoring = loaded.ok();
   Checkpoint checkpoint;
-  if (payload.ok()) {
-    auto parsed = ParseCheckpointPayload(*payload, store->format_version());
+  if (restoring) {
+    file = std::make_shared<const CheckpointStore::Loaded>(std::move(loaded).value());
+    auto parsed = ParseCheckpointPayload(file->payload, store->format_version());
     if (!parsed.ok()) {
       // The checksum held, so this is a bug or a foreign writer, not a torn file.
       return Status::Corruption("checkpoint in " + options.state_directory + ": " +
@@ -55,10 +60,7 @@ Status Service::StartCheckpoints() {
     }
     checkpoint = std::move(parsed).value();
   }
-  // The records hold their own copies: the file's bytes go before the
-  // monitors are built, so a restart does not need room for both.
-  const std::size_t payload_bytes = payload.ok() ? payload->size() : 0;
-  if (payload.ok()) std::string().swap(*payload);
+  const std::size_t payload_bytes = file ? file->payload.size() : 0;
   // Series from the checkpoint, to their shards.
   auto records = std::make_shared<std::vector<CheckpointSeries>>(std::move(checkpoint.series));
   std::unordered_map<std::string_view, std::uint64_t> wal_done;  // per restored series
@@ -67,15 +69,14 @@ Status Service::StartCheckpoints() {
     by_shard[shards_->ShardFor((*records)[i].name)].push_back(i);
     wal_done[(*records)[i].name] = (*records)[i].wal_done;
   }
-  // Every shard restores its series at the same time, each record's state
-  // freed once its monitor is built (the records and the monitors would
-  // otherwise both be held whole).
+  // Every shard restores its series at the same time, each record's
+  // covariate observations freed once its monitor is built.
   using Part = std::pair<ReconfigureReport, std::size_t>;  // and the refused
   std::vector<std::future<Part>> parts;
   const EventTime now = deps_.clock->Now();
   for (std::size_t shard = 0; shard < shards_->size() && !records->empty(); ++shard) {
     auto part = shards_->shard(shard).AskLater<Part>(
-        [records, indices = std::move(by_shard[shard]), now](ShardState& state) {
+        [records, file, indices = std::move(by_shard[shard]), now](ShardState& state) {
           Part part;
           for (std::size_t i : indices) {
             CheckpointSeries& record = (*records)[i];
@@ -85,7 +86,7 @@ Status Service::StartCheckpoints() {
               LogWarning("series not restored",
                          {{"series", record.name}, {"reason", status.message()}});
             }
-            std::string().swap(record.engine_state);
+            record.engine_state = {};
             std::vector<CovariateObservation>().swap(record.covariate_history);
           }
           return part;
@@ -107,7 +108,8 @@ Status Service::StartCheckpoints() {
     total.dropped += answer.first.dropped;
     refused += answer.second;
   }
-  if (payload.ok()) {
+  file.reset();  // every record is restored: the checkpoint is unmapped
+  if (restoring) {
     LogInfo("checkpoint restored", {{"generation", store->generation()},
                                     {"series", records->size()},
                                     {"kept", total.kept},
@@ -128,11 +130,9 @@ Status Service::StartCheckpoints() {
   wal_->SetStreams(streams);
   std::vector<WalRecord> tail;
   std::vector<std::string> problems;
-  if (Status status = wal_->Replay(
-          [&](const WalRecord& record) {
-            if (record.sequence > checkpoint.head.wal_done) tail.push_back(record);
-          },
-          &problems);
+  if (Status status =
+          wal_->Replay([&](const WalRecord& record) { tail.push_back(record); },
+                       &problems, checkpoint.head.wal_done);
       !status.ok()) {
     return status;
   }
@@ -229,9 +229,7 @@ Status Service::SaveCheckpoint() {
     auto answer = shard.AskLater<ShardPart>([&shard](ShardState& state) {
       ShardPart p;
       p.wal_done = shard.WalDoneThrough();
-      SnapshotWriter w;
-      state.SaveSeries(p.wal_done, &w, &p.count);
-      p.records = w.Take();
+      state.SaveSeries(p.wal_done, &p.records, &p.count);
       return p;
     });
     if (!answer) return Status::Unavailable("a shard stopped before writing its series");
@@ -245,7 +243,7 @@ Status Service::SaveCheckpoint() {
     ShardPart part = answer.get();
     series += part.count;
     head.wal_done = std::min(head.wal_done, part.wal_done);
-    parts.push_back(std::move(part.records));
+    for (std::string& piece : part.records) parts.push_back(std::move(piece));
   }
   // The stream table claims lines durable: everything it counts must be in
   // the log on disk before the checkpoint says so.

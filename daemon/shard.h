@@ -128,9 +128,14 @@ class ShardState {
   // by restarted series are appended to *out.
   ReconfigureReport Reconfigure(const Config& config, std::vector<Alert>* out);
 
-  // Checkpoints (daemon/checkpoint.h): appends a record per series to *w
-  // and counts them in *count; `wal_done` is Shard::WalDoneThrough.
-  void SaveSeries(std::uint64_t wal_done, SnapshotWriter* w, std::uint64_t* count) const;
+  // Checkpoints (daemon/checkpoint.h): appends a record per series to
+  // *pieces, which hold them in order in pieces of about kCheckpointPiece
+  // bytes (a shard's records are hundreds of megabytes: one string grown to
+  // that size copied it over and over), and counts them in *count;
+  // `wal_done` is Shard::WalDoneThrough.
+  static constexpr std::size_t kCheckpointPiece = std::size_t{8} << 20;
+  void SaveSeries(std::uint64_t wal_done, std::vector<std::string>* pieces,
+                  std::uint64_t* count) const;
   // Restores one saved series (Engine::RestoreSeries) and what the shard kept
   // beside it; its silence clock restarts at clock time `now`.
   Status RestoreSeries(const struct CheckpointSeries& series, EventTime now,
@@ -144,9 +149,10 @@ class ShardState {
 
  private:
   friend class Shard;
+  // The record of one series; it views `engine_state`, which must outlive it.
   struct CheckpointSeries ToCheckpointSeries(const std::string& name,
                                              std::uint64_t wal_done,
-                                             std::string engine_state) const;
+                                             std::string_view engine_state) const;
   // Queues the series' wall-clock silence check, unless queued already or it
   // has no deadline now (then its next reading tries again).
   void ScheduleSilence(const std::string& name, SeriesExtras* extras);

@@ -90,11 +90,13 @@ class WriteAheadLog {
                 std::size_t max_buffer_bytes = kDefaultMaxBufferBytes);
   ~WriteAheadLog();  // Stop
 
-  // Reads every segment in order and calls `each` per record. Torn or
-  // corrupted records end their segment and are described in *problems.
-  // Call before Start.
+  // Reads every segment in order and calls `each` per record after
+  // sequence `skip_through`. Records up to it (a checkpoint holds them) are
+  // checked and their marks counted, but their readings are not decoded.
+  // Torn or corrupted records end their segment and are described in
+  // *problems. Call before Start.
   Status Replay(const std::function<void(const WalRecord&)>& each,
-                std::vector<std::string>* problems);
+                std::vector<std::string>* problems, std::uint64_t skip_through = 0);
   // Opens a new segment whose first sequence is at least `next_sequence` and
   // past every record replayed, and starts the writer thread.
   Status Start(std::uint64_t next_sequence);

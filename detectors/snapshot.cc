@@ -72,11 +72,17 @@ void SnapshotWriter::Tag(std::string_view four_letters) {
 }
 
 void SnapshotWriter::U32(std::uint32_t v) {
-  for (int i = 0; i < 4; ++i) U8(static_cast<std::uint8_t>(v >> (8 * i)));
+  char little_endian[4];
+  for (int i = 0; i < 4; ++i) little_endian[i] = static_cast<char>(v >> (8 * i));
+  bytes_.append(little_endian, sizeof little_endian);
 }
 
 void SnapshotWriter::U64(std::uint64_t v) {
-  for (int i = 0; i < 8; ++i) U8(static_cast<std::uint8_t>(v >> (8 * i)));
+  // One append of the eight bytes (a byte at a time, each with its own
+  // capacity check, was most of writing a checkpoint).
+  char little_endian[8];
+  for (int i = 0; i < 8; ++i) little_endian[i] = static_cast<char>(v >> (8 * i));
+  bytes_.append(little_endian, sizeof little_endian);
 }
 
 void SnapshotWriter::F64(double v) { U64(std::bit_cast<std::uint64_t>(v)); }
@@ -238,11 +244,13 @@ std::size_t SnapshotReader::BoundedCount(std::size_t item_bytes, std::size_t mos
   return n;
 }
 
-std::string SnapshotReader::String() {
+std::string SnapshotReader::String() { return std::string(StringView()); }
+
+std::string_view SnapshotReader::StringView() {
   const std::size_t n = Count(1);
   const char* p = nullptr;
   if (!Take(n, &p)) return {};
-  return std::string(p, n);
+  return std::string_view(p, n);
 }
 
 void SnapshotReader::Doubles(double* values, std::size_t count) {

@@ -56,7 +56,16 @@ class SnapshotWriter {
   void OptionalI64(const std::optional<std::int64_t>& v);
 
   const std::string& bytes() const { return bytes_; }
-  std::string Take() { return std::move(bytes_); }
+  // The bytes written, leaving the writer empty.
+  std::string Take() {
+    std::string taken = std::move(bytes_);
+    bytes_.clear();
+    return taken;
+  }
+  // Empties the writer but keeps its buffer, for the next state of the same
+  // size (a checkpoint writes a million).
+  void Clear() { bytes_.clear(); }
+  void Reserve(std::size_t bytes) { bytes_.reserve(bytes); }
 
  private:
   std::string bytes_;
@@ -78,6 +87,9 @@ class SnapshotReader {
   std::int64_t I64() { return static_cast<std::int64_t>(U64()); }
   double F64();
   std::string String();
+  // The same string as a view into the reader's bytes, valid while they are
+  // (a checkpoint's records are read so, without a copy of each).
+  std::string_view StringView();
   void Doubles(double* values, std::size_t count);
   std::vector<double> DoubleVector();
   std::vector<std::int64_t> I64Vector();

@@ -203,25 +203,31 @@ void Feed(Shard& shard, const std::vector<OwnedReading>& readings, std::size_t f
 }
 
 // A checkpoint of the shard's series, framed and parsed back as a restart
-// reads it.
-Checkpoint TakeCheckpoint(Shard& shard) {
-  auto records = shard.Ask<std::pair<std::string, std::uint64_t>>(
+// reads it; its records view `file`.
+struct TakenCheckpoint {
+  std::string file;
+  Checkpoint checkpoint;
+};
+std::unique_ptr<TakenCheckpoint> TakeCheckpoint(Shard& shard) {
+  auto records = shard.Ask<std::pair<std::vector<std::string>, std::uint64_t>>(
       [](ShardState& state) {
-        SnapshotWriter w;
+        std::vector<std::string> pieces;
         std::uint64_t count = 0;
-        state.SaveSeries(0, &w, &count);
-        return std::make_pair(w.Take(), count);
+        state.SaveSeries(0, &pieces, &count);
+        return std::make_pair(std::move(pieces), count);
       },
       std::chrono::seconds(30));
   EXPECT_TRUE(records);
   std::string payload = CheckpointPayloadHead(CheckpointHead{}, records->second);
-  payload += records->first;
-  const std::string file = FrameCheckpoint(payload, 1);
-  auto framed = UnframeCheckpoint(file);
+  for (const std::string& piece : records->first) payload += piece;
+  auto taken = std::make_unique<TakenCheckpoint>();
+  taken->file = FrameCheckpoint(payload, 1);
+  auto framed = UnframeCheckpoint(taken->file);
   EXPECT_TRUE(framed.ok()) << framed.status().message();
   auto parsed = ParseCheckpointPayload(framed->payload, framed->version);
   EXPECT_TRUE(parsed.ok()) << parsed.status().message();
-  return parsed.ok() ? *parsed : Checkpoint{};
+  if (parsed.ok()) taken->checkpoint = std::move(parsed).value();
+  return taken;
 }
 
 void Restore(Shard& shard, const Checkpoint& checkpoint) {
@@ -259,7 +265,8 @@ TEST(CovariateShardsTest, CheckpointCarriesTheCovariateObservations) {
   Shard whole(0, config, ShardOptions{}, &clock, &whole_alerts, nullptr);
   whole.Start();
   Feed(whole, readings, 0, cut);
-  const Checkpoint checkpoint = TakeCheckpoint(whole);
+  const std::unique_ptr<TakenCheckpoint> taken = TakeCheckpoint(whole);
+  const Checkpoint& checkpoint = taken->checkpoint;
   ASSERT_EQ(checkpoint.series.size(), 2u);
   const std::vector<CovariateObservation>* pallets = nullptr;
   for (const CheckpointSeries& s : checkpoint.series) {
@@ -367,9 +374,9 @@ TEST(CheckpointFormatTest, StoreWritesPiecesAsTheFrameOfTheirConcatenation) {
   EXPECT_EQ(*file, FrameCheckpoint(whole, 1));
   std::vector<std::string> skipped;
   CheckpointStore reader(dir, FileSystem::Default());
-  auto payload = reader.Load(&skipped);
-  ASSERT_TRUE(payload.ok()) << payload.status().message();
-  EXPECT_EQ(*payload, whole);
+  auto loaded = reader.Load(&skipped);
+  ASSERT_TRUE(loaded.ok()) << loaded.status().message();
+  EXPECT_EQ(loaded->payload, whole);
   EXPECT_TRUE(skipped.empty());
 }
 

@@ -1,5 +1,5 @@
-// ReadWholeFile (daemon/file_system.h): whole files of any size come back byte
-// for byte, and one over the caller's limit is refused.
+// ReadWholeFile and MappedFile (daemon/file_system.h): whole files of any size
+// come back byte for byte, and one over the caller's limit is refused.
 #include "daemon/file_system.h"
 
 #include <gtest/gtest.h>
@@ -7,6 +7,7 @@
 
 #include <cstdio>
 #include <string>
+#include <utility>
 
 namespace plumbline {
 namespace {
@@ -45,6 +46,27 @@ TEST(ReadWholeFileTest, RefusesAFileOverTheLimitAndNamesAMissingOne) {
   EXPECT_EQ(exact->size(), 2u << 20);
   std::remove(path.c_str());
   EXPECT_EQ(ReadWholeFile(path, 1u << 20).status().code(), Status::Code::kNotFound);
+}
+
+TEST(MappedFileTest, MapsFilesOfEverySizeByteForByteAndNamesAMissingOne) {
+  for (std::size_t size : {0u, 1u, 4095u, 4096u, 4097u, 3u << 20}) {
+    std::string contents(size, '\0');
+    for (std::size_t i = 0; i < size; ++i)
+      contents[i] = static_cast<char>(i * 7919 % 251);
+    const std::string path = WriteTemp("mapped" + std::to_string(size), contents);
+    auto mapped = MappedFile::Open(path);
+    ASSERT_TRUE(mapped.ok()) << mapped.status().ToString();
+    // Moved, the mapping goes with it; the file can go while mapped.
+    MappedFile kept = std::move(mapped).value();
+    std::remove(path.c_str());
+    EXPECT_EQ(kept.bytes(), contents) << size << " bytes";
+    MappedFile other;
+    other = std::move(kept);
+    EXPECT_TRUE(kept.bytes().empty());
+    EXPECT_EQ(other.bytes(), contents) << size << " bytes";
+  }
+  EXPECT_EQ(MappedFile::Open(testing::TempDir() + "/no_such_file").status().code(),
+            Status::Code::kNotFound);
 }
 
 }  // namespace

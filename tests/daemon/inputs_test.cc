@@ -351,6 +351,55 @@ TEST(WriteAheadLogTest, AppendsWaitWhileTheUnwrittenRecordsFillTheBound) {
   for (int i = 0; i < kMarks; ++i) EXPECT_EQ(lines[i], static_cast<std::uint64_t>(i + 1));
 }
 
+// A restart replays only what its checkpoint lacks: records up to the
+// checkpoint's sequence are checked and their marks counted, but not handed on.
+TEST(WriteAheadLogTest, ReplaySkipsTheRecordsACheckpointHoldsButCountsTheirMarks) {
+  const std::string dir = TempDir("wal_skip");
+  std::uint64_t covered = 0;
+  {
+    WriteAheadLog wal(dir, FileSystem::Default(), /*sync=*/false);
+    ASSERT_TRUE(wal.Start(1).ok());
+    for (int i = 0; i < 6; ++i) {
+      ReadingBatch batch;
+      batch.Add({60 * kMicrosPerSecond * (i + 1), "coldstore/a", 1.0 * i}, 1);
+      wal.AppendBatch(batch, "sensor");
+      const std::uint64_t mark =
+          wal.AppendMark("sensor", static_cast<std::uint64_t>(i + 1));
+      if (i == 3) covered = mark;  // a checkpoint holds the first four batches
+    }
+    ASSERT_TRUE(
+        wal.WaitDurable(wal.next_sequence() - 1, std::chrono::milliseconds(20000)));
+    wal.Stop();
+  }
+  WriteAheadLog again(dir, FileSystem::Default(), /*sync=*/false);
+  std::vector<std::uint64_t> sequences;
+  std::vector<double> values;
+  std::vector<std::string> problems;
+  ASSERT_TRUE(again
+                  .Replay(
+                      [&](const WalRecord& r) {
+                        sequences.push_back(r.sequence);
+                        for (const WalRecord::Reading& reading : r.readings) {
+                          values.push_back(reading.value);
+                        }
+                      },
+                      &problems, covered)
+                  .ok());
+  EXPECT_TRUE(problems.empty());
+  ASSERT_EQ(sequences.size(), 4u);  // two batches and their marks
+  EXPECT_EQ(sequences.front(), covered + 1);
+  EXPECT_EQ(values, (std::vector<double>{4.0, 5.0}));
+  std::uint64_t through = 0;
+  const auto streams = again.Streams(&through);
+  ASSERT_EQ(streams.count("sensor"), 1u);
+  EXPECT_EQ(streams.at("sensor"), 6u);
+  // Without a checkpoint every record comes back.
+  WriteAheadLog whole(dir, FileSystem::Default(), /*sync=*/false);
+  std::size_t records = 0;
+  ASSERT_TRUE(whole.Replay([&](const WalRecord&) { ++records; }, &problems).ok());
+  EXPECT_EQ(records, 12u);
+}
+
 TEST(FileFollowerTest, WithALogTheOffsetIsItsStreamMarkAcrossRestartsTruncationAndReplacement) {
   const std::string dir = TempDir("logged");
   const std::string path = dir + "/readings.csv";

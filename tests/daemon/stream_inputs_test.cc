@@ -60,19 +60,21 @@ TEST(BareNumberTest, TakesOneFiniteNumberWithBlanksAround) {
   EXPECT_FALSE(BareNumber("2026-03-01T12:00:00Z,coldstore/a,1", &v));
 }
 
-CheckpointSeries Record(const std::string& name) {
+// A record viewing `state`, which outlives it.
+CheckpointSeries Record(const std::string& name, const std::string& state) {
   CheckpointSeries s;
   s.name = name;
-  s.engine_state = "state of " + name;
+  s.engine_state = state;
   s.has_extras = true;
   s.readings = 7;
   return s;
 }
 
 TEST(PartitionStateTest, RoundTripsOffsetAndSeries) {
+  const std::string state_a = "state of coldstore/a", state_b = "state of coldstore/b";
   SnapshotWriter w;
-  WriteCheckpointSeries(Record("coldstore/a"), w);
-  WriteCheckpointSeries(Record("coldstore/b"), w);
+  WriteCheckpointSeries(Record("coldstore/a", state_a), w);
+  WriteCheckpointSeries(Record("coldstore/b", state_b), w);
   const std::string record = EncodePartitionState("readings", 7, 12345, w.Take(), 2);
   auto state = DecodePartitionState(record, "readings", 7);
   ASSERT_TRUE(state.ok()) << state.status().ToString();
