@@ -7,6 +7,7 @@
 
 #include "daemon/text.h"
 #include "detectors/glob.h"
+#include "detectors/prefetch.h"
 #include "detectors/time_format.h"
 
 namespace plumbline {
@@ -464,6 +465,24 @@ void Engine::Emit(const Series& series, const std::vector<SeriesEvent>& events,
 void Engine::Prefetch(std::string_view series, EventTime time) const {
   if (const Series* found = Lookup(series); found && found->monitor) {
     found->monitor->Prefetch(time);
+  }
+}
+
+void Engine::PrefetchStage(int stage, std::string_view series) const {
+  switch (stage) {
+    case 4:
+      index_.PrefetchSlot(series);
+      return;
+    case 3:
+      index_.PrefetchItem(series);
+      return;
+    case 2:
+      if (const Series* found = Lookup(series); found && found->monitor) {
+        PrefetchRange(found->monitor.get(), sizeof(SeriesMonitor));
+      }
+      return;
+    default:
+      return;
   }
 }
 

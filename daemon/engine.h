@@ -159,6 +159,24 @@ class Engine {
   // reading takes a few microseconds), near enough that they are not evicted
   // first; 4, 8 and 16 measured alike on 10,000 series.
   static constexpr std::size_t kPrefetchAhead = 8;
+  // Earlier stages of the same, for callers that see further ahead: each
+  // loads what the next stage reads, so no stage waits on memory. The index
+  // slot at 4 kPrefetchAhead, the series' entry at 3, its monitor at 2, then
+  // Prefetch at kPrefetchAhead. On a 10 M-reading replay over 10,000 series,
+  // 5-22% less CPU than Prefetch alone (five interleaved pairs), alerts the
+  // same.
+  void PrefetchStage(int stage, std::string_view series) const;
+  // Every stage, for the readings ahead of the one about to be ingested:
+  // `ahead(n)` gives the series name and time of the reading n places on, or
+  // nullopt past the readings the caller holds.
+  using NameAndTime = std::pair<std::string_view, EventTime>;
+  template <typename Ahead>
+  void PrefetchAhead(Ahead ahead) const {
+    for (int stage = 4; stage >= 2; --stage) {
+      if (const auto r = ahead(stage * kPrefetchAhead)) PrefetchStage(stage, r->first);
+    }
+    if (const auto r = ahead(kPrefetchAhead)) Prefetch(r->first, r->second);
+  }
   // Tells `listener` (not owned; null: nobody) of every observation of the
   // series named `series`, now and after it is created or restarted.
   void SetObservationListener(std::string series, ObservationListener* listener);

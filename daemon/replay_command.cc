@@ -368,9 +368,11 @@ int RunReplay(const Args& args) {
     // The series' state of a later reading starts loading now (Engine::Prefetch;
     // one input only: with several, the merge order is not known that far ahead).
     if (streams.size() == 1) {
-      if (const OwnedReading* ahead = next->Ahead(Engine::kPrefetchAhead)) {
-        engine.Prefetch(ahead->series, ahead->time);
-      }
+      engine.PrefetchAhead([next](std::size_t n) -> std::optional<Engine::NameAndTime> {
+        const OwnedReading* ahead = next->Ahead(n);
+        if (!ahead) return std::nullopt;
+        return Engine::NameAndTime{ahead->series, ahead->time};
+      });
     }
     engine.AdvanceClock(head->time, &out);
     const TraceBefore trace =
@@ -432,10 +434,11 @@ int RunReplay(const Args& args) {
         round.out.push_back({i, 0, keys[j], std::move(raised_here[j])});
       }
       if (next_own >= round.own.size() || round.own[next_own] != i) continue;
-      if (next_own + Engine::kPrefetchAhead < round.own.size()) {
-        const OwnedReading& ahead = block[round.own[next_own + Engine::kPrefetchAhead]].reading;
-        e.Prefetch(ahead.series, ahead.time);
-      }
+      e.PrefetchAhead([&](std::size_t n) -> std::optional<Engine::NameAndTime> {
+        if (next_own + n >= round.own.size()) return std::nullopt;
+        const OwnedReading& ahead = block[round.own[next_own + n]].reading;
+        return Engine::NameAndTime{ahead.series, ahead.time};
+      });
       ++next_own;
       raised_here.clear();
       const IngestOutcome outcome =

@@ -239,10 +239,11 @@ void Shard::Process(ReadingBatch& batch) {
   for (std::size_t k = 0; k < batch.entries.size(); ++k) {
     const ReadingBatch::Entry& entry = batch.entries[k];
     const std::string_view name = batch.name(entry);
-    if (k + Engine::kPrefetchAhead < batch.entries.size()) {
-      const ReadingBatch::Entry& ahead = batch.entries[k + Engine::kPrefetchAhead];
-      engine.Prefetch(batch.name(ahead), ahead.time);
-    }
+    engine.PrefetchAhead([&](std::size_t n) -> std::optional<Engine::NameAndTime> {
+      if (k + n >= batch.entries.size()) return std::nullopt;
+      const ReadingBatch::Entry& ahead = batch.entries[k + n];
+      return Engine::NameAndTime{batch.name(ahead), ahead.time};
+    });
     const TraceBefore trace =
         options_.recent_points > 0 ? TraceStateBefore(engine.Find(name)) : TraceBefore{};
     const IngestOutcome outcome = engine.Ingest(name, entry.time, entry.value, &out_);
