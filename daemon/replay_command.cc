@@ -365,7 +365,7 @@ int RunReplay(const Args& args) {
     InputStream* next = Earliest(streams);
     if (!next) break;
     const OwnedReading* head = next->Head();
-    // The series' state of a later reading starts loading now (Engine::Prefetch;
+    // The series' state of later readings starts loading now (Engine::PrefetchAhead;
     // one input only: with several, the merge order is not known that far ahead).
     if (streams.size() == 1) {
       engine.PrefetchAhead([next](std::size_t n) -> std::optional<Engine::NameAndTime> {
