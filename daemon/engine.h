@@ -159,16 +159,14 @@ class Engine {
   // reading takes a few microseconds), near enough that they are not evicted
   // first; 4, 8 and 16 measured alike on 10,000 series.
   static constexpr std::size_t kPrefetchAhead = 8;
-  // Earlier stages of the same, for callers that see further ahead: each
-  // loads what the next stage reads, so no stage waits on memory. The index
-  // slot at 4 kPrefetchAhead, the series' entry at 3, its monitor at 2, then
-  // Prefetch at kPrefetchAhead. On a 10 M-reading replay over 10,000 series,
-  // 5-22% less CPU than Prefetch alone (five interleaved pairs), alerts the
-  // same.
-  void PrefetchStage(int stage, std::string_view series) const;
-  // Every stage, for the readings ahead of the one about to be ingested:
-  // `ahead(n)` gives the series name and time of the reading n places on, or
-  // nullopt past the readings the caller holds.
+  // Prefetch and the stages before it, for the readings ahead of the one
+  // about to be ingested: `ahead(n)` gives the series name and time of the
+  // reading n places on, or nullopt past the readings the caller holds. Each
+  // stage loads what the next one reads, so no stage waits on memory: the
+  // index slot at 4 kPrefetchAhead, the series' entry at 3, its monitor at 2,
+  // then Prefetch at kPrefetchAhead. On a 10 M-reading replay over 10,000
+  // series, 5-22% less CPU than Prefetch alone (five interleaved pairs),
+  // alerts the same.
   using NameAndTime = std::pair<std::string_view, EventTime>;
   template <typename Ahead>
   void PrefetchAhead(Ahead ahead) const {
@@ -184,6 +182,8 @@ class Engine {
   const Status& design_status() const { return design_status_; }
 
  private:
+  // One of PrefetchAhead's earlier stages (4, 3 or 2) for `series`.
+  void PrefetchStage(int stage, std::string_view series) const;
   struct Series {
     std::string name;
     const ProfileDesign* design = nullptr;  // in designs_ or retired_designs_

@@ -1,11 +1,9 @@
 #include "daemon/write_ahead_log.h"
 
-#include <fcntl.h>
 #include <unistd.h>
 
 #include <algorithm>
 #include <cstdio>
-#include <cstring>
 #include <filesystem>
 
 #include "detectors/snapshot.h"
@@ -95,15 +93,17 @@ Status WriteAheadLog::Replay(const std::function<void(const WalRecord&)>& each,
       record.sequence = r.U64();
       record.type = static_cast<WalRecord::Type>(r.U8());
       record.stream = r.String();
+      // A record the checkpoint holds is checked by its checksum and its
+      // mark counted; its readings are the checkpoint's, and not decoded.
       const bool skipped = record.sequence <= skip_through;
-      if (record.type == WalRecord::Type::kBatch && skipped) {
-        // Checked by its checksum; its readings are the checkpoint's.
-      } else if (record.type == WalRecord::Type::kBatch) {
-        record.readings.resize(r.Count(24));
-        for (WalRecord::Reading& reading : record.readings) {
-          reading.series = r.String();
-          reading.time = r.I64();
-          reading.value = r.F64();
+      if (record.type == WalRecord::Type::kBatch) {
+        if (!skipped) {
+          record.readings.resize(r.Count(24));
+          for (WalRecord::Reading& reading : record.readings) {
+            reading.series = r.String();
+            reading.time = r.I64();
+            reading.value = r.F64();
+          }
         }
       } else if (record.type == WalRecord::Type::kMark ||
                  record.type == WalRecord::Type::kResume) {

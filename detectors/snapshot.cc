@@ -71,19 +71,16 @@ void SnapshotWriter::Tag(std::string_view four_letters) {
   bytes_.append(four_letters.substr(0, 4));
 }
 
-void SnapshotWriter::U32(std::uint32_t v) {
-  char little_endian[4];
-  for (int i = 0; i < 4; ++i) little_endian[i] = static_cast<char>(v >> (8 * i));
-  bytes_.append(little_endian, sizeof little_endian);
+template <int kBytes>
+void SnapshotWriter::LittleEndian(std::uint64_t v) {
+  char bytes[kBytes];
+  for (int i = 0; i < kBytes; ++i) bytes[i] = static_cast<char>(v >> (8 * i));
+  bytes_.append(bytes, sizeof bytes);
 }
 
-void SnapshotWriter::U64(std::uint64_t v) {
-  // One append of the eight bytes (a byte at a time, each with its own
-  // capacity check, was most of writing a checkpoint).
-  char little_endian[8];
-  for (int i = 0; i < 8; ++i) little_endian[i] = static_cast<char>(v >> (8 * i));
-  bytes_.append(little_endian, sizeof little_endian);
-}
+void SnapshotWriter::U32(std::uint32_t v) { LittleEndian<4>(v); }
+
+void SnapshotWriter::U64(std::uint64_t v) { LittleEndian<8>(v); }
 
 void SnapshotWriter::F64(double v) { U64(std::bit_cast<std::uint64_t>(v)); }
 

@@ -68,6 +68,9 @@ class SnapshotWriter {
   void Reserve(std::size_t bytes) { bytes_.reserve(bytes); }
 
  private:
+  // The low kBytes bytes of v, least significant first, in one append.
+  template <int kBytes>
+  void LittleEndian(std::uint64_t v);
   std::string bytes_;
 };
 
