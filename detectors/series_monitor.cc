@@ -955,7 +955,37 @@ std::pair<double, double> RefitSides(const std::vector<double>& scores,
           Refit(std::move(lower), side_arl0, lower_h, ceiling)};
 }
 
+// Whether a sample of capped scores reaches its cap more often than the
+// chart's model would by chance: the exact binomial test of the count at the
+// cap against the model's tail probability p, one-sided at kTailTestLevel.
+// Heavy tails show there first, and in few values. For the variance chart
+// (cap 12.25, p = P(|Z| >= 3.5) = 4.7e-4), 2 values at the cap in 125 or 250
+// reject and 3 in 500; a Student-t with 3 d.f. puts about 2% of its robustly
+// scaled residuals there. For the arrival model (cap 6 mean gaps,
+// p = e^-6 = 2.5e-3), 3 in 125, 4 in 250 and 5 in 500.
+bool ReachesCapTooOften(const std::vector<double>& sample, double cap, double p) {
+  constexpr double kTailTestLevel = 0.01;
+  // Quantised values read back within half a level of the cap (quantised_sample.h).
+  const double at_cap = cap * (1.0 - 1e-4);
+  const long long n = static_cast<long long>(sample.size());
+  long long hits = 0;
+  for (double x : sample) hits += x >= at_cap;
+  // P(X >= hits) = 1 - sum over i < hits of C(n, i) p^i (1 - p)^(n - i).
+  double term = std::pow(1.0 - p, static_cast<double>(n));
+  double below = 0.0;
+  for (long long i = 0; i < hits; ++i) {
+    below += term;
+    term *= static_cast<double>(n - i) / static_cast<double>(i + 1) * p / (1.0 - p);
+  }
+  return 1.0 - below <= kTailTestLevel;
+}
+
 }  // namespace
+
+bool SeriesMonitor::RefitDue(size_t sample_size) const {
+  return sample_size == kRefitSample / 8 || sample_size == kRefitSample / 4 ||
+         sample_size == kRefitSample / 2 || sample_size >= RefitSampleSize();
+}
 
 size_t SeriesMonitor::RefitSampleSize() const {
   // Samples hold observations: buckets where the series is bucketed, readings
@@ -974,29 +1004,53 @@ void SeriesMonitor::CollectForRefit(double variance_q, double arrival_score) {
   const double side_arl0 = 8.0 * design_->profile.arl0;
   if (!variance_refitted_ && std::isfinite(variance_q)) {
     variance_sample_.Add(variance_q);
-    if (variance_sample_.size() >= RefitSampleSize()) {
+    if (RefitDue(variance_sample_.size())) {
       const VarianceCusumOptions& o = design_->variance;
-      const auto [up_h, down_h] =
-          RefitSides(variance_sample_.Values(), CappedChiSquareVariance(o.cap), o.k_up(),
-                     o.k_down(), o.up_h, o.down_h, side_arl0, kRefitCeiling);
-      variance_.SetDecisionIntervals(up_h, down_h);
+      const VarianceCusumOptions& now = variance_.options();
+      const auto h = StagedRefit(variance_sample_,
+                                 {CappedChiSquareVariance(o.cap),
+                                  std::erfc(std::sqrt(o.cap) / std::numbers::sqrt2),
+                                  o.cap, o.k_up(), o.k_down(), o.up_h, o.down_h},
+                                 now.up_h, now.down_h, side_arl0);
+      if (h) variance_.SetDecisionIntervals(h->first, h->second);
+    }
+    if (variance_sample_.size() >= RefitSampleSize()) {
       variance_refitted_ = true;
       variance_sample_.Release();
     }
   }
   if (!arrival_refitted_ && std::isfinite(arrival_score)) {
     arrival_sample_.Add(arrival_score);
-    if (arrival_sample_.size() >= RefitSampleSize()) {
+    if (RefitDue(arrival_sample_.size())) {
       const ArrivalModelOptions& o = design_->arrival;
-      const auto [slower_h, faster_h] = RefitSides(
-          arrival_sample_.Values(), CappedExponentialVariance(o.gap_cap),
-          ArrivalModelOptions::kSlowerReference, ArrivalModelOptions::kFasterReference,
-          o.slower_h, o.faster_h, side_arl0, kRefitCeiling);
-      arrival_.SetDecisionIntervals(slower_h, faster_h);
+      const ArrivalModelOptions& now = arrival_.options();
+      const auto h =
+          StagedRefit(arrival_sample_,
+                      {CappedExponentialVariance(o.gap_cap), std::exp(-o.gap_cap),
+                       o.gap_cap, ArrivalModelOptions::kSlowerReference,
+                       ArrivalModelOptions::kFasterReference, o.slower_h, o.faster_h},
+                      now.slower_h, now.faster_h, side_arl0);
+      if (h) arrival_.SetDecisionIntervals(h->first, h->second);
+    }
+    if (arrival_sample_.size() >= RefitSampleSize()) {
       arrival_refitted_ = true;
       arrival_sample_.Release();
     }
   }
+}
+
+std::optional<std::pair<double, double>> SeriesMonitor::StagedRefit(
+    const QuantisedSample& sample, const PairModel& model, double upper_h, double lower_h,
+    double side_arl0) const {
+  const bool full = sample.size() >= RefitSampleSize();
+  const std::vector<double> values = sample.Values();
+  if (!full && !ReachesCapTooOften(values, model.cap, model.tail_probability)) {
+    return std::nullopt;
+  }
+  auto h = RefitSides(values, model.variance, model.k_upper, model.k_lower, model.upper_h,
+                      model.lower_h, side_arl0, kRefitCeiling);
+  if (!full) h = {std::max(h.first, upper_h), std::max(h.second, lower_h)};
+  return h;
 }
 
 void SeriesMonitor::ChooseCountChart() {
