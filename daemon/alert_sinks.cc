@@ -1,5 +1,9 @@
 #include "daemon/alert_sinks.h"
 
+// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
+#include <utility>
+// clang-format on
+
 #include <algorithm>
 #include <boost/asio/connect.hpp>
 #include <boost/asio/io_context.hpp>
@@ -7,7 +11,6 @@
 #include <boost/beast/core.hpp>
 #include <boost/beast/http.hpp>
 #include <cstdio>
-#include <utility>  // before any Asio header (Boost 1.74 under C++20)
 
 #include "daemon/log.h"
 #include "daemon/terminal.h"

@@ -1,6 +1,8 @@
 #include "daemon/http_server.h"
 
-#include <utility>  // before any Asio header (Boost 1.74 under C++20)
+// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
+#include <utility>
+// clang-format on
 
 #include <boost/asio/bind_executor.hpp>
 #include <boost/asio/post.hpp>

@@ -30,7 +30,9 @@
 // ServiceMetrics it was given.
 #pragma once
 
-#include <utility>  // before any Asio header (Boost 1.74 under C++20)
+// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
+#include <utility>
+// clang-format on
 
 #include <boost/asio/io_context.hpp>
 #include <boost/asio/ip/tcp.hpp>

@@ -26,6 +26,10 @@
 // are called by one controlling thread.
 #pragma once
 
+// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
+#include <utility>
+// clang-format on
+
 #include <atomic>
 #include <boost/asio/executor_work_guard.hpp>
 #include <boost/asio/io_context.hpp>
@@ -37,7 +41,6 @@
 #include <optional>
 #include <string>
 #include <thread>
-#include <utility>  // before any Asio header (Boost 1.74 under C++20)
 #include <vector>
 
 #include "config/config.h"

@@ -28,6 +28,10 @@
 // Start, Stop, local_endpoint and the counters may be called from any thread.
 #pragma once
 
+// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
+#include <utility>
+// clang-format on
+
 #include <atomic>
 #include <boost/asio/io_context.hpp>
 #include <boost/asio/ip/tcp.hpp>
@@ -36,7 +40,6 @@
 #include <cstdint>
 #include <memory>
 #include <string>
-#include <utility>  // before any Asio header (Boost 1.74 under C++20)
 
 #include "config/service_options.h"
 #include "daemon/pipeline_observer.h"

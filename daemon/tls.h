@@ -4,10 +4,13 @@
 // is read-only once made; Asio streams may use it from any thread.
 #pragma once
 
+// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
+#include <utility>
+// clang-format on
+
 #include <boost/asio/ssl/context.hpp>
 #include <memory>
 #include <string_view>
-#include <utility>  // before any Asio header (Boost 1.74 under C++20)
 
 #include "config/service_options.h"
 #include "detectors/status.h"

@@ -8,6 +8,10 @@
 #include <gtest/gtest.h>
 #include <unistd.h>
 
+// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
+#include <utility>
+// clang-format on
+
 #include <atomic>
 #include <boost/asio/io_context.hpp>
 #include <boost/asio/ip/tcp.hpp>
@@ -22,7 +26,6 @@
 #include <set>
 #include <string>
 #include <thread>
-#include <utility>  // before any Asio header (Boost 1.74 under C++20)
 #include <vector>
 
 #include "tests/support/interposed_file_system.h"

@@ -7,10 +7,12 @@
 // (JSON is a subset of YAML 1.2 flow style).
 #include "daemon/http_server.h"
 
-#include <utility>  // before any Asio header (Boost 1.74 under C++20)
-
 #include <gtest/gtest.h>
 #include <yaml-cpp/yaml.h>
+
+// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
+#include <utility>
+// clang-format on
 
 #include <atomic>
 #include <boost/asio/connect.hpp>

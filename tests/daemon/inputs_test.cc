@@ -8,6 +8,10 @@
 #include <gtest/gtest.h>
 #include <unistd.h>
 
+// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
+#include <utility>
+// clang-format on
+
 #include <atomic>
 #include <boost/asio/connect.hpp>
 #include <boost/asio/io_context.hpp>
@@ -25,7 +29,6 @@
 #include <mutex>
 #include <string>
 #include <thread>
-#include <utility>  // before any Asio header (Boost 1.74 under C++20)
 #include <vector>
 
 #include "config/config.h"
