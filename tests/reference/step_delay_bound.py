@@ -25,6 +25,16 @@ each level detector at arl0 = 5000). Delays: Monte Carlo, zero start at tau,
 200,000 seeded trials. Asymptotic bound (Lorden 1971; Lai 1998; MEM): delay
 ~ ln(ARL0) / I, I = Kullback-Leibler information per reading = delta^2 / 2.
 
+The plain CUSUM weighs every innovation alike. The likelihood-ratio CUSUM for
+this change weighs the first innovation after the change by its own, larger
+shift: over all change times tau <= t, the largest sum of log-likelihood ratios
+l1(y_tau) + l2(y_tau+1) + ... + l2(y_t), with li(y) = di y - di^2 / 2 and
+d1 = 2.31, d2 = 1.15 (in sd_e units), recursively A_t = max(A_{t-1} + l2(y_t),
+l1(y_t)), alarm at A_t >= h. It is the CUSUM of Lai (1998) for a change whose
+post-change law is known but not independent. Its in-control run length comes
+from a Markov chain on A (floored at -12, started there, 600 states), its
+delays as above; its design shifts are scaled together to find the best delay.
+
 Run: tests/reference/step_delay_bound.py   (numpy and scipy from Debian)
 """
 
@@ -92,12 +102,64 @@ def best(drifts, label, rng):
     return d
 
 
+def arl_signature(a1, a2, h, floor=12.0, states=600):
+    """Markov chain ARL of A = max(A + a2 y - a2^2/2, a1 y - a1^2/2), y ~ N(0, 1),
+    alarm at A >= h, from A = -infinity (the floor)."""
+    edges = np.linspace(-floor, h, states + 1)
+    centres = 0.5 * (edges[:-1] + edges[1:])
+    centres[0] = -floor
+    upper = edges[1:]
+    r = np.empty((states, states))
+    for i, a in enumerate(centres):
+        # next <= x  iff  y <= (x - a + a2^2/2) / a2  and  y <= (x + a1^2/2) / a1
+        cdf = norm.cdf(np.minimum((upper - a + a2 * a2 / 2) / a2, (upper + a1 * a1 / 2) / a1))
+        r[i, 0] = cdf[0]
+        r[i, 1:] = np.diff(cdf)
+    return np.linalg.solve(np.eye(states) - r, np.ones(states))[0]
+
+
+def signature_delay(d1, d2, rng):
+    results = []
+    for scale in (0.6, 0.8, 1.0, 1.2):
+        a1, a2 = d1 * scale, d2 * scale
+        lo, hi = 0.1, 30.0
+        for _ in range(50):
+            mid = 0.5 * (lo + hi)
+            if arl_signature(a1, a2, mid) < ARL0:
+                lo = mid
+            else:
+                hi = mid
+        h = hi
+        a = np.full(TRIALS, -np.inf)
+        delay = np.zeros(TRIALS, dtype=int)
+        alive = np.ones(TRIALS, dtype=bool)
+        draws = np.random.default_rng(rng)
+        for t in range(1, 400):
+            y = draws.standard_normal(TRIALS) + (d1 if t == 1 else d2)
+            a = np.maximum(a + a2 * y - a2 * a2 / 2, a1 * y - a1 * a1 / 2)
+            fired = alive & (a >= h)
+            delay[fired] = t
+            alive &= ~fired
+            if not alive.any():
+                break
+        results.append((float(np.median(delay[~alive])), scale, h))
+    d, scale, h = min(results)
+    print("%-34s scale %.1f  h = %.2f  median delay %.1f readings"
+          % ("AR(1) phi 0.5, likelihood ratio:", scale, h, d))
+    return d
+
+
 def main():
     sd_e = np.sqrt(1.0 - PHI**2)
     independent = best([STEP], "independent N(0,1), 2-sd step:", 1)
     ar = best([STEP / sd_e, STEP * (1.0 - PHI) / sd_e],
               "AR(1) phi 0.5, oracle innovations:", 1)
     print("oracle ratio AR(1) / independent: %.2f (issue 10's target: 1.5)" % (ar / independent))
+    # With equal shifts the chain is Brook and Evans' for k = a / 2, h / a.
+    check = arl_signature(1.2, 1.2, 1.2 * 7.4) / arl_zero_start(0.6, 7.4)
+    assert abs(check - 1.0) < 1e-3, check
+    lr = signature_delay(STEP / sd_e, STEP * (1.0 - PHI) / sd_e, 1)
+    print("likelihood-ratio ratio AR(1) / independent: %.2f" % (lr / independent))
     for label, delta in (("independent", STEP), ("AR(1)", STEP * (1.0 - PHI) / sd_e)):
         print("asymptotic ln(ARL0) / (delta^2 / 2), %-11s: %.1f readings"
               % (label, np.log(ARL0) / (delta**2 / 2.0)))
