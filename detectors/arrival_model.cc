@@ -80,8 +80,8 @@ ArrivalShape::ArrivalShape(EventTime period, int bins, EventTime memory, int fol
       memory_(static_cast<double>(memory > 0 ? memory : 4 * period)),
       fold_bins_(fold_bins > 0 && fold_bins < bins && bins % fold_bins == 0 ? fold_bins
                                                                             : 0),
-      events_(static_cast<size_t>(bins), 0.0),
-      exposure_(static_cast<size_t>(bins), 0.0),
+      events_(static_cast<size_t>(bins), 0.0f),
+      exposure_(static_cast<size_t>(bins), 0.0f),
       p_(static_cast<size_t>(bins), 1.0) {}
 
 int ArrivalShape::Bin(EventTime t) const {
@@ -110,14 +110,16 @@ void ArrivalShape::AddExposure(EventTime from, EventTime to, double weight) {
   // Whole seasons add to every bin alike.
   const EventTime whole = std::min<EventTime>(length / period_, kMaxPeriods);
   if (whole > 0) {
-    for (double& x : exposure_) x += weight * static_cast<double>(whole * width_);
+    const double add = weight * static_cast<double>(whole * width_);
+    for (float& x : exposure_) x = static_cast<float>(x + add);
     from = to - (length % period_);
   }
   for (EventTime cursor = from; cursor < to;) {
     const int b = Bin(cursor);
     const EventTime bin_end = BinEnd(cursor, b);
     const EventTime end = std::min(to, bin_end);
-    exposure_[static_cast<size_t>(b)] += weight * static_cast<double>(end - cursor);
+    float& x = exposure_[static_cast<size_t>(b)];
+    x = static_cast<float>(x + weight * static_cast<double>(end - cursor));
     cursor = end;
   }
 }
@@ -131,15 +133,15 @@ void ArrivalShape::Record(EventTime from, EventTime to) {
   // Forgetting by growing weights: a contribution at t weighs exp((t - anchor)/memory);
   // only ratios are used, so the common factor never needs applying.
   double weight = std::exp(static_cast<double>(to - anchor_) / memory_);
-  if (weight > 1e100) {
-    for (double& e : events_) e /= weight;
-    for (double& x : exposure_) x /= weight;
+  if (weight > kMaxWeight) {
+    Rescale(weight);
     anchor_ = to;
     weight = 1.0;
   }
   weight_ = weight;
   AddExposure(from, to, weight);
-  events_[static_cast<size_t>(Bin(to))] += weight;
+  float& events = events_[static_cast<size_t>(Bin(to))];
+  events = static_cast<float>(events + weight);
   exposure_total_ += static_cast<double>(to - from);
   // The shape moves slowly (it forgets over several seasons), so it is
   // re-derived every kRefreshEvery arrivals rather than at each one: the
@@ -151,6 +153,11 @@ void ArrivalShape::Record(EventTime from, EventTime to) {
     records_since_refresh_ = 0;
     refreshed_once_ = true;
   }
+}
+
+void ArrivalShape::Rescale(double factor) {
+  for (float& e : events_) e = static_cast<float>(e / factor);
+  for (float& x : exposure_) x = static_cast<float>(x / factor);
 }
 
 void ArrivalShape::Refresh() {
@@ -318,8 +325,8 @@ void ArrivalModel::Rebaseline() {
 
 void ArrivalShape::Save(SnapshotWriter& w) const {
   w.Tag("SHAP");
-  w.DoubleVector(events_);
-  w.DoubleVector(exposure_);
+  w.DoubleVector(std::vector<double>(events_.begin(), events_.end()));
+  w.DoubleVector(std::vector<double>(exposure_.begin(), exposure_.end()));
   w.DoubleVector(std::vector<double>(p_.begin(), p_.end()));
   w.F64(exposure_total_);
   w.I64(anchor_);
@@ -332,22 +339,39 @@ void ArrivalShape::Save(SnapshotWriter& w) const {
 Status ArrivalShape::Load(SnapshotReader& r) {
   r.Tag("SHAP");
   const std::size_t bins = p_.size();
-  events_ = r.DoubleVector();
-  exposure_ = r.DoubleVector();
-  // Relative intensities are single precision: finite, >= 0 and within it.
+  const std::vector<double> events = r.DoubleVector();
+  const std::vector<double> exposure = r.DoubleVector();
   const std::vector<double> p = r.DoubleVector();
-  for (double v : p) {
-    if (r.ok() && !(v >= 0 && v <= std::numeric_limits<float>::max())) {
-      return r.Fail("arrival shape intensity out of range");
-    }
-  }
-  p_.assign(p.begin(), p.end());
-  if (r.ok() && (events_.size() != bins || exposure_.size() != bins || p_.size() != bins)) {
+  if (r.ok() && (events.size() != bins || exposure.size() != bins || p.size() != bins)) {
     return r.Fail("arrival shape bins differ");
   }
   exposure_total_ = r.NonNegative("arrival exposure");
   anchor_ = r.Time("arrival anchor");
   weight_ = r.NonNegative("arrival weight");
+  if (!r.ok()) return r.status();
+  // Tables saved in double precision (before they were single) carry weights
+  // up to 1e100: rescaled as Record would, to the latest weight, and the anchor
+  // moved to where the weight is 1 again.
+  const double scale = weight_ > kMaxWeight ? weight_ : 1.0;
+  const auto single = [](const std::vector<double>& from, double scale,
+                         std::vector<float>* to) {
+    for (double v : from) {
+      if (!(v >= 0 && v / scale <= std::numeric_limits<float>::max())) return false;
+    }
+    to->resize(from.size());
+    for (std::size_t b = 0; b < from.size(); ++b)
+      (*to)[b] = static_cast<float>(from[b] / scale);
+    return true;
+  };
+  if (!single(events, scale, &events_) || !single(exposure, scale, &exposure_)) {
+    return r.Fail("arrival shape table out of range");
+  }
+  // Relative intensities are single precision: finite, >= 0 and within it.
+  if (!single(p, 1.0, &p_)) return r.Fail("arrival shape intensity out of range");
+  if (scale > 1.0) {
+    anchor_ += static_cast<EventTime>(std::llround(memory_ * std::log(scale)));
+    weight_ = 1.0;
+  }
   const std::int64_t records = r.Counter("arrival records since refresh");
   if (r.ok() && records > std::numeric_limits<int>::max()) {
     return r.Fail("arrival records since refresh too many");

@@ -149,12 +149,19 @@ class ArrivalShape {
   EventTime BinEnd(EventTime t, int bin) const;
   void AddExposure(EventTime from, EventTime to, double weight);
   void Refresh();
+  void Rescale(double factor);  // divides the tables by factor
 
   EventTime period_;
   EventTime width_;  // bin width
   double memory_;    // microseconds
   int fold_bins_;    // 0 = one-level pooling
-  std::vector<double> events_, exposure_;  // doubles: weights grow up to 1e100
+  // Forgetting-weighted event counts and exposures (microseconds) per bin, in
+  // single precision: weights are rescaled at kMaxWeight, so a bin's exposure
+  // stays below kMaxWeight times the memory, far inside a float's range, and
+  // only their ratios are used, which a float's 7 digits carry well past
+  // what a few events a bin can estimate.
+  static constexpr double kMaxWeight = 1e15;
+  std::vector<float> events_, exposure_;
   // Relative intensities, derived from the two above at each refresh; single
   // precision is ample for a ratio estimated from a few events a bin.
   std::vector<float> p_;

@@ -9,6 +9,7 @@
 #include <vector>
 
 #include "detectors/random.h"
+#include "detectors/snapshot.h"
 
 namespace plumbline {
 namespace {
@@ -303,6 +304,99 @@ TEST(ArrivalShapeTest, WeeklyBinsPooledByHourOfDayLearnQuietHoursFromEveryNight)
   // pseudo-events) still lifts the night a little after only eight nights.
   EXPECT_LT(error_pooled, 1.0);
   EXPECT_LT(error_pooled * 3, error_plain);
+}
+
+// The shape's tables are single precision, their weights rescaled before they
+// grow past 1e15. A checkpoint written when they were double precision holds
+// weights up to 1e100, out of a float's range: loading rescales them to the
+// latest weight and moves the anchor to match, so the loaded shape goes on as
+// one whose weights never grew (here the same shape, its tables and weight
+// multiplied by 1e60 and its anchor moved back 60 decades of forgetting).
+TEST(ArrivalShapeTest, TablesSavedWithWeightsPastAFloatLoadRescaled) {
+  const EventTime period = 7 * kMicrosPerDay;
+  const double memory = 4.0 * static_cast<double>(period);  // the default
+  ArrivalShape original(period, 168, 0, 24);
+  Random random(7);
+  EventTime t = 0, last = 0;
+  const auto next = [&] {
+    t += static_cast<EventTime>(random.Exponential(static_cast<double>(kMicrosPerHour)));
+  };
+  while (t < 8 * kMicrosPerDay) {
+    next();
+    original.Record(last, t);
+    last = t;
+  }
+  ASSERT_TRUE(original.learned());
+  SnapshotWriter saved;
+  original.Save(saved);
+  // The same state as a double-precision table with weights 1e60 times larger.
+  const double factor = 1e60;
+  SnapshotReader fields(saved.bytes());
+  ASSERT_TRUE(fields.Tag("SHAP"));
+  std::vector<double> events = fields.DoubleVector(), exposure = fields.DoubleVector();
+  const std::vector<double> p = fields.DoubleVector();
+  const double exposure_total = fields.F64();
+  const std::int64_t anchor = fields.I64();
+  const double weight = fields.F64();
+  const std::int64_t records = fields.I64();
+  const bool refreshed = fields.Bool(), anchored = fields.Bool();
+  ASSERT_TRUE(fields.ok());
+  for (double& e : events) e *= factor;
+  for (double& x : exposure) x *= factor;
+  SnapshotWriter legacy;
+  legacy.Tag("SHAP");
+  legacy.DoubleVector(events);
+  legacy.DoubleVector(exposure);
+  legacy.DoubleVector(p);
+  legacy.F64(exposure_total);
+  legacy.I64(anchor - std::llround(memory * std::log(factor)));
+  legacy.F64(weight * factor);
+  legacy.I64(records);
+  legacy.Bool(refreshed);
+  legacy.Bool(anchored);
+  ArrivalShape loaded(period, 168, 0, 24);
+  SnapshotReader reader(legacy.bytes());
+  ASSERT_TRUE(loaded.Load(reader).ok()) << reader.status().ToString();
+  // Both go on through a further week of arrivals and re-derive their shapes.
+  double worst = 0;
+  while (t < 15 * kMicrosPerDay) {
+    next();
+    original.Record(last, t);
+    loaded.Record(last, t);
+    last = t;
+  }
+  for (int b = 0; b < 168; ++b) {
+    worst = std::max(
+        worst,
+        std::abs(loaded.relative_intensity(b) / original.relative_intensity(b) - 1.0));
+  }
+  EXPECT_LT(worst, 1e-5);
+  EXPECT_NEAR(
+      loaded.Operational(t, t + period / 3) / original.Operational(t, t + period / 3),
+      1.0, 1e-6);
+}
+
+// Forgetting over many memories rescales the single-precision tables again
+// and again (every ln(1e15) = 34.5 memories); the shape stays finite and even
+// for arrivals at one steady rate.
+TEST(ArrivalShapeTest, ForgettingPastManyMemoriesKeepsTheShapeFinite) {
+  ArrivalShape shape(kMicrosPerDay, 24, kMicrosPerHour, 0);  // a memory of one hour
+  Random random(11);
+  EventTime t = 0, last = 0;
+  while (t < 20 * kMicrosPerDay) {  // 480 memories
+    t += static_cast<EventTime>(random.Exponential(60.0 * kMicrosPerSecond));
+    shape.Record(last, t);
+    last = t;
+  }
+  ASSERT_TRUE(shape.learned());
+  double sum = 0;
+  for (int b = 0; b < 24; ++b) {
+    ASSERT_TRUE(std::isfinite(shape.relative_intensity(b))) << b;
+    sum += shape.relative_intensity(b);
+  }
+  EXPECT_NEAR(sum / 24, 1.0, 1e-5);
+  const double hours = shape.Operational(t, t + kMicrosPerHour) / kMicrosPerHour;
+  EXPECT_TRUE(std::isfinite(hours) && hours > 0) << hours;
 }
 
 }  // namespace
