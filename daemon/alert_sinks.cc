@@ -1,9 +1,6 @@
 #include "daemon/alert_sinks.h"
 
-// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
 #include <utility>
-// clang-format on
-
 #include <algorithm>
 #include <boost/asio/connect.hpp>
 #include <boost/asio/io_context.hpp>

@@ -1,9 +1,8 @@
 #include "daemon/http_server.h"
 
-// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
 #include <utility>
-// clang-format on
-
+#include <array>
+#include <atomic>
 #include <boost/asio/bind_executor.hpp>
 #include <boost/asio/post.hpp>
 #include <boost/asio/steady_timer.hpp>
@@ -12,8 +11,6 @@
 #include <boost/beast/core.hpp>
 #include <boost/beast/http.hpp>
 #include <boost/beast/ssl.hpp>
-#include <array>
-#include <atomic>
 #include <condition_variable>
 #include <exception>
 #include <mutex>

@@ -30,10 +30,7 @@
 // ServiceMetrics it was given.
 #pragma once
 
-// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
 #include <utility>
-// clang-format on
-
 #include <boost/asio/io_context.hpp>
 #include <boost/asio/ip/tcp.hpp>
 #include <boost/asio/ssl/context.hpp>

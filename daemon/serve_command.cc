@@ -17,10 +17,7 @@
 #include <signal.h>
 #include <unistd.h>
 
-// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
 #include <utility>
-// clang-format on
-
 #include <atomic>
 #include <boost/asio/executor_work_guard.hpp>
 #include <boost/asio/io_context.hpp>

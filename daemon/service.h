@@ -26,10 +26,7 @@
 // are called by one controlling thread.
 #pragma once
 
-// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
 #include <utility>
-// clang-format on
-
 #include <atomic>
 #include <boost/asio/executor_work_guard.hpp>
 #include <boost/asio/io_context.hpp>

@@ -1,9 +1,6 @@
 #include "daemon/tcp_listener.h"
 
-// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
 #include <utility>
-// clang-format on
-
 #include <algorithm>
 #include <array>
 #include <boost/asio/post.hpp>

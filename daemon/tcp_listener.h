@@ -28,10 +28,7 @@
 // Start, Stop, local_endpoint and the counters may be called from any thread.
 #pragma once
 
-// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
 #include <utility>
-// clang-format on
-
 #include <atomic>
 #include <boost/asio/io_context.hpp>
 #include <boost/asio/ip/tcp.hpp>

@@ -4,10 +4,7 @@
 // is read-only once made; Asio streams may use it from any thread.
 #pragma once
 
-// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
 #include <utility>
-// clang-format on
-
 #include <boost/asio/ssl/context.hpp>
 #include <memory>
 #include <string_view>

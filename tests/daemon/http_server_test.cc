@@ -10,10 +10,7 @@
 #include <gtest/gtest.h>
 #include <yaml-cpp/yaml.h>
 
-// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
 #include <utility>
-// clang-format on
-
 #include <atomic>
 #include <boost/asio/connect.hpp>
 #include <boost/asio/io_context.hpp>

@@ -10,11 +10,7 @@
 //   --io-threads N    threads running the io_context (default 1)
 // Prints "listening 127.0.0.1:PORT" on stdout once it accepts; stops (staged)
 // on SIGINT or SIGTERM and exits 0.
-
-// clang-format off: Boost 1.74's Asio under C++20 needs <utility> before it
 #include <utility>
-// clang-format on
-
 #include <boost/asio/io_context.hpp>
 #include <boost/asio/ip/tcp.hpp>
 #include <boost/asio/signal_set.hpp>
