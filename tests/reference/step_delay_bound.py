@@ -64,26 +64,28 @@ def arl_zero_start(k, h, mean=0.0, states=300):
     return lengths[0]
 
 
-def h_for(k):
+def threshold_for(arl_of_h):
+    """The decision interval whose in-control ARL is ARL0, by bisection."""
     lo, hi = 0.1, 40.0
     for _ in range(60):
         mid = 0.5 * (lo + hi)
-        if arl_zero_start(k, mid) < ARL0:
+        if arl_of_h(mid) < ARL0:
             lo = mid
         else:
             hi = mid
     return hi
 
 
-def median_delay(k, h, drifts, rng):
-    """Median readings (inclusive) to S > h when the t-th reading after the
-    step has mean drifts[min(t, len-1)]."""
-    s = np.zeros(TRIALS)
+def median_delay(step, start, h, drifts, rng):
+    """Median readings (inclusive) to a statistic > h, the statistic moved by
+    step(statistic, z, mean) from `start`, when the t-th reading after the
+    change has mean drifts[min(t, len-1)] and z ~ N(0, 1)."""
+    s = np.full(TRIALS, start)
     delay = np.zeros(TRIALS, dtype=int)
     alive = np.ones(TRIALS, dtype=bool)
     for t in range(1, 400):
         mean = drifts[min(t - 1, len(drifts) - 1)]
-        s = np.maximum(0.0, s + rng.standard_normal(TRIALS) + mean - k)
+        s = step(s, rng.standard_normal(TRIALS), mean)
         fired = alive & (s > h)
         delay[fired] = t
         alive &= ~fired
@@ -95,8 +97,10 @@ def median_delay(k, h, drifts, rng):
 def best(drifts, label, rng):
     results = []
     for k in np.arange(0.3, 1.31, 0.1):
-        h = h_for(k)
-        results.append((median_delay(k, h, drifts, np.random.default_rng(rng)), k, h))
+        h = threshold_for(lambda h: arl_zero_start(k, h))
+        def step(s, z, mean):
+            return np.maximum(0.0, s + z + mean - k)
+        results.append((median_delay(step, 0.0, h, drifts, np.random.default_rng(rng)), k, h))
     d, k, h = min(results)
     print("%-34s k = %.1f  h = %.2f  median delay %.1f readings" % (label, k, h, d))
     return d
@@ -122,27 +126,12 @@ def signature_delay(d1, d2, rng):
     results = []
     for scale in (0.6, 0.8, 1.0, 1.2):
         a1, a2 = d1 * scale, d2 * scale
-        lo, hi = 0.1, 30.0
-        for _ in range(50):
-            mid = 0.5 * (lo + hi)
-            if arl_signature(a1, a2, mid) < ARL0:
-                lo = mid
-            else:
-                hi = mid
-        h = hi
-        a = np.full(TRIALS, -np.inf)
-        delay = np.zeros(TRIALS, dtype=int)
-        alive = np.ones(TRIALS, dtype=bool)
-        draws = np.random.default_rng(rng)
-        for t in range(1, 400):
-            y = draws.standard_normal(TRIALS) + (d1 if t == 1 else d2)
-            a = np.maximum(a + a2 * y - a2 * a2 / 2, a1 * y - a1 * a1 / 2)
-            fired = alive & (a >= h)
-            delay[fired] = t
-            alive &= ~fired
-            if not alive.any():
-                break
-        results.append((float(np.median(delay[~alive])), scale, h))
+        h = threshold_for(lambda h: arl_signature(a1, a2, h))
+        def step(a, z, mean):
+            y = z + mean
+            return np.maximum(a + a2 * y - a2 * a2 / 2, a1 * y - a1 * a1 / 2)
+        delay = median_delay(step, -np.inf, h, [d1, d2], np.random.default_rng(rng))
+        results.append((delay, scale, h))
     d, scale, h = min(results)
     print("%-34s scale %.1f  h = %.2f  median delay %.1f readings"
           % ("AR(1) phi 0.5, likelihood ratio:", scale, h, d))
