@@ -325,9 +325,9 @@ void ArrivalModel::Rebaseline() {
 
 void ArrivalShape::Save(SnapshotWriter& w) const {
   w.Tag("SHAP");
-  w.DoubleVector(std::vector<double>(events_.begin(), events_.end()));
-  w.DoubleVector(std::vector<double>(exposure_.begin(), exposure_.end()));
-  w.DoubleVector(std::vector<double>(p_.begin(), p_.end()));
+  w.FloatVector(events_);
+  w.FloatVector(exposure_);
+  w.FloatVector(p_);
   w.F64(exposure_total_);
   w.I64(anchor_);
   w.F64(weight_);

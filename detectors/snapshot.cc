@@ -98,6 +98,11 @@ void SnapshotWriter::DoubleVector(const std::vector<double>& v) {
   Doubles(v.data(), v.size());
 }
 
+void SnapshotWriter::FloatVector(const std::vector<float>& v) {
+  U64(v.size());
+  for (float x : v) F64(x);
+}
+
 void SnapshotWriter::I64Vector(const std::vector<std::int64_t>& v) {
   U64(v.size());
   for (std::int64_t x : v) I64(x);

@@ -52,6 +52,8 @@ class SnapshotWriter {
   void String(std::string_view v);
   void Doubles(const double* values, std::size_t count);  // count itself not written
   void DoubleVector(const std::vector<double>& v);
+  // Written as DoubleVector writes the same values widened (read back with it).
+  void FloatVector(const std::vector<float>& v);
   void I64Vector(const std::vector<std::int64_t>& v);
   void OptionalI64(const std::optional<std::int64_t>& v);
 
