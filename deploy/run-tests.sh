@@ -8,9 +8,9 @@
 # are left out; `ctest --test-dir build -L pending` runs them.
 set -euo pipefail
 cd "$(dirname "$0")/.."
-# Free disk where the build folders go, before and after the plain build: a CI
-# run once failed linking the ASan build for want of space ("No space left on
-# device"), and this makes such a failure plain from the log.
+# Free disk where the build folders go, at the start and before the sanitizer
+# builds: a CI run once failed linking the ASan build for want of space ("No
+# space left on device"), and this makes such a failure plain from the log.
 disk_free() { echo "run-tests: $(df -h --output=avail . | tail -1 | tr -d ' ') free on the build disk ($1)"; }
 disk_free "start"
 deploy/install-deps.sh
