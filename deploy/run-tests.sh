@@ -8,11 +8,14 @@
 # are left out; `ctest --test-dir build -L pending` runs them.
 set -euo pipefail
 cd "$(dirname "$0")/.."
-# Free disk where the build folders go, at the start and before the sanitizer
-# builds: a CI run once failed linking the ASan build for want of space ("No
-# space left on device"), and this makes such a failure plain from the log.
-disk_free() { echo "run-tests: $(df -h --output=avail . | tail -1 | tr -d ' ') free on the build disk ($1)"; }
-disk_free "start"
+# Free disk where the builds go, at the start and before the sanitizer builds
+# (PLUMBLINE_SANITIZER_DIR may put those elsewhere): a CI run once failed
+# linking the ASan build for want of space ("No space left on device"), and
+# this makes such a failure plain from the log.
+disk_free() {  # FOLDER WHEN
+  echo "run-tests: $(df -h --output=avail "$1" | tail -1 | tr -d ' ') free in $1 ($2)"
+}
+disk_free . "start"
 deploy/install-deps.sh
 deploy/build.sh
 build_dir=${PLUMBLINE_BUILD_DIR:-build}
@@ -26,6 +29,6 @@ ctest --test-dir "$build_dir" --output-on-failure -j "$(nproc)" -LE pending
 if [[ "${PLUMBLINE_SANITIZERS:-1}" == 0 ]]; then
   echo "run-tests: PLUMBLINE_SANITIZERS=0: no sanitizer runs (CI runs them)"
 else
-  disk_free "before the sanitizer builds"
+  disk_free "${PLUMBLINE_SANITIZER_DIR:-.}" "before the sanitizer builds"
   deploy/run-sanitizers.sh asan tsan
 fi
