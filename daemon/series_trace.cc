@@ -93,21 +93,21 @@ std::vector<TracePoint> Decimate(const std::vector<TracePoint>& points,
 ObservationTracer::ObservationTracer(std::string series, std::FILE* out)
     : series_(std::move(series)), out_(out) {}
 
-void ObservationTracer::Observed(const SeriesMonitor& monitor, EventTime time,
-                                 double value) {
+void ObservationTracer::Observed(const SeriesMonitor& monitor, EventTime from,
+                                 EventTime time, double value) {
   const std::vector<SeriesMonitor::DetectorSnapshot> detectors = monitor.DetectorSnapshots();
   if (!header_written_) {
     header_written_ = true;
-    std::fprintf(out_, "time,value,observation,armed,sigma,z");
+    std::fprintf(out_, "time,value,observation,armed,sigma,z,phase_sigma");
     for (const auto& d : detectors) {
       std::fprintf(out_, ",%.*s,%.*s_threshold", static_cast<int>(d.name.size()),
                    d.name.data(), static_cast<int>(d.name.size()), d.name.data());
     }
     std::fprintf(out_, "\n");
   }
-  std::fprintf(out_, "%s,%.10g,%lld,%d,%.6g,%.6g", FormatRfc3339(time).c_str(), value,
+  std::fprintf(out_, "%s,%.10g,%lld,%d,%.6g,%.6g,%.6g", FormatRfc3339(time).c_str(), value,
                monitor.observations(), monitor.armed() ? 1 : 0, monitor.scale().sigma(),
-               monitor.last_z());
+               monitor.last_z(), monitor.PhaseSigmaOver(from, time));
   for (const auto& d : detectors) std::fprintf(out_, ",%.6g,%.6g", d.statistic, d.threshold);
   std::fprintf(out_, "\n");
 }

@@ -88,13 +88,16 @@ std::vector<TracePoint> Decimate(const std::vector<TracePoint>& points,
 // each reading; for a bucketed series each bucket (its end time and its total
 // or mean, as the detectors saw it, so an alert's detected_at has its line);
 // for a meter each consumption rate. Before the model is armed, z is 0 and the
-// detectors are idle.
+// detectors are idle. phase_sigma is the residual spread the profile expects
+// at the observation's phase (z's divisor; the profile as it stands after the
+// observation, which moved it by at most one reading's share).
 class ObservationTracer : public ObservationListener {
  public:
   // Writes to `out` (not owned; the caller closes it).
   ObservationTracer(std::string series, std::FILE* out);
   const std::string& series() const { return series_; }
-  void Observed(const SeriesMonitor& monitor, EventTime time, double value) override;
+  void Observed(const SeriesMonitor& monitor, EventTime from, EventTime to,
+                double value) override;
 
  private:
   std::string series_;

@@ -355,7 +355,7 @@ void SeriesMonitor::Process(EventTime t, double value, std::vector<SeriesEvent>*
   for (const Observation& o : observations_scratch_) {
     const long long before = observations_;
     Model(o.from, o.to, o.value, events);
-    if (listener_ && observations_ != before) listener_->Observed(*this, o.to, o.value);
+    if (listener_ && observations_ != before) listener_->Observed(*this, o.from, o.to, o.value);
   }
 }
 
@@ -533,6 +533,11 @@ void SeriesMonitor::ScoreRivals(EventTime from, EventTime to, double y) {
 
 double SeriesMonitor::PhaseSigma(int bin) const {
   return Floored(profile_->Sigma(bin, scale_.sigma()));
+}
+
+double SeriesMonitor::PhaseSigmaOver(EventTime from, EventTime to) const {
+  if (!profile_) return 0.0;
+  return PhaseSigma(profile_->Bin(from + (to - from) / 2));
 }
 
 double SeriesMonitor::Floored(double phase_sigma) const {

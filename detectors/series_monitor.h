@@ -211,12 +211,14 @@ class SeriesMonitor;
 
 // Told of each observation a monitor has modelled, after the model, scale and
 // detectors took it (replay --trace). For a bucketed series an observation is
-// a bucket (time: its end; value: its total or mean); for a meter, the
-// consumption rate over an interval. Not owned by the monitor.
+// a bucket (from, to: its span; value: its total or mean); for a meter, the
+// consumption rate over an interval; for a plain reading, from == to. Not
+// owned by the monitor.
 class ObservationListener {
  public:
   virtual ~ObservationListener() = default;
-  virtual void Observed(const SeriesMonitor& monitor, EventTime time, double value) = 0;
+  virtual void Observed(const SeriesMonitor& monitor, EventTime from, EventTime to,
+                        double value) = 0;
 };
 
 class SeriesMonitor {
@@ -280,6 +282,9 @@ class SeriesMonitor {
   // The residual spread at a phase bin of the profile (which must exist): the
   // profile's, floored at the series' resolution.
   double PhaseSigma(int bin) const;
+  // The same for an observation over [from, to] (the bin of its midpoint, as
+  // the model takes it); 0 before the profile exists.
+  double PhaseSigmaOver(EventTime from, EventTime to) const;
   const ProfileOptions& profile() const { return design_->profile; }
   const ArrivalModel& arrivals() const { return arrival_; }
   const VarianceCusum& variance_chart() const { return variance_; }

@@ -358,11 +358,14 @@ TEST(EngineRoutingTest, SeriesGoesToTheFirstMatchingProfile) {
 
 // Records what a monitor tells its listener.
 struct RecordingListener : ObservationListener {
-  void Observed(const SeriesMonitor& monitor, EventTime time, double value) override {
-    seen.push_back({time, value});
+  void Observed(const SeriesMonitor& monitor, EventTime from, EventTime to,
+                double value) override {
+    seen.push_back({to, value});
+    spans.push_back(to - from);
     numbers.push_back(monitor.observations());
   }
   std::vector<std::pair<EventTime, double>> seen;
+  std::vector<EventTime> spans;
   std::vector<long long> numbers;
 };
 
@@ -389,6 +392,8 @@ TEST(EngineListenerTest, ABucketedSeriesIsHeardOncePerBucketAtItsEnd) {
       {kStart + 3 * kMicrosPerHour, 0.0},
       {kStart + 4 * kMicrosPerHour, 2.0}};
   EXPECT_EQ(listener.seen, expected);
+  // Each is told with the hour it spans.
+  EXPECT_EQ(listener.spans, std::vector<EventTime>(3, kMicrosPerHour));
   EXPECT_EQ(listener.numbers, (std::vector<long long>{1, 2, 3}));
   // Another series is not heard; nobody is heard once the listener is taken away.
   engine.SetObservationListener("dock/doors", nullptr);

@@ -116,7 +116,7 @@ TEST(CalibrationHealthTest, MonitorsReportWhitenedResidualsAsCloseToTheAssumptio
 TEST(CalibrationHealthTest, CountSeriesHealthIsOfTheQuantileResidualsTheDetectorsRead) {
   struct Recorder : ObservationListener {
     CalibrationHealth health;
-    void Observed(const SeriesMonitor& monitor, EventTime, double) override {
+    void Observed(const SeriesMonitor& monitor, EventTime, EventTime, double) override {
       if (monitor.armed()) health.Add(monitor.last_z());
     }
   } recorder;

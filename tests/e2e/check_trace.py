@@ -52,8 +52,8 @@ def main(argv):
             raised = [json.loads(line) for line in f if line.strip()]
 
     columns = list(rows[0].keys()) if rows else []
-    check(columns[:6] == ["time", "value", "observation", "armed", "sigma", "z"],
-          "columns %s" % columns)
+    check(columns[:7] == ["time", "value", "observation", "armed", "sigma", "z",
+                          "phase_sigma"], "columns %s" % columns)
     for name in ("cusum", "page-hinkley", "bocpd", "variance", "rate"):
         check(name in columns and name + "_threshold" in columns, "no column " + name)
     check(len(rows) == expected, "%d trace lines for %d readings" % (len(rows), expected))
@@ -63,6 +63,7 @@ def main(argv):
     check(armed and all(float(r["cusum_threshold"]) > 0 for r in armed), "no armed rows")
     check(any(float(r["z"]) != 0 for r in armed), "z is 0 at every armed observation")
     check(all(float(r["z"]) == 0 for r in rows if r["armed"] == "0"), "z before arming")
+    check(all(float(r["phase_sigma"]) > 0 for r in armed), "phase_sigma 0 while armed")
     levels = [a for a in raised if a["kind"] == "level"]
     check(len(levels) >= 1, "no level alert on the Nile")
     by_time = {r["time"]: r for r in rows}
