@@ -787,6 +787,9 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
   const ProfileOptions& profile = design_->profile;
   const double clipped_z = std::clamp(last_z_, -kLevelClip, kLevelClip);
   if (profile.adapt_thresholds) CollectLevelSample(clipped_z);
+  recent_z_[recent_count_ % kChangeWindow] = clipped_z;
+  recent_times_[recent_count_ % kChangeWindow] = t;
+  ++recent_count_;
   for (size_t i = 0; i < level_.size(); ++i) {
     // BOCPD models the spread as well as the mean, so residuals pinned at the
     // resolution floor (all zero), or too discrete to be near Gaussian (low
@@ -820,7 +823,12 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
       if (std::holds_alternative<PoissonCusum>(level_[i]) && sigma > 0) {
         result->shift /= sigma;
       }
-      firings_[i] = {observations_, *result};
+      const bool on_z = level_kinds_[i] == DetectorKind::kCusum ||
+                        level_kinds_[i] == DetectorKind::kPageHinkley;
+      firings_[i] = {observations_,
+                     on_z && !std::holds_alternative<PoissonCusum>(level_[i])
+                         ? ReestimateChange(*result)
+                         : *result};
     }
     threshold_fraction_[i] =
         result->fired
@@ -1219,6 +1227,47 @@ long long SeriesMonitor::ReadingsSince(const Alarm& alarm, long long fired_at) c
   return std::max<long long>(alarm.length, 1) + std::max(observations_ - fired_at, 0LL);
 }
 
+// A CUSUM's excursion starts at the maximum-likelihood change point for a step
+// of the designed size 2k, and its mean over the excursion is the step's
+// estimate (Page 1954; Hinkley 1971, Biometrika 58:509-523). A step much
+// larger than designed is found within a few readings, but the excursion may
+// have begun days earlier on a run of small positive z, so the change point
+// comes out early and the step diluted: on the demo's hand-read meter, the
+// door seal's step of about 9 sd was dated one to two days (three to six
+// readings) before it, at 1.8 sd. With the step's size unknown too, the
+// maximum-likelihood change point for a shift in the mean of unit-variance
+// readings with known mean 0 is the tau maximising S_tau^2 / n_tau, S_tau the
+// sum of the n_tau readings from tau on (Hinkley 1970, Biometrika 57:1-17;
+// from memory), taken over the excursion's start and each of its last
+// kChangeWindow readings, with the sign of the firing; the step is then
+// S_tau / n_tau. Page-Hinkley's excursion is estimated the same way. The
+// readings are the winsorised z the detectors read, so one outlier weighs at
+// most kLevelClip.
+Alarm SeriesMonitor::ReestimateChange(const Alarm& alarm) const {
+  if (alarm.length <= 0) return alarm;
+  const double sign = alarm.direction == Direction::kDown ? -1.0 : 1.0;
+  // The whole excursion, from the detector's own sum.
+  double best = alarm.shift * alarm.shift * static_cast<double>(alarm.length);
+  Alarm out = alarm;
+  const long long stored = static_cast<long long>(
+      std::min<std::uint64_t>(recent_count_, kChangeWindow));
+  const long long reach = std::min<long long>(alarm.length, stored);
+  double sum = 0.0;
+  for (long long n = 1; n <= reach; ++n) {
+    const std::size_t slot =
+        static_cast<std::size_t>((recent_count_ - static_cast<std::uint64_t>(n)) % kChangeWindow);
+    sum += recent_z_[slot];
+    const double score = sign * sum > 0.0 ? sum * sum / static_cast<double>(n) : 0.0;
+    if (score > best) {
+      best = score;
+      out.change_at = recent_times_[slot];
+      out.length = n;
+      out.shift = sum / static_cast<double>(n);
+    }
+  }
+  return out;
+}
+
 void SeriesMonitor::StartRegime(EventTime change_at, long long readings) {
   regime_start_ = change_at;
   regime_observations_ = readings;  // already in the new regime
@@ -1327,7 +1376,8 @@ EventTime ReorderTime(SnapshotReader& r, std::string_view what) {
 }  // namespace
 
 void SeriesMonitor::Save(SnapshotWriter& w) const {
-  w.Tag("SMN3");  // "SMN2" kept a ring of recent observation times; "SMON" no settled_
+  w.Tag("SMN4");  // "SMN3" had no recent z; "SMN2" kept a ring of recent
+                  // observation times; "SMON" no settled_
   w.Bool(forecaster_.has_value());
   if (forecaster_) {
     forecaster_->Save(w);
@@ -1398,6 +1448,9 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
   w.DoubleVector(level_sample_.Values());
   w.F64(adapted_h_);
   w.Bool(settled_);  // since "SMN2"
+  w.U64(recent_count_);  // since "SMN4"
+  w.Doubles(recent_z_.data(), recent_z_.size());
+  for (EventTime t : recent_times_) w.I64(t);
 }
 
 namespace {
@@ -1416,13 +1469,16 @@ void LoadSample(SnapshotReader& r, std::size_t max, const char* what,
 }  // namespace
 
 Status SeriesMonitor::Load(SnapshotReader& r) {
-  // "SMN3" keeps each pending level firing's length instead of a ring of the
-  // last 256 observation times (from which an older state's lengths are
-  // worked out below); "SMN2" added settled_ at the end, and a "SMON" state
-  // counts as settled, as its series armed on warmup alone.
-  const bool with_lengths = r.NextTagIs("SMN3");
+  // "SMN4" adds the level detectors' recent inputs at the end (an older
+  // state starts without them); "SMN3" keeps each pending level firing's
+  // length instead of a ring of the last 256 observation times (from which an
+  // older state's lengths are worked out below); "SMN2" added settled_ at the
+  // end, and a "SMON" state counts as settled, as its series armed on warmup
+  // alone.
+  const bool with_recent = r.NextTagIs("SMN4");
+  const bool with_lengths = with_recent || r.NextTagIs("SMN3");
   const bool with_settled = with_lengths || r.NextTagIs("SMN2");
-  r.Tag(with_lengths ? "SMN3" : with_settled ? "SMN2" : "SMON");
+  r.Tag(with_recent ? "SMN4" : with_lengths ? "SMN3" : with_settled ? "SMN2" : "SMON");
   forecaster_.reset();
   rivals_.clear();
   if (r.Bool()) {
@@ -1570,6 +1626,16 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
   LoadSample(r, kMaxRefitSample - 1, "adapt_thresholds sample", &level_sample_);
   adapted_h_ = r.Finite("adapted threshold");
   settled_ = with_settled ? r.Bool() : true;
+  // An older state has no recent z: the next firings keep their detector's
+  // estimate until kChangeWindow readings are in.
+  recent_count_ = 0;
+  recent_z_.fill(0.0);
+  recent_times_.fill(0);
+  if (with_recent) {
+    recent_count_ = r.U64();
+    r.FiniteDoubles(recent_z_.data(), recent_z_.size(), "recent z");
+    for (EventTime& t : recent_times_) t = r.Time("recent z time");
+  }
   if (!r.ok()) return r.status();
   if (adapted_h_ > 0) {
     for (LevelDetector& d : level_) {

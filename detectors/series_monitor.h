@@ -390,6 +390,15 @@ class SeriesMonitor {
   // detector's count (Alarm::length) plus those since it fired, at
   // observation fired_at.
   long long ReadingsSince(const Alarm& alarm, long long fired_at) const;
+  // The change point and step of a CUSUM's or Page-Hinkley's firing, estimated
+  // again with the step's size unknown (series_monitor.cc).
+  Alarm ReestimateChange(const Alarm& alarm) const;
+  // The level detectors' last kChangeWindow inputs (winsorised z) and their
+  // times, oldest first from recent_count_ % kChangeWindow.
+  static constexpr int kChangeWindow = 16;
+  std::array<double, kChangeWindow> recent_z_{};
+  std::array<EventTime, kChangeWindow> recent_times_{};
+  std::uint64_t recent_count_ = 0;  // inputs since the series started
   void StartRegime(EventTime change_at, long long readings);
   // Annotations.
   void ApplyPlannedChange(const Annotation& change);

@@ -523,6 +523,30 @@ struct AgreeOutcome {
   long long first_cusum = -1, first_page_hinkley = -1;
 };
 
+// A CUSUM firing's change point and step re-estimated with the step's size
+// unknown, as SeriesMonitor does (series_monitor.cc, ReestimateChange; Hinkley
+// 1970), written out again here from the rule: of the excursion's start and
+// each of its last 16 readings, the start tau maximising S_tau^2 / n_tau with
+// the firing's sign, the excursion's start on a tie.
+Alarm Reestimated(const Alarm& alarm, const std::vector<std::pair<EventTime, double>>& fed) {
+  Alarm out = alarm;
+  double best = alarm.shift * alarm.shift * static_cast<double>(alarm.length);
+  const double sign = alarm.direction == Direction::kDown ? -1.0 : 1.0;
+  const long long last = std::min<long long>({alarm.length, 16, static_cast<long long>(fed.size())});
+  double sum = 0.0;
+  for (long long n = 1; n <= last; ++n) {
+    const auto& [time, z] = fed[fed.size() - static_cast<size_t>(n)];
+    sum += z;
+    if (sign * sum > 0.0 && sum * sum / static_cast<double>(n) > best) {
+      best = sum * sum / static_cast<double>(n);
+      out.change_at = time;
+      out.length = n;
+      out.shift = sum / static_cast<double>(n);
+    }
+  }
+  return out;
+}
+
 AgreeOutcome RunAgreement(const ProfileDesign& design,
                           const std::vector<SyntheticReading>& readings, bool* mask_ok,
                           bool* change_ok) {
@@ -531,6 +555,7 @@ AgreeOutcome RunAgreement(const ProfileDesign& design,
   PageHinkley page_hinkley(design.level.page_hinkley);
   long long cusum_at = -1, page_hinkley_at = -1;
   Alarm cusum_alarm;
+  std::vector<std::pair<EventTime, double>> fed;  // the shadow detectors' inputs
   AgreeOutcome out;
   const int within = design.profile.agree_within;
   std::vector<SeriesEvent> events;
@@ -541,9 +566,10 @@ AgreeOutcome RunAgreement(const ProfileDesign& design,
       const double z = std::clamp(monitor.last_z(), -4.0, 4.0);  // kLevelClip
       const auto c = cusum.Update(z, readings[i].time);
       const auto p = page_hinkley.Update(z, readings[i].time);
+      fed.emplace_back(readings[i].time, z);
       if (c.ok() && c->fired) {
         cusum_at = static_cast<long long>(i);
-        cusum_alarm = *c;
+        cusum_alarm = Reestimated(*c, fed);
         if (out.first_cusum < 0) out.first_cusum = cusum_at;
       }
       if (p.ok() && p->fired) {
@@ -618,6 +644,62 @@ TEST(SeriesMonitorAgreeTest,
   EXPECT_GE(alerted, 45);  // most: agreement within 1 reading is a strict rule
   EXPECT_GE(apart, 3);
   EXPECT_GE(window_mattered, 2);
+}
+
+// A step three times the designed shift is found within a few readings, but a
+// CUSUM's excursion may have begun earlier on small positive z, and its start
+// (the change point for a step of the designed size) then dates the change
+// too early. Re-estimated with the step's size unknown (ReestimateChange),
+// the alert dates it at the step's first reading more often, and measures
+// the step nearer its size. A shadow CUSUM on the same z gives the estimate
+// without it.
+TEST(SeriesMonitorChangeTimeTest, ALargeStepIsDatedAtItsFirstReadingMoreOftenThanByTheCusum) {
+  ProfileOptions profile;
+  profile.detectors = {DetectorKind::kCusum};
+  const ProfileDesign design = MakeDesign(profile);
+  int alerted = 0, exact = 0, cusum_exact = 0, early = 0, cusum_early = 0;
+  double shift_error = 0, cusum_shift_error = 0;
+  const double step = 3.0;
+  for (int trial = 0; trial < 60; ++trial) {
+    SyntheticStreamOptions options;
+    options.change_index = 1500;
+    options.level_shift = trial % 2 ? step : -step;
+    const auto readings = Stream(1600, 900 + static_cast<std::uint64_t>(trial), options);
+    SeriesMonitor monitor(&design);
+    Cusum shadow(design.level.cusum);
+    Alarm shadow_alarm;
+    std::vector<SeriesEvent> events;
+    for (size_t i = 0; i < readings.size(); ++i) {
+      events.clear();
+      monitor.Observe(readings[i].time, readings[i].value, &events);
+      if (monitor.armed() && monitor.last_z() != 0.0) {
+        const auto c = shadow.Update(std::clamp(monitor.last_z(), -4.0, 4.0), readings[i].time);
+        if (c.ok() && c->fired) shadow_alarm = *c;
+      }
+      const auto level = std::find_if(events.begin(), events.end(), [](const SeriesEvent& e) {
+        return e.type == EventType::kAlert && e.kind == AlertKind::kLevel;
+      });
+      if (level == events.end()) continue;
+      if (i < 1500) break;  // a false alarm first: this trial says nothing
+      ++alerted;
+      const EventTime truth = readings[1500].time;
+      exact += level->change_at == truth;
+      early += level->change_at < truth;
+      cusum_exact += shadow_alarm.change_at == truth;
+      cusum_early += shadow_alarm.change_at < truth;
+      shift_error += std::abs(std::abs(level->magnitude_sd) - step);
+      cusum_shift_error += std::abs(std::abs(shadow_alarm.shift) - step);
+      break;
+    }
+  }
+  std::printf("[figures] step of %.0f sd, %d alerts: change_at at the step %d (CUSUM start %d), "
+              "early %d (%d); mean step error %.2f sd (%.2f)\n",
+              step, alerted, exact, cusum_exact, early, cusum_early,
+              alerted ? shift_error / alerted : 0.0, alerted ? cusum_shift_error / alerted : 0.0);
+  ASSERT_GE(alerted, 40);
+  EXPECT_GT(exact, cusum_exact);
+  EXPECT_LT(early, cusum_early);
+  EXPECT_LT(shift_error, cusum_shift_error);
 }
 
 TEST(SeriesMonitorAgreeTest, AgreeTwoRaisesNoAlertWhenOnlyOneDetectorCanFire) {

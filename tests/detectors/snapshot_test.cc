@@ -535,7 +535,7 @@ TEST(ForgedStateTest, SeriesMonitorRefusesOversizedBuffersAndCountsOutOfRange) {
     return LoadPatched(original, fresh, at, bits);
   };
   {
-    // Before the forecaster starts: "SMN3", no forecaster (1 byte), then the
+    // Before the forecaster starts: "SMN4", no forecaster (1 byte), then the
     // held observations (count at 5; from, to, value, covariates).
     SeriesMonitor early(&*design);
     for (int i = 0; i < 3; ++i) early.Observe(readings[i].time, readings[i].value, &ignored);
@@ -556,8 +556,13 @@ TEST(ForgedStateTest, SeriesMonitorRefusesOversizedBuffersAndCountsOutOfRange) {
   EXPECT_TRUE(RefusedNaming(load(armed, health - 26, kMinusOne), "regime observations"));
   EXPECT_TRUE(RefusedNaming(load(armed, health - 18, kNan), "sum of readings"));
   EXPECT_FALSE(load(armed, health - 9, 5000).ok());  // runs past the end
-  // The adapted threshold (8 bytes), then the settled flag (1).
-  EXPECT_TRUE(RefusedNaming(load(armed, bytes.size() - 9, kNan), "adapted threshold"));
+  // The adapted threshold (8 bytes), the settled flag (1), then the level
+  // detectors' recent inputs: their count (8), 16 z and 16 times (8 bytes each).
+  const std::size_t recent = bytes.size() - (8 + 16 * 8 + 16 * 8);
+  EXPECT_TRUE(RefusedNaming(load(armed, recent - 9, kNan), "adapted threshold"));
+  EXPECT_TRUE(RefusedNaming(load(armed, recent + 8 + 5 * 8, kNan), "recent z"));
+  EXPECT_TRUE(RefusedNaming(load(armed, recent + 8 + 16 * 8 + 5 * 8, kHuge), "recent z time"));
+  EXPECT_TRUE(load(armed, recent, 12345).ok());  // any count: slots are taken modulo 16
   // Around the intake: the reorder buffer's newest and released times before
   // it, the observation count after it (the intake is 72 bytes).
   const std::size_t intake = bytes.find("INTK");
@@ -708,9 +713,10 @@ TEST(SeriesMonitorCheckpointTest, TruncatedStateIsRefusedAtEveryLength) {
 
 // Whether the model has settled is kept (since "SMN2"): a monitor saved while
 // its model is still unsettled comes back unarmed. States of the formats
-// before still load: "SMN2", with a ring of the last 256 observation times
-// where "SMN3" keeps each pending level firing's length, and "SMON", without
-// the flag, which counts as settled.
+// before still load: "SMN3", without the level detectors' recent inputs
+// ("SMN4" adds them at the end); "SMN2", with a ring of the last 256
+// observation times where "SMN3" keeps each pending level firing's length;
+// and "SMON", without the flag, which counts as settled.
 TEST(SeriesMonitorCheckpointTest, SettledFlagIsKeptAndOlderStatesCountAsSettled) {
   ProfileOptions profile;
   profile.seasons = {kMicrosPerDay};
@@ -734,7 +740,17 @@ TEST(SeriesMonitorCheckpointTest, SettledFlagIsKeptAndOlderStatesCountAsSettled)
     ASSERT_TRUE(restored.Load(reader).ok()) << reader.status().ToString();
     EXPECT_FALSE(restored.armed());
   }
-  ASSERT_EQ(bytes.substr(0, 4), "SMN3");
+  ASSERT_EQ(bytes.substr(0, 4), "SMN4");
+  // As "SMN3": without the recent inputs at the end.
+  bytes.resize(bytes.size() - (8 + 16 * 8 + 16 * 8));
+  bytes.replace(0, 4, "SMN3");
+  {
+    SeriesMonitor restored(&*design);
+    SnapshotReader reader(bytes);
+    ASSERT_TRUE(restored.Load(reader).ok()) << reader.status().ToString();
+    EXPECT_TRUE(reader.AtEnd());
+    EXPECT_FALSE(restored.armed());
+  }
   // As "SMN2": without the firing's length (8 bytes before its threshold
   // fraction, the empty list of held readings and the two reorder times
   // before the intake, "INTK"), with the ring of times before the regime's

@@ -66,12 +66,16 @@ def main():
         for seed in seeds:
             verdict = one_seed(os.path.abspath(args.plumbline), seed, work)
             extra = []
+            missed = []
             for check in verdict["checks"]:
                 name = check["check"].split(":")[0]
                 if check["passed"]:
                     entries[name] += 1
-                elif name in args.require:
-                    failed_required.append(f"seed {seed}: {name}")
+                else:
+                    if name != "unmatched alerts forbidden":
+                        missed.append(name)
+                    if name in args.require:
+                        failed_required.append(f"seed {seed}: {name}")
                 if name == "unmatched alerts forbidden":
                     for line in check["details"]:
                         m = ALERT.search(line)
@@ -80,6 +84,7 @@ def main():
             unmatched.update(extra)
             clean += verdict["failed"] == 0
             print(f"seed {seed}: {verdict['passed']} passed, {verdict['failed']} failed"
+                  + (f"; missed: {', '.join(missed)}" if missed else "")
                   + (f"; unexplained: {', '.join(extra)}" if extra else ""), flush=True)
     n = len(seeds)
     print(f"\n{clean} of {n} realisations pass every check")
