@@ -13,6 +13,7 @@
 #include <cstdio>
 #include <functional>
 #include <limits>
+#include <optional>
 #include <string>
 #include <vector>
 
@@ -734,23 +735,19 @@ TEST(SeriesMonitorCheckpointTest, SettledFlagIsKeptAndOlderStatesCountAsSettled)
   ASSERT_GT(early.observations(), profile.warmup);
   ASSERT_FALSE(early.armed());
   std::string bytes = Saved(early);
-  {
+  // Whether the state loads whole, and whether the restored monitor is armed.
+  const auto restore = [&](const std::string& state) -> std::optional<bool> {
     SeriesMonitor restored(&*design);
-    SnapshotReader reader(bytes);
-    ASSERT_TRUE(restored.Load(reader).ok()) << reader.status().ToString();
-    EXPECT_FALSE(restored.armed());
-  }
+    SnapshotReader reader(state);
+    if (!restored.Load(reader).ok() || !reader.AtEnd()) return std::nullopt;
+    return restored.armed();
+  };
+  EXPECT_EQ(restore(bytes), false);
   ASSERT_EQ(bytes.substr(0, 4), "SMN4");
   // As "SMN3": without the recent inputs at the end.
   bytes.resize(bytes.size() - (8 + 16 * 8 + 16 * 8));
   bytes.replace(0, 4, "SMN3");
-  {
-    SeriesMonitor restored(&*design);
-    SnapshotReader reader(bytes);
-    ASSERT_TRUE(restored.Load(reader).ok()) << reader.status().ToString();
-    EXPECT_TRUE(reader.AtEnd());
-    EXPECT_FALSE(restored.armed());
-  }
+  EXPECT_EQ(restore(bytes), false);
   // As "SMN2": without the firing's length (8 bytes before its threshold
   // fraction, the empty list of held readings and the two reorder times
   // before the intake, "INTK"), with the ring of times before the regime's
@@ -761,20 +758,10 @@ TEST(SeriesMonitorCheckpointTest, SettledFlagIsKeptAndOlderStatesCountAsSettled)
   const std::size_t ring_end = bytes.rfind("HLTH") - 26;
   bytes.insert(ring_end, std::string(256 * 8, '\0'));
   bytes.replace(0, 4, "SMN2");
-  {
-    SeriesMonitor restored(&*design);
-    SnapshotReader reader(bytes);
-    ASSERT_TRUE(restored.Load(reader).ok()) << reader.status().ToString();
-    EXPECT_TRUE(reader.AtEnd());
-    EXPECT_FALSE(restored.armed());
-  }
+  EXPECT_EQ(restore(bytes), false);
   bytes.replace(0, 4, "SMON");
   bytes.pop_back();  // the flag
-  SeriesMonitor old(&*design);
-  SnapshotReader reader(bytes);
-  ASSERT_TRUE(old.Load(reader).ok()) << reader.status().ToString();
-  EXPECT_TRUE(reader.AtEnd());
-  EXPECT_TRUE(old.armed());
+  EXPECT_EQ(restore(bytes), true);
 }
 
 TEST(SeriesMonitorCheckpointTest, StateOfAnotherDesignIsRefused) {
