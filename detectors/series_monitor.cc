@@ -1240,9 +1240,10 @@ long long SeriesMonitor::ReadingsSince(const Alarm& alarm, long long fired_at) c
 // sum of the n_tau readings from tau on (Hinkley 1970, Biometrika 57:1-17;
 // from memory), taken over the excursion's start and each of its last
 // kChangeWindow readings, with the sign of the firing; the step is then
-// S_tau / n_tau. Page-Hinkley's excursion is estimated the same way. The
-// readings are the winsorised z the detectors read, so one outlier weighs at
-// most kLevelClip.
+// S_tau / n_tau. Page-Hinkley's excursion is estimated the same way (its own
+// step is measured from its running mean, near 0 for standardised residuals).
+// The readings are the winsorised z the detectors read, so one outlier weighs
+// at most kLevelClip.
 Alarm SeriesMonitor::ReestimateChange(const Alarm& alarm) const {
   if (alarm.length <= 0) return alarm;
   const double sign = alarm.direction == Direction::kDown ? -1.0 : 1.0;
