@@ -535,9 +535,13 @@ double SeriesMonitor::PhaseSigma(int bin) const {
   return Floored(profile_->Sigma(bin, scale_.sigma()));
 }
 
+int SeriesMonitor::PhaseBin(EventTime from, EventTime to) const {
+  return profile_->Bin(from + (to - from) / 2);
+}
+
 double SeriesMonitor::PhaseSigmaOver(EventTime from, EventTime to) const {
   if (!profile_) return 0.0;
-  return PhaseSigma(profile_->Bin(from + (to - from) / 2));
+  return PhaseSigma(PhaseBin(from, to));
 }
 
 double SeriesMonitor::Floored(double phase_sigma) const {
@@ -598,7 +602,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   // then makes its early error look like a change of spread (more false
   // variance alerts on the demo and on the airline data than it finds).
   const bool suspicious = Suspicious(kBaselineFraction);
-  const int bin = profile_->Bin(from + (to - from) / 2);
+  const int bin = PhaseBin(from, to);
   const ResidualProfile::Expectation phase = profile_->MeanAndSigma(bin, sigma);
   const double phase_mean = phase.mean;
   const double v = u - phase_mean;
@@ -819,16 +823,14 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
         level_[i]);
     if (!result.ok()) continue;
     if (result->fired) {
-      // The count CUSUM measures its shift in counts; alerts carry it in sd.
-      if (std::holds_alternative<PoissonCusum>(level_[i]) && sigma > 0) {
-        result->shift /= sigma;
+      if (std::holds_alternative<PoissonCusum>(level_[i])) {
+        // The count CUSUM measures its shift in counts; alerts carry it in sd.
+        if (sigma > 0) result->shift /= sigma;
+      } else if (level_kinds_[i] == DetectorKind::kCusum ||
+                 level_kinds_[i] == DetectorKind::kPageHinkley) {
+        *result = ReestimateChange(*result);  // both read z
       }
-      const bool on_z = level_kinds_[i] == DetectorKind::kCusum ||
-                        level_kinds_[i] == DetectorKind::kPageHinkley;
-      firings_[i] = {observations_,
-                     on_z && !std::holds_alternative<PoissonCusum>(level_[i])
-                         ? ReestimateChange(*result)
-                         : *result};
+      firings_[i] = {observations_, *result};
     }
     threshold_fraction_[i] =
         result->fired

@@ -282,8 +282,8 @@ class SeriesMonitor {
   // The residual spread at a phase bin of the profile (which must exist): the
   // profile's, floored at the series' resolution.
   double PhaseSigma(int bin) const;
-  // The same for an observation over [from, to] (the bin of its midpoint, as
-  // the model takes it); 0 before the profile exists.
+  // The same for an observation over [from, to] (PhaseBin, as the model
+  // takes it); 0 before the profile exists.
   double PhaseSigmaOver(EventTime from, EventTime to) const;
   const ProfileOptions& profile() const { return design_->profile; }
   const ArrivalModel& arrivals() const { return arrival_; }
@@ -416,6 +416,8 @@ class SeriesMonitor {
   void BuildLevelDetectors(const DetectorDesign& d);
   // A phase's spread from the profile, floored at the series' resolution.
   double Floored(double phase_sigma) const;
+  // The profile's bin for an observation over [from, to]: its midpoint's.
+  int PhaseBin(EventTime from, EventTime to) const;
   // True while any level detector is past the given fraction of its threshold:
   // baselines then hold still rather than learn the change being tested for.
   bool Suspicious(double fraction_of_threshold) const;
