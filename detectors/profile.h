@@ -78,7 +78,7 @@ struct ProfileOptions {
   bool level_noise_auto = false;
   EventTime lateness = 0;            // readings up to this much out of order are reordered
   int agree_within = 5;              // readings within which `agree` detectors must fire, [1, 1000]
-  int cooldown = 0;                  // readings after an alert before the next; 0 = warmup
+  int cooldown = 0;  // readings after a level alert before the next; 0 = SeriesMonitor::DefaultCooldown
   // Other series whose values are extra regressors (detectors/covariate.h),
   // at most 16, each a series name; joined as of each observation's time when
   // at most covariate_max_age old (> 0).

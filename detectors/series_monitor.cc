@@ -312,6 +312,7 @@ void SeriesMonitor::ApplyPlannedChange(const Annotation& change) {
       design_->profile.warmup, forecaster_ ? 2LL * forecaster_->dimension() : 0LL);
   level_hold_until_ = std::max(level_hold_until_, observations_ + wait);
   variance_hold_until_ = std::max(variance_hold_until_, observations_ + wait);
+  refit_hold_until_ = std::max(refit_hold_until_, observations_ + wait);
   regime_start_ = change.at;
   regime_observations_ = 0;
 }
@@ -731,8 +732,10 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   const bool resolvable = spread_seen && near_normal && !count_chart();
   Alarm variance_alarm{};
   if (resolvable && observations_ >= variance_hold_until_) {
-    CollectForRefit(std::min(z * z, design_->variance.cap),
-                    std::numeric_limits<double>::quiet_NaN());
+    if (RefitOpen()) {
+      CollectForRefit(std::min(z * z, design_->variance.cap),
+                      std::numeric_limits<double>::quiet_NaN());
+    }
     variance_alarm = variance_.Update(z, to);
   }
   // Where a count series expects few events, z is skewed: a count of 2 where
@@ -781,6 +784,7 @@ void SeriesMonitor::Model(EventTime from, EventTime to, double y,
   const long long hold =
       design_->profile.cooldown > 0 ? design_->profile.cooldown : design_->profile.warmup;
   variance_hold_until_ = observations_ + hold;
+  refit_hold_until_ = std::max(refit_hold_until_, observations_ + design_->profile.warmup);
   level_hold_until_ = std::max(level_hold_until_, observations_ + 20);
   StartRegime(variance_alarm.change_at, ReadingsSince(variance_alarm, observations_));
 }
@@ -790,7 +794,7 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
                                 std::vector<SeriesEvent>* events) {
   const ProfileOptions& profile = design_->profile;
   const double clipped_z = std::clamp(last_z_, -kLevelClip, kLevelClip);
-  if (profile.adapt_thresholds) CollectLevelSample(clipped_z);
+  if (profile.adapt_thresholds && RefitOpen()) CollectLevelSample(clipped_z);
   recent_z_[recent_count_ % kChangeWindow] = clipped_z;
   recent_times_[recent_count_ % kChangeWindow] = t;
   ++recent_count_;
@@ -814,7 +818,7 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
             const double count =
                 std::min(std::max(0.0, std::round(y)),
                          std::max(1.0, std::floor(mean + kLevelClip * std::sqrt(mean))));
-            CollectCountIncrements(count, down_ratio, detector);
+            if (RefitOpen()) CollectCountIncrements(count, down_ratio, detector);
             return detector.Update(count, t, ratio, down_ratio);
           } else {
             return detector.Update(clipped_z, t);
@@ -884,9 +888,10 @@ void SeriesMonitor::DecideLevel(EventTime t, double y, double expected, double f
   if (forecaster_) forecaster_->ShiftLevel(e.magnitude, e.magnitude_sd * e.magnitude_sd);
   ResetLevelDetectors();
   variance_.Reset();
-  const long long hold = profile.cooldown > 0 ? profile.cooldown : profile.warmup;
+  const long long hold = profile.cooldown > 0 ? profile.cooldown : DefaultCooldown();
   level_hold_until_ = observations_ + hold;
   variance_hold_until_ = std::max(variance_hold_until_, observations_ + hold);
+  refit_hold_until_ = std::max(refit_hold_until_, observations_ + profile.warmup);
   StartRegime(alarm.change_at, readings);
 }
 
@@ -1218,6 +1223,12 @@ void SeriesMonitor::ResetLevelDetectors() {
   std::fill(threshold_fraction_.begin(), threshold_fraction_.end(), 0.0);
 }
 
+long long SeriesMonitor::DefaultCooldown() const {
+  const long long warmup = design_->profile.warmup;
+  if (!forecaster_) return warmup;
+  return std::min<long long>(warmup, kCooldownDimensions * forecaster_->dimension());
+}
+
 bool SeriesMonitor::Suspicious(double fraction_of_threshold) const {
   for (double fraction : threshold_fraction_) {
     if (fraction > fraction_of_threshold) return true;
@@ -1379,8 +1390,8 @@ EventTime ReorderTime(SnapshotReader& r, std::string_view what) {
 }  // namespace
 
 void SeriesMonitor::Save(SnapshotWriter& w) const {
-  w.Tag("SMN4");  // "SMN3" had no recent z; "SMN2" kept a ring of recent
-                  // observation times; "SMON" no settled_
+  w.Tag("SMN5");  // "SMN4" had no refit hold; "SMN3" no recent z; "SMN2" kept
+                  // a ring of recent observation times; "SMON" no settled_
   w.Bool(forecaster_.has_value());
   if (forecaster_) {
     forecaster_->Save(w);
@@ -1454,6 +1465,7 @@ void SeriesMonitor::Save(SnapshotWriter& w) const {
   w.U64(recent_count_);  // since "SMN4"
   w.Doubles(recent_z_.data(), recent_z_.size());
   for (EventTime t : recent_times_) w.I64(t);
+  w.I64(refit_hold_until_);  // since "SMN5"
 }
 
 namespace {
@@ -1472,16 +1484,23 @@ void LoadSample(SnapshotReader& r, std::size_t max, const char* what,
 }  // namespace
 
 Status SeriesMonitor::Load(SnapshotReader& r) {
-  // "SMN4" adds the level detectors' recent inputs at the end (an older
-  // state starts without them); "SMN3" keeps each pending level firing's
+  // "SMN5" adds the refit hold at the end (an older state has none: its
+  // re-fit samples kept collecting through a change, as it did then); "SMN4"
+  // adds the level detectors' recent inputs at the end (an older state starts
+  // without them); "SMN3" keeps each pending level firing's
   // length instead of a ring of the last 256 observation times (from which an
   // older state's lengths are worked out below); "SMN2" added settled_ at the
   // end, and a "SMON" state counts as settled, as its series armed on warmup
   // alone.
-  const bool with_recent = r.NextTagIs("SMN4");
+  const bool with_refit_hold = r.NextTagIs("SMN5");
+  const bool with_recent = with_refit_hold || r.NextTagIs("SMN4");
   const bool with_lengths = with_recent || r.NextTagIs("SMN3");
   const bool with_settled = with_lengths || r.NextTagIs("SMN2");
-  r.Tag(with_recent ? "SMN4" : with_lengths ? "SMN3" : with_settled ? "SMN2" : "SMON");
+  r.Tag(with_refit_hold ? "SMN5"
+        : with_recent  ? "SMN4"
+        : with_lengths ? "SMN3"
+        : with_settled ? "SMN2"
+                       : "SMON");
   forecaster_.reset();
   rivals_.clear();
   if (r.Bool()) {
@@ -1639,6 +1658,7 @@ Status SeriesMonitor::Load(SnapshotReader& r) {
     r.FiniteDoubles(recent_z_.data(), recent_z_.size(), "recent z");
     for (EventTime& t : recent_times_) t = r.Time("recent z time");
   }
+  refit_hold_until_ = with_refit_hold ? r.Counter("refit hold") : 0;
   if (!r.ok()) return r.status();
   if (adapted_h_ > 0) {
     for (LevelDetector& d : level_) {

@@ -26,7 +26,12 @@
 //        (CUSUM, then Page-Hinkley, BOCPD, EWMA); then re-baseline (the level
 //        moves by the estimated shift with its variance opened up so the model
 //        settles fast), detectors restart, and a cooldown of `cooldown`
-//        observations (default: warmup) holds further alerts of that kind
+//        observations holds further level and spread alerts (default: the
+//        smaller of warmup and kCooldownDimensions times the forecaster's
+//        coefficients, enough for the re-baselined model to settle; see
+//        DefaultCooldown). A spread alert holds the spread chart for
+//        `cooldown` or else warmup, the level detectors for 20 observations
+//        while the scale re-learns.
 //     -> `retrain` event once the new regime holds `warmup` observations.
 //
 // Empirical re-fit (a bounded threshold adjustment after warmup): the variance
@@ -421,6 +426,26 @@ class SeriesMonitor {
   // True while any level detector is past the given fraction of its threshold:
   // baselines then hold still rather than learn the change being tested for.
   bool Suspicious(double fraction_of_threshold) const;
+  // Cooldown after a level alert when the profile sets none: the smaller of
+  // warmup and kCooldownDimensions times the forecaster's coefficients. Until
+  // 5 December it was warmup itself, 14 days on the demo's compressor, in
+  // which a false alert blinded the series' level detectors to the door seal
+  // failing three days later (2 of 48 draws, harbourside_seeds.py), and hid
+  // the false alerts that a watching detector raises in that time. The
+  // re-baselined level is learned within a few readings (its variance is
+  // opened), the other coefficients are unchanged; twice their number is the
+  // wait a planned change gets at least (common practice, no source).
+  long long DefaultCooldown() const;
+  static constexpr long long kCooldownDimensions = 2;
+  // The spread chart's, the level CUSUM's and the count CUSUM's re-fit samples
+  // collect only outside the warmup after an alert or a planned change (the
+  // arrivals' sample is not theirs to hold): the readings that
+  // follow a change, read by a model still settling on it, are not the
+  // in-control series the thresholds are fitted to. With the shorter cooldown
+  // and no such hold, a demo draw's spread chart was re-fitted on the hours
+  // after the seal's alert and its upper interval rose from 40 to 122, so the
+  // compressor's wear went unseen.
+  bool RefitOpen() const { return observations_ >= refit_hold_until_; }
   // The residual scale and autocorrelation stop learning past a quarter of the
   // way; the forecaster's steps are limited to 1 sigma past half way.
   static constexpr double kBaselineFraction = 0.25;
@@ -540,6 +565,9 @@ class SeriesMonitor {
   long long observations_ = 0;
   long long level_hold_until_ = 0;  // observation index before which level alerts wait
   long long variance_hold_until_ = 0;
+  // Observation index before which the re-fit samples collect nothing: the
+  // warmup after an alert or a planned change (RefitOpen).
+  long long refit_hold_until_ = 0;
   long long rate_hold_until_ = 0;  // in arrivals
   double last_z_ = 0.0;
   ObservationListener* listener_ = nullptr;

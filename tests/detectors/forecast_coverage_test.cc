@@ -11,6 +11,7 @@
 #include <gtest/gtest.h>
 
 #include <cstdio>
+#include <cstdlib>
 #include <fstream>
 #include <map>
 #include <sstream>
@@ -85,8 +86,14 @@ TEST(ForecastCoverageTest, HeldOutYearOfMonthlySeriesIsCoveredAtNominalLevels) {
   const double rate80 = static_cast<double>(covered80) / count;
   std::printf("[figures] pooled over %d forecasts: 95%% -> %.3f, 80%% -> %.3f\n", count,
               rate95, rate80);
-  EXPECT_NEAR(rate95, 0.95, 0.05);
-  EXPECT_NEAR(rate80, 0.80, 0.05);
+  // Within 5 points, counted in forecasts so that exactly 5 points (54 of 72
+  // at 80%) is inside, as the target says, whatever the doubles round to:
+  // |covered / count - level / 100| <= 5 / 100.
+  const auto within_five_points = [count](int covered, int level) {
+    return std::abs(100 * covered - level * count) <= 5 * count;
+  };
+  EXPECT_TRUE(within_five_points(covered95, 95)) << rate95;
+  EXPECT_TRUE(within_five_points(covered80, 80)) << rate80;
 }
 
 }  // namespace

@@ -536,7 +536,7 @@ TEST(ForgedStateTest, SeriesMonitorRefusesOversizedBuffersAndCountsOutOfRange) {
     return LoadPatched(original, fresh, at, bits);
   };
   {
-    // Before the forecaster starts: "SMN4", no forecaster (1 byte), then the
+    // Before the forecaster starts: "SMN5", no forecaster (1 byte), then the
     // held observations (count at 5; from, to, value, covariates).
     SeriesMonitor early(&*design);
     for (int i = 0; i < 3; ++i) early.Observe(readings[i].time, readings[i].value, &ignored);
@@ -558,9 +558,11 @@ TEST(ForgedStateTest, SeriesMonitorRefusesOversizedBuffersAndCountsOutOfRange) {
   EXPECT_TRUE(RefusedNaming(load(armed, health - 18, kNan), "sum of readings"));
   EXPECT_FALSE(load(armed, health - 9, 5000).ok());  // runs past the end
   // The adapted threshold (8 bytes), the settled flag (1), then the level
-  // detectors' recent inputs: their count (8), 16 z and 16 times (8 bytes each).
-  const std::size_t recent = bytes.size() - (8 + 16 * 8 + 16 * 8);
+  // detectors' recent inputs: their count (8), 16 z and 16 times (8 bytes
+  // each); last, the refit hold (8).
+  const std::size_t recent = bytes.size() - (8 + 16 * 8 + 16 * 8 + 8);
   EXPECT_TRUE(RefusedNaming(load(armed, recent - 9, kNan), "adapted threshold"));
+  EXPECT_TRUE(RefusedNaming(load(armed, bytes.size() - 8, kMinusOne), "refit hold"));
   EXPECT_TRUE(RefusedNaming(load(armed, recent + 8 + 5 * 8, kNan), "recent z"));
   EXPECT_TRUE(RefusedNaming(load(armed, recent + 8 + 16 * 8 + 5 * 8, kHuge), "recent z time"));
   EXPECT_TRUE(load(armed, recent, 12345).ok());  // any count: slots are taken modulo 16
@@ -714,10 +716,11 @@ TEST(SeriesMonitorCheckpointTest, TruncatedStateIsRefusedAtEveryLength) {
 
 // Whether the model has settled is kept (since "SMN2"): a monitor saved while
 // its model is still unsettled comes back unarmed. States of the formats
-// before still load: "SMN3", without the level detectors' recent inputs
-// ("SMN4" adds them at the end); "SMN2", with a ring of the last 256
-// observation times where "SMN3" keeps each pending level firing's length;
-// and "SMON", without the flag, which counts as settled.
+// before still load: "SMN4", without the refit hold ("SMN5" adds it at the
+// end); "SMN3", without the level detectors' recent inputs ("SMN4" adds them
+// at the end); "SMN2", with a ring of the last 256 observation times where
+// "SMN3" keeps each pending level firing's length; and "SMON", without the
+// flag, which counts as settled.
 TEST(SeriesMonitorCheckpointTest, SettledFlagIsKeptAndOlderStatesCountAsSettled) {
   ProfileOptions profile;
   profile.seasons = {kMicrosPerDay};
@@ -743,7 +746,11 @@ TEST(SeriesMonitorCheckpointTest, SettledFlagIsKeptAndOlderStatesCountAsSettled)
     return restored.armed();
   };
   EXPECT_EQ(restore(bytes), false);
-  ASSERT_EQ(bytes.substr(0, 4), "SMN4");
+  ASSERT_EQ(bytes.substr(0, 4), "SMN5");
+  // As "SMN4": without the refit hold at the end.
+  bytes.resize(bytes.size() - 8);
+  bytes.replace(0, 4, "SMN4");
+  EXPECT_EQ(restore(bytes), false);
   // As "SMN3": without the recent inputs at the end.
   bytes.resize(bytes.size() - (8 + 16 * 8 + 16 * 8));
   bytes.replace(0, 4, "SMN3");
