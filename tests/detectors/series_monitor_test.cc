@@ -727,16 +727,19 @@ TEST(SeriesMonitorAgreeTest, AgreeTwoRaisesNoAlertWhenOnlyOneDetectorCanFire) {
   }
 }
 
-// Two 3 sd steps 30 readings apart: the second alert waits out the cooldown.
-std::vector<long long> LevelAlertReadings(int cooldown, std::uint64_t seed) {
+// Two 3 sd steps `apart` readings apart (30 unless given): the second alert
+// waits out the cooldown.
+std::vector<long long> LevelAlertReadings(int cooldown, std::uint64_t seed, int warmup = 0,
+                                          size_t apart = 30) {
   ProfileOptions profile;
   profile.cooldown = cooldown;
+  if (warmup > 0) profile.warmup = warmup;
   const ProfileDesign design = MakeDesign(profile);
   SyntheticStreamOptions options;
   options.change_index = 3200;
   options.level_shift = 3.0;
   auto readings = Stream(3700, seed, options);
-  for (size_t i = 3230; i < readings.size(); ++i) readings[i].value += 3.0;
+  for (size_t i = 3200 + apart; i < readings.size(); ++i) readings[i].value += 3.0;
   SeriesMonitor monitor(&design);
   const Fed fed = Feed(monitor, readings);
   std::vector<long long> at;
@@ -776,6 +779,34 @@ TEST(SeriesMonitorAgreeTest, CooldownHoldsTheNextLevelAlertForCooldownObservatio
       held, quick);
   EXPECT_EQ(held, 10);
   EXPECT_GE(quick, 8);  // so the long cooldown is what held it
+}
+
+// Without a `cooldown`, the hold after a level alert is the re-baselined
+// model's settling time, twice the forecaster's coefficients (40 for the
+// default daily and weekly seasons), not a long warmup: a second step 150
+// readings after the first is found, where a cooldown as long as the warmup
+// (1,000) holds it.
+TEST(SeriesMonitorAgreeTest, DefaultCooldownIsTheModelsSettlingTimeNotTheWarmup) {
+  int found = 0, held = 0;
+  for (int trial = 0; trial < 10; ++trial) {
+    const auto seed = 820 + static_cast<std::uint64_t>(trial);
+    const auto by_default = LevelAlertReadings(0, seed, 1000, 150);
+    const auto warmup_long = LevelAlertReadings(1000, seed, 1000, 150);
+    SCOPED_TRACE(trial);
+    ASSERT_FALSE(by_default.empty());
+    ASSERT_FALSE(warmup_long.empty());
+    for (size_t k = 1; k < by_default.size(); ++k) {
+      EXPECT_GE(by_default[k] - by_default[k - 1], 40);
+    }
+    if (by_default.size() >= 2 && by_default[1] - by_default[0] < 300) ++found;
+    if (warmup_long.size() < 2 || warmup_long[1] - warmup_long[0] >= 1000) ++held;
+  }
+  std::printf(
+      "[figures] default cooldown: second step 150 readings on found within 300 readings "
+      "of the first alert in %d/10 streams; with cooldown 1000 held in %d/10\n",
+      found, held);
+  EXPECT_GE(found, 8);
+  EXPECT_EQ(held, 10);
 }
 
 // ---------------------------------------------------------------------------
