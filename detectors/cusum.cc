@@ -74,6 +74,7 @@ StatusOr<Alarm> Cusum::Update(double x, EventTime time) {
     alarm.change_at = side.start;
     alarm.length = side.length;
     alarm.shift = up ? excursion_mean : -excursion_mean;
+    alarm.input_mean = alarm.shift;
     ++alarms_;
     Restart();
   }
@@ -117,6 +118,7 @@ StatusOr<Alarm> OneSidedCusum::Update(double x, EventTime time) {
     alarm.length = side_.length;
     alarm.shift =
         options_.k + (side_.value - side_.origin) / static_cast<double>(side_.length);
+    alarm.input_mean = alarm.shift;
     ++alarms_;
     side_.Restart(options_.headstart);
     readings_ = 0;

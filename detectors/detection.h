@@ -25,6 +25,11 @@ struct Alarm {
   double statistic = 0.0;           // the decision statistic at this update
   // On a firing: the detector's readings from change_at through this one.
   std::int64_t length = 0;
+  // On a firing of a detector on standardised input (CUSUM, Page-Hinkley):
+  // the mean of those readings, measured from zero (signed). A CUSUM's shift
+  // is this; Page-Hinkley's is measured from its running mean before
+  // change_at instead. Not kept in checkpoints (read only as the alarm fires).
+  double input_mean = 0.0;
 };
 
 }  // namespace plumbline

@@ -55,9 +55,12 @@ void PageHinkley::Reset() {
   alarms_ = 0;
 }
 
+double PageHinkley::MeanSince(const Side& side) const {
+  return (sum_x_ - side.sum_x_before) / static_cast<double>(readings_ - side.count_before);
+}
+
 double PageHinkley::ShiftEstimate(const Side& side) const {
-  const double after =
-      (sum_x_ - side.sum_x_before) / static_cast<double>(readings_ - side.count_before);
+  const double after = MeanSince(side);
   const double before = (options_.use_running_mean && side.count_before > 0)
                             ? side.sum_x_before / static_cast<double>(side.count_before)
                             : options_.mean;
@@ -89,6 +92,7 @@ StatusOr<Alarm> PageHinkley::Update(double x, EventTime time) {
     alarm.change_at = side.start;
     alarm.length = side.length;
     alarm.shift = ShiftEstimate(side);
+    alarm.input_mean = MeanSince(side);
     ++alarms_;
     Restart();
   }

@@ -171,6 +171,7 @@ class PageHinkley {
   };
 
   void Restart();
+  double MeanSince(const Side& side) const;  // mean of x from the side's change_at on
   double ShiftEstimate(const Side& side) const;
 
   PageHinkleyOptions options_;

@@ -1260,8 +1260,13 @@ long long SeriesMonitor::ReadingsSince(const Alarm& alarm, long long fired_at) c
 Alarm SeriesMonitor::ReestimateChange(const Alarm& alarm) const {
   if (alarm.length <= 0) return alarm;
   const double sign = alarm.direction == Direction::kDown ? -1.0 : 1.0;
-  // The whole excursion, from the detector's own sum.
-  double best = alarm.shift * alarm.shift * static_cast<double>(alarm.length);
+  // The whole excursion, from the detector's own sum, measured from zero as
+  // the candidates below are (Page-Hinkley's shift is measured from its
+  // running mean before the excursion: where that mean sat below zero, its
+  // shift outscored a later start that fits the step better; in a demo draw
+  // the door seal was dated 100 minutes early so).
+  const double whole = sign * alarm.input_mean > 0.0 ? alarm.input_mean : 0.0;
+  double best = whole * whole * static_cast<double>(alarm.length);
   Alarm out = alarm;
   const long long stored = static_cast<long long>(
       std::min<std::uint64_t>(recent_count_, kChangeWindow));

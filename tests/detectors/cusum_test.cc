@@ -161,6 +161,7 @@ TEST(CusumTest, LowerAlarmIsTheMirrorWithNegativeShift) {
   EXPECT_EQ(alarm.direction, Direction::kDown);
   EXPECT_EQ(alarm.change_at, At(0));
   EXPECT_DOUBLE_EQ(alarm.shift, -1.5);  // -(0.5 + 3/3) = mean(-1, -1.5, -2)
+  EXPECT_DOUBLE_EQ(alarm.input_mean, -1.5);  // a CUSUM measures from zero: the same
 }
 
 TEST(CusumTest, ChangeTimeIsTheReadingAfterTheSideWasLastZero) {

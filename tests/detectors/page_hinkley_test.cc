@@ -119,14 +119,16 @@ TEST(PageHinkleyTest, RefusesNonFiniteReadingsWithoutTouchingState) {
 //  4  4   4    1        2.5     0.0   -2.5   2.5   -3.5      -4.0   -4.0  0
 //  5  4   8    1.6      1.9     1.9   -2.5   4.4 > 3: up alarm
 //     argmin of m is T = 3, so change_at = reading 4; shift =
-//     mean(x_4, x_5) - mean(x_1..x_3) = 4 - 0 = 4. Everything restarts.
+//     mean(x_4, x_5) - mean(x_1..x_3) = 4 - 0 = 4, input_mean = mean(x_4, x_5)
+//     = 4 (from zero). Everything restarts.
 //  6  4   4    4       -0.5    -0.5   -0.5   0     -0.5      -0.5   -0.5  0
 //  7  0   4    2       -2.5    -3.0   -3.0   0      1.5       1.0   -0.5  1.5
 //  8  0   4    4/3     -11/6   -29/6  -29/6  0      5/6      11/6   -0.5  7/3
 //  9  0   4    1       -1.5    -19/3  -19/3  0      0.5       7/3   -0.5  17/6
 // 10  0   4    0.8     -1.3    -229/30       0      0.3      79/30  -0.5  3.1333 > 3
 //     down alarm; argmin of n is T = 6, so change_at = reading 7; shift =
-//     mean(x_7..x_10) - mean(x_6) = 0 - 4 = -4.
+//     mean(x_7..x_10) - mean(x_6) = 0 - 4 = -4, but input_mean = 0: measured
+//     from zero, the readings since change_at did not move.
 TEST(PageHinkleyTest, WorkedByHandExampleWithRunningMean) {
   PageHinkleyOptions options;
   options.delta = 0.5;
@@ -164,6 +166,7 @@ TEST(PageHinkleyTest, WorkedByHandExampleWithRunningMean) {
   EXPECT_NEAR(up.statistic, 4.4, kTol);
   EXPECT_EQ(up.change_at, At(4));
   EXPECT_NEAR(up.shift, 4.0, kTol);
+  EXPECT_NEAR(up.input_mean, 4.0, kTol);
   EXPECT_EQ(test.readings_since_restart(), 0);
   EXPECT_EQ(test.up_statistic(), 0.0);
   EXPECT_EQ(test.up_sum(), 0.0);
@@ -186,6 +189,7 @@ TEST(PageHinkleyTest, WorkedByHandExampleWithRunningMean) {
   EXPECT_NEAR(down.statistic, 79.0 / 30.0 + 0.5, kTol);
   EXPECT_EQ(down.change_at, At(7));
   EXPECT_NEAR(down.shift, -4.0, kTol);
+  EXPECT_NEAR(down.input_mean, 0.0, kTol);
   EXPECT_EQ(test.alarms(), 2);
 }
 
