@@ -308,8 +308,7 @@ void SeriesMonitor::ApplyPlannedChange(const Annotation& change) {
   if (profile_) profile_->Reset();
   ResetLevelDetectors();
   variance_.Reset();
-  const long long wait = std::max<long long>(
-      design_->profile.warmup, forecaster_ ? 2LL * forecaster_->dimension() : 0LL);
+  const long long wait = std::max<long long>(design_->profile.warmup, SettlingReadings());
   level_hold_until_ = std::max(level_hold_until_, observations_ + wait);
   variance_hold_until_ = std::max(variance_hold_until_, observations_ + wait);
   refit_hold_until_ = std::max(refit_hold_until_, observations_ + wait);
@@ -1223,10 +1222,14 @@ void SeriesMonitor::ResetLevelDetectors() {
   std::fill(threshold_fraction_.begin(), threshold_fraction_.end(), 0.0);
 }
 
+long long SeriesMonitor::SettlingReadings() const {
+  return forecaster_ ? kSettlingDimensions * forecaster_->dimension() : 0LL;
+}
+
 long long SeriesMonitor::DefaultCooldown() const {
   const long long warmup = design_->profile.warmup;
   if (!forecaster_) return warmup;
-  return std::min<long long>(warmup, kCooldownDimensions * forecaster_->dimension());
+  return std::min(warmup, SettlingReadings());
 }
 
 bool SeriesMonitor::Suspicious(double fraction_of_threshold) const {

@@ -27,7 +27,7 @@
 //        moves by the estimated shift with its variance opened up so the model
 //        settles fast), detectors restart, and a cooldown of `cooldown`
 //        observations holds further level and spread alerts (default: the
-//        smaller of warmup and kCooldownDimensions times the forecaster's
+//        smaller of warmup and kSettlingDimensions times the forecaster's
 //        coefficients, enough for the re-baselined model to settle; see
 //        DefaultCooldown). A spread alert holds the spread chart for
 //        `cooldown` or else warmup, the level detectors for 20 observations
@@ -426,8 +426,13 @@ class SeriesMonitor {
   // True while any level detector is past the given fraction of its threshold:
   // baselines then hold still rather than learn the change being tested for.
   bool Suspicious(double fraction_of_threshold) const;
+  // Readings a re-baselined or reopened model takes to settle: kSettlingDimensions
+  // times the forecaster's coefficients (0 before it starts). A planned change
+  // waits at least this long, a level alert at most (DefaultCooldown).
+  long long SettlingReadings() const;
+  static constexpr long long kSettlingDimensions = 2;
   // Cooldown after a level alert when the profile sets none: the smaller of
-  // warmup and kCooldownDimensions times the forecaster's coefficients. Until
+  // warmup and SettlingReadings(). Until
   // 5 December it was warmup itself, 14 days on the demo's compressor, in
   // which a false alert blinded the series' level detectors to the door seal
   // failing three days later (2 of 48 draws, harbourside_seeds.py), and hid
@@ -436,7 +441,6 @@ class SeriesMonitor {
   // opened), the other coefficients are unchanged; twice their number is the
   // wait a planned change gets at least (common practice, no source).
   long long DefaultCooldown() const;
-  static constexpr long long kCooldownDimensions = 2;
   // The spread chart's, the level CUSUM's and the count CUSUM's re-fit samples
   // collect only outside the warmup after an alert or a planned change (the
   // arrivals' sample is not theirs to hold): the readings that
