@@ -1,58 +1,117 @@
 #include "detectors/run_length_chain.h"
 
-#include <Eigen/Dense>
 #include <algorithm>
-#include <cfloat>
 #include <cmath>
 #include <functional>
 #include <limits>
 #include <string>
 
-#include "detectors/eigen_types.h"
 
 namespace plumbline {
 namespace {
 
-// The matrix, factorisation and right-hand side of one chain size, kept so a
-// calibration's repeated ARLs allocate nothing after the first.
+// The vectors of one chain size, kept so a calibration's repeated ARLs
+// allocate nothing after the first.
 struct ChainWorkspace {
-  explicit ChainWorkspace(int n) : a(n, n), lu(n), ones(Vector::Ones(n)) {}
-  Matrix a;
-  Eigen::PartialPivLU<Matrix> lu;
-  Vector ones;
+  explicit ChainWorkspace(int n)
+      : edges(2 * static_cast<size_t>(n)),
+        r(2 * static_cast<size_t>(n) - 1),
+        u(static_cast<size_t>(n)),
+        forward(static_cast<size_t>(n)),
+        backward(static_cast<size_t>(n)),
+        y(static_cast<size_t>(n)),
+        z(static_cast<size_t>(n)) {}
+  std::vector<double> edges, r, u, forward, backward, y, z;
 };
 
-// The ARL of the m-cell chain whose row i holds F((j + 1/2) w - i w) at
-// cell_cdf(i, j, (j + 1/2) w - i w), j = 0..m.
-template <typename CellCdf>
-double ChainArl(const CellCdf& cell_cdf, double h, double start, int m,
+// Solves B y = 1 and B z = u for the n x n Toeplitz matrix B_ij = r[i - j + n - 1]
+// by Levinson's recursion for a general (nonsymmetric) Toeplitz matrix (Golub
+// and Van Loan, "Matrix Computations", 3rd ed., section 4.7; from memory): the
+// leading m x m block's solutions of B f = e_first and B g = e_last extend to
+// the block of m + 1 with the errors their one new row and column make, and
+// each right-hand side's solution with them, in O(n^2). Every leading block of
+// the chain's B is strictly diagonally dominant by rows (each row of R sums to
+// below 1, the rest is the chance of an alarm), so none is singular and the
+// recursion cannot break down.
+void SolveToeplitz(int n, ChainWorkspace& space) {
+  const double* r = space.r.data() + (n - 1);  // r[d], d = i - j in -(n-1)..n-1
+  double* f = space.forward.data();
+  double* g = space.backward.data();
+  double* y = space.y.data();
+  double* z = space.z.data();
+  const double* u = space.u.data();
+  f[0] = g[0] = 1.0 / r[0];
+  y[0] = 1.0 / r[0];
+  z[0] = u[0] / r[0];
+  for (int m = 1; m < n; ++m) {
+    // Row m of the block of m + 1 against [f; 0], [x; 0]; row 0 against [0; g].
+    double ef = 0, eg = 0, ey = 0, ez = 0;
+    for (int j = 0; j < m; ++j) {
+      ef += r[m - j] * f[j];
+      eg += r[-(j + 1)] * g[j];
+      ey += r[m - j] * y[j];
+      ez += r[m - j] * z[j];
+    }
+    const double scale = 1.0 / (1.0 - ef * eg);
+    // f' = ([f; 0] - ef [0; g]) / (1 - ef eg), g' = ([0; g] - eg [f; 0]) / (...),
+    // from the end down so each old value is read before it is replaced.
+    for (int j = m; j >= 0; --j) {
+      const double fo = j < m ? f[j] : 0.0;
+      const double go = j > 0 ? g[j - 1] : 0.0;
+      f[j] = (fo - ef * go) * scale;
+      g[j] = (go - eg * fo) * scale;
+    }
+    const double dy = 1.0 - ey, dz = u[m] - ez;
+    y[m] = 0.0;
+    z[m] = 0.0;
+    for (int j = 0; j <= m; ++j) {
+      y[j] += dy * g[j];
+      z[j] += dz * g[j];
+    }
+  }
+}
+
+// The ARL of the m-cell chain (Brook and Evans 1972) whose cell i (i = 1..m)
+// is centred at i w and cell 0 is the atom at zero, w = h / (m + 1/2): from
+// cell i the statistic moves to cell j >= 1 with chance F((j + 1/2) w - i w) -
+// F((j - 1/2) w - i w), a function of j - i alone, and to the atom with chance
+// F(w / 2 - i w). So R = T + u e_0' with T Toeplitz (every column as the
+// interior's) and u_i = F((-i - 1/2) w), the mass below the lowest interior
+// edge that the atom collects, and (I - R) x = 1 is solved by Sherman and
+// Morrison's formula from two Toeplitz solves with B = I - T:
+//
+//   x = y + z y_0 / (1 - z_0),   B y = 1,   B z = u.
+//
+// edge_cdf(k, y) gives F(y) at the edge y = (k + 1/2) w, k = -n..n-1.
+template <typename EdgeCdf>
+double ChainArl(const EdgeCdf& edge_cdf, double h, double start, int m,
                 ChainWorkspace& space) {
   const double w = h / (m + 0.5);
   const int n = m + 1;
-  Matrix& a = space.a;
-  a.setIdentity(n, n);
-  for (int i = 0; i < n; ++i) {
-    const double s = i * w;
-    double below = cell_cdf(i, 0, 0.5 * w - s);
-    a(i, 0) -= below;
-    for (int j = 1; j < n; ++j) {
-      const double upper = cell_cdf(i, j, (j + 0.5) * w - s);
-      a(i, j) -= upper - below;
-      below = upper;
-    }
+  double* edges = space.edges.data() + n;  // edges[k], k = -n..n-1
+  for (int k = -n; k < n; ++k) edges[k] = edge_cdf(k, (k + 0.5) * w);
+  // B_ij = delta_ij - t_{j - i}, t_d = F at edge d less F at edge d - 1: in the
+  // r[i - j] form of SolveToeplitz, r[d] = delta_d0 - t_{-d}.
+  for (int d = -(n - 1); d <= n - 1; ++d) {
+    const double t = edges[-d] - edges[-d - 1];
+    space.r[static_cast<size_t>(d + n - 1)] = (d == 0 ? 1.0 : 0.0) - t;
   }
-  space.lu.compute(a);
-  const Vector arl = space.lu.solve(space.ones);
+  for (int i = 0; i < n; ++i) space.u[static_cast<size_t>(i)] = edges[-i - 1];
+  SolveToeplitz(n, space);
+  const double* y = space.y.data();
+  const double* z = space.z.data();
+  const double lift = y[0] / (1.0 - z[0]);
+  const auto arl = [&](int i) { return y[i] + z[i] * lift; };
   // Start in the cell that holds `start`, interpolating between cell centres.
   const double position = start / w;
   const int lower = static_cast<int>(std::floor(position));
-  if (lower >= n - 1) return arl[n - 1];
+  if (lower >= n - 1) return arl(n - 1);
   const double fraction = position - lower;
-  return (1.0 - fraction) * arl[lower] + fraction * arl[lower + 1];
+  return (1.0 - fraction) * arl(lower) + fraction * arl(lower + 1);
 }
 
-template <typename CellCdf>
-double RichardsonArl(const CellCdf& coarse_cdf, const CellCdf& fine_cdf, double h,
+template <typename EdgeCdf>
+double RichardsonArl(const EdgeCdf& coarse_cdf, const EdgeCdf& fine_cdf, double h,
                      double start, int cells, ChainWorkspace& coarse_space,
                      ChainWorkspace& fine_space) {
   const double coarse = ChainArl(coarse_cdf, h, start, cells, coarse_space);
@@ -62,7 +121,7 @@ double RichardsonArl(const CellCdf& coarse_cdf, const CellCdf& fine_cdf, double 
 
 // An IncrementCdf called at every cell edge.
 struct FunctionCellCdf {
-  double operator()(int, int, double y) const { return (*cdf)(y); }
+  double operator()(int, double y) const { return (*cdf)(y); }
   const IncrementCdf* cdf;
 };
 
@@ -118,25 +177,16 @@ double EmpiricalCdf(std::span<const double> sorted, double y) {
 }
 
 void EmpiricalChainCdf::Tabulate(std::span<const double> sorted, double h, int m) {
-  sorted_ = sorted;
   const int n = m + 1;
-  offset_ = n - 1;
+  offset_ = n;
   const double w = h / (m + 0.5);
-  // The edge (j + 1/2) w - i w as ChainArl rounds it lies within about
-  // 4 u n w of (k + 1/2) w, k = j - i (u = DBL_EPSILON / 2: three roundings of
-  // terms below n w, and one of the tabulated edge); 8 times that is the band.
-  const double band = 16.0 * DBL_EPSILON * (n + 1) * w;
+  table_.resize(2 * static_cast<size_t>(n));
+  // The edges rise with k: each search starts where the last one ended.
+  auto from = sorted.begin();
   const double size = static_cast<double>(sorted.size());
-  table_.resize(2 * n - 1);
-  for (int k = -(n - 1); k <= n - 1; ++k) {
-    const double edge = (k + 0.5) * w;
-    const auto below_band = std::lower_bound(sorted.begin(), sorted.end(), edge - band);
-    const auto above_band = std::upper_bound(below_band, sorted.end(), edge + band);
-    // With no sample value in the band, every edge rounded into it counts the
-    // same values; otherwise that edge is searched as it is.
-    table_[k + offset_] = below_band == above_band
-                              ? static_cast<double>(below_band - sorted.begin()) / size
-                              : -1.0;
+  for (int k = -n; k < n; ++k) {
+    from = std::upper_bound(from, sorted.end(), (k + 0.5) * w);
+    table_[static_cast<size_t>(k + offset_)] = static_cast<double>(from - sorted.begin()) / size;
   }
 }
 

@@ -9,7 +9,8 @@
 // (which holds the atom at 0), cell j = [(j - 1/2) w, (j + 1/2) w). The chain moves
 // from cell i (represented by S = i w) to cell j with probability
 // F((j + 1/2) w - i w) - F((j - 1/2) w - i w) (cell 0: F(w/2 - i w)), and the
-// ARL vector solves (I - R) L = 1. The error is O(1/m^2), so two chains (m and
+// ARL vector solves (I - R) L = 1 (in O(m^2): R is Toeplitz but for its first
+// column; run_length_chain.cc). The error is O(1/m^2), so two chains (m and
 // 2m) are combined by Richardson extrapolation: L = (4 L_2m - L_m) / 3.
 //
 // Used for the rate detector (exponential inter-arrival increments: Vardeman &
@@ -43,30 +44,23 @@ StatusOr<double> CalibrateOneSidedCusum(const IncrementCdf& cdf, double arl0,
 double EmpiricalCdf(std::span<const double> sorted, double y);
 
 // The empirical CDF of a sorted sample on the cell edges of one chain (m
-// cells, decision interval h): row i, column j is evaluated at the edge
-// (j + 1/2) w - i w, which depends on k = j - i alone but for rounding. So the
-// CDF is tabulated once per k (2m + 1 searches instead of (m + 1)^2), and an
-// edge is searched as it is only where a sample value lies within a rounding
-// band of (k + 1/2) w. Either way the value is bit for bit EmpiricalCdf at the
-// edge as rounded. Holds a view of the sample: it must outlive the table.
+// cells, decision interval h): the chain's matrix is Toeplitz but for its
+// first column, so it needs F only at the edges (k + 1/2) w, k = -(m + 1)..m,
+// one search each. Holds a view of the sample: it must outlive the table.
 class EmpiricalChainCdf {
  public:
   void Tabulate(std::span<const double> sorted, double h, int m);
 
-  // F(y) for row i, column j, y the rounded edge of that cell.
-  double operator()(int i, int j, double y) const {
-    const double tabulated = table_[j - i + offset_];
-    return tabulated >= 0.0 ? tabulated : EmpiricalCdf(sorted_, y);
-  }
+  // F at the edge (k + 1/2) w (y, as the chain computes it, is not needed).
+  double operator()(int k, double) const { return table_[static_cast<size_t>(k + offset_)]; }
 
  private:
-  std::span<const double> sorted_;
-  std::vector<double> table_;  // by k + offset_; -1 where a value is in the band
+  std::vector<double> table_;  // by k + offset_
   int offset_ = 0;
 };
 
-// OneSidedCusumArl (start 0) for the empirical CDF of a sorted sample,
-// equal bit for bit to it with cdf = EmpiricalCdf(sorted_increments, .).
+// OneSidedCusumArl (start 0) for the empirical CDF of a sorted sample, equal
+// bit for bit to it with cdf = EmpiricalCdf(sorted_increments, .).
 double OneSidedCusumArlFromSample(std::span<const double> sorted_increments, double h,
                                   int cells = 150);
 
