@@ -66,12 +66,15 @@ double PackedQuadraticForm(const double* lower, int n, const double* x) {
 
 }  // namespace
 
+#if defined(__x86_64__) && defined(__GNUC__) && !defined(__SANITIZE_THREAD__)
+__attribute__((target_clones("avx512f", "avx2", "default"), optimize("fp-contract=off")))
+#endif
 void PackedSymmetricTimesVector(const double* lower, int n, const double* x, double* y) {
   // Row by row, each y_i in its own accumulator: terms j < i come from row i
   // of the triangle (one entry per column), terms j >= i from column i, in that
-  // order. Four rows at a time give the processor four independent sums.
-  // Plain multiply then add, with no fused multiply-add (this function is not
-  // built for wider instruction sets), so each sum rounds as Eigen's does.
+  // order. Four rows at a time give the processor four independent sums (one
+  // vector of four where it has them). Plain multiply then add, with fused
+  // multiply-add turned off in every clone, so each sum rounds as Eigen's does.
   int i = 0;
   for (; i + 4 <= n; i += 4) {
     double a0 = 0.0, a1 = 0.0, a2 = 0.0, a3 = 0.0;
@@ -123,6 +126,35 @@ void PackedSymmetricTimesVector(const double* lower, int n, const double* x, dou
     for (int j = 0; j < i; c += n - j, ++j) a += c[i - j] * x[j];
     for (int j = i; j < n; ++j) a += c[j - i] * x[j];  // c: column i now
     y[i] = a;
+  }
+}
+
+// On the widest vectors the processor has. Each value is one multiply and one
+// add, in that order, whatever the width (fused multiply-add is turned off, as
+// it would round once instead of twice), so every copy gives the baseline
+// build's bits. Not under ThreadSanitizer (DivideAll says why).
+#if defined(__x86_64__) && defined(__GNUC__) && !defined(__SANITIZE_THREAD__)
+__attribute__((target_clones("avx512f", "avx2", "default"), optimize("fp-contract=off")))
+#endif
+void RankOneUpdatePacked(double* lower, int n, double alpha, const double* u) {
+  typedef double Lanes __attribute__((vector_size(32)));
+  constexpr int kLanes = static_cast<int>(sizeof(Lanes) / sizeof(double));
+  double* column = lower;
+  for (int i = 0; i < n; column += n - i, ++i) {
+    const double scale = alpha * u[i];
+    Lanes scales;
+    for (int lane = 0; lane < kLanes; ++lane) scales[lane] = scale;
+    const double* tail = u + i;
+    const int length = n - i;
+    int k = 0;
+    for (; k + kLanes <= length; k += kLanes) {
+      Lanes c, t;
+      std::memcpy(&c, column + k, sizeof c);
+      std::memcpy(&t, tail + k, sizeof t);
+      c += scales * t;
+      std::memcpy(column + k, &c, sizeof c);
+    }
+    for (; k < length; ++k) column[k] += scale * tail[k];
   }
 }
 
@@ -399,14 +431,8 @@ Status SeasonalForecaster::CommitUpdate(double y) {
   const double denominator = 1.0 + pending_.xpx;
   theta_.noalias() += px_ * (error / denominator);
   // Rank-one downdate of the packed lower triangle, P += alpha u u' with
-  // u = P x: column i gets (alpha u_i) u, as Eigen's selfadjoint rankUpdate
-  // computes it (rounding included). P stays exactly symmetric. Bounded as well.
-  const double alpha = -1.0 / denominator;
-  const int n = dimension();
-  double* column = p_lower_.data();
-  for (int i = 0; i < n; column += n - i, ++i) {
-    Eigen::Map<Vector>(column, n - i) += (alpha * px_[i]) * px_.tail(n - i);
-  }
+  // u = P x (rounding as Eigen's). P stays exactly symmetric. Bounded as well.
+  RankOneUpdatePacked(p_lower_.data(), dimension(), -1.0 / denominator, px_.data());
   BoundCovariance(t);
   ++updates_;
   pending_.active = false;

@@ -133,6 +133,11 @@ struct Forecast {
 // overlap.
 void PackedSymmetricTimesVector(const double* lower, int n, const double* x, double* y);
 
+// P += alpha u u' on the same packed triangle: column j gets (alpha u_j) times
+// u_j..u_{n-1}, each entry one multiply and one add, as Eigen computes
+// `column += (alpha * u[j]) * u.tail(n - j)`, bit for bit at every vector width.
+void RankOneUpdatePacked(double* lower, int n, double alpha, const double* u);
+
 class SeasonalForecaster {
  public:
   // Precondition: options.IsValid(). The model starts with no data; the first
