@@ -5,7 +5,7 @@
 #include <functional>
 #include <limits>
 #include <string>
-
+#include <vector>
 
 namespace plumbline {
 namespace {
@@ -29,10 +29,12 @@ struct ChainWorkspace {
 // and Van Loan, "Matrix Computations", 3rd ed., section 4.7; from memory): the
 // leading m x m block's solutions of B f = e_first and B g = e_last extend to
 // the block of m + 1 with the errors their one new row and column make, and
-// each right-hand side's solution with them, in O(n^2). Every leading block of
-// the chain's B is strictly diagonally dominant by rows (each row of R sums to
-// below 1, the rest is the chance of an alarm), so none is singular and the
-// recursion cannot break down.
+// each right-hand side's solution with them, in O(n^2). Where every state can
+// alarm (each row of R sums to below 1), every leading block of the chain's B
+// is strictly diagonally dominant by rows, so none is singular and the
+// recursion cannot break down. A chain with a state that never alarms has no
+// finite ARL: it comes out NaN or infinite, as from the dense LU before (a
+// re-fit then keeps its ceiling).
 void SolveToeplitz(int n, ChainWorkspace& space) {
   const double* r = space.r.data() + (n - 1);  // r[d], d = i - j in -(n-1)..n-1
   double* f = space.forward.data();
@@ -44,7 +46,7 @@ void SolveToeplitz(int n, ChainWorkspace& space) {
   y[0] = 1.0 / r[0];
   z[0] = u[0] / r[0];
   for (int m = 1; m < n; ++m) {
-    // Row m of the block of m + 1 against [f; 0], [x; 0]; row 0 against [0; g].
+    // Row m of the block of m + 1 against [f; 0], [y; 0], [z; 0]; row 0 against [0; g].
     double ef = 0, eg = 0, ey = 0, ez = 0;
     for (int j = 0; j < m; ++j) {
       ef += r[m - j] * f[j];

@@ -288,6 +288,19 @@ TEST(RunLengthChainTest, ToeplitzSolveEqualsTheDenseChain) {
   EXPECT_GT(DenseChainArl(normal(0.5), 15.0, 0.0, 150), 1e7);  // the cases reach far
 }
 
+// A sample whose increments never climb (a constant series' capped squares
+// less k, say) gives a chain in which the statistic never leaves zero: no
+// finite ARL, and the re-fit keeps its ceiling rather than failing or picking
+// the floor (common practice, no source).
+TEST(RunLengthChainTest, ASampleThatNeverClimbsKeepsTheCeiling) {
+  for (const double value : {-1.0, -1e-3, 0.0}) {
+    const std::vector<double> sample(200, value);
+    const StatusOr<double> h = CalibrateOneSidedCusumFromSample(sample, 1000.0, 1.0, 40.0);
+    ASSERT_TRUE(h.ok()) << value;
+    EXPECT_EQ(*h, 40.0) << value;
+  }
+}
+
 TEST(RunLengthChainTest, ArlFromSampleEqualsArlOfTheEmpiricalCdfBitForBit) {
   for (const double h : {0.37, 4.0, 11.3}) {
     for (const std::vector<double>& sample : EdgeCaseSamples(h, 80)) {
