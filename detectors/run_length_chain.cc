@@ -84,14 +84,13 @@ void SolveToeplitz(int n, ChainWorkspace& space) {
 //
 //   x = y + z y_0 / (1 - z_0),   B y = 1,   B z = u.
 //
-// edge_cdf(k, y) gives F(y) at the edge y = (k + 1/2) w, k = -n..n-1.
-template <typename EdgeCdf>
-double ChainArl(const EdgeCdf& edge_cdf, double h, double start, int m,
-                ChainWorkspace& space) {
+// cdf(y) is F, called once at each edge (k + 1/2) w, k = -n..n-1.
+template <typename Cdf>
+double ChainArl(const Cdf& cdf, double h, double start, int m, ChainWorkspace& space) {
   const double w = h / (m + 0.5);
   const int n = m + 1;
   double* edges = space.edges.data() + n;  // edges[k], k = -n..n-1
-  for (int k = -n; k < n; ++k) edges[k] = edge_cdf(k, (k + 0.5) * w);
+  for (int k = -n; k < n; ++k) edges[k] = cdf((k + 0.5) * w);
   // B_ij = delta_ij - t_{j - i}, t_d = F at edge d less F at edge d - 1: in the
   // r[i - j] form of SolveToeplitz, r[d] = delta_d0 - t_{-d}.
   for (int d = -(n - 1); d <= n - 1; ++d) {
@@ -112,19 +111,18 @@ double ChainArl(const EdgeCdf& edge_cdf, double h, double start, int m,
   return (1.0 - fraction) * arl(lower) + fraction * arl(lower + 1);
 }
 
-template <typename EdgeCdf>
-double RichardsonArl(const EdgeCdf& coarse_cdf, const EdgeCdf& fine_cdf, double h,
-                     double start, int cells, ChainWorkspace& coarse_space,
-                     ChainWorkspace& fine_space) {
-  const double coarse = ChainArl(coarse_cdf, h, start, cells, coarse_space);
-  const double fine = ChainArl(fine_cdf, h, start, 2 * cells, fine_space);
+template <typename Cdf>
+double RichardsonArl(const Cdf& cdf, double h, double start, int cells,
+                     ChainWorkspace& coarse_space, ChainWorkspace& fine_space) {
+  const double coarse = ChainArl(cdf, h, start, cells, coarse_space);
+  const double fine = ChainArl(cdf, h, start, 2 * cells, fine_space);
   return (4.0 * fine - coarse) / 3.0;
 }
 
-// An IncrementCdf called at every cell edge.
-struct FunctionCellCdf {
-  double operator()(int, double y) const { return (*cdf)(y); }
-  const IncrementCdf* cdf;
+// The empirical CDF of a sorted sample, as a chain reads it.
+struct SampleCdf {
+  std::span<const double> sorted;
+  double operator()(double y) const { return EmpiricalCdf(sorted, y); }
 };
 
 // g(h) = log ARL(h) - log arl0, the gap a calibration closes; -inf where the
@@ -178,33 +176,15 @@ double EmpiricalCdf(std::span<const double> sorted, double y) {
          static_cast<double>(sorted.size());
 }
 
-void EmpiricalChainCdf::Tabulate(std::span<const double> sorted, double h, int m) {
-  const int n = m + 1;
-  offset_ = n;
-  const double w = h / (m + 0.5);
-  table_.resize(2 * static_cast<size_t>(n));
-  // The edges rise with k: each search starts where the last one ended.
-  auto from = sorted.begin();
-  const double size = static_cast<double>(sorted.size());
-  for (int k = -n; k < n; ++k) {
-    from = std::upper_bound(from, sorted.end(), (k + 0.5) * w);
-    table_[static_cast<size_t>(k + offset_)] = static_cast<double>(from - sorted.begin()) / size;
-  }
-}
-
 double OneSidedCusumArl(const IncrementCdf& cdf, double h, double start, int cells) {
   ChainWorkspace coarse(cells + 1), fine(2 * cells + 1);
-  const FunctionCellCdf cell_cdf{&cdf};
-  return RichardsonArl(cell_cdf, cell_cdf, h, start, cells, coarse, fine);
+  return RichardsonArl(cdf, h, start, cells, coarse, fine);
 }
 
 double OneSidedCusumArlFromSample(std::span<const double> sorted_increments, double h,
                                   int cells) {
-  EmpiricalChainCdf coarse_cdf, fine_cdf;
-  coarse_cdf.Tabulate(sorted_increments, h, cells);
-  fine_cdf.Tabulate(sorted_increments, h, 2 * cells);
   ChainWorkspace coarse(cells + 1), fine(2 * cells + 1);
-  return RichardsonArl(coarse_cdf, fine_cdf, h, 0.0, cells, coarse, fine);
+  return RichardsonArl(SampleCdf{sorted_increments}, h, 0.0, cells, coarse, fine);
 }
 
 StatusOr<double> CalibrateOneSidedCusum(const IncrementCdf& cdf, double arl0,
@@ -216,9 +196,8 @@ StatusOr<double> CalibrateOneSidedCusum(const IncrementCdf& cdf, double arl0,
   // step was a quarter of the time, in page faults).
   constexpr int kCells = 150;  // OneSidedCusumArl's default
   ChainWorkspace coarse(kCells + 1), fine(2 * kCells + 1);
-  const FunctionCellCdf cell_cdf{&cdf};
   const ArlGap g{[&](double h) {
-                   return RichardsonArl(cell_cdf, cell_cdf, h, 0.0, kCells, coarse, fine);
+                   return RichardsonArl(cdf, h, 0.0, kCells, coarse, fine);
                  },
                  std::log(arl0)};
   // Double h from 1 until the ARL reaches arl0, then close in on it.
@@ -251,12 +230,9 @@ StatusOr<double> CalibrateOneSidedCusumFromSample(std::vector<double> increments
   // 40 did not) and a 1% bracket are enough, and keep a re-fit to tens of
   // milliseconds per series.
   constexpr int kCells = 80;
-  EmpiricalChainCdf coarse_cdf, fine_cdf;
   ChainWorkspace coarse(kCells + 1), fine(2 * kCells + 1);
   const ArlGap g{[&](double h) {
-                   coarse_cdf.Tabulate(increments, h, kCells);
-                   fine_cdf.Tabulate(increments, h, 2 * kCells);
-                   return RichardsonArl(coarse_cdf, fine_cdf, h, 0.0, kCells, coarse, fine);
+                   return RichardsonArl(SampleCdf{increments}, h, 0.0, kCells, coarse, fine);
                  },
                  std::log(arl0)};
   const double g_low = g(h_floor);

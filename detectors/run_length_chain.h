@@ -43,22 +43,6 @@ StatusOr<double> CalibrateOneSidedCusum(const IncrementCdf& cdf, double arl0,
 // binary search).
 double EmpiricalCdf(std::span<const double> sorted, double y);
 
-// The empirical CDF of a sorted sample on the cell edges of one chain (m
-// cells, decision interval h): the chain's matrix is Toeplitz but for its
-// first column, so it needs F only at the edges (k + 1/2) w, k = -(m + 1)..m,
-// one search each. Holds a view of the sample: it must outlive the table.
-class EmpiricalChainCdf {
- public:
-  void Tabulate(std::span<const double> sorted, double h, int m);
-
-  // F at the edge (k + 1/2) w (y, as the chain computes it, is not needed).
-  double operator()(int k, double) const { return table_[static_cast<size_t>(k + offset_)]; }
-
- private:
-  std::vector<double> table_;  // by k + offset_
-  int offset_ = 0;
-};
-
 // OneSidedCusumArl (start 0) for the empirical CDF of a sorted sample, equal
 // bit for bit to it with cdf = EmpiricalCdf(sorted_increments, .).
 double OneSidedCusumArlFromSample(std::span<const double> sorted_increments, double h,
