@@ -13,16 +13,26 @@
 namespace plumbline {
 namespace {
 
-// Divides each of `count` values by `divisor` in place, on the widest vectors
-// the processor has. Division is correctly rounded at every width, so every
-// copy gives the same bits; on the baseline x86-64 build, two lanes at a time,
-// the n^2 divisions of the forgetting step were the costliest part of an
-// update (about 40% of it for n = 20, by perf). Not under ThreadSanitizer:
-// the clones' resolver runs while the program is being relocated, before the
-// sanitizer's runtime has started, and its instrumented code crashes there.
+// A function built once per instruction set (AVX-512, AVX2, the baseline), the
+// widest the processor has being chosen at load time. Fused multiply-add is off in
+// every copy: it rounds once where a multiply and an add round twice, so the
+// copies would differ from the baseline build (and from Eigen's code) in the
+// last bits. Not under ThreadSanitizer: the clones' resolver runs while the
+// program is being relocated, before the sanitizer's runtime has started, and
+// its instrumented code crashes there.
 #if defined(__x86_64__) && defined(__GNUC__) && !defined(__SANITIZE_THREAD__)
-__attribute__((target_clones("avx512f", "avx2", "default")))
+#define PLUMBLINE_WIDEST_VECTORS \
+  __attribute__((target_clones("avx512f", "avx2", "default"), optimize("fp-contract=off")))
+#else
+#define PLUMBLINE_WIDEST_VECTORS
 #endif
+
+// Divides each of `count` values by `divisor` in place, on the widest vectors.
+// Division is correctly rounded at every width, so every copy gives the same
+// bits; on the baseline x86-64 build, two lanes at a time, the n^2 divisions of
+// the forgetting step were the costliest part of an update (about 40% of it
+// for n = 20, by perf).
+PLUMBLINE_WIDEST_VECTORS
 void DivideAll(double* values, std::size_t count, double divisor) {
   typedef double Lanes __attribute__((vector_size(64)));
   constexpr std::size_t kLanes = sizeof(Lanes) / sizeof(double);
@@ -66,15 +76,13 @@ double PackedQuadraticForm(const double* lower, int n, const double* x) {
 
 }  // namespace
 
-#if defined(__x86_64__) && defined(__GNUC__) && !defined(__SANITIZE_THREAD__)
-__attribute__((target_clones("avx512f", "avx2", "default"), optimize("fp-contract=off")))
-#endif
+PLUMBLINE_WIDEST_VECTORS
 void PackedSymmetricTimesVector(const double* lower, int n, const double* x, double* y) {
   // Row by row, each y_i in its own accumulator: terms j < i come from row i
   // of the triangle (one entry per column), terms j >= i from column i, in that
   // order. Four rows at a time give the processor four independent sums (one
-  // vector of four where it has them). Plain multiply then add, with fused
-  // multiply-add turned off in every clone, so each sum rounds as Eigen's does.
+  // vector of four where it has them). Plain multiply then add in every copy
+  // (PLUMBLINE_WIDEST_VECTORS), so each sum rounds as Eigen's does.
   int i = 0;
   for (; i + 4 <= n; i += 4) {
     double a0 = 0.0, a1 = 0.0, a2 = 0.0, a3 = 0.0;
@@ -129,13 +137,10 @@ void PackedSymmetricTimesVector(const double* lower, int n, const double* x, dou
   }
 }
 
-// On the widest vectors the processor has. Each value is one multiply and one
-// add, in that order, whatever the width (fused multiply-add is turned off, as
-// it would round once instead of twice), so every copy gives the baseline
-// build's bits. Not under ThreadSanitizer (DivideAll says why).
-#if defined(__x86_64__) && defined(__GNUC__) && !defined(__SANITIZE_THREAD__)
-__attribute__((target_clones("avx512f", "avx2", "default"), optimize("fp-contract=off")))
-#endif
+// On the widest vectors (PLUMBLINE_WIDEST_VECTORS): each value is one multiply and one
+// add, in that order, whatever the width, so every copy gives the baseline
+// build's bits.
+PLUMBLINE_WIDEST_VECTORS
 void RankOneUpdatePacked(double* lower, int n, double alpha, const double* u) {
   typedef double Lanes __attribute__((vector_size(32)));
   constexpr int kLanes = static_cast<int>(sizeof(Lanes) / sizeof(double));
